@@ -1,0 +1,67 @@
+"""perftest: turn a logged thermal-plant test run into a defensible result.
+
+The public names are imported lazily so that ``import perftest`` stays fast
+and a command such as ``perftest --help`` does not load CoolProp or matplotlib.
+"""
+
+from __future__ import annotations
+
+import importlib
+
+from perftest.errors import (
+    ConvergenceError,
+    DataError,
+    InputError,
+    PerftestError,
+    PerftestWarning,
+    PlantFileError,
+    PropertyRangeError,
+    UnitError,
+)
+
+__version__ = "0.1.0.dev0"
+
+# public name -> module that defines it
+_LAZY = {
+    "load_plant": "perftest.plantfile",
+    "Plant": "perftest.plantfile",
+    "read_run": "perftest.importers",
+    "Run": "perftest.run",
+    "Measurements": "perftest.measurements",
+    "reconcile_linear": "perftest.balance",
+    "reconcile_linear_batch": "perftest.balance",
+    "reconcile_nonlinear": "perftest.balance",
+    "Reconciliation": "perftest.balance",
+    "serial_elimination": "perftest.balance",
+    "reconcile": "perftest.model",
+    "evaluate": "perftest.results",
+    "reconcile_many": "perftest.scale",
+}
+
+__all__ = sorted(
+    [
+        "__version__",
+        "PerftestError",
+        "InputError",
+        "DataError",
+        "PlantFileError",
+        "UnitError",
+        "PropertyRangeError",
+        "ConvergenceError",
+        "PerftestWarning",
+        *_LAZY,
+    ]
+)
+
+
+def __getattr__(name: str):
+    module = _LAZY.get(name)
+    if module is None:
+        raise AttributeError(f"module 'perftest' has no attribute {name!r}")
+    value = getattr(importlib.import_module(module), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__():
+    return __all__
