@@ -335,7 +335,8 @@ _alias("Btu/ft3|Btu/scf|Btu/cf", "Btu_it/ft**3", "specific_energy", _VE)
 # specific entropy
 for _e, _x in (("J", "J"), ("kJ", "kJ")):
     _alias(
-        f"{_e}/(kg K)|{_e}/kgK|{_e}/kg/K|{_e}/kg.K|{_e}/kg-K|{_e}/(kg.K)|{_e}/(kg degC)|{_e}/kg/degC",
+        f"{_e}/(kg K)|{_e}/kgK|{_e}/kg/K|{_e}/kg.K|{_e}/kg-K|{_e}/(kg.K)|{_e}/(kg degC)|"
+        f"{_e}/kg/degC",
         f"{_x}/(kg*K)",
         "specific_entropy",
     )
@@ -679,6 +680,8 @@ def _aux(value, values, name: str, function: str):
     if hasattr(value, "reindex") and hasattr(values, "index"):
         value = value.reindex(values.index)
     arr = _as_array(value, name, function)
+    if arr.ndim == 1 and np.ndim(values) == 2:
+        arr = arr[:, None]  # one reference per row (time) of a 2-D block
     if arr.ndim == 0:
         if not np.isfinite(arr) or arr <= 0:
             raise InputError(
