@@ -92,8 +92,7 @@ def _check_positive(x, func: str, parameter: str, what: str = "positive") -> np.
         bad = v <= 0
     if np.any(bad):
         raise InputError(
-            f"The '{parameter}' parameter of {func} must be {what}. "
-            f"Got {_first_bad(v, bad):g}.",
+            f"The '{parameter}' parameter of {func} must be {what}. Got {_first_bad(v, bad):g}.",
             parameter=parameter,
         )
     return v
@@ -369,9 +368,12 @@ def carnot_efficiency(source_temperature, sink_temperature):
     0.5
     """
     _check_below(
-        sink_temperature, source_temperature, "carnot_efficiency",
-        "sink_temperature", "source_temperature",
-    )  # fmt: skip
+        sink_temperature,
+        source_temperature,
+        "carnot_efficiency",
+        "sink_temperature",
+        "source_temperature",
+    )
     return _out(1.0 - sink_temperature / source_temperature)
 
 
@@ -406,9 +408,12 @@ def curzon_ahlborn_efficiency(source_temperature, sink_temperature):
     0.5
     """
     _check_below(
-        sink_temperature, source_temperature, "curzon_ahlborn_efficiency",
-        "sink_temperature", "source_temperature",
-    )  # fmt: skip
+        sink_temperature,
+        source_temperature,
+        "curzon_ahlborn_efficiency",
+        "sink_temperature",
+        "source_temperature",
+    )
     return _out(1.0 - np.sqrt(sink_temperature / source_temperature))
 
 
@@ -495,9 +500,12 @@ def carnot_cop_refrigeration(cold_temperature, hot_temperature):
     5.0
     """
     _check_below(
-        cold_temperature, hot_temperature, "carnot_cop_refrigeration",
-        "cold_temperature", "hot_temperature",
-    )  # fmt: skip
+        cold_temperature,
+        hot_temperature,
+        "carnot_cop_refrigeration",
+        "cold_temperature",
+        "hot_temperature",
+    )
     return _out(cold_temperature / (hot_temperature - cold_temperature))
 
 
@@ -532,9 +540,12 @@ def carnot_cop_heat_pump(cold_temperature, hot_temperature):
     6.0
     """
     _check_below(
-        cold_temperature, hot_temperature, "carnot_cop_heat_pump",
-        "cold_temperature", "hot_temperature",
-    )  # fmt: skip
+        cold_temperature,
+        hot_temperature,
+        "carnot_cop_heat_pump",
+        "cold_temperature",
+        "hot_temperature",
+    )
     return _out(hot_temperature / (hot_temperature - cold_temperature))
 
 
@@ -623,10 +634,15 @@ def heat_exergy(heat, source_temperature, dead_state_temperature):
     50000.0
     """
     func = "heat_exergy"
-    _check_positive(source_temperature, func, "source_temperature", "a positive absolute "
-                    "temperature [K]")  # fmt: skip
-    _check_positive(dead_state_temperature, func, "dead_state_temperature", "a positive "
-                    "absolute temperature [K]")  # fmt: skip
+    _check_positive(
+        source_temperature, func, "source_temperature", "a positive absolute temperature [K]"
+    )
+    _check_positive(
+        dead_state_temperature,
+        func,
+        "dead_state_temperature",
+        "a positive absolute temperature [K]",
+    )
     return _out(heat * (1.0 - dead_state_temperature / source_temperature))
 
 
@@ -749,8 +765,12 @@ def gouy_stodola_destruction(entropy_generation, dead_state_temperature):
     600.0
     """
     func = "gouy_stodola_destruction"
-    _check_positive(dead_state_temperature, func, "dead_state_temperature",
-                    "a positive absolute temperature [K]")  # fmt: skip
+    _check_positive(
+        dead_state_temperature,
+        func,
+        "dead_state_temperature",
+        "a positive absolute temperature [K]",
+    )
     s = _values(entropy_generation, func, "entropy_generation")
     if np.any(s < 0):
         warnings.warn(
