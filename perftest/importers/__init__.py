@@ -1,0 +1,10 @@
+"""Run-file importers: CSV logs into a :class:`~perftest.run.Run`.
+
+See docs/run-files.md for the accepted files, the alignment rule and the masks.
+"""
+
+from __future__ import annotations
+
+from perftest.importers.reader import read_parts, read_run
+
+__all__ = ["read_run", "read_parts"]

@@ -1,0 +1,645 @@
+"""Reading one run CSV: layout detection, the pyarrow fast path, cell classification.
+
+The reader never looks at every cell in Python.  pyarrow parses the file with the
+value columns typed as float64; only a column that pyarrow refuses (it holds text
+somewhere) is read as text and classified cell by cell, and even then the
+classification runs once per distinct text, not once per cell.
+"""
+
+from __future__ import annotations
+
+import csv
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+import pyarrow.csv as pacsv
+
+from perftest.errors import DataError, InputError, UnitError
+
+__all__ = [
+    "FileLayout",
+    "sniff",
+    "read_table",
+    "classify_values",
+    "quality_bad",
+    "lines_of_rows",
+    "TEXT_SENTINELS",
+    "NUMERIC_SENTINELS",
+    "GOOD_QUALITY",
+]
+
+#: Cell texts that mean "no valid sample" (compared case-insensitively, trimmed).
+#: Common practice of historian and logger exports, no source.
+TEXT_SENTINELS: frozenset[str] = frozenset(
+    {
+        "bad",
+        "bad input",
+        "bad data",
+        "i/o timeout",
+        "io timeout",
+        "timeout",
+        "comm fail",
+        "comm failure",
+        "calc failed",
+        "calc error",
+        "no data",
+        "nodata",
+        "not connected",
+        "scan off",
+        "shutdown",
+        "pt created",
+        "over range",
+        "under range",
+        "out of service",
+        "error",
+        "err",
+        "invalid",
+        "n/a",
+        "#n/a",
+        "na",
+        "#na",
+        "null",
+        "none",
+        "#value!",
+        "#ref!",
+        "#div/0!",
+        "#num!",
+        "---",
+        "----",
+    }
+)
+
+#: Spellings of "not a number" that pandas/pyarrow read as NaN.
+NAN_TEXTS: frozenset[str] = frozenset({"nan", "-nan", "+nan"})
+
+#: Numeric cell values that loggers write for a missing sample.  Common practice, no
+#: source; -9999 and 9999999 are the usual "no value" fillers of data loggers.
+NUMERIC_SENTINELS: tuple[float, ...] = (-9999.0, -99999.0, 9999999.0, -9999999.0)
+
+#: Quality/status cell values that mean "good".  "Good"/"OK" are the words of
+#: historian exports; 192 (0xC0) is the OPC DA "good" quality code; 0 is the
+#: "no fault" status of most PLC status words.  Anything else, blank included,
+#: marks the sample bad.  Common practice, no source.
+GOOD_QUALITY: frozenset[str] = frozenset({"good", "ok", "g", "192", "0"})
+
+_QUALITY_RE = re.compile(
+    r"^(?P<base>.+?)(?:\.q|\.quality|_quality| quality|\.status|_status| status)$",
+    re.IGNORECASE,
+)
+
+_SEPARATORS = (",", ";", "\t")
+_SEP_NAMES = {",": "comma", ";": "semicolon", "\t": "tab"}
+_COMMA_NUMBER = re.compile(r"^[+-]?\d+,\d+(?:[eE][+-]?\d+)?$")
+_DOT_NUMBER = re.compile(r"^[+-]?\d*\.\d+(?:[eE][+-]?\d+)?$")
+_CONVERSION_ERROR = re.compile(r"In CSV column #(\d+): CSV conversion error")
+_HEAD_BYTES = 1 << 16
+_SAMPLE_LINES = 50
+
+
+def sep_name(sep: str) -> str:
+    """Readable name of a separator for messages."""
+    return _SEP_NAMES.get(sep, repr(sep))
+
+
+@dataclass
+class FileLayout:
+    """What :func:`sniff` found out about a run file before reading it."""
+
+    path: Path
+    encoding: str
+    sep: str
+    decimal: str
+    header_line: int  # 1-based line number of the header
+    header: list[str]
+    units_row: list[str] | None
+    first_data_line: int  # 1-based line number of the first data row
+    sample_rows: list[list[str]] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)
+
+    @property
+    def name(self) -> str:
+        return self.path.name
+
+    @property
+    def stem(self) -> str:
+        return self.path.stem
+
+    def where(self, line: int | None = None, column: str | None = None) -> str:
+        """Place prefix for messages: ``"run.csv, line 17, column 'TT-101'"``."""
+        parts = [self.name]
+        if line is not None:
+            parts.append(f"line {line}")
+        if column is not None:
+            parts.append(f"column {column!r}")
+        return ", ".join(parts)
+
+
+def _number(text: str, decimal: str) -> bool:
+    t = text.strip()
+    if decimal == ",":
+        t = t.replace(",", ".")
+    try:
+        float(t)
+    except ValueError:
+        return False
+    return t.casefold() not in NAN_TEXTS
+
+
+def _split(line: str, sep: str) -> list[str]:
+    return next(csv.reader([line], delimiter=sep, quotechar='"'), [])
+
+
+def _decode_head(path: Path, head: bytes) -> tuple[str, str]:
+    if b"\x00" in head:
+        raise DataError(
+            f"{path.name}: the file looks binary (it holds NUL bytes), not a text CSV. "
+            "Export the log as a comma, semicolon or tab separated text file.",
+            file=path,
+        )
+    # Cut at the last newline so that a multi-byte character split by the read
+    # does not look like an encoding error.
+    cut = head.rfind(b"\n")
+    body = head if cut < 0 or len(head) < _HEAD_BYTES else head[: cut + 1]
+    for encoding in ("utf-8-sig", "cp1252"):
+        try:
+            return body.decode(encoding), encoding
+        except UnicodeDecodeError:
+            continue
+    return body.decode("latin-1"), "latin-1"
+
+
+def sniff(path, *, sep: str | None = None, decimal: str | None = None) -> FileLayout:
+    """Find separator, decimal mark, header, units row and encoding of a run file.
+
+    Parameters
+    ----------
+    path : str or Path
+        The CSV file.
+    sep : str, optional
+        Field separator; detected among comma, semicolon and tab when None.
+    decimal : str, optional
+        Decimal mark ``"."`` or ``","``; detected when None (a comma only with a
+        semicolon or tab separator).
+
+    Returns
+    -------
+    FileLayout
+
+    Raises
+    ------
+    DataError
+        Missing, empty or binary file, a header without data, an unnamed or
+        duplicated column, a single-column file.
+    """
+    path = Path(path)
+    if not path.exists():
+        raise DataError(
+            f"{path}: the run file does not exist. Check the path and the file name.", file=path
+        )
+    if not path.is_file():
+        raise DataError(
+            f"{path}: is not a file (a directory?). Give the path of a CSV file.", file=path
+        )
+    with open(path, "rb") as fh:
+        head = fh.read(_HEAD_BYTES)
+    if not head.strip():
+        raise DataError(
+            f"{path.name}: the file is empty. Export the run again; it needs a header line "
+            "with the column names and one line per time stamp.",
+            file=path,
+        )
+    text, encoding = _decode_head(path, head)
+    lines = text.splitlines()
+    notes = []
+    if encoding != "utf-8-sig":
+        notes.append(f"{path.name}: not valid UTF-8, read as {encoding}")
+
+    # Leading comment lines ("# exported by ...") and blank lines come before the header.
+    k = 0
+    while k < len(lines) and (not lines[k].strip() or lines[k].lstrip().startswith("#")):
+        k += 1
+    if k == len(lines):
+        raise DataError(
+            f"{path.name}: the file holds only blank or comment lines. It needs a header "
+            "line with the column names and one line per time stamp.",
+            file=path,
+        )
+    header_line = k + 1
+    sample = [ln for ln in lines[k + 1 : k + 1 + _SAMPLE_LINES] if ln.strip()]
+    # With a full head buffer the last line may be cut short: leave it out.
+    if len(head) == _HEAD_BYTES and len(sample) > 1:
+        sample = sample[:-1]
+
+    if sep is None:
+        sep = _detect_sep(path, lines[k], sample)
+    header = [h.strip() for h in _split(lines[k], sep)]
+    if len(header) < 2:
+        raise DataError(
+            f"{path.name}, line {header_line}: the header holds a single column {header[0]!r}; "
+            "a run file needs a time column and at least one value column. Check the "
+            "separator (detected comma, semicolon or tab) or pass sep=.",
+            file=path,
+            line=header_line,
+        )
+    for i, name in enumerate(header):
+        if not name and i < len(header) - 1:
+            raise DataError(
+                f"{path.name}, line {header_line}: column {i + 1} has no name. "
+                "Give every column a name in the header.",
+                file=path,
+                line=header_line,
+            )
+    seen: dict[str, int] = {}
+    for i, name in enumerate(header):
+        if name in seen:
+            raise DataError(
+                f"{path.name}, line {header_line}: the column name {name!r} appears twice "
+                f"(columns {seen[name] + 1} and {i + 1}). Rename one of them.",
+                file=path,
+                line=header_line,
+                column=name,
+            )
+        seen[name] = i
+
+    rows = [_split(ln, sep) for ln in sample]
+    if decimal is None:
+        decimal = _detect_decimal(path, sep, rows)
+    elif decimal not in (".", ","):
+        raise InputError(
+            f"The 'decimal' parameter of read_run must be '.' or ','. Got {decimal!r}.",
+            parameter="decimal",
+        )
+    if decimal == "," and sep == ",":
+        raise InputError(
+            "The 'decimal' parameter of read_run is ',' but the separator is also ','. "
+            "Pass sep=';' (or the file's separator).",
+            parameter="decimal",
+        )
+
+    units_row = None
+    if rows and _looks_like_units(rows[0], decimal):
+        units_row = [c.strip() for c in rows[0]] + [""] * (len(header) - len(rows[0]))
+        units_row = units_row[: len(header)]
+        rows = rows[1:]
+    first_data_line = _line_after(lines, header_line, 2 if units_row is not None else 1)
+    if not rows:
+        raise DataError(
+            f"{path.name}: the file has a header (line {header_line}) but no data rows. "
+            "Export the run again with its samples.",
+            file=path,
+        )
+    return FileLayout(
+        path=path,
+        encoding="utf8" if encoding == "utf-8-sig" else encoding,
+        sep=sep,
+        decimal=decimal,
+        header_line=header_line,
+        header=header,
+        units_row=units_row,
+        first_data_line=first_data_line,
+        sample_rows=rows,
+        notes=notes,
+    )
+
+
+def _line_after(lines: list[str], header_line: int, skip_nonblank: int) -> int:
+    """1-based line number of the first data line (skipping blank lines)."""
+    i = header_line  # 0-based index of the line after the header
+    count = 0
+    while i < len(lines):
+        if lines[i].strip():
+            count += 1
+            if count == skip_nonblank:
+                return i + 1
+        i += 1
+    return i + 1
+
+
+def _detect_sep(path: Path, header: str, sample: list[str]) -> str:
+    best, best_n = None, 1
+    for cand in _SEPARATORS:
+        n = len(_split(header, cand))
+        if n <= best_n:
+            continue
+        counts = {len(_split(ln, cand)) for ln in sample}
+        # every sampled data line must split into as many fields as the header
+        if counts and counts != {n}:
+            continue
+        best, best_n = cand, n
+    if best is None:
+        # fall back to the separator most frequent in the header
+        best = max(_SEPARATORS, key=header.count)
+        if header.count(best) == 0:
+            raise DataError(
+                f"{path.name}: no comma, semicolon or tab found in the header line; a run "
+                "file needs a time column and at least one value column. Pass sep= if the "
+                "file uses another separator.",
+                file=path,
+            )
+    return best
+
+
+def _detect_decimal(path: Path, sep: str, rows: list[list[str]]) -> str:
+    if sep == ",":
+        return "."
+    n_comma = n_dot = 0
+    for row in rows:
+        for cell in row:
+            c = cell.strip()
+            if _COMMA_NUMBER.match(c):
+                n_comma += 1
+            elif _DOT_NUMBER.match(c):
+                n_dot += 1
+    if n_comma and n_dot:
+        raise DataError(
+            f"{path.name}: the first rows mix decimal commas ({n_comma} cells like '12,5') and "
+            f"decimal points ({n_dot} cells like '12.5'). Pass decimal=',' or decimal='.'.",
+            file=path,
+        )
+    return "," if n_comma else "."
+
+
+def _looks_like_units(cells: list[str], decimal: str) -> bool:
+    """A second line is a units row when no cell is a number and most cells are units."""
+    from perftest.units import parse_unit
+
+    filled = [c.strip() for c in cells if c.strip()]
+    if not filled or any(_number(c, decimal) for c in filled):
+        return False
+    ok = 0
+    for c in filled:
+        try:
+            parse_unit(c)
+            ok += 1
+        except UnitError:
+            pass
+    # the time column's cell ("", "UTC", "yyyy-mm-dd hh:mm") need not be a unit
+    return ok > 0 and 2 * ok >= len(filled) - 1
+
+
+def quality_base(name: str, header: set[str]) -> str | None:
+    """Column a quality/status column belongs to, or None (``"TT-101.Q"`` -> ``"TT-101"``)."""
+    m = _QUALITY_RE.match(name)
+    if m and m.group("base").strip() in header:
+        return m.group("base").strip()
+    return None
+
+
+def _arrow_options(layout, names, include, string_cols):
+    read = pacsv.ReadOptions(
+        column_names=names,
+        skip_rows=layout.first_data_line - 1,
+        encoding=layout.encoding,
+        block_size=1 << 22,
+    )
+    parse = pacsv.ParseOptions(delimiter=layout.sep, quote_char='"', ignore_empty_lines=True)
+    types = {n: (pa.string() if n in string_cols else pa.float64()) for n in include}
+    convert = pacsv.ConvertOptions(
+        include_columns=include,
+        column_types=types,
+        null_values=[""],
+        strings_can_be_null=False,
+        quoted_strings_can_be_null=False,
+        decimal_point=layout.decimal,
+    )
+    return read, parse, convert
+
+
+def read_table(
+    layout: FileLayout, value_cols: list[str], text_cols: list[str]
+) -> tuple[pa.Table, list[str]]:
+    """Read the chosen columns with pyarrow.
+
+    Value columns are read as float64; a column holding text anywhere is read
+    again as text (``text_cols`` always are).  Returns the table and the names
+    of the value columns that had to be read as text.
+    """
+    names = [h if h else f"__unnamed_{i}" for i, h in enumerate(layout.header)]
+    include = list(dict.fromkeys([*text_cols, *value_cols]))
+    as_text = set(text_cols)
+    retries = 0
+    while True:
+        opts = _arrow_options(layout, names, include, as_text)
+        try:
+            table = pacsv.read_csv(
+                layout.path, read_options=opts[0], parse_options=opts[1], convert_options=opts[2]
+            )
+            break
+        except pa.ArrowInvalid as exc:
+            msg = str(exc)
+            m = _CONVERSION_ERROR.search(msg)
+            if m is None:
+                raise _parse_error(layout, msg) from None
+            bad = names[int(m.group(1))]
+            if bad in as_text:  # cannot happen with string columns; do not loop forever
+                raise _parse_error(layout, msg) from None
+            retries += 1
+            if retries > 3:
+                # many columns hold text: read them all as text in one more pass
+                as_text |= set(value_cols)
+            else:
+                as_text.add(bad)
+    if table.num_rows == 0:
+        raise DataError(
+            f"{layout.name}: the file has a header (line {layout.header_line}) but no data "
+            "rows. Export the run again with its samples.",
+            file=layout.path,
+        )
+    return table, [c for c in value_cols if c in as_text]
+
+
+def _parse_error(layout: FileLayout, msg: str) -> DataError:
+    """Turn a pyarrow parse error into a message that names the line."""
+    n = len(layout.header)
+    line_no = None
+    got = None
+    with open(layout.path, encoding=layout.encoding, errors="replace", newline="") as fh:
+        reader = csv.reader(fh, delimiter=layout.sep, quotechar='"')
+        for row in reader:
+            if reader.line_num < layout.first_data_line:
+                continue
+            if not row:
+                continue
+            if len(row) != n:
+                line_no, got = reader.line_num, len(row)
+                break
+    if line_no is not None:
+        return DataError(
+            f"{layout.where(line_no)}: the row has {got} fields but the header has {n}. "
+            "Fix the row (a stray or missing separator?) or delete it.",
+            file=layout.path,
+            line=line_no,
+        )
+    return DataError(
+        f"{layout.name}: the CSV reader stopped: {msg}. Check the file around the row shown.",
+        file=layout.path,
+    )
+
+
+def lines_of_rows(layout: FileLayout, rows) -> np.ndarray:
+    """File line numbers (1-based) of data rows (0-based indices into the table).
+
+    One pass over the file in Python, stopping at the largest row asked for;
+    only used on the slow paths (errors, text cells, duplicates).  Blank lines are
+    skipped as pyarrow skips them.
+    """
+    rows = np.asarray(rows, dtype=np.int64)
+    out = np.empty(rows.shape, dtype=np.int64)
+    if rows.size == 0:
+        return out
+    order = np.argsort(rows, kind="stable")
+    wanted = rows[order]
+    j = 0
+    row = -1
+    with open(layout.path, encoding=layout.encoding, errors="replace", newline="") as fh:
+        for line_no, line in enumerate(fh, start=1):
+            if line_no < layout.first_data_line or not line.strip("\r\n"):
+                continue
+            row += 1
+            while j < wanted.size and wanted[j] == row:
+                out[order[j]] = line_no
+                j += 1
+            if j == wanted.size:
+                break
+    # rows past the end (should not happen) get the data-line estimate
+    while j < wanted.size:
+        out[order[j]] = layout.first_data_line + wanted[j]
+        j += 1
+    return out
+
+
+# --- cells -------------------------------------------------------------------------------
+
+
+@dataclass
+class Classified:
+    """Numbers of one column plus which cells are bad and why."""
+
+    values: np.ndarray  # float64, NaN where the cell is not a number
+    bad: np.ndarray  # bool: masked cell
+    reason: np.ndarray | None  # object array of reasons at the bad positions (same order)
+    text: np.ndarray | None  # object array: raw cell text at the bad positions
+    text_rows: np.ndarray  # rows whose cell is text that is no known sentinel
+    n_numbers: int
+
+
+def _sentinel_sets(extra) -> tuple[frozenset[str], np.ndarray]:
+    texts = set(TEXT_SENTINELS)
+    numbers = list(NUMERIC_SENTINELS)
+    for s in extra:
+        if isinstance(s, str):
+            texts.add(s.strip().casefold())
+        else:
+            numbers.append(float(s))
+    return frozenset(texts), np.asarray(numbers, dtype=float)
+
+
+def classify_values(col: pa.ChunkedArray, *, decimal: str, sentinels=()) -> Classified:
+    """Numbers of a column, with each bad cell's reason.
+
+    Parameters
+    ----------
+    col : pyarrow.ChunkedArray
+        A float64 column (fast path) or a text column (slow path).
+    decimal : str
+        Decimal mark of the file.
+    sentinels : iterable of str or float
+        Extra values that mean "bad sample" (plant tag and ``read_run`` argument).
+    """
+    texts, numbers = _sentinel_sets(sentinels)
+    if pa.types.is_floating(col.type):
+        values = col.to_numpy()
+        is_null = col.is_null().to_numpy(zero_copy_only=False) if col.null_count else None
+        return _classify_numbers(values, is_null, numbers)
+    return _classify_text(col, decimal, texts, numbers)
+
+
+def _classify_numbers(values, is_null, numbers) -> Classified:
+    with np.errstate(invalid="ignore"):
+        nan = np.isnan(values)
+        inf = np.isinf(values)
+        sent = np.isin(values, numbers)
+    bad = nan | inf | sent
+    if not bad.any():
+        return Classified(values, bad, None, None, np.empty(0, np.int64), values.size)
+    pos = np.flatnonzero(bad)
+    reason = np.empty(pos.size, dtype=object)
+    text = np.empty(pos.size, dtype=object)
+    v = values[pos]
+    blank = is_null[pos] if is_null is not None else np.zeros(pos.size, bool)
+    reason[:] = "sentinel value"
+    text[:] = v
+    reason[np.isinf(v)] = "infinite value"
+    nanv = np.isnan(v)
+    reason[nanv & ~blank] = "NaN in the file"
+    text[nanv & ~blank] = "NaN"
+    reason[blank] = "blank cell"
+    text[blank] = ""
+    sentinel_hits = ~np.isnan(v) & ~np.isinf(v)
+    for p in np.flatnonzero(sentinel_hits):
+        reason[p] = f"sentinel value {v[p]:.15g}"
+    values = values.copy() if not values.flags.writeable else values
+    values[pos] = np.nan
+    return Classified(values, bad, reason, text, np.empty(0, np.int64), values.size - pos.size)
+
+
+def _classify_text(col, decimal, texts, numbers) -> Classified:
+    raw = col.to_numpy(zero_copy_only=False).astype(object)
+    s = pd.Series(raw, dtype=object).str.strip()
+    num_text = s.str.replace(",", ".", regex=False) if decimal == "," else s
+    values = pd.to_numeric(num_text, errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+    with np.errstate(invalid="ignore"):
+        notnum = np.isnan(values)
+        inf = np.isinf(values)
+        sent = np.isin(values, numbers)
+    bad = notnum | inf | sent
+    text_rows = np.empty(0, np.int64)
+    if not bad.any():
+        return Classified(values, bad, None, None, text_rows, values.size)
+    pos = np.flatnonzero(bad)
+    cells = s.to_numpy(dtype=object)[pos]
+    reason = np.empty(pos.size, dtype=object)
+    # classify each distinct text once
+    lookup: dict[str, str] = {}
+    is_text = np.zeros(pos.size, bool)
+    for i, cell in enumerate(cells):
+        v = values[pos[i]]
+        if not np.isnan(v):
+            reason[i] = "infinite value" if np.isinf(v) else f"sentinel value {v:.15g}"
+            continue
+        r = lookup.get(cell)
+        if r is None:
+            key = cell.casefold()
+            if cell == "":
+                r = "blank cell"
+            elif key in NAN_TEXTS:
+                r = "NaN in the file"
+            elif key in texts:
+                r = f"sentinel text {cell!r}"
+            else:
+                r = ""
+            lookup[cell] = r
+        if r == "":
+            is_text[i] = True
+        reason[i] = r
+    text_rows = pos[is_text]
+    values = values.copy()
+    values[pos] = np.nan
+    out_text = raw[pos]
+    return Classified(values, bad, reason, out_text, text_rows, values.size - pos.size)
+
+
+def quality_bad(col: pa.ChunkedArray) -> np.ndarray:
+    """True where a quality/status cell is not one of :data:`GOOD_QUALITY`."""
+    raw = col.to_numpy(zero_copy_only=False).astype(object)
+    s = pd.Series(raw, dtype=object).str.strip().str.casefold()
+    good = np.array(s.isin(GOOD_QUALITY), dtype=bool)
+    if not good.all():
+        # "192.0" or "0.0" written by a spreadsheet: compare as numbers too
+        num = pd.to_numeric(s, errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+        good |= np.isin(num, (0.0, 192.0))
+    return ~good

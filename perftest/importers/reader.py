@@ -1,0 +1,647 @@
+"""``read_run``: one or several run CSV files into one :class:`~perftest.run.Run`.
+
+The steps, in order (docs/run-files.md states the rules for users):
+
+1. sniff every file (separator, decimal mark, header, units row, encoding);
+2. decide which column feeds which tag (plant file, or every column without one);
+3. read the needed columns with pyarrow (value columns as float64);
+4. parse the time stamps (offsets, zone, clock changes) to UTC; refuse backward
+   steps, keep the first of duplicated stamps, note gaps;
+5. mask bad cells (blank, sentinel, text, quality flag) with their reason;
+6. calibration polynomial in the tag's unit, then conversion to SI (gauge
+   pressures against the site's barometer tag or fixed atmospheric pressure);
+7. align several files (or one, when ``every`` is given) on one time base.
+"""
+
+from __future__ import annotations
+
+import os
+import warnings
+from collections import Counter
+
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+
+from perftest.errors import DataError, DataQualityWarning, InputError, UnitError
+from perftest.importers.columns import (
+    _MAX_LISTED,
+    _as_paths,
+    _as_sentinels,
+    _as_step,
+    _as_units,
+    _check_zone,
+    _FileData,
+    _listing,
+    _plan,
+    _prepare,
+    _TagJob,
+    _time_columns,
+)
+from perftest.importers.csvfile import (
+    classify_values,
+    lines_of_rows,
+    quality_bad,
+    read_table,
+    sep_name,
+    sniff,
+)
+from perftest.importers.timebase import align, bin_index, parse_times
+
+__all__ = ["read_run", "read_parts"]
+
+# --- per-file processing -------------------------------------------------------------------
+
+
+class _Exclusions:
+    """Collects excluded samples as arrays; one DataFrame at the end."""
+
+    def __init__(self):
+        self.parts: list[tuple] = []
+
+    def add(self, times, tag: str, reason, raw_value, source: str) -> None:
+        n = len(times)
+        if n:
+            reason = np.broadcast_to(np.asarray(reason, dtype=object), (n,))
+            raw_value = np.broadcast_to(np.asarray(raw_value, dtype=object), (n,))
+            self.parts.append((np.asarray(times), tag, reason, raw_value, source))
+
+    def frame(self) -> pd.DataFrame:
+        cols = ["time", "tag", "reason", "raw_value", "source"]
+        if not self.parts:
+            return pd.DataFrame(
+                {
+                    "time": pd.DatetimeIndex([], tz="UTC", name="time"),
+                    "tag": pd.Series([], dtype=object),
+                    "reason": pd.Series([], dtype=object),
+                    "raw_value": pd.Series([], dtype=object),
+                    "source": pd.Series([], dtype=object),
+                },
+                columns=cols,
+            )
+        sizes = [len(p[0]) for p in self.parts]
+        times = pd.DatetimeIndex(np.concatenate([p[0] for p in self.parts])).tz_localize("UTC")
+        out = pd.DataFrame(
+            {
+                "time": times,
+                "tag": np.repeat(np.array([p[1] for p in self.parts], dtype=object), sizes),
+                "reason": np.concatenate([p[2] for p in self.parts]),
+                "raw_value": np.concatenate([p[3] for p in self.parts]),
+                "source": np.repeat(np.array([p[4] for p in self.parts], dtype=object), sizes),
+            },
+            columns=cols,
+        )
+        return out.sort_values(["time", "tag"], kind="stable").reset_index(drop=True)
+
+
+def _time_texts(fd: _FileData) -> np.ndarray:
+    cols = [fd.table.column(c).to_numpy(zero_copy_only=False) for c in fd.time_cols]
+    if len(cols) == 1:
+        return cols[0]
+    return (pd.Series(cols[0], dtype=object) + " " + pd.Series(cols[1], dtype=object)).to_numpy()
+
+
+def _naive_utc(times: pd.DatetimeIndex) -> np.ndarray:
+    """datetime64[ns] (UTC wall clock) for the exclusion table."""
+    return times.tz_convert("UTC").tz_localize(None).to_numpy()
+
+
+def _atmosphere(plant, baro, fd: _FileData, job: _TagJob, kept_times: pd.DatetimeIndex):
+    """Atmospheric pressure [Pa] for a gauge column: barometer tag or fixed value."""
+    layout = fd.layout
+    if job.tag == (plant.site.barometer_tag if plant is not None else None):
+        raise DataError(
+            f"{layout.where(column=job.header)}: the barometer tag {job.tag!r} is logged in a "
+            f"gauge unit {job.unit!r}. A barometer reads absolute pressure; correct its unit.",
+            file=layout.path,
+            column=job.header,
+            tag=job.tag,
+        )
+    if baro is not None:
+        t, p = baro
+        return np.interp(kept_times.asi8.astype(float), t, p)
+    if plant is not None and plant.site.atmospheric_pressure is not None:
+        return float(plant.site.atmospheric_pressure)
+    raise DataError(
+        f"{layout.where(column=job.header)}: tag {job.tag!r} is logged in the gauge unit "
+        f"{job.unit!r}, and no atmospheric reference is known. Set site.atmospheric_pressure "
+        "or site.barometer_tag in the plant file (or log the column in an absolute unit).",
+        file=layout.path,
+        column=job.header,
+        tag=job.tag,
+    )
+
+
+def _convert(fd, job, plant, baro, sentinels, excl: _Exclusions, stats: dict, line_of):
+    """Classify, mask, calibrate and convert one column; returns (si, bad) at kept rows."""
+    from perftest.units import nonpositive_pressure, parse_unit, to_si
+
+    layout = fd.layout
+    ti = fd.times
+    col = fd.table.column(job.header)
+    extra = tuple(sentinels) + tuple(job.spec.sentinels if job.spec is not None else ())
+    c = classify_values(col, decimal=layout.decimal, sentinels=extra)
+    stem = layout.stem
+
+    if c.text_rows.size and c.n_numbers == 0:
+        row = int(c.text_rows[0])
+        line = int(line_of([row])[0])
+        cell = fd.table.column(job.header)[row].as_py()
+        raise DataError(
+            f"{layout.where(column=job.header)}: the column holds text and no numbers (e.g. "
+            f"{cell!r} on line {line}). If it is not a measurement, leave it out (a plant "
+            "file reads only its tags); if it holds numbers with decimal commas, pass "
+            "decimal=','.",
+            file=layout.path,
+            column=job.header,
+            line=line,
+            tag=job.tag,
+        )
+    keep = ti.keep
+    has_dups = ti.duplicate_rows.size > 0
+    bad_all = c.bad
+    reasons = {}  # kind -> (rows, reason per row, raw cell per row)
+    if c.reason is not None:
+        pos = np.flatnonzero(c.bad)
+        reason = c.reason.copy()
+        if c.text_rows.size:
+            lines = line_of(c.text_rows)
+            for w, ln in zip(np.searchsorted(pos, c.text_rows), lines, strict=True):
+                reason[w] = f"text {str(c.text[w]).strip()!r} in a numeric cell (line {ln})"
+            stats["text"][job.tag] = int(c.text_rows.size)
+        reasons["cell"] = (pos, reason, c.text)
+    qcol = fd.quality.get(job.header)
+    if qcol is not None:
+        qbad = quality_bad(fd.table.column(qcol)) & ~bad_all
+        if qbad.any():
+            qpos = np.flatnonzero(qbad)
+            qraw = fd.table.column(qcol).take(pa.array(qpos)).to_pylist()
+            qreason = np.array(
+                [f"quality flag {str(q).strip()!r} in column {qcol!r}" for q in qraw],
+                dtype=object,
+            )
+            reasons["quality"] = (qpos, qreason, c.values[qpos].astype(object))
+            bad_all = bad_all | qbad
+    # exclusions of masked samples on kept rows
+    for pos, reason, raw in reasons.values():
+        sel = keep[pos] if has_dups else slice(None)
+        excl.add(_naive_utc(ti.times[pos[sel]]), job.tag, reason[sel], raw[sel], stem)
+    if has_dups:
+        d = ti.duplicate_rows
+        raw_d = fd.table.column(job.header).take(pa.array(d)).to_numpy(zero_copy_only=False)
+        excl.add(
+            _naive_utc(ti.times[d]),
+            job.tag,
+            "duplicate time stamp, first row kept",
+            raw_d.astype(object),
+            stem,
+        )
+        values = c.values[keep]
+        bad = bad_all[keep]
+    else:
+        values = c.values
+        bad = bad_all
+    stats["masked"][job.tag] = int(bad.sum())
+    stats["samples"][job.tag] = int(keep.sum())
+
+    if job.spec is not None and job.spec.calibration is not None:
+        values = job.spec.apply_calibration(values)
+    if job.unit is None:
+        return np.asarray(values, dtype=float), bad
+    spec = parse_unit(job.unit)
+    atm = None
+    if spec.gauge and job.quantity != "temperature_difference":
+        atm = _atmosphere(plant, baro, fd, job, ti.times[keep] if has_dups else ti.times)
+    density = None
+    if spec.needs_density and not (spec.density_exponent == 1 and job.quantity == "volume_flow"):
+        density = job.spec.density if job.spec is not None else None
+    try:
+        si = to_si(values, spec, quantity=job.quantity, atmospheric_pressure=atm, density=density)
+    except UnitError as exc:
+        raise UnitError(
+            f"{layout.where(column=job.header)} (tag {job.tag!r}, unit {job.unit!r} from "
+            f"{job.unit_origin}): {exc}",
+            file=layout.path,
+            column=job.header,
+            tag=job.tag,
+        ) from None
+    si = np.asarray(si, dtype=float)
+    if job.quantity == "pressure":
+        impossible = nonpositive_pressure(si) & ~bad
+        what = "an absolute pressure at or below 0 Pa"
+    elif job.quantity == "temperature":
+        with np.errstate(invalid="ignore"):
+            impossible = (si < 0.0) & ~bad
+        what = "a temperature below 0 K"
+    else:
+        impossible = None
+    if impossible is not None and impossible.any():
+        kept_row = int(np.argmax(impossible))
+        row = int(np.flatnonzero(keep)[kept_row]) if has_dups else kept_row
+        line = int(line_of([row])[0])
+        raw_v = fd.table.column(job.header)[row].as_py()
+        hint = (
+            " Check the atmospheric reference and whether the unit is gauge or absolute."
+            if spec.gauge
+            else " Check the unit (gauge or absolute?)."
+        )
+        raise DataError(
+            f"{layout.where(line, job.header)}: the reading {raw_v!r} {job.unit} gives {what} "
+            f"({si[kept_row]:.6g} SI).{hint} Or mark the sample bad (a sentinel).",
+            file=layout.path,
+            line=line,
+            column=job.header,
+            tag=job.tag,
+        )
+    return si, bad
+
+
+def _barometer(files, plant, sentinels, excl_dummy, stats, log) -> tuple | None:
+    """SI barometer samples (UTC ns as float, Pa) for gauge conversion, or None."""
+    if plant is None or plant.site.barometer_tag is None:
+        return None
+    tag = plant.site.barometer_tag
+    for fd in files:
+        for job in fd.jobs:
+            if job.tag == tag:
+                line_of = _line_fn(fd.layout)
+                si, bad = _convert(fd, job, plant, None, sentinels, excl_dummy, stats, line_of)
+                times = fd.times.times[fd.times.keep]
+                ok = ~bad
+                if not ok.any():
+                    raise DataError(
+                        f"{fd.layout.where(column=job.header)}: the barometer tag {tag!r} has "
+                        "no valid sample, so gauge pressures cannot be made absolute. Fix the "
+                        "column or set site.atmospheric_pressure instead.",
+                        file=fd.layout.path,
+                        column=job.header,
+                        tag=tag,
+                    )
+                if bad.any():
+                    log.append(
+                        f"barometer {tag!r}: {int(bad.sum())} masked sample(s) bridged by linear "
+                        "interpolation in time for gauge conversion"
+                    )
+                return times.asi8[ok].astype(float), si[ok]
+    return None  # pragma: no cover - _plan guarantees the tag was found
+
+
+def _line_fn(layout):
+    return lambda rows: lines_of_rows(layout, rows)
+
+
+def _fmt(td: pd.Timedelta) -> str:
+    s = td.total_seconds()
+    if s >= 60 and s % 60 == 0:
+        return f"{s / 60:g} min"
+    return f"{s:g} s"
+
+
+# --- entry point ---------------------------------------------------------------------------
+
+
+def read_run(
+    paths,
+    plant=None,
+    *,
+    time_column=None,
+    timezone=None,
+    sep=None,
+    decimal=None,
+    units=None,
+    every=None,
+    sentinels=None,
+):
+    """Read one or several run CSV files into a :class:`~perftest.run.Run` (SI inside).
+
+    Parameters
+    ----------
+    paths : str, Path or list of them
+        Run files (historian export, portable logger, ...).
+    plant : Plant, str or Path, optional
+        Plant file (loaded or its path).  Its tags choose the columns, give units,
+        calibrations, sentinels, the file a shared column comes from (``source``),
+        the site time zone and the atmospheric reference.  Without a plant every
+        column is kept, the tag id being the header.
+    time_column : str or (str, str), optional
+        Time column, or a (date column, time column) pair.  Found automatically
+        when None: a column named time/timestamp/date/..., else the first column
+        holding date-times; separate ``date`` and ``time`` columns are joined.
+    timezone : str, optional
+        IANA zone of stamps written without an offset (default: the plant's
+        ``site.timezone``, else UTC).
+    sep : str, optional
+        Field separator; comma, semicolon or tab detected when None.
+    decimal : str, optional
+        ``"."`` or ``","``; decimal commas are detected with a ``;`` or tab separator.
+    units : dict, optional
+        Column (or tag) -> unit, for files without a units row.  Must agree with the
+        units row and the plant file where those give one.
+    every : str, Timedelta or float, optional
+        Interval of the common time base (``"1min"``, seconds as a number).  Default:
+        the coarsest file's median interval (several files), or the file's own stamps
+        (one file).
+    sentinels : iterable of float or str, optional
+        Extra cell values that mean "bad sample", for every column.
+
+    Returns
+    -------
+    Run
+        ``data`` [SI] on a UTC index, ``raw`` per file (stem), ``mask``, ``exclusions``,
+        ``log``, ``units`` (as logged), ``quantities``.
+
+    Raises
+    ------
+    DataError
+        Unreadable file, missing tag, bad time stamps, text columns, impossible
+        absolute values, unit conflicts; the message names file, line, column or tag.
+    UnitError
+        Unknown unit text (names the column).
+    InputError
+        Bad argument.
+
+    Notes
+    -----
+    Alignment rule (several files, or ``every`` given): the base interval
+    :math:`\\Delta` is ``every`` or the longest median sampling interval of the files.
+    The value at stamp :math:`t` is the mean of a source's unmasked samples stamped
+    in :math:`(t-\\Delta, t]`.  Stamps are :math:`t_0 + k\\Delta` with :math:`t_0` the
+    first stamp of the coarsest file (``every`` not given) or midnight 1970-01-01 UTC
+    (``every`` given).  Nothing is interpolated: an interval without an unmasked
+    sample is NaN and masked.  See docs/run-files.md.
+    """
+    from perftest.run import Run
+
+    parts = read_parts(
+        paths,
+        plant,
+        time_column=time_column,
+        timezone=timezone,
+        sep=sep,
+        decimal=decimal,
+        units=units,
+        every=every,
+        sentinels=sentinels,
+    )
+    for msg in parts.pop("warnings"):
+        warnings.warn(DataQualityWarning(msg + ". See Run.log and Run.exclusions."), stacklevel=2)
+    data = parts.pop("data")
+    return Run(data, **parts)
+
+
+def read_parts(
+    paths,
+    plant=None,
+    *,
+    time_column=None,
+    timezone=None,
+    sep=None,
+    decimal=None,
+    units=None,
+    every=None,
+    sentinels=None,
+) -> dict:
+    """The pieces :func:`read_run` builds its Run from (same parameters).
+
+    Returns
+    -------
+    dict
+        ``data, raw, mask, exclusions, log, plant, units, quantities`` as the Run
+        constructor takes them, plus ``warnings`` (messages not yet issued).
+    """
+    if isinstance(plant, str | os.PathLike):
+        from perftest.plantfile import load_plant
+
+        plant = load_plant(plant)
+    if plant is not None and not hasattr(plant, "tags"):
+        raise InputError(
+            "The 'plant' parameter of read_run must be a Plant (perftest.load_plant) or the "
+            f"path of a plant file. Got {type(plant).__name__}.",
+            parameter="plant",
+        )
+    path_list = _as_paths(paths)
+    step = _as_step(every)
+    extra_sentinels = _as_sentinels(sentinels)
+    unit_map = _as_units(units)
+    if sep is not None and not (isinstance(sep, str) and len(sep) == 1 and sep not in '"\n\r'):
+        raise InputError(
+            f"The 'sep' parameter of read_run must be one character such as ',', ';' or "
+            f"'\\t'. Got {sep!r}.",
+            parameter="sep",
+        )
+    if decimal is not None and decimal not in (".", ","):
+        raise InputError(
+            f"The 'decimal' parameter of read_run must be '.' or ','. Got {decimal!r}.",
+            parameter="decimal",
+        )
+    if timezone is not None:
+        tz = _check_zone(timezone, "The 'timezone' parameter of read_run")
+        tz_origin = "timezone argument"
+    elif plant is not None and getattr(plant.site, "timezone", None):
+        tz = _check_zone(plant.site.timezone, "site.timezone of the plant file")
+        tz_origin = "plant site.timezone"
+    else:
+        tz, tz_origin = "UTC", "default"
+
+    log: list[str] = []
+    pending_warnings: list[str] = []
+    layouts = [sniff(p, sep=sep, decimal=decimal) for p in path_list]
+    stems = Counter(lay.stem for lay in layouts)
+    for stem, n in stems.items():
+        if n > 1:
+            names = [str(lay.path) for lay in layouts if lay.stem == stem]
+            raise DataError(
+                f"{n} run files share the name {stem!r} ({', '.join(names)}); files are told "
+                "apart by name (Run.raw, tag source). Rename one of them.",
+                file=names[1],
+            )
+    plant_columns = {t.column for t in plant.tags.values()} if plant is not None else set()
+    files = [_prepare(lay, _time_columns(lay, time_column), plant_columns) for lay in layouts]
+    for fd in files:
+        lay = fd.layout
+        log.extend(lay.notes)
+        log.append(
+            f"{lay.name}: {sep_name(lay.sep)} separated, decimal {lay.decimal!r}, header on line "
+            f"{lay.header_line}, "
+            + ("units row below it, " if lay.units_row is not None else "no units row, ")
+            + f"time from {' + '.join(repr(c) for c in fd.time_cols)}"
+        )
+        if fd.quality:
+            log.append(
+                f"{lay.name}: quality columns "
+                + ", ".join(f"{q!r} -> {b!r}" for b, q in fd.quality.items())
+            )
+    _plan(files, plant, unit_map, log)
+
+    stats = {"masked": {}, "samples": {}, "text": {}}
+    raw: dict[str, pd.DataFrame] = {}
+    for fd in files:
+        lay = fd.layout
+        value_cols = list(dict.fromkeys(j.header for j in fd.jobs))
+        quality_cols = [fd.quality[h] for h in value_cols if h in fd.quality]
+        fd.table, fd.text_cols = read_table(lay, value_cols, [*fd.time_cols, *quality_cols])
+        line_of = _line_fn(lay)
+        fd.times = parse_times(
+            _time_texts(fd),
+            layout=lay,
+            column=" + ".join(fd.time_cols),
+            timezone=tz,
+            line_of=line_of,
+        )
+        ti = fd.times
+        log.append(
+            f"{lay.name}: {fd.table.num_rows} rows, {ti.times[0]} to {ti.times[-1]} UTC, "
+            f"median interval {_fmt(ti.median) if ti.median is not None else 'n/a'}; stamps "
+            f"read as {ti.zone_rule}"
+            + (f" ({tz_origin})" if ti.zone_rule.startswith("local") else "")
+        )
+        if fd.text_cols:
+            log.append(
+                f"{lay.name}: column(s) holding text were checked cell by cell: "
+                f"{_listing(fd.text_cols)}"
+            )
+        if ti.duplicate_rows.size:
+            d = ti.duplicate_rows[:_MAX_LISTED]
+            lines = line_of(np.r_[d, ti.duplicate_of[:_MAX_LISTED]])
+            pairs = ", ".join(
+                f"{a} (repeats {b})" for a, b in zip(lines[: d.size], lines[d.size :], strict=True)
+            )
+            more = " ..." if ti.duplicate_rows.size > _MAX_LISTED else ""
+            msg = (
+                f"{lay.name}: {ti.duplicate_rows.size} row(s) repeat an earlier time stamp; "
+                f"the first row of each stamp is kept, the repeats are excluded (lines "
+                f"{pairs}{more})"
+            )
+            log.append(msg)
+            pending_warnings.append(msg)
+        if ti.gaps:
+            shown = "; ".join(f"{_fmt(g[1])} after {g[0]}" for g in ti.gaps[:_MAX_LISTED]) + (
+                " ..." if len(ti.gaps) > _MAX_LISTED else ""
+            )
+            log.append(
+                f"{lay.name}: {len(ti.gaps)} gap(s) longer than 1.5 x the median interval: {shown}"
+            )
+        frame = fd.table.to_pandas(types_mapper=pd.ArrowDtype, self_destruct=False)
+        frame.index = ti.times
+        raw[lay.stem] = frame
+
+    excl = _Exclusions()
+    baro_stats = {"masked": {}, "samples": {}, "text": {}}
+    baro = _barometer(files, plant, extra_sentinels, _Exclusions(), baro_stats, log)
+
+    tags: list[str] = []
+    for fd in files:
+        ti = fd.times
+        n = int(ti.keep.sum())
+        m = len(fd.jobs)
+        # column-major: each tag's samples are contiguous, as pandas stores them
+        fd.values = np.empty((m, n)).T
+        fd.mask = np.empty((m, n), dtype=bool).T
+        line_of = _line_fn(fd.layout)
+        for j, job in enumerate(fd.jobs):
+            si, bad = _convert(fd, job, plant, baro, extra_sentinels, excl, stats, line_of)
+            col = fd.values[:, j]
+            col[:] = si
+            col[bad] = np.nan
+            fd.mask[:, j] = bad
+            if bad.all():
+                msg = f"{fd.layout.name}: tag {job.tag!r} has no valid sample"
+                log.append(msg)
+                pending_warnings.append(msg)
+            tags.append(job.tag)
+        masked = sum(stats["masked"][j.tag] for j in fd.jobs)
+        if masked:
+            reasons = Counter()
+            for part in excl.parts:
+                if part[4] == fd.layout.stem:
+                    reasons.update(r.split(" (line")[0].split(";")[0] for r in part[2])
+            top = ", ".join(f"{k}: {v}" for k, v in reasons.most_common(8))
+            log.append(f"{fd.layout.name}: {masked} sample(s) masked ({top})")
+        fd.table = None  # the raw frame keeps the arrow buffers alive; drop our handle
+
+    data, mask = _combine(files, step, excl, log)
+    run_units = {j.tag: (j.unit or "") for fd in files for j in fd.jobs}
+    quantities = {j.tag: j.quantity for fd in files for j in fd.jobs}
+    return {
+        "data": data,
+        "raw": raw,
+        "mask": mask,
+        "exclusions": excl.frame(),
+        "log": log,
+        "plant": plant,
+        "units": run_units,
+        "quantities": quantities,
+        "warnings": pending_warnings,
+    }
+
+
+def _combine(files: list[_FileData], step, excl: _Exclusions, log: list[str]):
+    """One SI frame and mask: a single file as stamped, or all files on one time base."""
+    if len(files) == 1 and step is None:
+        fd = files[0]
+        index = fd.times.times[fd.times.keep]
+        cols = pd.Index([j.tag for j in fd.jobs], name="tag")
+        data = pd.DataFrame(fd.values, index=index, columns=cols, copy=False)
+        mask = pd.DataFrame(fd.mask, index=index, columns=cols, copy=False)
+        return data, mask
+
+    kept = [fd.times.times[fd.times.keep] for fd in files]
+    if step is None:
+        medians = [(fd.times.median, i) for i, fd in enumerate(files) if fd.times.median]
+        if not medians:
+            raise DataError(
+                "Every run file holds a single time stamp, so no common time base can be "
+                "found. Pass every= (e.g. every='1min').",
+            )
+        step, coarse = max(medians, key=lambda x: (x[0], -x[1]))
+        origin = kept[coarse][0]
+        anchor = f"the first stamp of {files[coarse].layout.name} ({origin})"
+    else:
+        origin = pd.Timestamp(0, tz="UTC")
+        anchor = "midnight 1970-01-01 UTC"
+    spans = [(t[0], t[-1]) for t in kept]
+    lo, hi = max(s[0] for s in spans), min(s[1] for s in spans)
+    if len(files) > 1 and lo > hi + step:
+        desc = "; ".join(
+            f"{fd.layout.name}: {s[0]} to {s[1]}" for fd, s in zip(files, spans, strict=True)
+        )
+        raise DataError(
+            f"The run files do not overlap in time ({desc}, UTC). Check the time zone of "
+            "files without UTC offsets (timezone=, site.timezone) or pass files of one run.",
+        )
+    ks = [bin_index(t, origin, step) for t in kept]
+    k0 = min(int(k[0]) for k in ks)
+    n_bins = max(int(k[-1]) for k in ks) - k0 + 1
+    index = pd.DatetimeIndex(origin + (k0 + np.arange(n_bins)) * step, name="time").as_unit("ns")
+    m_total = sum(len(fd.jobs) for fd in files)
+    values = np.empty((m_total, n_bins)).T
+    mask = np.empty((m_total, n_bins), dtype=bool).T
+    cols = []
+    j0 = 0
+    labels = _naive_utc(index)
+    for fd, k in zip(files, ks, strict=True):
+        m = len(fd.jobs)
+        mean, count = align(fd.values, ~fd.mask, k, k0, n_bins)
+        values[:, j0 : j0 + m] = mean
+        empty = count == 0
+        mask[:, j0 : j0 + m] = empty
+        rows_in_bin = np.bincount(k - k0, minlength=n_bins)
+        for j, job in enumerate(fd.jobs):
+            # intervals whose samples are all masked are explained by those samples'
+            # own exclusions; only intervals without any sample get a row here
+            e = np.flatnonzero(empty[:, j] & (rows_in_bin == 0))
+            if e.size:
+                reason = f"no sample of {fd.layout.name} in the interval"
+                excl.add(labels[e], job.tag, reason, np.nan, fd.layout.stem)
+            cols.append(job.tag)
+        fd.values = fd.mask = None
+        j0 += m
+    log.append(
+        f"time base: {_fmt(step)} intervals (t - {_fmt(step)}, t] stamped at their end, "
+        f"anchored at {anchor}; each value is the mean of a file's unmasked samples in the "
+        f"interval; nothing is interpolated ({n_bins} stamps)"
+    )
+    cols = pd.Index(cols, name="tag")
+    data = pd.DataFrame(values, index=index, columns=cols, copy=False)
+    mask = pd.DataFrame(mask, index=index, columns=cols, copy=False)
+    return data, mask
