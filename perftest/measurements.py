@@ -52,9 +52,7 @@ class MeasurementRecord:
 def _vector(values, n: int, name: str, *, default=None, dtype=float) -> np.ndarray:
     if values is None:
         if default is None:
-            raise InputError(
-                f"The '{name}' parameter of Measurements is required.", parameter=name
-            )
+            raise InputError(f"The '{name}' parameter of Measurements is required.", parameter=name)
         return np.full(n, default, dtype=dtype)
     try:
         arr = np.asarray(values, dtype=dtype)
@@ -156,8 +154,7 @@ class Measurements:
         for t in tags:
             if t in seen:
                 raise InputError(
-                    f"The 'tags' parameter of Measurements must not repeat a tag. Got '{t}' "
-                    "twice.",
+                    f"The 'tags' parameter of Measurements must not repeat a tag. Got '{t}' twice.",
                     parameter="tags",
                     tag=t,
                 )
