@@ -34,6 +34,8 @@ _LAZY = {
     "Reconciliation": "perftest.balance",
     "serial_elimination": "perftest.balance",
     "reconcile": "perftest.model",
+    "get_fluid": "perftest.properties",
+    "Gas": "perftest.fuel",
     "evaluate": "perftest.results",
     "reconcile_many": "perftest.scale",
 }
