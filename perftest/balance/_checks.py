@@ -36,8 +36,7 @@ def vector(value, name: str, func: str, *, length: int | None = None) -> np.ndar
         )
     if length is not None and arr.shape[0] != length:
         raise InputError(
-            f"The '{name}' parameter of {func} must have length {length}. "
-            f"Got shape {arr.shape}.",
+            f"The '{name}' parameter of {func} must have length {length}. Got shape {arr.shape}.",
             parameter=name,
         )
     finite(arr, name, func)

@@ -1,0 +1,192 @@
+"""Speed of the reconciliation engine, as ratios against references timed in the same run.
+
+Run:  python benchmarks/bench_balance.py [--quick]
+
+Targets (PASS/FAIL printed for each):
+1. 2,000-stream network, dense: everything (values, covariance, z, chi2) within 3x of a
+   bare closed-form solve of the values alone (np.linalg.solve of A S A^T and the product).
+2. 100-stream network: at least 100x faster than scipy SLSQP on the same problem.
+3. One million snapshots of a 50-measurement model: batch within 3x of the bare
+   matrix product X @ F^T.
+4. Sparse networks: values, standard uncertainties and tests without dense n-by-n
+   matrices; time from 2,000 to 20,000 streams grows by at most 30x.
+"""
+
+from __future__ import annotations
+
+import argparse
+import time
+import tracemalloc
+
+import numpy as np
+import scipy.optimize
+import scipy.sparse as sp
+
+from perftest.balance import reconcile_linear, reconcile_linear_batch
+
+
+def tree_network(n_nodes: int, rng, sparse=False):
+    """A random tree of nodes: one feed into the root, one edge from each node's
+    parent, one product leaving every node.  Streams = 2 * n_nodes."""
+    parent = np.concatenate([[-1], [rng.integers(0, i) for i in range(1, n_nodes)]])
+    rows, cols, vals = [], [], []
+    j = 0
+    for i in range(n_nodes):
+        # inflow of node i: feed (root) or edge from the parent
+        rows.append(i)
+        cols.append(j)
+        vals.append(1.0)
+        if parent[i] >= 0:
+            rows.append(parent[i])
+            cols.append(j)
+            vals.append(-1.0)
+        j += 1
+    for i in range(n_nodes):  # products
+        rows.append(i)
+        cols.append(j)
+        vals.append(-1.0)
+        j += 1
+    A = sp.csr_matrix((vals, (rows, cols)), shape=(n_nodes, j))
+    # Consistent true flows: products positive, edges carry the subtree sums.
+    prod = rng.uniform(1.0, 10.0, n_nodes)
+    sub = prod.copy()
+    for i in range(n_nodes - 1, 0, -1):
+        sub[parent[i]] += sub[i]
+    truth = np.concatenate([sub, prod])
+    u = 0.01 * truth + 0.1
+    x = truth + rng.normal(size=j) * u
+    return (A if sparse else A.toarray()), x, u
+
+
+def best_of(fn, repeat=3):
+    times = []
+    out = None
+    for _ in range(repeat):
+        t = time.perf_counter()
+        out = fn()
+        times.append(time.perf_counter() - t)
+    return min(times), out
+
+
+def verdict(ok):
+    return "PASS" if ok else "FAIL"
+
+
+def bench_dense(rng, n_nodes=1000):
+    A, x, u = tree_network(n_nodes, rng)
+    S = np.diag(u**2)  # stored dense, as a user would pass it
+
+    def bare():
+        M = A @ S @ A.T
+        lam = np.linalg.solve(M, A @ x)
+        return x - S @ A.T @ lam
+
+    def ours():
+        r = reconcile_linear(x, S, A)
+        return r, r.x_cov, r.z, r.chi2
+
+    t_ref, ref = best_of(bare)
+    t_ours, (r, *_) = best_of(ours)
+    assert np.allclose(r.x, ref, atol=1e-8 * np.abs(x).max())
+    ratio = t_ours / t_ref
+    print(
+        f"[1] dense {A.shape[1]} streams, diagonal S: ours {t_ours:.3f} s, bare solve "
+        f"{t_ref:.3f} s, ratio {ratio:.2f} (target <= 3) {verdict(ratio <= 3)}"
+    )
+    # Same network with a fully correlated covariance (no diagonal shortcut).
+    L = np.tril(rng.normal(size=(A.shape[1],) * 2) * 0.01) + np.diag(u)
+    Sc = L @ L.T
+    t_ref_c, _ = best_of(lambda: x - Sc @ A.T @ np.linalg.solve(A @ Sc @ A.T, A @ x))
+    t_ours_c, _ = best_of(lambda: reconcile_linear(x, Sc, A).x_cov)
+    ratio_c = t_ours_c / t_ref_c
+    print(
+        f"    same, full correlated S: ours {t_ours_c:.3f} s, bare {t_ref_c:.3f} s, "
+        f"ratio {ratio_c:.2f} (target <= 3) {verdict(ratio_c <= 3)}"
+    )
+    return ratio <= 3 and ratio_c <= 3
+
+
+def bench_slsqp(rng, n_nodes=50):
+    A, x, u = tree_network(n_nodes, rng)
+    w = 1.0 / u**2
+
+    def slsqp():
+        return scipy.optimize.minimize(
+            lambda v: float(np.sum(w * (v - x) ** 2)),
+            x,
+            jac=lambda v: 2.0 * w * (v - x),
+            constraints=[{"type": "eq", "fun": lambda v: A @ v, "jac": lambda v: A}],
+            method="SLSQP",
+            options={"ftol": 1e-12, "maxiter": 1000},
+        )
+
+    t_sl, opt = best_of(slsqp, repeat=1)
+    t_ours, r = best_of(lambda: reconcile_linear(x, np.diag(u**2), A), repeat=5)
+    assert np.allclose(r.x, opt.x, atol=1e-4 * np.abs(x).max())
+    speedup = t_sl / t_ours
+    print(
+        f"[2] {A.shape[1]} streams: SLSQP {t_sl:.3f} s, ours {t_ours * 1e3:.2f} ms, "
+        f"speed-up {speedup:.0f}x (target >= 100) {verdict(speedup >= 100)}"
+    )
+    return speedup >= 100
+
+
+def bench_batch(rng, n_snap=1_000_000):
+    A, x, u = tree_network(25, rng)  # 50 measurements
+    S = np.diag(u**2)
+    X = x + rng.normal(size=(n_snap, x.size)) * u
+    F = rng.normal(size=(x.size, x.size))
+
+    t_ref, _ = best_of(lambda: X @ F.T, repeat=2)
+    t_ours, b = best_of(lambda: reconcile_linear_batch(X, S, A), repeat=2)
+    r = reconcile_linear(X[-1], S, A)
+    assert np.allclose(b.x[-1], r.x) and np.isclose(b.chi2[-1], r.chi2)
+    ratio = t_ours / t_ref
+    print(
+        f"[3] batch {n_snap} x {x.size}: ours {t_ours:.3f} s, bare X @ F.T {t_ref:.3f} s, "
+        f"ratio {ratio:.2f} (target <= 3) {verdict(ratio <= 3)}"
+    )
+    return ratio <= 3
+
+
+def bench_sparse(rng, sizes=(1000, 10000)):
+    times = []
+    for n_nodes in sizes:
+        A, x, u = tree_network(n_nodes, rng, sparse=True)
+        S = sp.diags(u**2)
+        tracemalloc.start()
+        t, r = best_of(lambda A=A, x=x, S=S: reconcile_linear(x, S, A), repeat=3)
+        _, peak = tracemalloc.get_traced_memory()
+        tracemalloc.stop()
+        n = x.size
+        dense_bytes = 8 * n * n
+        times.append(t)
+        print(
+            f"[4] sparse {n} streams: {t:.3f} s (chi2 {r.chi2:.1f}, dof {r.dof}); "
+            f"peak traced memory {peak / 1e6:.1f} MB vs one dense n x n {dense_bytes / 1e6:.0f} MB"
+        )
+        assert peak < 0.25 * dense_bytes or n < 5000
+    growth = times[-1] / times[0]
+    print(
+        f"    growth {sizes[0] * 2} -> {sizes[-1] * 2} streams: {growth:.1f}x "
+        f"(target <= 30) {verdict(growth <= 30)}"
+    )
+    return growth <= 30
+
+
+def main():
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--quick", action="store_true", help="smaller batch (100,000)")
+    args = parser.parse_args()
+    rng = np.random.default_rng(2024)
+    results = [
+        bench_dense(rng),
+        bench_slsqp(rng),
+        bench_batch(rng, 100_000 if args.quick else 1_000_000),
+        bench_sparse(rng),
+    ]
+    print("overall:", verdict(all(results)))
+
+
+if __name__ == "__main__":
+    main()

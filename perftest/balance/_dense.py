@@ -1,0 +1,131 @@
+"""Dense linear-algebra core of linear reconciliation.
+
+The problem, for measured values :math:`x` with covariance :math:`S`, is
+
+.. math::
+
+    \\min_{\\hat x, \\hat y} (\\hat x - x)^T S^{-1} (\\hat x - x)
+    \\quad \\text{s.t.} \\quad A \\hat x + B \\hat y = b .
+
+The unmeasured variables are removed by a projection :math:`P` with
+:math:`P B = 0` (Crowe, Garcia Campos and Hrymak, 1983), taken from a QR
+factorisation of :math:`B` with column pivoting.  Dependent rows of the reduced
+matrix :math:`P A` are then removed with a pivoted Cholesky factorisation of
+:math:`P A S A^T P^T`, which also supplies the factor used for the solution.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.linalg
+from scipy.linalg.lapack import dpstrf
+
+# Rank decisions.  All of them act on equilibrated quantities (rows scaled so
+# that one unit means roughly one standard deviation of the constraint), so the
+# tolerances below are relative and unit-free.
+#
+# A column of the equilibrated B is independent when its QR diagonal exceeds
+# this fraction of the largest one.
+B_RANK_RTOL = 1e-10
+# An unmeasured variable is unobservable when its row of the orthonormal null
+# space of B has at least this norm (a row exactly zero means observable;
+# rounding leaves ~1e-15).
+OBS_TOL = 1e-8
+# A reduced constraint row is dropped as dependent when its pivot in the
+# Cholesky factorisation of the unit-diagonal matrix P A S A^T P^T falls below
+# this value, i.e. when it makes an angle below ~3e-6 rad with the span of the
+# rows kept (in the metric of S).
+ROW_PIVOT_TOL = 1e-11
+# A reduced row is treated as identically zero when its standard deviation is
+# below this fraction of the largest row's.
+ZERO_ROW_RTOL = 1e-9
+# Two constraints that are dependent in their left-hand sides contradict each
+# other when their right-hand sides disagree by more than this many standard
+# deviations (relative to the size of the terms).
+CONSISTENCY_RTOL = 1e-6
+# A measurement is redundant when the variance of its adjustment exceeds this
+# fraction of its own variance.
+REDUNDANCY_RTOL = 1e-10
+
+
+@dataclass
+class Projection:
+    """Elimination of the unmeasured variables from equilibrated constraints."""
+
+    P: np.ndarray | None  # (m0, m) left null space of B, or None for the identity
+    G: np.ndarray  # (k, m) pseudo-inverse of B (equilibrated rows, scaled columns)
+    observable: np.ndarray  # (k,) bool
+
+
+def project_out_unmeasured(Bt: np.ndarray) -> Projection:
+    """Left null space, pseudo-inverse and observability of a dense ``Bt``."""
+    m, k = Bt.shape
+    if k == 0:
+        return Projection(None, np.zeros((0, m)), np.zeros(0, dtype=bool))
+    Q, R, piv = scipy.linalg.qr(Bt, pivoting=True, mode="full", check_finite=False)
+    d = np.abs(np.diag(R))
+    r = int(np.count_nonzero(d > B_RANK_RTOL * d[0])) if d.size and d[0] > 0 else 0
+    # R1 with the column permutation undone: Bt = Q1 @ R1p.
+    R1p = np.empty((r, k))
+    R1p[:, piv] = R[:r, :]
+    if r:
+        U, s, Vt = scipy.linalg.svd(R1p, full_matrices=True, check_finite=False)
+        G = (Vt[:r].T / s[:r]) @ (U.T @ Q[:, :r].T)
+        null = Vt[r:].T
+    else:
+        G = np.zeros((k, m))
+        null = np.eye(k)
+    observable = np.sqrt(np.einsum("ij,ij->i", null, null)) < OBS_TOL
+    return Projection(Q[:, r:].T, G, observable)
+
+
+@dataclass
+class RowSelection:
+    """Independent rows of the reduced constraints and the factor of their Gram matrix."""
+
+    idx: np.ndarray  # kept rows of the reduced matrix
+    L: np.ndarray  # lower Cholesky factor of Ar S Ar^T for the kept rows
+    d: np.ndarray  # diagonal of the full reduced Gram matrix (all rows)
+    inconsistent: tuple | None  # (row, misfit in standard deviations) of a contradiction
+
+
+def select_rows(M0: np.ndarray, br0: np.ndarray) -> RowSelection:
+    """Rank-revealing pivoted Cholesky of the reduced Gram matrix ``M0``."""
+    m0 = M0.shape[0]
+    d = np.diag(M0).copy()
+    sd = np.sqrt(np.maximum(d, 0.0))
+    big = sd.max() if m0 else 0.0
+    nonzero = np.flatnonzero(sd > ZERO_ROW_RTOL * big) if big > 0 else np.zeros(0, int)
+    zero_rows = np.setdiff1d(np.arange(m0), nonzero)
+    bscale = 1.0 + np.max(np.abs(br0)) / max(big, np.finfo(float).tiny) if m0 else 1.0
+    # A zero row reads 0 = b_j: a contradiction unless b_j vanishes.
+    for j in zero_rows:
+        if abs(br0[j]) / max(big, np.finfo(float).tiny) > CONSISTENCY_RTOL * bscale:
+            return RowSelection(np.zeros(0, int), np.zeros((0, 0)), d, (int(j), np.inf))
+    if nonzero.size == 0:
+        return RowSelection(np.zeros(0, int), np.zeros((0, 0)), d, None)
+    s = sd[nonzero]
+    Mc = M0[np.ix_(nonzero, nonzero)] / s[:, None] / s[None, :]
+    c, piv, rank, info = dpstrf(Mc, tol=ROW_PIVOT_TOL, lower=1)
+    piv = piv[: Mc.shape[0]] - 1
+    keep = piv[:rank]
+    Lc = np.tril(c[:rank, :rank])
+    dropped = piv[rank:]
+    inconsistent = None
+    if dropped.size:
+        # Express each dropped (unit-scaled) row through the kept ones and compare
+        # right-hand sides in standard-deviation units.
+        coef = scipy.linalg.cho_solve((Lc, True), Mc[np.ix_(keep, dropped)])
+        bk = br0[nonzero[keep]] / s[keep]
+        bd = br0[nonzero[dropped]] / s[dropped]
+        misfit = bd - coef.T @ bk
+        size = 1.0 + np.abs(bd) + np.abs(coef.T) @ np.abs(bk)
+        bad = np.flatnonzero(np.abs(misfit) > CONSISTENCY_RTOL * size)
+        if bad.size:
+            j = int(bad[np.argmax(np.abs(misfit[bad]))])
+            inconsistent = (int(nonzero[dropped[j]]), float(misfit[j]))
+    idx = nonzero[keep]
+    L = Lc * s[keep][:, None]
+    return RowSelection(idx, L, d, inconsistent)
