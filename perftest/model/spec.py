@@ -201,14 +201,6 @@ def _fail(plant, message: str, *keys) -> PlantFileError:
     return plant.error(message, *keys)
 
 
-def _where(*keys) -> str:
-    head, *rest = keys
-    table = ".".join([head, *rest[:1]])
-    if len(rest) > 1:
-        return f"[{table}] key '{'.'.join(rest[1:])}'"
-    return f"[{table}]"
-
-
 def _read_source(plant, value, quantity: str, keys, tag_ids: list) -> Source:
     """A tag/group id, the word ``unmeasured``, or a fixed value with unit."""
     if isinstance(value, str):
@@ -217,9 +209,9 @@ def _read_source(plant, value, quantity: str, keys, tag_ids: list) -> Source:
         if value not in plant.tags and value not in plant.groups:
             raise _fail(
                 plant,
-                f"{_where(*keys)}: '{value}' is neither a tag nor a group of this plant. "
+                f"'{value}' is neither a tag nor a group of this plant. "
                 "Declare it under [tags] or [groups], write a fixed value "
-                "{ value = ..., unit = \"...\" }, or write \"unmeasured\".",
+                '{ value = ..., unit = "..." }, or write "unmeasured".',
                 *keys,
             )
         if value not in tag_ids:
@@ -228,11 +220,14 @@ def _read_source(plant, value, quantity: str, keys, tag_ids: list) -> Source:
     if isinstance(value, bool):
         raise _fail(
             plant,
-            f"{_where(*keys)}: expected a tag id, \"unmeasured\" or a value with unit. "
-            f"Got {value!r}.",
+            f'expected a tag id, "unmeasured" or a value with unit. Got {value!r}.',
             *keys,
         )
-    return Source("fixed", value=float(plant.read_quantity(value, quantity, *keys)))
+    # A quality may be a bare number (a fraction); everything else needs its unit.
+    default = "fraction" if quantity == "fraction" else None
+    return Source(
+        "fixed", value=float(plant.read_quantity(value, quantity, *keys, default_unit=default))
+    )
 
 
 def _stream_list(plant, value, keys) -> tuple:
@@ -242,7 +237,7 @@ def _stream_list(plant, value, keys) -> tuple:
         return tuple(value)
     raise _fail(
         plant,
-        f"{_where(*keys)}: expected a stream id or a list of stream ids. Got {value!r}.",
+        f"expected a stream id or a list of stream ids. Got {value!r}.",
         *keys,
     )
 
@@ -252,8 +247,7 @@ def _check_keys(plant, table: dict, allowed, keys) -> None:
         if key not in allowed:
             raise _fail(
                 plant,
-                f"{_where(*keys, key)}: unknown key. Known keys here: "
-                f"{', '.join(sorted(allowed))}.",
+                f"unknown key. Known keys here: {', '.join(sorted(allowed))}.",
                 *keys,
                 key,
             )
@@ -262,12 +256,12 @@ def _check_keys(plant, table: dict, allowed, keys) -> None:
 def _read_stream(plant, sid: str, table, tag_ids: list) -> StreamSpec:
     keys = ("streams", sid)
     if not isinstance(table, dict):
-        raise _fail(plant, f"{_where(*keys)}: expected a table of stream keys.", *keys)
+        raise _fail(plant, "expected a table of stream keys.", *keys)
     _check_keys(plant, table, _STREAM_KEYS, keys)
     if "fluid" not in table or not isinstance(table["fluid"], str):
         raise _fail(
             plant,
-            f"{_where(*keys)}: missing key 'fluid' (e.g. fluid = \"water\").",
+            "missing key 'fluid' (e.g. fluid = \"water\").",
             *keys,
         )
     fluid = table["fluid"]
@@ -276,8 +270,7 @@ def _read_stream(plant, sid: str, table, tag_ids: list) -> StreamSpec:
     if phase is not None and phase not in PHASES:
         raise _fail(
             plant,
-            f"{_where(*keys, 'phase')}: unknown phase {phase!r}. "
-            f"Known phases: {', '.join(PHASES)}.",
+            f"unknown phase {phase!r}. Known phases: {', '.join(PHASES)}.",
             *keys,
             "phase",
         )
@@ -291,8 +284,7 @@ def _read_stream(plant, sid: str, table, tag_ids: list) -> StreamSpec:
         if phase != "wet":
             raise _fail(
                 plant,
-                f"{_where(*keys, 'quality')}: a quality is only meaningful for a "
-                "stream with phase = \"wet\".",
+                'a quality is only meaningful for a stream with phase = "wet".',
                 *keys,
                 "quality",
             )
@@ -313,8 +305,8 @@ def _check_fluid(plant, fluid: str, keys) -> None:
     except PerftestError as exc:
         raise _fail(
             plant,
-            f"{_where(*keys)}: unknown fluid {fluid!r} ({exc}). Use \"water\", "
-            "\"water:IAPWS95\", \"air\" or a CoolProp fluid name.",
+            f'unknown fluid {fluid!r} ({exc}). Use "water", '
+            '"water:IAPWS95", "air" or a CoolProp fluid name.',
             *keys,
         ) from None
 
@@ -322,13 +314,13 @@ def _check_fluid(plant, fluid: str, keys) -> None:
 def _read_unit(plant, uid: str, table, streams: dict, tag_ids: list) -> UnitSpec:
     keys = ("units", uid)
     if not isinstance(table, dict):
-        raise _fail(plant, f"{_where(*keys)}: expected a table of unit keys.", *keys)
+        raise _fail(plant, "expected a table of unit keys.", *keys)
     declared = table.get("type")
     if declared not in _UNIT_TABLE:
         what = "missing key 'type'" if declared is None else f"unknown unit type {declared!r}"
         raise _fail(
             plant,
-            f"{_where(*keys, 'type')}: {what}. Known types: {', '.join(UNIT_TYPES)}.",
+            f"{what}. Known types: {', '.join(UNIT_TYPES)}.",
             *keys,
             *(("type",) if declared is not None else ()),
         )
@@ -344,7 +336,7 @@ def _read_unit(plant, uid: str, table, streams: dict, tag_ids: list) -> UnitSpec
             if sid not in streams:
                 raise _fail(
                     plant,
-                    f"{_where(*keys, port)}: stream '{sid}' is not defined. "
+                    f"stream '{sid}' is not defined. "
                     "Add a [streams." + sid + "] table or fix the name.",
                     *keys,
                     port,
@@ -355,7 +347,7 @@ def _read_unit(plant, uid: str, table, streams: dict, tag_ids: list) -> UnitSpec
                 need = f"{lo} to {hi}"
             raise _fail(
                 plant,
-                f"{_where(*keys)}: a {declared} needs {need} stream(s) in '{port}' to form "
+                f"a {declared} needs {need} stream(s) in '{port}' to form "
                 f"its balances; got {len(ids)}.",
                 *keys,
                 *((port,) if port in table else ()),
@@ -364,7 +356,7 @@ def _read_unit(plant, uid: str, table, streams: dict, tag_ids: list) -> UnitSpec
     if base == "condenser" and (len(ports["coolant_inlet"]) != len(ports["coolant_outlet"])):
         raise _fail(
             plant,
-            f"{_where(*keys)}: give both 'coolant_inlet' and 'coolant_outlet' or neither.",
+            "give both 'coolant_inlet' and 'coolant_outlet' or neither.",
             *keys,
         )
 
@@ -380,7 +372,7 @@ def _read_unit(plant, uid: str, table, streams: dict, tag_ids: list) -> UnitSpec
         if "shaft" not in table:
             raise _fail(
                 plant,
-                f"{_where(*keys)}: a generator needs 'shaft' = the id of the turbine "
+                "a generator needs 'shaft' = the id of the turbine "
                 "(or a list of turbine ids) whose shaft power it converts.",
                 *keys,
             )
@@ -391,7 +383,7 @@ def _read_unit(plant, uid: str, table, streams: dict, tag_ids: list) -> UnitSpec
             if set(rest) != {"value"} or not isinstance(rest["value"], (int, float)):
                 raise _fail(
                     plant,
-                    f"{_where(*keys, 'losses')}: write {{ value = 1.2, kind = \"percent\" }}.",
+                    'write { value = 1.2, kind = "percent" }.',
                     *keys,
                     "losses",
                 )
@@ -401,16 +393,13 @@ def _read_unit(plant, uid: str, table, streams: dict, tag_ids: list) -> UnitSpec
             if losses.get("kind", "absolute") != "absolute":
                 raise _fail(
                     plant,
-                    f"{_where(*keys, 'losses')}: 'kind' must be \"percent\" or "
-                    f"\"absolute\". Got {losses.get('kind')!r}.",
+                    f'\'kind\' must be "percent" or "absolute". Got {losses.get("kind")!r}.',
                     *keys,
                     "losses",
                 )
             variables["losses"] = _read_source(plant, rest, "power", (*keys, "losses"), tag_ids)
         else:
-            variables["losses"] = _read_source(
-                plant, losses, "power", (*keys, "losses"), tag_ids
-            )
+            variables["losses"] = _read_source(plant, losses, "power", (*keys, "losses"), tag_ids)
 
     balances: tuple = ("mass", "energy")
     if base in ("generator",):
@@ -420,8 +409,7 @@ def _read_unit(plant, uid: str, table, streams: dict, tag_ids: list) -> UnitSpec
         if not isinstance(raw, list) or not raw or any(b not in ("mass", "energy") for b in raw):
             raise _fail(
                 plant,
-                f"{_where(*keys, 'balances')}: expected a list drawn from \"mass\" and "
-                f"\"energy\". Got {raw!r}.",
+                f'expected a list drawn from "mass" and "energy". Got {raw!r}.',
                 *keys,
                 *(("balances",) if "balances" in table else ()),
             )
@@ -429,7 +417,7 @@ def _read_unit(plant, uid: str, table, streams: dict, tag_ids: list) -> UnitSpec
         if not ports["inlets"] and not ports["outlets"]:
             raise _fail(
                 plant,
-                f"{_where(*keys)}: a generic unit needs streams in 'inlets' or 'outlets'.",
+                "a generic unit needs streams in 'inlets' or 'outlets'.",
                 *keys,
             )
 
@@ -437,14 +425,13 @@ def _read_unit(plant, uid: str, table, streams: dict, tag_ids: list) -> UnitSpec
     if "paths" in table:
         raw = table["paths"]
         ok = isinstance(raw, list) and all(
-            isinstance(p, list) and len(p) == 2 and all(isinstance(s, str) for s in p)
-            for p in raw
+            isinstance(p, list) and len(p) == 2 and all(isinstance(s, str) for s in p) for p in raw
         )
         if not ok:
             raise _fail(
                 plant,
-                f"{_where(*keys, 'paths')}: expected a list of [inlet, outlet] pairs, "
-                f"e.g. [[\"feedwater\", \"main_steam\"], [\"cold_reheat\", \"hot_reheat\"]].",
+                "expected a list of [inlet, outlet] pairs, "
+                'e.g. [["feedwater", "main_steam"], ["cold_reheat", "hot_reheat"]].',
                 *keys,
                 "paths",
             )
@@ -456,8 +443,7 @@ def _read_unit(plant, uid: str, table, streams: dict, tag_ids: list) -> UnitSpec
         ):
             raise _fail(
                 plant,
-                f"{_where(*keys, 'paths')}: every inlet and every outlet must appear in "
-                "exactly one path.",
+                "every inlet and every outlet must appear in exactly one path.",
                 *keys,
                 "paths",
             )
@@ -516,7 +502,7 @@ def read_model_spec(plant) -> ModelSpec:
                     other = book[sid]
                     raise _fail(
                         plant,
-                        f"{_where('units', uid, port)}: stream '{sid}' is already an {role} "
+                        f"stream '{sid}' is already an {role} "
                         f"of unit '{other}'. A stream joins two units at most (outlet of "
                         "one, inlet of the other); add a splitter or mixer.",
                         "units",
@@ -527,7 +513,7 @@ def read_model_spec(plant) -> ModelSpec:
         for sid in set(unit.inlets) & set(unit.outlets):
             raise _fail(
                 plant,
-                f"{_where('units', uid)}: stream '{sid}' is both an inlet and an outlet.",
+                f"stream '{sid}' is both an inlet and an outlet.",
                 "units",
                 uid,
             )
@@ -535,7 +521,7 @@ def read_model_spec(plant) -> ModelSpec:
         if sid not in source_of and sid not in sink_of:
             raise _fail(
                 plant,
-                f"{_where('streams', sid)}: stream '{sid}' is used by no unit. Name it in "
+                f"stream '{sid}' is used by no unit. Name it in "
                 "the inlets/outlets of a unit or delete it.",
                 "streams",
                 sid,
@@ -548,8 +534,7 @@ def read_model_spec(plant) -> ModelSpec:
             if tid not in units or units[tid].type != "turbine":
                 raise _fail(
                     plant,
-                    f"{_where('units', uid, 'shaft')}: '{tid}' is not a turbine of this "
-                    "plant. Name a unit with type = \"turbine\".",
+                    f"'{tid}' is not a turbine of this plant. Name a unit with type = \"turbine\".",
                     "units",
                     uid,
                     "shaft",
@@ -557,8 +542,7 @@ def read_model_spec(plant) -> ModelSpec:
             if tid in driven:
                 raise _fail(
                     plant,
-                    f"{_where('units', uid, 'shaft')}: turbine '{tid}' already drives "
-                    f"generator '{driven[tid]}'.",
+                    f"turbine '{tid}' already drives generator '{driven[tid]}'.",
                     "units",
                     uid,
                     "shaft",
