@@ -1,0 +1,272 @@
+"""The ``perftest`` command.
+
+``perftest demo`` runs the bundled demo scenario end to end; ``perftest report``
+evaluates a plant file and run files and writes the summary and reports.  Bad
+input ends with one line ``perftest: error: <message>`` on stderr and exit
+status 2, never a traceback.  Progress goes to stderr (``--quiet`` silences it),
+the human summary to stdout.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+from pathlib import Path
+
+from perftest.errors import PerftestError
+
+__all__ = ["main", "build_parser"]
+
+_EPILOG = """\
+examples:
+  perftest demo --out perftest-demo
+      run the bundled demo (an invented 36 MW steam unit) and write
+      perftest-demo/summary.json, report.md, report.html and figures/
+
+  perftest report plant.toml --data historian.csv --data logger.csv \\
+      --window 2h --json summary.json --html report.html
+      average the steadiest two hours, reconcile, evaluate and report
+
+  perftest report plant.toml --data run.csv --start "2026-05-14 10:00" \\
+      --end "2026-05-14 12:00" --markdown report.md
+      average a stated window instead
+
+The plant file format is described in docs/plant-file.md.  Results support,
+and do not replace, the applicable test code and engineering judgement.
+"""
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse with the house error format: one line, exit status 2."""
+
+    def error(self, message):  # noqa: D401 - argparse API
+        sys.stderr.write(f"perftest: error: {message}\n")
+        raise SystemExit(2)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser of the ``perftest`` command."""
+    from perftest import __version__
+
+    p = _Parser(
+        prog="perftest",
+        description=(
+            "Turn a logged thermal-plant test run into a defensible result: averages with "
+            "uncertainty, reconciled balances, suspect instruments, efficiency, heat rate, "
+            "Carnot bound, corrected results and guarantee verdicts."
+        ),
+        epilog=_EPILOG,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    p.add_argument("--version", action="version", version=f"perftest {__version__}")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+
+    common = _Parser(add_help=False)
+    common.add_argument("-q", "--quiet", action="store_true", help="no progress lines on stderr")
+    common.add_argument(
+        "--no-figures", action="store_true", help="skip the figures (faster; reports without plots)"
+    )
+
+    d = sub.add_parser(
+        "demo",
+        parents=[common],
+        help="run the bundled demo scenario end to end",
+        description="Run the bundled demo: an invented 36 MW gas-fired steam unit "
+        "(sample_data/brackenfold). Writes summary.json, report.md, report.html and "
+        "figures/*.png into the output folder.",
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    d.add_argument(
+        "--out",
+        metavar="DIR",
+        default="perftest-demo",
+        help="output folder (default: ./perftest-demo)",
+    )
+
+    r = sub.add_parser(
+        "report",
+        parents=[common],
+        help="evaluate a test run and write the reports",
+        description="Evaluate a test run: read the run files with the plant file, choose "
+        "the window, screen outliers, average, reconcile (dropping suspect instruments "
+        "one by one), compute the results and write the chosen reports.",
+        epilog="example:\n  perftest report plant.toml --data run.csv --window 2h "
+        "--json summary.json --html report.html",
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    r.add_argument("plant", metavar="PLANT.toml", help="plant description file")
+    r.add_argument(
+        "--data",
+        metavar="RUN.csv",
+        action="append",
+        required=True,
+        help="run file (repeat for several files)",
+    )
+    r.add_argument("--start", metavar="T", help="window start, e.g. '2026-05-14 10:00'")
+    r.add_argument("--end", metavar="T", help="window end")
+    r.add_argument(
+        "--window",
+        metavar="LENGTH",
+        default="2h",
+        help="length of the steadiest window to search when --start/--end are "
+        "not given (default 2h); 'all' averages the whole run",
+    )
+    r.add_argument(
+        "--outlier-alpha",
+        metavar="ALPHA",
+        type=float,
+        default=0.01,
+        help="significance level of the outlier screen (default 0.01)",
+    )
+    r.add_argument(
+        "--keep-all",
+        action="store_true",
+        help="do not drop suspect instruments (no serial elimination)",
+    )
+    r.add_argument(
+        "--out", metavar="DIR", help="write summary.json, report.md, report.html and figures/ here"
+    )
+    r.add_argument("--json", metavar="FILE", help="write the summary JSON here")
+    r.add_argument("--html", metavar="FILE", help="write the HTML report here")
+    r.add_argument("--markdown", metavar="FILE", help="write the Markdown report here")
+    return p
+
+
+class _Progress:
+    """Stage lines on stderr: '[  1.2 s] reconcile ... done (0.8 s)'."""
+
+    def __init__(self, quiet: bool):
+        self.quiet = quiet
+        self.t0 = time.perf_counter()
+
+    def __call__(self, stage: str, event: str, seconds: float, message: str = "") -> None:
+        if self.quiet:
+            return
+        now = time.perf_counter() - self.t0
+        if event == "start":
+            sys.stderr.write(f"[{now:6.1f} s] {stage} ...\n")
+        elif event == "skipped":
+            sys.stderr.write(f"[{now:6.1f} s] {stage}: not available, skipped\n")
+        elif event == "warning":
+            sys.stderr.write(f"[{now:6.1f} s] {stage}: warning: {message}\n")
+        sys.stderr.flush()
+
+
+def _fmt_result(perf, name: str, unit: str, scale: float = 1.0, offset: float = 0.0) -> str:
+    from perftest.report.document import fmt_uncertain
+
+    r = perf.results.loc[name]
+    v, U = fmt_uncertain(r["value"] * scale + offset, r["U95"] * abs(scale))
+    return f"{v} {unit} +- {U} {unit}"
+
+
+def _summary(outcome, out=None) -> None:
+    w = (out or sys.stdout).write
+    perf = outcome.performance
+    rec = outcome.reconciliation
+    plant = outcome.plant
+    w(f"{getattr(plant, 'name', 'plant')}\n")
+    m = outcome.measurements
+    if m is not None and m.start is not None:
+        w(f"  window            {m.start} to {m.end}\n")
+    if rec is not None:
+        gt = rec.global_test
+        w(
+            f"  global test       chi2 = {gt['chi2']:.2f}, dof = {gt['dof']}, "
+            f"p = {gt['p_value']:.3f} ({'passed' if gt['passed'] else 'failed'})\n"
+        )
+        for e in rec.eliminated:
+            w(f"  dropped           {e.tag} (|z| = {abs(e.z):.2f})\n")
+        frame = rec.to_frame()
+        sus = [t for t, s in zip(frame["tag"], frame["suspect"], strict=True) if s]
+        if sus:
+            w(f"  suspects          {', '.join(sus)}\n")
+    if perf is not None:
+        rows = [
+            ("net power", "net_power", "MW", 1e-6, 0.0),
+            ("heat input", "heat_input", "MW", 1e-6, 0.0),
+            ("efficiency (net)", "first_law_efficiency", "%", 100.0, 0.0),
+            ("heat rate", "heat_rate", "kJ/kWh", 3600.0, 0.0),
+            ("Carnot bound", "carnot_efficiency", "%", 100.0, 0.0),
+            ("second-law eff.", "second_law_efficiency", "%", 100.0, 0.0),
+        ]
+        for label, name, unit, scale, off in rows:
+            if name in perf.results.index:
+                w(f"  {label:<17} {_fmt_result(perf, name, unit, scale, off)} (U95)\n")
+        for g in perf.guarantees.itertuples(index=False):
+            w(f"  guarantee         {g.quantity} {g.direction.replace('_', ' ')}: {g.verdict}\n")
+    for item in outcome.missing:
+        w(f"  not computed      {item}\n")
+    for key in ("summary", "markdown", "html"):
+        if outcome.written.get(key):
+            w(f"  wrote             {outcome.written[key]}\n")
+    if outcome.written.get("figures"):
+        first = next(iter(outcome.written["figures"].values()))
+        w(f"  wrote             {len(outcome.written['figures'])} figures in {first.parent}\n")
+    if outcome.timings:
+        total = sum(outcome.timings.values())
+        w(
+            f"  time              {total:.2f} s: "
+            + ", ".join(f"{k} {v:.2f}" for k, v in outcome.timings.items())
+            + "\n"
+        )
+
+
+def _run(args) -> int:
+    from perftest.demo import run_demo, run_pipeline
+
+    progress = _Progress(args.quiet)
+    if args.command == "demo":
+        outcome = run_demo(args.out, progress=progress, figures=not args.no_figures)
+    else:
+        plant = Path(args.plant)
+        if not plant.is_file():
+            raise PerftestError(f"{plant}: plant file not found.", file=plant)
+        for f in args.data:
+            if not Path(f).is_file():
+                raise PerftestError(f"{f}: run file not found.", file=f)
+        if not any((args.out, args.json, args.html, args.markdown)):
+            raise PerftestError(
+                "Nothing to write: give --out DIR, or --json/--html/--markdown FILE."
+            )
+        window = None if str(args.window).lower() in ("all", "none") else args.window
+        outcome = run_pipeline(
+            plant,
+            args.data,
+            out_dir=args.out,
+            json_path=args.json,
+            html_path=args.html,
+            markdown_path=args.markdown,
+            start=args.start,
+            end=args.end,
+            window=window,
+            eliminate=not args.keep_all,
+            outlier_alpha=args.outlier_alpha,
+            figures=not args.no_figures,
+            progress=progress,
+        )
+    _summary(outcome)
+    return 0
+
+
+def main(argv=None) -> int:
+    """Entry point of the ``perftest`` console script; returns the exit status."""
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if args.command is None:
+        parser.print_help(sys.stderr)
+        return 2
+    try:
+        return _run(args)
+    except PerftestError as exc:
+        msg = " ".join(str(exc).split())  # one line, whatever the message holds
+        sys.stderr.write(f"perftest: error: {msg}\n")
+        return 2
+    except KeyboardInterrupt:
+        sys.stderr.write("perftest: error: interrupted\n")
+        return 130
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

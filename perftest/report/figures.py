@@ -1,0 +1,448 @@
+"""Report figures (matplotlib, Agg backend).
+
+Each function takes a :class:`~perftest.report.data.ReportData` and returns a
+``matplotlib.figure.Figure`` (or ``None`` when the data it needs are missing).
+All figures share one look: white background, readable fonts, labelled axes with
+units, a title, a legend where there is more than one series, and a layout that
+keeps text from overlapping (``constrained_layout``).
+"""
+
+from __future__ import annotations
+
+import io
+import math
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from perftest.report.data import ReportData
+from perftest.report.tables import result_display, to_display
+
+__all__ = [
+    "stability_figure",
+    "reconciliation_figure",
+    "budget_figure",
+    "efficiency_figure",
+    "exergy_figure",
+    "all_figures",
+    "save_figures",
+    "figure_png",
+]
+
+_STYLE = {
+    "font.size": 10,
+    "axes.titlesize": 11,
+    "axes.labelsize": 10,
+    "legend.fontsize": 9,
+    "xtick.labelsize": 9,
+    "ytick.labelsize": 9,
+    "axes.spines.top": False,
+    "axes.spines.right": False,
+    "axes.grid": True,
+    "grid.alpha": 0.3,
+    "figure.dpi": 100,
+}
+_OK = "#2f6f9f"
+_BAD = "#c0392b"
+_GREY = "#7f8c8d"
+_WINDOW = "#f5c542"
+
+
+def _pyplot():
+    import matplotlib
+
+    matplotlib.use("Agg", force=False)
+    import matplotlib.pyplot as plt
+
+    return plt
+
+
+def _figure(nrows=1, ncols=1, *, size=(8.0, 4.5), **kw):
+    plt = _pyplot()
+    with plt.rc_context(_STYLE):
+        fig, axes = plt.subplots(nrows, ncols, figsize=size, layout="constrained", **kw)
+    return fig, axes
+
+
+def _apply_style(fig) -> None:
+    for ax in fig.axes:
+        ax.title.set_fontsize(_STYLE["axes.titlesize"])
+        ax.xaxis.label.set_fontsize(_STYLE["axes.labelsize"])
+        ax.yaxis.label.set_fontsize(_STYLE["axes.labelsize"])
+        ax.tick_params(labelsize=_STYLE["xtick.labelsize"])
+        for side in ("top", "right"):
+            ax.spines[side].set_visible(False)
+        ax.grid(True, alpha=0.3)
+        ax.set_axisbelow(True)
+
+
+# --------------------------------------------------------------------------- 1 trends
+
+
+def stability_figure(data: ReportData):
+    """Trends of a few tags over the whole run, the chosen window shaded."""
+    t = data.trends
+    if t.empty:
+        return None
+    tags = list(t.columns)
+    fig, axes = _figure(len(tags), 1, size=(8.5, 1.9 * len(tags) + 0.8), sharex=True)
+    axes = np.atleast_1d(axes)
+    start = pd.Timestamp(data.window["start"]) if data.window.get("start") else None
+    end = pd.Timestamp(data.window["end"]) if data.window.get("end") else None
+    idx = t.index
+    if isinstance(idx, pd.DatetimeIndex) and idx.tz is not None:
+        idx = idx.tz_convert(idx.tz)
+    for ax, tag in zip(axes, tags, strict=True):
+        values, unit = to_display(
+            t[tag].to_numpy(float),
+            data.units.get(tag),
+            atmospheric_pressure=data.atmospheric_pressure,
+        )
+        ax.plot(idx, values, color=_OK, lw=1.0, label=tag)
+        if start is not None and end is not None:
+            ax.axvspan(start, end, color=_WINDOW, alpha=0.25, lw=0, label="averaged window")
+        ax.set_ylabel(f"{tag}\n[{unit}]" if unit else tag)
+        ax.margins(x=0)
+    axes[0].legend(loc="lower right", ncols=2, frameon=False)
+    axes[-1].set_xlabel("time" + (f" [{idx.tz}]" if getattr(idx, "tz", None) else ""))
+    fig.autofmt_xdate(rotation=0, ha="center")
+    fig.suptitle(f"{data.title}: trends and the averaged window")
+    _apply_style(fig)
+    return fig
+
+
+# --------------------------------------------------------------------------- 2 reconciliation
+
+
+def reconciliation_figure(data: ReportData):
+    """Adjustments of the measurements and their measurement-test statistics."""
+    r = data.reconciliation
+    if r.empty:
+        return None
+    r = (
+        r[r.get("in_balance", pd.Series(True, index=r.index)).astype(bool)]
+        if ("in_balance" in r.columns)
+        else r
+    )
+    if r.empty:
+        return None
+    tags = list(r["tag"])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        rel = (r["reconciled"] - r["measured"]) / np.abs(r["measured"]) * 100.0
+        urel = r["u_measured"] / np.abs(r["measured"]) * 100.0 * 1.96
+    z = np.abs(r["z"].to_numpy(float))
+    # A dropped instrument has no z in the final reconciliation: show the z that
+    # dropped it (serial elimination), hatched.
+    z_elim = {e["tag"]: abs(float(e["z"])) for e in data.eliminated}
+    dropped = np.array([t in z_elim for t in tags])
+    z = np.array([z_elim.get(t, zi) for t, zi in zip(tags, z, strict=True)])
+    suspect = r["suspect"].to_numpy(bool)
+    colors = [_BAD if s else _OK for s in suspect]
+    y = np.arange(len(tags))
+    fig, (a1, a2) = _figure(1, 2, size=(10.0, 0.32 * len(tags) + 2.2), sharey=True)
+    a1.barh(y, rel, color=colors, height=0.6, label="adjustment (red: suspect)")
+    a1.errorbar(
+        np.zeros_like(y, dtype=float),
+        y,
+        xerr=urel,
+        fmt="none",
+        ecolor=_GREY,
+        capsize=2,
+        lw=1,
+        label="measurement U95",
+    )
+    a1.axvline(0, color="black", lw=0.8)
+    a1.set_yticks(y, tags)
+    a1.invert_yaxis()
+    a1.set_xlabel("reconciled - measured [% of measured]")
+    a1.set_title("Adjustments")
+    z_plot = np.where(np.isfinite(z), z, 0.0)
+    a2.barh(y[~dropped], z_plot[~dropped], color=np.array(colors)[~dropped], height=0.6)
+    if dropped.any():
+        a2.barh(
+            y[dropped],
+            z_plot[dropped],
+            color="white",
+            edgecolor=_BAD,
+            hatch="///",
+            height=0.6,
+            label="dropped (|z| when dropped)",
+        )
+    for yi, zi in zip(y, z, strict=True):
+        if not np.isfinite(zi):
+            a2.text(0.05, yi, "not redundant", va="center", fontsize=8, color=_GREY)
+    a2.axvline(
+        data.critical_z,
+        color=_BAD,
+        ls="--",
+        lw=1.2,
+        label=f"critical value {data.critical_z:.2f} (alpha = {data.alpha:g})",
+    )
+    top = np.nanmax(np.append(z_plot, data.critical_z))
+    a2.set_xlim(0, top * 1.12)
+    a2.set_xlabel("|z| measurement test [-]")
+    a2.set_title("Normalised adjustments")
+    handles, labels = [], []
+    for ax in (a1, a2):
+        h, lab = ax.get_legend_handles_labels()
+        handles += h
+        labels += lab
+    fig.legend(handles, labels, loc="outside lower center", ncols=4, frameon=False)
+    gt = data.global_test or {}
+    sub = ""
+    if gt.get("chi2") is not None:
+        sub = f" (global test: chi2 = {gt['chi2']:.2f}, dof = {gt['dof']}, p = {gt['p_value']:.3f})"
+    fig.suptitle(f"Measured vs reconciled; suspects in red{sub}")
+    _apply_style(fig)
+    return fig
+
+
+# --------------------------------------------------------------------------- 3 budget
+
+
+def budget_figure(data: ReportData, name: str = "first_law_efficiency", top: int = 8):
+    """Uncertainty budget of one result: share of the variance per input."""
+    b = data.budgets.get(name)
+    if b is None or b.empty:
+        return None
+    share = (b["share"] * 100.0).sort_values(key=np.abs, ascending=False).head(top)[::-1]
+    fig, ax = _figure(size=(8.0, 0.4 * len(share) + 1.6))
+    colors = [_OK if v >= 0 else _GREY for v in share.to_numpy()]
+    ax.barh(np.arange(len(share)), share.to_numpy(), color=colors, height=0.6)
+    ax.set_yticks(np.arange(len(share)), [str(i) for i in share.index])
+    for i, v in enumerate(share.to_numpy()):
+        ax.text(v, i, f" {v:.1f} %", va="center", fontsize=8)
+    ax.set_xlabel("share of the variance [%]")
+    ax.set_xlim(min(0.0, float(share.min()) * 1.1), max(5.0, float(share.max()) * 1.18))
+    title = name.replace("_", " ")
+    if name in data.results.index:
+        r = data.results.loc[name]
+        unit, scale, offset = result_display(name, r["unit"])
+        title += (
+            f": {r['value'] * scale + offset:.4g} {unit}, U95 = {r['U95'] * abs(scale):.2g} {unit}"
+        )
+    ax.set_title(f"Uncertainty budget of the {title}")
+    _apply_style(fig)
+    return fig
+
+
+# --------------------------------------------------------------------------- 4 efficiency
+
+
+def efficiency_figure(data: ReportData):
+    """First-law efficiency against the Curzon-Ahlborn and Carnot bounds."""
+    res = data.results
+    names = [
+        ("first_law_efficiency", "first-law\n(net, measured)"),
+        ("curzon_ahlborn_efficiency", "Curzon-Ahlborn\n(at maximum power)"),
+        ("carnot_efficiency", "Carnot\n(reversible bound)"),
+    ]
+    if not all(n in res.index for n, _ in names):
+        return None
+    vals = np.array([res.loc[n, "value"] for n, _ in names]) * 100.0
+    errs = np.array([res.loc[n, "U95"] for n, _ in names]) * 100.0
+    fig, ax = _figure(size=(7.5, 4.5))
+    x = np.arange(len(names))
+    colors = [_OK, _GREY, "#34495e"]
+    ax.bar(
+        x,
+        vals,
+        color=colors,
+        width=0.55,
+        yerr=errs,
+        capsize=6,
+        error_kw={"lw": 1.2},
+        label="value with U95",
+    )
+    for xi, v, e in zip(x, vals, errs, strict=True):
+        ax.text(xi, v + e + 1.0, f"{v:.1f} %", ha="center", fontsize=9)
+    ax.set_xticks(x, [lab for _, lab in names])
+    ax.set_ylabel("efficiency [%]")
+    ax.set_ylim(0, max(vals + errs) * 1.18)
+    if "second_law_efficiency" in res.index:
+        r = res.loc["second_law_efficiency"]
+        ax.annotate(
+            f"second-law efficiency\n{r['value'] * 100:.1f} % (U95 {r['U95'] * 100:.1f} %)",
+            xy=(0, vals[0] + errs[0]),
+            xytext=(0.5, vals[2] * 0.9),
+            fontsize=9,
+            ha="center",
+            arrowprops={"arrowstyle": "->", "color": _GREY},
+        )
+    ts = res.loc["source_temperature", "value"] if "source_temperature" in res.index else None
+    tk = res.loc["sink_temperature", "value"] if "sink_temperature" in res.index else None
+    sub = ""
+    if ts is not None and tk is not None and math.isfinite(ts) and math.isfinite(tk):
+        sub = f"\nbetween {ts - 273.15:.1f} degC (source) and {tk - 273.15:.1f} degC (sink)"
+    ax.set_title("Efficiency and its thermodynamic bounds" + sub)
+    ax.legend(loc="upper left", frameon=False)
+    _apply_style(fig)
+    return fig
+
+
+# --------------------------------------------------------------------------- 5 flows
+
+
+def exergy_figure(data: ReportData):
+    """Where the fuel's energy and exergy go: two stacked bars and per-unit destruction."""
+    res = data.results
+    e = data.exergy
+    need = ("heat_input", "net_power", "fuel_exergy")
+    if e.empty or not all(n in res.index for n in need):
+        return None
+    mw = 1e-6
+    q_in = res.loc["heat_input", "value"] * mw
+    net = res.loc["net_power", "value"] * mw
+    aux = res.loc["auxiliary_power", "value"] * mw if "auxiliary_power" in res.index else 0.0
+    ex_in = res.loc["fuel_exergy", "value"] * mw
+    # Energy: net, auxiliaries, heat rejected in the condenser, the rest (boiler
+    # stack and other losses) by difference.
+    q_cond = (
+        sum(_condenser_heat(data, u) for u in e[e["type"].isin(["condenser", "cooler"])]["unit"])
+        * mw
+    )
+    energy = [("net power", net, _OK), ("auxiliaries", aux, "#5dade2")]
+    if q_cond > 0:
+        energy.append(("condenser heat", q_cond, "#85c1e9"))
+    energy.append(("boiler and other losses", max(q_in - sum(v for _, v, _ in energy), 0.0), _GREY))
+    palette = ["#c0392b", "#e67e22", "#d35400", "#a93226", "#cd6155", "#f0b27a", "#922b21"]
+    destroyed = [
+        (f"destroyed: {u}", float(d) * mw, palette[i % len(palette)])
+        for i, (u, d) in enumerate(zip(e["unit"], e["destroyed"], strict=True))
+    ]
+    exergy = [("net power", net, _OK)] + destroyed
+    greys = ["#bdc3c7", "#d7dbdd", "#a6acaf", "#e5e8e8"]
+    for i, (k, v) in enumerate(data.exergy_losses.items()):
+        exergy.append((f"lost: {k}", float(v) * mw, greys[i % len(greys)]))
+
+    fig, (a1, a2) = _figure(2, 1, size=(9.5, 7.0), height_ratios=[1.0, 1.3])
+    for row, (_label, total, parts) in enumerate(
+        [("energy\n(heat input)", q_in, energy), ("exergy\n(fuel exergy)", ex_in, exergy)]
+    ):
+        left = 0.0
+        for name, v, color in parts:
+            if v <= 0:
+                continue
+            a1.barh(row, v, left=left, color=color, edgecolor="white", height=0.55, label=name)
+            if v / total > 0.06:
+                a1.text(
+                    left + v / 2,
+                    row,
+                    f"{v:.1f}",
+                    ha="center",
+                    va="center",
+                    fontsize=8,
+                    color="white",
+                )
+            left += v
+        a1.text(total * 1.01, row, f"{total:.1f} MW", va="center", fontsize=9)
+    a1.set_yticks([0, 1], ["energy\n(heat input)", "exergy\n(fuel exergy)"])
+    a1.invert_yaxis()
+    a1.set_xlim(0, max(q_in, ex_in) * 1.15)
+    a1.set_xlabel("flow [MW]")
+    a1.set_title("Where the fuel goes: energy and exergy")
+    handles, labels = a1.get_legend_handles_labels()
+    uniq = dict(zip(labels, handles, strict=True))
+    a1.legend(
+        uniq.values(),
+        uniq.keys(),
+        loc="upper center",
+        bbox_to_anchor=(0.5, -0.32),
+        ncols=4,
+        frameon=False,
+        fontsize=8,
+    )
+
+    order = e.sort_values("destroyed", ascending=True)
+    y = np.arange(len(order))
+    err = order["u_destroyed"].to_numpy(float) * mw * 1.96
+    a2.barh(
+        y, order["destroyed"].to_numpy(float) * mw, color="#d35400", height=0.6, label="destroyed"
+    )
+    has_u = np.isfinite(err)
+    if has_u.any():
+        a2.errorbar(
+            order["destroyed"].to_numpy(float)[has_u] * mw,
+            y[has_u],
+            xerr=err[has_u],
+            fmt="none",
+            ecolor="black",
+            capsize=3,
+            lw=1,
+            label="U95",
+        )
+    gs = order["gouy_stodola"].to_numpy(float) * mw
+    ok = np.isfinite(gs)
+    a2.plot(
+        gs[ok],
+        y[ok],
+        "D",
+        ms=6,
+        mfc="white",
+        mec="black",
+        ls="none",
+        label="T0 x entropy generation",
+    )
+    a2.set_yticks(
+        y,
+        [u if u == t else f"{u} ({t})" for u, t in zip(order["unit"], order["type"], strict=True)],
+    )
+    a2.set_xlabel("exergy destroyed [MW]")
+    a2.set_title("Exergy destroyed per unit (boiler includes stack loss)")
+    a2.legend(loc="lower right", frameon=False)
+    _apply_style(fig)
+    return fig
+
+
+def _condenser_heat(data: ReportData, uid: str) -> float:
+    """Heat rejected by a condenser [W] (``heat`` column of the exergy table)."""
+    if "heat" in data.exergy.columns:
+        row = data.exergy[data.exergy["unit"] == uid]
+        if not row.empty and math.isfinite(float(row["heat"].iloc[0])):
+            return float(row["heat"].iloc[0])
+    return 0.0
+
+
+# --------------------------------------------------------------------------- output
+
+#: file stem -> figure function
+FIGURES = {
+    "stability": stability_figure,
+    "reconciliation": reconciliation_figure,
+    "budget": budget_figure,
+    "efficiency": efficiency_figure,
+    "flows": exergy_figure,
+}
+
+
+def all_figures(data: ReportData) -> dict:
+    """Every figure that the data allow: ``{stem: Figure}``."""
+    out = {}
+    for stem, func in FIGURES.items():
+        fig = func(data)
+        if fig is not None:
+            out[stem] = fig
+    return out
+
+
+def figure_png(fig, dpi: int = 100) -> bytes:
+    """PNG bytes of a figure."""
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=dpi, facecolor="white")
+    return buf.getvalue()
+
+
+def save_figures(figures: dict, directory, dpi: int = 100) -> dict:
+    """Write each figure as ``<directory>/<stem>.png``; returns ``{stem: path}``."""
+    plt = _pyplot()
+    directory = Path(directory)
+    directory.mkdir(parents=True, exist_ok=True)
+    paths = {}
+    for stem, fig in figures.items():
+        path = directory / f"{stem}.png"
+        path.write_bytes(figure_png(fig, dpi))
+        paths[stem] = path
+    for fig in figures.values():
+        plt.close(fig)
+    return paths

@@ -1,0 +1,72 @@
+"""Markdown report (GitHub-flavoured tables; figures referenced as PNG files)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pandas as pd
+
+from perftest.report.data import ReportData
+from perftest.report.document import sections
+
+__all__ = ["render_markdown", "write_markdown", "markdown_table"]
+
+
+def _cell(text: str) -> str:
+    return str(text).replace("|", "\\|").replace("\n", " ")
+
+
+def markdown_table(df: pd.DataFrame, flags=None) -> str:
+    """A DataFrame of strings as a Markdown table; flagged rows are set in bold."""
+    flags = list(flags or [False] * len(df))
+    cols = [str(c) for c in df.columns]
+    lines = [
+        "| " + " | ".join(_cell(c) for c in cols) + " |",
+        "|" + "|".join("---" for _ in cols) + "|",
+    ]
+    for flag, row in zip(flags, df.itertuples(index=False), strict=True):
+        cells = [_cell(v) for v in row]
+        if flag:
+            cells = [f"**{c}**" if c else c for c in cells]
+        lines.append("| " + " | ".join(cells) + " |")
+    return "\n".join(lines)
+
+
+def render_markdown(data: ReportData, *, figures=(), figure_dir: str = "figures") -> str:
+    """The report as Markdown text.
+
+    Parameters
+    ----------
+    data : ReportData
+    figures : collection of str
+        Stems of the figures written to ``figure_dir`` (relative to the report).
+    figure_dir : str
+        Relative path of the figure files.
+    """
+    out: list = []
+    for blk in sections(data, figures=figures):
+        if blk.kind == "h1":
+            out.append(f"# {blk.text}")
+        elif blk.kind == "h2":
+            out.append(f"## {blk.text}")
+        elif blk.kind == "p":
+            out.append(blk.text)
+        elif blk.kind == "caution":
+            out.append(f"> **Caution.** {blk.text}")
+        elif blk.kind == "warning":
+            out.append(f"> **Attention:** {blk.text}")
+        elif blk.kind == "list":
+            out.append("\n".join(f"- {_cell(i)}" for i in blk.items))
+        elif blk.kind == "table":
+            out.append(markdown_table(blk.table, blk.flags))
+        elif blk.kind == "figure":
+            out.append(f"![{blk.text}]({figure_dir}/{blk.figure}.png)\n\n*{blk.text}*")
+    return "\n\n".join(out) + "\n"
+
+
+def write_markdown(data: ReportData, path, *, figures=(), figure_dir="figures") -> Path:
+    """Write :func:`render_markdown` to ``path``."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    path.write_text(render_markdown(data, figures=figures, figure_dir=figure_dir), encoding="utf-8")
+    return path

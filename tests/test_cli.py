@@ -1,0 +1,160 @@
+"""The ``perftest`` command: help, version, exit codes and one-line errors."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from perftest import __version__
+from perftest.cli import main
+
+DATA = Path(__file__).resolve().parents[1] / "sample_data" / "brackenfold"
+
+
+def _one_error_line(err: str) -> str:
+    lines = [ln for ln in err.splitlines() if ln.strip()]
+    assert len(lines) == 1, err
+    assert lines[0].startswith("perftest: error: "), err
+    assert "Traceback" not in err
+    return lines[0]
+
+
+def test_version(capsys):
+    with pytest.raises(SystemExit) as exc:
+        main(["--version"])
+    assert exc.value.code == 0
+    assert __version__ in capsys.readouterr().out
+
+
+def test_help_explains_commands_with_an_example(capsys):
+    with pytest.raises(SystemExit) as exc:
+        main(["--help"])
+    assert exc.value.code == 0
+    out = capsys.readouterr().out
+    for word in ("demo", "report", "examples:", "--data", "perftest demo --out"):
+        assert word in out
+    with pytest.raises(SystemExit):
+        main(["report", "--help"])
+    out = capsys.readouterr().out
+    assert "--start" in out and "--window" in out and "--json" in out
+
+
+def test_missing_plant_file_is_one_line_exit_2(tmp_path, capsys):
+    code = main(["report", str(tmp_path / "nope.toml"), "--data", "x.csv", "--json", "o.json"])
+    assert code == 2
+    line = _one_error_line(capsys.readouterr().err)
+    assert "nope.toml" in line and "not found" in line
+
+
+def test_unknown_option_is_one_line_exit_2(capsys):
+    with pytest.raises(SystemExit) as exc:
+        main(["report", "p.toml", "--data", "r.csv", "--bogus"])
+    assert exc.value.code == 2
+    _one_error_line(capsys.readouterr().err)
+
+
+def test_nothing_to_write_is_an_error(tmp_path, capsys):
+    plant = tmp_path / "p.toml"
+    plant.write_text("", encoding="utf-8")
+    run = tmp_path / "r.csv"
+    run.write_text("t,a\n", encoding="utf-8")
+    assert main(["report", str(plant), "--data", str(run)]) == 2
+    assert "Nothing to write" in _one_error_line(capsys.readouterr().err)
+
+
+@pytest.mark.parametrize(
+    ("plant_text", "needle"),
+    [
+        ("[site\nname = 'x'\n", "plant.toml"),  # broken TOML: the file is named
+        ('[site]\nname = "x"\n[tags.A]\nunit = "furlongs/fortnight"\n', "furlongs"),
+    ],
+)
+def test_bad_plant_file_through_the_console_script(tmp_path, plant_text, needle):
+    plant = tmp_path / "plant.toml"
+    plant.write_text(plant_text, encoding="utf-8")
+    run = tmp_path / "run.csv"
+    run.write_text("time,A\n2026-01-01 00:00,1\n", encoding="utf-8")
+    exe = Path(sys.executable).with_name("perftest")
+    cmd = [str(exe)] if exe.exists() else [sys.executable, "-m", "perftest.cli"]
+    proc = subprocess.run(
+        [
+            *cmd,
+            "report",
+            str(plant),
+            "--data",
+            str(run),
+            "--json",
+            str(tmp_path / "s.json"),
+            "--quiet",
+        ],
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
+    assert proc.returncode == 2, proc.stderr
+    line = _one_error_line(proc.stderr)
+    assert needle in line
+    # Without --quiet the progress line comes first and the error is still one line.
+    proc = subprocess.run(
+        [*cmd, "report", str(plant), "--data", str(run), "--json", str(tmp_path / "s.json")],
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
+    errors = [ln for ln in proc.stderr.splitlines() if ln.startswith("perftest: error:")]
+    assert proc.returncode == 2 and errors == [line] and "Traceback" not in proc.stderr
+
+
+def test_bad_run_file_is_one_line_exit_2(tmp_path, capsys):
+    run = tmp_path / "garbage.csv"
+    run.write_bytes(b"\x00\x01\x02 not a table\n")
+    code = main(
+        [
+            "report",
+            str(DATA / "plant.toml"),
+            "--data",
+            str(run),
+            "--json",
+            str(tmp_path / "s.json"),
+            "--quiet",
+        ]
+    )
+    assert code == 2
+    _one_error_line(capsys.readouterr().err)
+
+
+def test_report_command_end_to_end(tmp_path, capsys):
+    out = tmp_path / "summary.json"
+    md = tmp_path / "report.md"
+    code = main(
+        [
+            "report",
+            str(DATA / "plant.toml"),
+            "--data",
+            str(DATA / "historian.csv"),
+            "--data",
+            str(DATA / "logger.csv"),
+            "--start",
+            "2026-05-14 10:00",
+            "--end",
+            "2026-05-14 12:00",
+            "--json",
+            str(out),
+            "--markdown",
+            str(md),
+            "--no-figures",
+        ]
+    )
+    captured = capsys.readouterr()
+    assert code == 0, captured.err
+    summary = json.loads(out.read_text(encoding="utf-8"))
+    assert {"global_test", "measurements", "results", "guarantees"} <= set(summary)
+    assert summary["window"]["start"].startswith("2026-05-14T10:00")
+    assert "net power" in captured.out and "time" in captured.out
+    # progress lines go to stderr, one per stage, with the elapsed time
+    assert "reconcile ..." in captured.err
+    assert md.read_text(encoding="utf-8").startswith("# ")
