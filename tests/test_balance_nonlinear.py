@@ -168,3 +168,71 @@ def test_bad_residual_raises_input_error():
         reconcile_nonlinear(
             mixer, X_MIX, np.diag(U_MIX**2), jacobian=lambda x, y: (np.ones((2, 3)), None)
         )
+
+
+# --------------------------------------------------------------------------- hard starts
+def test_pair_unobservable_at_solution_but_not_at_start():
+    """Only the product y0 y1 (= y0 y2) is fixed; y1 = y2 is a separate equation.
+
+    At the start y1 != y2 makes Jy square and regular (determinant y0 (y2 - y1)), so
+    the pair looks observable, but barely: the exact linearised step is ~300 times
+    the trust region.  At the solution y1 = y2 and nothing separates y0 from y1.  The
+    line search alone stopped with a ConvergenceError after 50 iterations.
+    """
+
+    def res(x, y):
+        return np.array([x[0] - y[0] * y[1], x[1] - y[0] * y[2], y[1] - y[2]])
+
+    r = reconcile_nonlinear(res, [10.0, 10.6], np.eye(2) * 0.09, y0=[2.0, 5.0, 5.001])
+    assert r.converged and r.iterations <= 10
+    # x0 = x1 at the solution, equal weights: both go to the mean, chi2 = 0.6^2 / (2 * 0.09)
+    # (closed form; rounding only)
+    np.testing.assert_allclose(r.x, [10.3, 10.3], rtol=1e-10)
+    assert r.chi2 == pytest.approx(2.0, rel=1e-8)
+    assert r.dof == 1
+    assert not r.observable.any() and np.isnan(r.y).all()
+
+
+def test_inconsistent_linearisation_at_start_is_restored():
+    """y^2 = 1 linearised at y = 0 reads 0 = 1: the linear solve alone refused it
+    (InputError about inconsistent constraints); a restoration step moves y off it."""
+
+    def res(x, y):
+        return np.array([y[0] ** 2 - 1.0, x[0] - y[0], x[1] - y[0]])
+
+    r = reconcile_nonlinear(res, [1.02, 0.97], np.eye(2) * 0.05**2, y0=[0.0])
+    assert r.converged and r.iterations <= 10
+    # From y = 0 only the rows x - y give a direction, towards the (positive)
+    # measured values, so the root reached is y = +1; then x = 1 and
+    # chi2 = (0.02^2 + 0.03^2) / 0.05^2 (closed form; rounding only).
+    np.testing.assert_allclose(r.x, [1.0, 1.0], rtol=1e-10)
+    assert r.y[0] == pytest.approx(1.0, rel=1e-10)
+    assert r.chi2 == pytest.approx(0.52, rel=1e-8)
+    assert r.dof == 2
+
+
+@pytest.mark.parametrize("y0", [[1e-6, 166.0], [1e-3, 1e4], [0.01, 1e3]])
+def test_bilinear_far_start(y0):
+    """Mixer with the outlet's flow and enthalpy both unmeasured, started far away.
+
+    With the outlet flow near zero the energy balance m2 h2 asks for an enormous
+    enthalpy step; the line search alone crept along it (34, 49 and 16 iterations
+    for these starts, i.e. the second only just under the limit of 50).
+    """
+    x = np.array([10.3, 5.1, 100.0, 300.0, 15.0])
+    u = np.array([0.2, 0.1, 2.0, 3.0, 0.3])
+
+    def res(x, y):
+        m0, m1, h0, h1, m3 = x
+        m2, h2 = y
+        return np.array([m0 + m1 - m2, m0 * h0 + m1 * h1 - m2 * h2, m2 - m3])
+
+    r = reconcile_nonlinear(res, x, np.diag(u**2), y0=y0)
+    ref = reconcile_nonlinear(res, x, np.diag(u**2), y0=[15.0, 170.0])  # good start
+    assert r.converged and r.iterations <= 20
+    assert ref.iterations <= 5
+    # Same optimum: both stop within 1e-8 of the uncertainties
+    np.testing.assert_allclose(r.x, ref.x, atol=1e-7)
+    np.testing.assert_allclose(r.y, ref.y, rtol=1e-8)
+    # The energy balance fixes h2 = (m0 h0 + m1 h1) / m2 at the solution.
+    assert r.y[1] == pytest.approx((r.x[0] * r.x[2] + r.x[1] * r.x[3]) / r.y[0], rel=1e-9)

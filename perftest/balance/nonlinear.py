@@ -11,7 +11,6 @@ from perftest.balance import _checks
 from perftest.balance.linear import (
     Problem,
     build_result,
-    raise_if_inconsistent,
     solve,
 )
 from perftest.errors import ConvergenceError, InputError, ReconciliationWarning
@@ -25,6 +24,32 @@ _FD_REL = _EPS ** (1.0 / 3.0)
 # Armijo sufficient-decrease constant and smallest step of the line search.
 _ARMIJO = 1e-4
 _MIN_STEP = 1.0 / 1024.0
+# Trust region, in scaled variables and times the radius (which starts at 1 and
+# adapts: doubled after a full step that used it, quartered after a failure).  A
+# measured x moves by at most _X_BOX standard uncertainties per step ("a few": a
+# larger move means the linearisation is being trusted far from where it was
+# taken); an unmeasured y by _Y_BOX of |y| + y_scale (a factor-of-1.5 change of a
+# flow or an enthalpy in one step is already a strong nonlinearity for m h).
+_X_BOX = 3.0
+_Y_BOX = 0.5
+# In the Levenberg-Marquardt (restoration) steps a measured x is this many times
+# stiffer than in the trust region: the measured values are right to a few standard
+# uncertainties while the starting values of y are guesses, so the guesses should
+# take up most of a large constraint violation.
+_X_RESTORE = 0.1
+_RADIUS_MIN = 1e-6
+_RADIUS_MAX = 1e6
+# An exact step outside the trust region is still taken when the merit falls by at
+# least this share of the decrease the linearisation predicts (the linearisation is
+# then good over the whole step; e.g. a linear problem, or a large but consistent
+# adjustment of a measurement with a gross error).
+_GOOD_RATIO = 0.5
+# Steps below this many standard uncertainties (x) or this fraction of |y| + y_scale
+# are inside the region of quadratic convergence; they are taken whole, because
+# there the merit function changes by rounding only and cannot judge them.
+_LOCAL = 1e-4
+# Shrinks of the trust region tried within one iteration before giving up.
+_MAX_SHRINK = 8
 
 
 def finite_difference_jacobian(residual, x, y, x_scale, y_scale):
@@ -141,17 +166,30 @@ def reconcile_nonlinear(
         f(x_k, y_k) + J_x (x - x_k) + J_y (y - y_k) = 0,
 
     taking the minimum-norm step in :math:`y` so that unobservable unmeasured
-    variables stay where they are.  The step is shortened by backtracking until
-    the exact penalty merit function
+    variables stay where they are.  Steps are judged by the exact penalty merit
+    function
 
     .. math::
 
         \\phi(x, y) = \\tfrac12 (x - x_m)^T S^{-1} (x - x_m) + \\mu \\| W f(x, y) \\|_1
 
-    decreases sufficiently (Armijo), with :math:`W` scaling each residual by its
-    standard deviation at the start and :math:`\\mu` above the largest scaled
-    multiplier [1]_.  The chi-square statistic is the objective at the solution
-    and its degrees of freedom the rank of the projected Jacobian [2]_.
+    with :math:`W` scaling each residual by its standard deviation at the start and
+    :math:`\\mu` above the largest scaled multiplier [1]_ (Armijo sufficient decrease).
+    A trust region in scaled variables (a few standard uncertainties for ``x``, a
+    fraction of :math:`|y| + y_{scale}` for ``y``; the radius adapts) decides how
+    far the linearisation is trusted.  The exact step is taken, with backtracking,
+    when it lies inside the region, or whole when the merit falls by at least half
+    of the predicted decrease.  Otherwise, in this order: (1) a Levenberg-regularised
+    step with a prior of the trust-region size on the ``y`` step, so that a nearly
+    rank-deficient :math:`J_y` (a pair such as flow and enthalpy that is barely
+    observable at the iterate) gets no huge step; (2) Levenberg-Marquardt steps on
+    :math:`\\|W f\\|^2` alone with stiff measured values (restoration; also used when
+    the linearised constraints contradict each other); (3) the exact step cut to the
+    trust region, with backtracking.  If none lowers the merit function the
+    iteration has stalled and a :class:`ConvergenceError` is raised.  Every
+    Jacobian evaluation counts as one iteration.  The chi-square statistic is the
+    objective at the solution and its degrees of freedom the rank of the projected
+    Jacobian [2]_.
 
     References
     ----------
@@ -246,55 +284,125 @@ def reconcile_nonlinear(
     row_scale = None
     p = core = None
     converged = False
+    radius = 1.0
     it = 0
     while it < max_iter:
         it += 1
         Jx, Jy = jac(xk, y)
-        # Linearised constraints in the variables (x, dy): Jx x + Jy dy = Jx xk - f.
-        b_lin = Jx @ xk - fk
-        p = _linearised_problem(xm, S, sdiag, is_diag, Jx, b_lin, Jy)
-        core = solve(p)
-        raise_if_inconsistent(core, func)
         if row_scale is None:
             # Standard deviation of each residual under measurement noise, from the
             # first linearisation; fixed afterwards so the merit function is fixed.
             sd = _row_sd(Jx, S, sdiag, is_diag)
             pos = sd[sd > 0]
             floor = pos.min() if pos.size else 1.0
-            row_scale = 1.0 / np.where(sd > 0, sd, floor)
-        dx = core.xhat - xk
-        dy = core.y  # minimum-norm step in y
-        step_small = np.all(np.abs(dx) <= tol * u) and np.all(
-            np.abs(dy) <= tol * np.maximum(np.abs(y), y_scale)
-        )
-        resid_small = np.all(np.abs(fk) * row_scale <= tol)
-        if step_small and resid_small:
-            converged = True
-            break
-        # Exact-penalty parameter above the largest scaled multiplier.
-        lam_scaled = np.abs(core.lam) / row_scale
-        mu = max(mu, 1.5 * float(lam_scaled.max(initial=0.0)) + 1.0)
-        phi0 = objective(xk) + mu * float(np.sum(np.abs(fk) * row_scale))
-        # Directional derivative of the merit along the step (constraints linearised).
+            sd = np.where(sd > 0, sd, floor)
+            row_scale = 1.0 / sd
+        ysize = np.abs(y) + y_scale
+        resid_small = bool(np.all(np.abs(fk) * row_scale <= tol))
+        # Linearised constraints in the variables (x, dy): Jx x + Jy dy = Jx xk - f.
+        b_lin = Jx @ xk - fk
+        p = _linearised_problem(xm, S, sdiag, is_diag, Jx, b_lin, Jy)
+        core = solve(p)
+        consistent = core.inconsistent is None
+        viol = float(np.sum(np.abs(fk) * row_scale))
         grad_obj = _obj_grad(xk, xm, S, sdiag, is_diag, chol)
-        dphi = float(grad_obj @ dx) - mu * float(np.sum(np.abs(fk) * row_scale))
-        alpha = 1.0
         accepted = False
-        while alpha >= _MIN_STEP:
-            xt = xk + alpha * dx
-            yt = y + alpha * dy
-            ft = _evaluate(residual, xt.copy(), yt.copy(), m)
-            if ft is not None:
+        if consistent:
+            dx = core.xhat - xk
+            dy = core.y  # minimum-norm step in y
+            sx = np.abs(dx) / u
+            sy = np.abs(dy) / ysize
+            if resid_small and np.all(sx <= tol) and np.all(sy <= tol):
+                converged = True
+                break
+            # Exact-penalty parameter above the largest scaled multiplier.
+            mu = max(mu, 1.5 * float((np.abs(core.lam) / row_scale).max(initial=0.0)) + 1.0)
+            phi0 = objective(xk) + mu * viol
+            # Directional derivative of the merit along the step (constraints linearised).
+            dphi = float(grad_obj @ dx) - mu * viol
+            size = max(sx.max(initial=0.0) / _X_BOX, sy.max(initial=0.0) / _Y_BOX)
+            if np.all(sx <= _LOCAL) and np.all(sy <= _LOCAL):
+                # Inside the region where Newton's method converges quadratically and
+                # the merit changes by rounding only: take the full step.
+                xt, yt = xk + dx, y + dy
+                ft = _evaluate(residual, xt.copy(), yt.copy(), m)
+                accepted = ft is not None
+            else:
+                if size <= radius:
+                    alphas = _halvings()
+                elif not core.observable.all():
+                    # Some y are not determined at this iterate: their minimum-norm
+                    # step is arbitrary, so a long step is not to be trusted.
+                    alphas = ()
+                else:
+                    # Outside the trust region: the full step only, and only if the
+                    # merit falls by a good share of what the linearisation predicts.
+                    alphas = (1.0,)
+                for alpha in alphas:
+                    xt, yt = xk + alpha * dx, y + alpha * dy
+                    ft = _evaluate(residual, xt.copy(), yt.copy(), m)
+                    if ft is None:
+                        continue
+                    phi = objective(xt) + mu * float(np.sum(np.abs(ft) * row_scale))
+                    c = _ARMIJO if size <= radius else _GOOD_RATIO
+                    if phi <= phi0 + c * alpha * min(dphi, 0.0):
+                        accepted = True
+                        if alpha == 1.0:
+                            radius = min(max(radius, 2.0 * size), _RADIUS_MAX)
+                        break
+        if not accepted and consistent and k:
+            # Levenberg regularisation of the unmeasured block: a prior on the y step
+            # (standard deviation of the trust-region size), constraints kept.
+            dx, dy, lam = _damped_step(
+                Jx, Jy, S, sdiag, is_diag, xk, xm, fk, radius * _Y_BOX * ysize
+            )
+            dsize = max(
+                (np.abs(dx) / u).max(initial=0.0) / _X_BOX,
+                (np.abs(dy) / ysize).max(initial=0.0) / _Y_BOX,
+            )
+            if dsize > radius:
+                dx, dy = dx * (radius / dsize), dy * (radius / dsize)
+            lin = float(np.sum(np.abs(fk + Jx @ dx + Jy @ dy) * row_scale))
+            dmu = max(mu, 1.5 * float((np.abs(lam) / row_scale).max(initial=0.0)) + 1.0)
+            dphi0 = objective(xk) + dmu * viol
+            ddphi = float(grad_obj @ dx) + dmu * (lin - viol)
+            # Only nearly full steps: a step cut further means the linearisation is
+            # poor over the trust region, and the measured values would be pushed
+            # to absorb what the guesses of y should; restoration is better then.
+            for alpha in (1.0, 0.5, 0.25):
+                xt, yt = xk + alpha * dx, y + alpha * dy
+                ft = _evaluate(residual, xt.copy(), yt.copy(), m)
+                if ft is None:
+                    continue
+                phi = objective(xt) + dmu * float(np.sum(np.abs(ft) * row_scale))
+                if phi < dphi0 + _ARMIJO * alpha * min(ddphi, 0.0):
+                    accepted = True
+                    mu = dmu
+                    if alpha == 1.0 and dsize >= radius:
+                        radius = min(2.0 * radius, _RADIUS_MAX)
+                    break
+        if not (accepted or (consistent and resid_small)):
+            accepted, radius, xt, yt, ft = _restoration(
+                residual, m, objective, xk, y, fk, Jx, Jy, grad_obj, row_scale,
+                u * _X_RESTORE, ysize * _Y_BOX, radius, mu, merit=consistent,
+            )  # fmt: skip
+        if not accepted and consistent:
+            # Last resort: the exact step cut to the trust region, with backtracking
+            # (a descent direction of the merit function, mu being above the multipliers).
+            shrink = min(1.0, radius / size) if size > 0 else 1.0
+            for alpha in _halvings():
+                a = alpha * shrink
+                xt, yt = xk + a * dx, y + a * dy
+                ft = _evaluate(residual, xt.copy(), yt.copy(), m)
+                if ft is None:
+                    continue
                 phi = objective(xt) + mu * float(np.sum(np.abs(ft) * row_scale))
-                if phi <= phi0 + _ARMIJO * alpha * min(dphi, 0.0):
+                if phi < phi0 + _ARMIJO * a * min(dphi, 0.0):
                     accepted = True
                     break
-            alpha *= 0.5
+            radius = max(radius / 4.0, _RADIUS_MIN)
         if not accepted:
-            # No sufficient decrease: take the shortest evaluated step that the
-            # model accepts, so a stalled iteration still moves and the count runs out.
-            if ft is None:
-                break
+            break  # no decrease in any direction tried: stalled
         xk, y, fk = xt, yt, ft
     if not converged:
         norm = float(np.linalg.norm(fk))
@@ -322,6 +430,122 @@ def reconcile_nonlinear(
     return build_result(
         p, core, method="nonlinear", converged=True, iterations=it, residual_norm=norm
     )
+
+
+def _halvings():
+    alpha = 1.0
+    while alpha >= _MIN_STEP:
+        yield alpha
+        alpha *= 0.5
+
+
+def _damped_step(Jx, Jy, S, sdiag, is_diag, xk, xm, fk, sd_y):
+    """Linearised reconciliation step with a prior of standard deviation ``sd_y`` on ``dy``.
+
+    Minimises ``0.5 |x - xm|^2_S^-1 + 0.5 |dy / sd_y|^2`` subject to
+    ``f + Jx dx + Jy dy = 0``: the solution of
+    ``(Jx S Jx^T + Jy Dy Jy^T) lam = f + Jx (xm - xk)``, ``x = xm - S Jx^T lam``,
+    ``dy = -Dy Jy^T lam``.  Directions of ``y`` that the constraints barely determine
+    at this iterate (a nearly rank-deficient ``Jy``) stay put and the measured
+    variables take up their share, instead of the huge minimum-norm step.
+    Returns ``(dx, dy, lam)``.
+    """
+    e = xk - xm
+    dy_var = sd_y**2
+    if sp.issparse(Jx) or sp.issparse(Jy) or sp.issparse(S):
+        import scipy.sparse.linalg as spla
+
+        Jx, Jy = sp.csr_matrix(Jx), sp.csr_matrix(Jy)
+        SJt = (Jx.multiply(sdiag) if is_diag else Jx @ sp.csr_matrix(S)).T.tocsr()
+        DyJt = Jy.multiply(dy_var).T.tocsr()
+        M = sp.csc_matrix(Jx @ SJt + Jy @ DyJt)
+        try:
+            lam = spla.splu(M).solve(fk - Jx @ e)
+        except RuntimeError:  # singular: dependent constraints at this iterate
+            return np.zeros_like(xk), np.zeros_like(dy_var), np.zeros_like(fk)
+        return -e - np.asarray(SJt @ lam).ravel(), -np.asarray(DyJt @ lam).ravel(), lam
+    import scipy.linalg
+
+    SJt = (Jx * sdiag).T if is_diag else np.asarray(S @ Jx.T)
+    DyJt = (Jy * dy_var).T
+    M = Jx @ SJt + Jy @ DyJt
+    try:
+        lam = scipy.linalg.cho_solve(scipy.linalg.cho_factor(M, lower=True), fk - Jx @ e)
+    except np.linalg.LinAlgError:  # dependent constraints at this iterate
+        return np.zeros_like(xk), np.zeros_like(dy_var), np.zeros_like(fk)
+    return -e - SJt @ lam, -DyJt @ lam, lam
+
+
+def _restoration(
+    residual, m, objective, xk, y, fk, Jx, Jy, grad_obj, row_scale, sd_x, sd_y, radius, mu, merit
+):
+    """Levenberg-Marquardt steps on the scaled constraint violation, inside the trust region.
+
+    Minimises ``|W (f + Jx dx + Jy dy)|^2 + nu |(dx / sd_x, dy / sd_y)|^2`` with
+    ``nu = 1 / radius^2``; the step is then cut to the box of ``radius`` (in units of
+    ``sd_x``, ``sd_y``) and accepted by backtracking on the exact-penalty merit
+    function (``merit=True``) or on the violation alone (the linearised constraints
+    contradict each other: restoration proper).  In the scaled metric a direction
+    that the constraints barely determine is expensive to move along, so an
+    unmeasured pair that is nearly unobservable at the iterate stays put and the
+    measured variables take up the residual.  The radius is quartered after a
+    failure and doubled after a full step that used it.
+
+    Returns ``(accepted, radius, x, y, f)``.
+    """
+    viol = float(np.sum(np.abs(fk) * row_scale))
+    phi0 = objective(xk) + mu * viol if merit else viol
+    for _ in range(_MAX_SHRINK):
+        dx, dy = _lm_step(Jx, Jy, fk, row_scale, sd_x, sd_y, 1.0 / radius**2)
+        size = max(
+            (np.abs(dx) / sd_x).max(initial=0.0),
+            (np.abs(dy) / sd_y).max(initial=0.0),
+        )
+        if size > radius:
+            dx, dy = dx * (radius / size), dy * (radius / size)
+        lin_viol = float(np.sum(np.abs(fk + Jx @ dx + Jy @ dy) * row_scale))
+        dphi = lin_viol - viol
+        if merit:
+            dphi = float(grad_obj @ dx) + mu * dphi
+        for alpha in _halvings():
+            xt, yt = xk + alpha * dx, y + alpha * dy
+            ft = _evaluate(residual, xt.copy(), yt.copy(), m)
+            if ft is None:
+                continue
+            phi = float(np.sum(np.abs(ft) * row_scale))
+            if merit:
+                phi = objective(xt) + mu * phi
+            if phi < phi0 + _ARMIJO * alpha * min(dphi, 0.0):
+                if alpha == 1.0 and size >= radius:
+                    radius = min(2.0 * radius, _RADIUS_MAX)
+                return True, radius, xt, yt, ft
+        radius = max(radius / 4.0, _RADIUS_MIN)
+    return False, radius, xk, y, fk
+
+
+def _lm_step(Jx, Jy, fk, row_scale, sd_x, sd_y, nu):
+    """``(dx, dy)`` minimising ``|W (f + J d)|^2 + nu |d / sd|^2`` (m-by-m system)."""
+    w2 = 1.0 / row_scale**2  # residual variances: W^-2
+    if sp.issparse(Jx) or sp.issparse(Jy):
+        import scipy.sparse.linalg as spla
+
+        Jx, Jy = sp.csr_matrix(Jx), sp.csr_matrix(Jy)
+        DxJt = Jx.multiply(sd_x**2).T.tocsr()
+        DyJt = Jy.multiply(sd_y**2).T.tocsr()
+        M = sp.csc_matrix(Jx @ DxJt + Jy @ DyJt + sp.diags(nu * w2))
+        lam = spla.splu(M).solve(fk)
+        return -np.asarray(DxJt @ lam).ravel(), -np.asarray(DyJt @ lam).ravel()
+    import scipy.linalg
+
+    DxJt = (Jx * sd_x**2).T
+    DyJt = (Jy * sd_y**2).T
+    M = Jx @ DxJt + Jy @ DyJt
+    M[np.diag_indices_from(M)] += nu * w2
+    try:
+        lam = scipy.linalg.cho_solve(scipy.linalg.cho_factor(M, lower=True), fk)
+    except np.linalg.LinAlgError:  # pragma: no cover - nu > 0 keeps M positive definite
+        lam = np.linalg.lstsq(M, fk, rcond=None)[0]
+    return -DxJt @ lam, -DyJt @ lam
 
 
 def _linearised_problem(xm, S, sdiag, is_diag, Jx, b_lin, Jy):
