@@ -14,7 +14,10 @@ Outside references used here:
 from __future__ import annotations
 
 import datetime as dt
+import io
+import os
 import warnings
+from collections.abc import Mapping
 from zoneinfo import ZoneInfo
 
 import numpy as np
@@ -544,3 +547,115 @@ def test_comment_lines_and_blank_lines_keep_line_numbers(tmp_path):
     # the 'x' sits on line 7 of the file (comment, blank, header, units, row, blank, row)
     assert run.exclusions["reason"].tolist() == ["text 'x' in a numeric cell (line 7)"]
     assert any("header on line 3" in line for line in run.log)
+
+
+# --- reading in pieces; Run.raw read again from the file -------------------------------------
+
+
+def _log_text(newline="\n", rows=150):
+    """A log whose surprises sit far from its first lines, so that they fall in later pieces:
+    text cells, a blank, sentinels, bad quality flags, a repeated stamp; no final line end."""
+    rng = np.random.default_rng(3)
+    stamps = pd.date_range("2031-05-04 10:00", periods=rows, freq="10s").strftime(
+        "%Y-%m-%d %H:%M:%S"
+    )
+    stamps = list(stamps)
+    stamps[60] = stamps[59]  # a repeated stamp: the first row is kept
+    a = [f"{v:.{rng.integers(1, 9)}f}" for v in rng.normal(50.0, 5.0, rows)]
+    a[20], a[30], a[40], a[90], a[100] = "", "-9999", "NaN", "Bad", "oops"
+    b = [f"{v:.3f}" for v in rng.normal(101.0, 1.0, rows)]
+    q = ["Good"] * rows
+    q[70], q[75] = "Bad", ""
+    lines = ["time,A,B,B.Q", ",degC,kPa,"]
+    lines += [",".join(r) for r in zip(stamps, a, b, q, strict=True)]
+    return newline.join(lines)
+
+
+@pytest.mark.parametrize("newline", ["\n", "\r\n", "\r"])
+@pytest.mark.parametrize(("chunk", "tensors"), [(40, True), (333, True), (333, False)])
+def test_pieces_and_row_estimate_do_not_change_the_run(
+    tmp_path, monkeypatch, newline, chunk, tensors
+):
+    from perftest.importers import csvfile, reader
+
+    path = tmp_path / "big.csv"
+    path.write_bytes(_log_text(newline).encode())
+    whole = quiet_read(path)  # the file fits in one piece
+    # pieces of 40 bytes are shorter than a line (the piece grows); with too few rows
+    # allocated at first, the value array is reallocated as the rows come in; and the
+    # column-by-column copy of old pyarrow versions
+    monkeypatch.setattr(csvfile, "CHUNK_BYTES", chunk)
+    monkeypatch.setattr(reader, "_ROW_MARGIN", 0.05)
+    monkeypatch.setattr(reader, "_TENSORS", tensors and reader._TENSORS)
+    parts = quiet_read(path)
+    pd.testing.assert_frame_equal(parts.data, whole.data)
+    pd.testing.assert_frame_equal(parts.mask, whole.mask)
+    pd.testing.assert_frame_equal(parts.exclusions, whole.exclusions)
+    assert parts.log == whole.log
+    # and both against pandas reading the same text (with "\n" line ends: pandas 3.1 keeps
+    # the units row of a file whose lines end in a bare carriage return despite skiprows)
+    ref = pd.read_csv(io.StringIO(_log_text()), skiprows=[1], dtype=str, keep_default_na=False)
+    ref = ref[~ref["time"].duplicated()]
+    a = pd.to_numeric(ref["A"], errors="coerce").to_numpy(copy=True)
+    a[np.isin(a, [-9999.0])] = np.nan  # the built-in numeric sentinel
+    np.testing.assert_allclose(parts.data["A"].to_numpy(), a + C_TO_K, rtol=RTOL)
+    b = pd.to_numeric(ref["B"]).to_numpy(copy=True) * 1e3  # kPa, SI Brochure Table 7 (k = 1e3)
+    b[ref["B.Q"].to_numpy() != "Good"] = np.nan
+    np.testing.assert_allclose(parts.data["B"].to_numpy(), b, rtol=RTOL)
+    reasons = parts.exclusions.groupby("tag")["reason"].apply(list)
+    assert reasons["A"] == [
+        "blank cell",
+        "sentinel value -9999",
+        "NaN in the file",
+        "duplicate time stamp, first row kept",
+        "sentinel text 'Bad'",
+        f"text 'oops' in a numeric cell (line {100 + 3})",
+    ]
+    assert reasons["B"][1:] == [
+        "quality flag 'Bad' in column 'B.Q'",
+        "quality flag '' in column 'B.Q'",
+    ]
+    assert any("checked cell by cell: 'A'" in line for line in parts.log)
+
+
+def test_raw_is_read_again_from_the_file_as_text(tmp_path):
+    path = tmp_path / "big.csv"
+    path.write_bytes(_log_text().encode())
+    run = quiet_read(path)
+    assert isinstance(run.raw, Mapping) and list(run.raw) == ["big"]
+    raw = run.raw["big"]
+    # pandas' own reading of the cells as text: blank cells missing, nothing else touched
+    ref = pd.read_csv(path, skiprows=[1], dtype=str, keep_default_na=False, na_values=[""])
+    pd.testing.assert_frame_equal(raw.reset_index(drop=True), ref)
+    stamps = pd.to_datetime(ref["time"]).dt.tz_localize("UTC")
+    assert list(raw.index) == list(stamps)  # every row, the repeated stamp too
+    # a copy: changing it leaves the run's raw table as read
+    raw.iloc[0, 1] = "changed"
+    assert run.raw["big"].iloc[0, 1] == ref.iloc[0, 1]
+    with pytest.raises(TypeError):
+        run.raw["other"] = raw
+
+
+def test_raw_of_a_changed_file_is_a_data_error(tmp_path):
+    path = tmp_path / "big.csv"
+    text = _log_text()
+    path.write_bytes(text.encode())
+    run = quiet_read(path)
+    # same size, same modification time, one digit different: the CRC-32 tells
+    stat = path.stat()
+    i = text.index("2031-05-04 10:00:10")
+    path.write_bytes((text[:i] + "2031-05-04 10:00:11" + text[i + 19 :]).encode())
+    os.utime(path, ns=(stat.st_atime_ns, stat.st_mtime_ns))
+    assert path.stat().st_size == stat.st_size
+    with pytest.raises(DataError, match=r"big\.csv: the run file changed since it was imported"):
+        run.raw["big"]
+    path.write_bytes((text + "\n2031-05-04 11:00:00,1,2,Good").encode())
+    with pytest.raises(DataError, match=r"its size is \d+ bytes, not \d+") as err:
+        run.raw["big"]
+    assert err.value.file is not None and "big.csv" in str(err.value.file)
+    # what the import kept does not depend on the file any more
+    path.unlink()
+    assert run.exclusions["raw_value"].tolist()[:3] == ["", -9999.0, "NaN"]
+    with pytest.raises(DataError, match=r"cannot be read any more"):
+        run.raw["big"]
+    assert run.average(tags=["B"])["B"].n_samples > 0

@@ -12,7 +12,6 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
-import pyarrow as pa
 
 from perftest.errors import DataError, InputError, UnitError
 from perftest.importers.csvfile import FileLayout, quality_base
@@ -51,11 +50,12 @@ class _FileData:
     quality: dict[str, str]  # base column -> quality column
     jobs: list[_TagJob] = field(default_factory=list)
     ignored: list[str] = field(default_factory=list)
-    table: pa.Table | None = None
     text_cols: list[str] = field(default_factory=list)
     times: object = None  # TimeInfo
-    values: np.ndarray | None = None
-    mask: np.ndarray | None = None
+    collector: object = None  # reader._Collector while the file is converted
+    values: np.ndarray | None = None  # (rows, tags), column-major: numbers, then SI
+    mask: np.ndarray | None = None  # (kept rows, tags), column-major
+    done: set[int] = field(default_factory=set)  # tag columns already converted
 
 
 # --- argument checks -----------------------------------------------------------------------

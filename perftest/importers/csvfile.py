@@ -1,15 +1,19 @@
 """Reading one run CSV: layout detection, the pyarrow fast path, cell classification.
 
-The reader never looks at every cell in Python.  pyarrow parses the file with the
-value columns typed as float64; only a column that pyarrow refuses (it holds text
-somewhere) is read as text and classified cell by cell, and even then the
-classification runs once per distinct text, not once per cell.
+The reader never looks at every cell in Python.  pyarrow parses the file piece by
+piece (:func:`scan_table`, a few MB at a time, so that the parsed text never sits
+in memory whole) with the value columns typed as float64; only where pyarrow
+refuses a column (it holds text) is that column read as text from that piece on
+and classified cell by cell, and even then once per distinct text, not per cell.
 """
 
 from __future__ import annotations
 
 import csv
 import re
+import zlib
+from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -23,9 +27,15 @@ from perftest.errors import DataError, InputError, UnitError
 __all__ = [
     "FileLayout",
     "sniff",
-    "read_table",
-    "classify_values",
-    "quality_bad",
+    "scan_table",
+    "ScanResult",
+    "TextPiece",
+    "column_names",
+    "arrow_options",
+    "sentinel_sets",
+    "classify_numbers",
+    "classify_text",
+    "quality_flags",
     "lines_of_rows",
     "TEXT_SENTINELS",
     "NUMERIC_SENTINELS",
@@ -98,6 +108,15 @@ _DOT_NUMBER = re.compile(r"^[+-]?\d*\.\d+(?:[eE][+-]?\d+)?$")
 _CONVERSION_ERROR = re.compile(r"In CSV column #(\d+): CSV conversion error")
 _HEAD_BYTES = 1 << 16
 _SAMPLE_LINES = 50
+_LINE_END = re.compile(rb"\r\n|\n|\r")
+# Bytes parsed at a time by scan_table, and pyarrow's block size inside a piece (its
+# threads parse the blocks of a piece in parallel, and the next piece while this one is
+# copied).  On two cores, 2 MB pieces kept the peak memory of a 10-million-value file
+# near 1.5 x its SI frame (4 MB: up to 1.9 x) at 1.0-1.25 x the time of pandas;
+# 1 MB pieces took 1.4 x (overhead per piece).  Chosen by measurement
+# (benchmarks/bench_import.py).
+CHUNK_BYTES = 1 << 21
+_BLOCK_BYTES = 1 << 20
 
 
 def sep_name(sep: str) -> str:
@@ -119,6 +138,8 @@ class FileLayout:
     first_data_line: int  # 1-based line number of the first data row
     sample_rows: list[list[str]] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
+    data_offset: int = 0  # byte offset of the first data line
+    row_bytes: float = 0.0  # mean bytes per data line in the first rows (size estimate)
 
     @property
     def name(self) -> str:
@@ -292,6 +313,7 @@ def sniff(path, *, sep: str | None = None, decimal: str | None = None) -> FileLa
             "Export the run again with its samples.",
             file=path,
         )
+    data_offset, row_bytes = _data_span(head, first_data_line, len(head) < _HEAD_BYTES)
     return FileLayout(
         path=path,
         encoding="utf8" if encoding == "utf-8-sig" else encoding,
@@ -303,7 +325,34 @@ def sniff(path, *, sep: str | None = None, decimal: str | None = None) -> FileLa
         first_data_line=first_data_line,
         sample_rows=rows,
         notes=notes,
+        data_offset=data_offset,
+        row_bytes=row_bytes,
     )
+
+
+def _data_span(head: bytes, first_data_line: int, whole_file: bool) -> tuple[int, float]:
+    """Byte offset of the first data line, and mean bytes per non-blank data line.
+
+    Lines end at ``\r\n``, ``\n`` or ``\r`` as pyarrow reads them.  The mean is
+    taken over the data lines wholly inside ``head`` (the last one too when
+    ``head`` is the whole file).
+    """
+    ends = [m.end() for m in _LINE_END.finditer(head)]
+    if whole_file and (not ends or ends[-1] < len(head)):
+        ends.append(len(head))
+    k = first_data_line - 1  # line ends before the first data line
+    offset = ends[k - 1] if 0 < k <= len(ends) else 0
+    starts = [offset, *ends[k:-1]] if k < len(ends) else []
+    lines = [
+        (a, b)
+        for a, b in zip(starts, ends[k:], strict=False)
+        if head[a:b].strip(b"\r\n")  # blank lines hold no row
+    ]
+    if lines:
+        row_bytes = (lines[-1][1] - offset) / len(lines)
+    else:  # one data line longer than the head: at least that long
+        row_bytes = float(max(len(head) - offset, 1))
+    return offset, row_bytes
 
 
 def _line_after(lines: list[str], header_line: int, skip_nonblank: int) -> int:
@@ -389,67 +438,184 @@ def quality_base(name: str, header: set[str]) -> str | None:
     return None
 
 
-def _arrow_options(layout, names, include, string_cols):
+def column_names(layout: FileLayout) -> list[str]:
+    """Column names as pyarrow sees them (an unnamed last column gets a placeholder)."""
+    return [h if h else f"__unnamed_{i}" for i, h in enumerate(layout.header)]
+
+
+def arrow_options(layout: FileLayout, include: list[str], types: dict, *, blank_is_null=False):
+    """pyarrow read, parse and convert options for the data lines of a run file.
+
+    The input starts at the first data line (``layout.data_offset``).  Empty cells
+    are null in float columns; in text columns they are ``""`` unless
+    ``blank_is_null``.
+    """
     read = pacsv.ReadOptions(
-        column_names=names,
-        skip_rows=layout.first_data_line - 1,
-        encoding=layout.encoding,
-        block_size=1 << 22,
+        column_names=column_names(layout), encoding=layout.encoding, block_size=_BLOCK_BYTES
     )
     parse = pacsv.ParseOptions(delimiter=layout.sep, quote_char='"', ignore_empty_lines=True)
-    types = {n: (pa.string() if n in string_cols else pa.float64()) for n in include}
     convert = pacsv.ConvertOptions(
         include_columns=include,
         column_types=types,
         null_values=[""],
-        strings_can_be_null=False,
+        strings_can_be_null=blank_is_null,
         quoted_strings_can_be_null=False,
         decimal_point=layout.decimal,
     )
     return read, parse, convert
 
 
-def read_table(
-    layout: FileLayout, value_cols: list[str], text_cols: list[str]
-) -> tuple[pa.Table, list[str]]:
-    """Read the chosen columns with pyarrow.
+@dataclass
+class ScanResult:
+    """What :func:`scan_table` read: row count, text columns and the file's fingerprint."""
 
-    Value columns are read as float64; a column holding text anywhere is read
-    again as text (``text_cols`` always are).  Returns the table and the names
-    of the value columns that had to be read as text.
+    rows: int  # data rows (blank lines are not rows)
+    text_cols: list[str]  # value columns that had to be read as text (from some piece on)
+    size: int  # bytes in the file
+    crc32: int  # zlib CRC-32 of the whole file
+
+
+def scan_table(
+    layout: FileLayout,
+    value_cols: list[str],
+    text_cols: list[str],
+    sink: Callable[[pa.Table, int], None],
+    *,
+    flag_cols: list[str] = (),
+    chunk_bytes: int | None = None,
+) -> ScanResult:
+    """Parse the chosen columns with pyarrow, a piece of the file at a time.
+
+    Parameters
+    ----------
+    layout : FileLayout
+        From :func:`sniff`.
+    value_cols : list of str
+        Read as float64.  Where pyarrow refuses a cell (text in the column), the
+        piece is parsed again with that column as text, and the column stays text
+        for the rest of the file.
+    text_cols : list of str
+        Always read as text (time columns).
+    sink : callable
+        ``sink(table, first_row)``: a parsed piece (pyarrow Table, columns in file
+        order) and the index of its first data row.  The table must not be kept:
+        the sink copies what it needs.
+    flag_cols : list of str
+        Read as dictionary-encoded text (quality columns hold few distinct values).
+    chunk_bytes : int, optional
+        Bytes read per piece (default :data:`CHUNK_BYTES`); pieces end at a line end
+        (a longer line grows the piece).
+
+    Returns
+    -------
+    ScanResult
+        Rows read, value columns read as text, and the size and CRC-32 of the file
+        (computed from the bytes read, for :class:`~perftest.importers.raw.RawTables`).
+
+    Raises
+    ------
+    DataError
+        Ragged rows (naming the line), a header without data rows.
     """
-    names = [h if h else f"__unnamed_{i}" for i, h in enumerate(layout.header)]
-    include = list(dict.fromkeys([*text_cols, *value_cols]))
-    as_text = set(text_cols)
-    retries = 0
+    names = column_names(layout)
+    wanted = {*value_cols, *text_cols, *flag_cols}
+    include = [n for n in names if n in wanted]
+    types = {c: pa.float64() for c in value_cols}
+    types.update({c: pa.dictionary(pa.int32(), pa.string()) for c in flag_cols})
+    types.update({c: pa.string() for c in text_cols})
+    as_text: list[str] = []
+    rows = 0
+    with open(layout.path, "rb") as fh, ThreadPoolExecutor(max_workers=1) as pool:
+        reader = _Pieces(fh, layout.data_offset, int(chunk_bytes or CHUNK_BYTES))
+        # pyarrow parses the next piece (without the GIL) while the sink copies this one;
+        # the pieces alternate between two buffers, so the one being parsed stays intact
+        parsing = None
+        for piece in reader:
+            queued = pool.submit(_parse_piece, layout, piece, include, types, as_text)
+            del piece
+            if parsing is not None:
+                rows = _hand_over(parsing, rows, sink)
+            parsing = queued
+        if parsing is not None:
+            rows = _hand_over(parsing, rows, sink)
+    if rows == 0:
+        raise DataError(
+            f"{layout.name}: the file has a header (line {layout.header_line}) but no data "
+            "rows. Export the run again with its samples.",
+            file=layout.path,
+        )
+    text = [c for c in value_cols if c in as_text]
+    return ScanResult(rows, text, reader.size, reader.crc32)
+
+
+def _hand_over(parsing, rows: int, sink) -> int:
+    table = parsing.result()
+    if table.num_rows:
+        sink(table, rows)
+    return rows + table.num_rows
+
+
+class _Pieces:
+    """The data lines of an open file in pieces of about ``chunk`` bytes that end at a
+    line end, as memoryviews of two buffers taken in turn (a piece must be done with
+    before the next but one is asked for); keeps the size and CRC-32 of every byte of
+    the file as it goes."""
+
+    def __init__(self, fh, offset: int, chunk: int):
+        self.fh = fh
+        self.chunk = max(chunk, 16)
+        head = fh.read(offset)
+        self.size = len(head)
+        self.crc32 = zlib.crc32(head)
+
+    def __iter__(self):
+        bufs = [bytearray(self.chunk), bytearray(self.chunk)]
+        cur, have = 0, 0
+        while True:
+            buf = bufs[cur]
+            if have == len(buf):  # one line longer than the piece: make room
+                buf = bufs[cur] = buf + bytes(len(buf))
+            view = memoryview(buf)
+            got = self.fh.readinto(view[have:])
+            end = have + got
+            if got:
+                self.size += got
+                self.crc32 = zlib.crc32(view[have:end], self.crc32)
+                cut = max(buf.rfind(b"\n", 0, end), buf.rfind(b"\r", 0, end)) + 1
+            else:
+                cut = end  # the rest of the file (a last line without line end)
+            if cut:
+                yield view[:cut]
+            del view
+            if not got:
+                return
+            if cut:  # the rest of the last line goes to the front of the other buffer
+                cur = 1 - cur
+                if len(bufs[cur]) < end - cut:
+                    bufs[cur] = bytearray(end - cut)
+                bufs[cur][: end - cut] = buf[cut:end]
+            have = end - cut  # (no line end yet: keep filling this buffer)
+
+
+def _parse_piece(layout, piece, include, types, as_text) -> pa.Table:
+    names = column_names(layout)
     while True:
-        opts = _arrow_options(layout, names, include, as_text)
+        opts = arrow_options(layout, include, types)
+        source = pa.BufferReader(pa.py_buffer(piece))
         try:
-            table = pacsv.read_csv(
-                layout.path, read_options=opts[0], parse_options=opts[1], convert_options=opts[2]
-            )
-            break
+            return pacsv.read_csv(source, *opts)
         except pa.ArrowInvalid as exc:
             msg = str(exc)
             m = _CONVERSION_ERROR.search(msg)
             if m is None:
                 raise _parse_error(layout, msg) from None
             bad = names[int(m.group(1))]
-            if bad in as_text:  # cannot happen with string columns; do not loop forever
+            if types.get(bad) != pa.float64():  # text columns cannot fail; do not loop
                 raise _parse_error(layout, msg) from None
-            retries += 1
-            if retries > 3:
-                # many columns hold text: read them all as text in one more pass
-                as_text |= set(value_cols)
-            else:
-                as_text.add(bad)
-    if table.num_rows == 0:
-        raise DataError(
-            f"{layout.name}: the file has a header (line {layout.header_line}) but no data "
-            "rows. Export the run again with its samples.",
-            file=layout.path,
-        )
-    return table, [c for c in value_cols if c in as_text]
+            types[bad] = pa.string()
+            as_text.append(bad)
+        finally:
+            source.close()
 
 
 def _parse_error(layout: FileLayout, msg: str) -> DataError:
@@ -527,7 +693,8 @@ class Classified:
     n_numbers: int
 
 
-def _sentinel_sets(extra) -> tuple[frozenset[str], np.ndarray]:
+def sentinel_sets(extra) -> tuple[frozenset[str], np.ndarray]:
+    """Texts (case-folded) and numbers that mean "bad sample", with ``extra`` added."""
     texts = set(TEXT_SENTINELS)
     numbers = list(NUMERIC_SENTINELS)
     for s in extra:
@@ -538,39 +705,77 @@ def _sentinel_sets(extra) -> tuple[frozenset[str], np.ndarray]:
     return frozenset(texts), np.asarray(numbers, dtype=float)
 
 
-def classify_values(col: pa.ChunkedArray, *, decimal: str, sentinels=()) -> Classified:
-    """Numbers of a column, with each bad cell's reason.
+@dataclass
+class TextPiece:
+    """The bad cells of one piece of a column read as text (rows relative to the piece)."""
+
+    first_row: int
+    rows: int
+    bad_rows: np.ndarray  # rows of the bad cells
+    reason: np.ndarray  # object: reason per bad cell
+    text: np.ndarray  # object: raw value per bad cell
+    text_rows: np.ndarray  # rows whose cell is text that is no known sentinel
+
+    @classmethod
+    def of(cls, first_row: int, c: Classified) -> TextPiece:
+        if c.reason is None:
+            e = np.empty(0, np.int64)
+            return cls(first_row, c.values.size, e, np.empty(0, object), np.empty(0, object), e)
+        return cls(first_row, c.values.size, np.flatnonzero(c.bad), c.reason, c.text, c.text_rows)
+
+
+def classify_numbers(
+    values: np.ndarray, blank_rows: np.ndarray, numbers, pieces: list[TextPiece] = ()
+) -> Classified:
+    """Classify a float column assembled from pieces; bad cells become NaN in place.
 
     Parameters
     ----------
-    col : pyarrow.ChunkedArray
-        A float64 column (fast path) or a text column (slow path).
-    decimal : str
-        Decimal mark of the file.
-    sentinels : iterable of str or float
-        Extra values that mean "bad sample" (plant tag and ``read_run`` argument).
+    values : ndarray of float64
+        The column as parsed (NaN for blank cells and where a text piece found no
+        number).  Written in place.
+    blank_rows : ndarray of int
+        Rows of the blank cells of pieces read as numbers.
+    numbers : ndarray
+        Numeric sentinels.
+    pieces : list of TextPiece
+        Pieces read as text; their rows keep the reasons found by :func:`classify_text`.
     """
-    texts, numbers = _sentinel_sets(sentinels)
-    if pa.types.is_floating(col.type):
-        values = col.to_numpy()
-        is_null = col.is_null().to_numpy(zero_copy_only=False) if col.null_count else None
-        return _classify_numbers(values, is_null, numbers)
-    return _classify_text(col, decimal, texts, numbers)
-
-
-def _classify_numbers(values, is_null, numbers) -> Classified:
+    n = values.size
     with np.errstate(invalid="ignore"):
-        nan = np.isnan(values)
-        inf = np.isinf(values)
-        sent = np.isin(values, numbers)
-    bad = nan | inf | sent
-    if not bad.any():
-        return Classified(values, bad, None, None, np.empty(0, np.int64), values.size)
+        bad = np.isnan(values) | np.isinf(values) | np.isin(values, numbers)
+    t_pos, t_reason, t_text, t_rows = [], [], [], []
+    for p in pieces:
+        bad[p.first_row : p.first_row + p.rows] = False
+        if p.bad_rows.size:
+            t_pos.append(p.first_row + p.bad_rows)
+            t_reason.append(p.reason)
+            t_text.append(p.text)
+            t_rows.append(p.first_row + p.text_rows)
+    text_rows = np.concatenate(t_rows) if t_rows else np.empty(0, np.int64)
     pos = np.flatnonzero(bad)
-    reason = np.empty(pos.size, dtype=object)
-    text = np.empty(pos.size, dtype=object)
+    if pos.size == 0 and not t_pos:
+        return Classified(values, bad, None, None, text_rows, n)
     v = values[pos]
-    blank = is_null[pos] if is_null is not None else np.zeros(pos.size, bool)
+    is_blank = np.zeros(pos.size, bool)
+    if blank_rows.size:
+        is_blank[np.searchsorted(pos, blank_rows)] = True
+    reason, text = _numeric_reasons(v, is_blank)
+    values[pos] = np.nan
+    if t_pos:
+        pos = np.concatenate([pos, *t_pos])
+        reason = np.concatenate([reason, *t_reason])
+        text = np.concatenate([text, *t_text])
+        order = np.argsort(pos, kind="stable")
+        pos, reason, text = pos[order], reason[order], text[order]
+        bad[pos] = True
+    return Classified(values, bad, reason, text, text_rows, n - pos.size)
+
+
+def _numeric_reasons(v: np.ndarray, blank: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Reason and raw value of bad numeric cells (NaN, blank, infinite, sentinel)."""
+    reason = np.empty(v.size, dtype=object)
+    text = np.empty(v.size, dtype=object)
     reason[:] = "sentinel value"
     text[:] = v
     reason[np.isinf(v)] = "infinite value"
@@ -579,15 +784,17 @@ def _classify_numbers(values, is_null, numbers) -> Classified:
     text[nanv & ~blank] = "NaN"
     reason[blank] = "blank cell"
     text[blank] = ""
-    sentinel_hits = ~np.isnan(v) & ~np.isinf(v)
-    for p in np.flatnonzero(sentinel_hits):
+    for p in np.flatnonzero(~nanv & ~np.isinf(v)):
         reason[p] = f"sentinel value {v[p]:.15g}"
-    values = values.copy() if not values.flags.writeable else values
-    values[pos] = np.nan
-    return Classified(values, bad, reason, text, np.empty(0, np.int64), values.size - pos.size)
+    return reason, text
 
 
-def _classify_text(col, decimal, texts, numbers) -> Classified:
+def classify_text(col, decimal: str, texts, numbers) -> Classified:
+    """Classify a text column cell by cell (each distinct text once).
+
+    Cells that are numbers give their value; bad cells are NaN, with their reason
+    and their raw value (the cell text, or the number for numeric sentinels).
+    """
     raw = col.to_numpy(zero_copy_only=False).astype(object)
     s = pd.Series(raw, dtype=object).str.strip()
     num_text = s.str.replace(",", ".", regex=False) if decimal == "," else s
@@ -603,6 +810,7 @@ def _classify_text(col, decimal, texts, numbers) -> Classified:
     pos = np.flatnonzero(bad)
     cells = s.to_numpy(dtype=object)[pos]
     reason = np.empty(pos.size, dtype=object)
+    out_text = raw[pos]
     # classify each distinct text once
     lookup: dict[str, str] = {}
     is_text = np.zeros(pos.size, bool)
@@ -610,6 +818,7 @@ def _classify_text(col, decimal, texts, numbers) -> Classified:
         v = values[pos[i]]
         if not np.isnan(v):
             reason[i] = "infinite value" if np.isinf(v) else f"sentinel value {v:.15g}"
+            out_text[i] = float(v)  # as a float-typed piece gives it
             continue
         r = lookup.get(cell)
         if r is None:
@@ -627,19 +836,42 @@ def _classify_text(col, decimal, texts, numbers) -> Classified:
             is_text[i] = True
         reason[i] = r
     text_rows = pos[is_text]
-    values = values.copy()
+    values = values if values.flags.writeable else values.copy()
     values[pos] = np.nan
-    out_text = raw[pos]
     return Classified(values, bad, reason, out_text, text_rows, values.size - pos.size)
 
 
-def quality_bad(col: pa.ChunkedArray) -> np.ndarray:
-    """True where a quality/status cell is not one of :data:`GOOD_QUALITY`."""
-    raw = col.to_numpy(zero_copy_only=False).astype(object)
+def _good_flags(raw: np.ndarray) -> np.ndarray:
     s = pd.Series(raw, dtype=object).str.strip().str.casefold()
     good = np.array(s.isin(GOOD_QUALITY), dtype=bool)
     if not good.all():
         # "192.0" or "0.0" written by a spreadsheet: compare as numbers too
         num = pd.to_numeric(s, errors="coerce").to_numpy(dtype=float, na_value=np.nan)
         good |= np.isin(num, (0.0, 192.0))
-    return ~good
+    return good
+
+
+def quality_flags(col: pa.ChunkedArray) -> tuple[np.ndarray, np.ndarray]:
+    """Rows whose quality cell is not good, and those cells' text.
+
+    Dictionary-encoded pieces are judged once per distinct flag.
+    """
+    rows, flags = [], []
+    r0 = 0
+    for ch in col.chunks:
+        if pa.types.is_dictionary(ch.type) and ch.null_count == 0:
+            words = ch.dictionary.to_numpy(zero_copy_only=False).astype(object)
+            good = _good_flags(words)
+            idx = ch.indices.to_numpy(zero_copy_only=False)
+            bad = np.flatnonzero(~good[idx])
+            flags.append(words[idx[bad]])
+        else:
+            cells = ch.cast(pa.string()) if pa.types.is_dictionary(ch.type) else ch
+            raw = cells.to_numpy(zero_copy_only=False).astype(object)
+            bad = np.flatnonzero(~_good_flags(raw))
+            flags.append(raw[bad])
+        rows.append(r0 + bad)
+        r0 += len(ch)
+    if not rows:
+        return np.empty(0, np.int64), np.empty(0, object)
+    return np.concatenate(rows), np.concatenate(flags)

@@ -4,7 +4,9 @@ The steps, in order (docs/run-files.md states the rules for users):
 
 1. sniff every file (separator, decimal mark, header, units row, encoding);
 2. decide which column feeds which tag (plant file, or every column without one);
-3. read the needed columns with pyarrow (value columns as float64);
+3. read the needed columns with pyarrow a piece at a time, value columns straight
+   into one float64 array that becomes ``Run.data`` (no second copy of the file's
+   numbers; ``Run.raw`` reads the file again when asked for);
 4. parse the time stamps (offsets, zone, clock changes) to UTC; refuse backward
    steps, keep the first of duplicated stamps, note gaps;
 5. mask bad cells (blank, sentinel, text, quality flag) with their reason;
@@ -39,13 +41,18 @@ from perftest.importers.columns import (
     _time_columns,
 )
 from perftest.importers.csvfile import (
-    classify_values,
+    TextPiece,
+    classify_numbers,
+    classify_text,
+    column_names,
     lines_of_rows,
-    quality_bad,
-    read_table,
+    quality_flags,
+    scan_table,
+    sentinel_sets,
     sep_name,
     sniff,
 )
+from perftest.importers.raw import RawSource, RawTables
 from perftest.importers.timebase import align, bin_index, parse_times
 
 __all__ = ["read_run", "read_parts"]
@@ -94,11 +101,89 @@ class _Exclusions:
         return out.sort_values(["time", "tag"], kind="stable").reset_index(drop=True)
 
 
-def _time_texts(fd: _FileData) -> np.ndarray:
-    cols = [fd.table.column(c).to_numpy(zero_copy_only=False) for c in fd.time_cols]
-    if len(cols) == 1:
-        return cols[0]
-    return (pd.Series(cols[0], dtype=object) + " " + pd.Series(cols[1], dtype=object)).to_numpy()
+# Rows allocated beyond the estimate from the first lines' length (byte count of the
+# data / mean line length): lines of a log grow little (a digit more here and there).
+# Too few rows cost a reallocation (the array twice, briefly), too many cost memory.
+# A judgement, no source.
+_ROW_MARGIN = 1.02
+
+# pyarrow >= 16 turns a record batch of number columns into one column-major array
+_TENSORS = hasattr(pa.RecordBatch, "to_tensor")
+
+
+class _Collector:
+    """Sink of :func:`scan_table` for one file: the tag columns' numbers go straight
+    into one float64 array (a column per tag, rows in file order); blank cells, text
+    pieces, bad quality flags and time texts are kept aside."""
+
+    def __init__(self, fd: _FileData, sentinels: tuple):
+        self.fd = fd
+        lay = fd.layout
+        body = max(lay.path.stat().st_size - lay.data_offset, 0)
+        est = int(body / max(lay.row_bytes, 1.0) * _ROW_MARGIN) + 16
+        self.values = np.empty((est, len(fd.jobs)), order="F")
+        self.blank: list[list[np.ndarray]] = [[] for _ in fd.jobs]
+        self.pieces: list[list[TextPiece]] = [[] for _ in fd.jobs]
+        self.flags: dict[str, list] = {
+            fd.quality[j.header]: [] for j in fd.jobs if j.header in fd.quality
+        }
+        self.times: list[list[pa.Array]] = [[] for _ in fd.time_cols]
+        self.sets = [
+            sentinel_sets(tuple(sentinels) + tuple(j.spec.sentinels if j.spec else ()))
+            for j in fd.jobs
+        ]
+
+    def __call__(self, table: pa.Table, r0: int) -> None:
+        k = table.num_rows
+        if r0 + k > self.values.shape[0]:
+            rows = max(r0 + k, int(1.25 * self.values.shape[0]))
+            grown = np.empty((rows, len(self.fd.jobs)), order="F")
+            grown[:r0] = self.values[:r0]
+            self.values = grown
+        for parts, name in zip(self.times, self.fd.time_cols, strict=True):
+            parts.extend(table.column(name).chunks)
+        for name, parts in self.flags.items():
+            rows, flags = quality_flags(table.column(name))
+            if rows.size:
+                parts.append((r0 + rows, flags))
+        values = self.values
+        decimal = self.fd.layout.decimal
+        numeric = []
+        for j, job in enumerate(self.fd.jobs):
+            col = table.column(job.header)
+            if pa.types.is_floating(col.type):
+                numeric.append(j)
+                if col.null_count:  # blank cells: NaN in the values, rows noted
+                    self.blank[j].append(r0 + np.flatnonzero(col.is_null().to_numpy()))
+            else:
+                c = classify_text(col, decimal, *self.sets[j])
+                values[r0 : r0 + k, j] = c.values
+                self.pieces[j].append(TextPiece.of(r0, c))
+        if not numeric:
+            return
+        sub = table.select([self.fd.jobs[j].header for j in numeric])
+        cols = slice(None) if len(numeric) == values.shape[1] else numeric
+        if _TENSORS:  # all number columns of a block in one call
+            r = r0
+            for batch in sub.to_batches():
+                block = np.asarray(batch.to_tensor(null_to_nan=True, row_major=False))
+                values[r : r + batch.num_rows, cols] = block
+                r += batch.num_rows
+        else:  # pyarrow < 16: column by column
+            for j, col in zip(numeric, sub.columns, strict=True):
+                values[r0 : r0 + k, j] = col.to_numpy()
+
+    def time_texts(self) -> pd.Series:
+        cols = [pa.chunked_array(parts, pa.string()).to_pandas() for parts in self.times]
+        if len(cols) == 1:
+            return cols[0]
+        return cols[0] + " " + cols[1]
+
+    def quality(self, header: str) -> tuple[np.ndarray, np.ndarray]:
+        parts = self.flags.get(self.fd.quality.get(header), [])
+        if not parts:
+            return np.empty(0, np.int64), np.empty(0, object)
+        return np.concatenate([p[0] for p in parts]), np.concatenate([p[1] for p in parts])
 
 
 def _naive_utc(times: pd.DatetimeIndex) -> np.ndarray:
@@ -132,21 +217,26 @@ def _atmosphere(plant, baro, fd: _FileData, job: _TagJob, kept_times: pd.Datetim
     )
 
 
-def _convert(fd, job, plant, baro, sentinels, excl: _Exclusions, stats: dict, line_of):
-    """Classify, mask, calibrate and convert one column; returns (si, bad) at kept rows."""
-    from perftest.units import nonpositive_pressure, parse_unit, to_si
+def _convert(fd, j, job, plant, baro, excl: _Exclusions, stats: dict, line_of) -> np.ndarray:
+    """Classify, mask, calibrate and convert column ``j`` of a file in place.
 
+    On return ``fd.values[:n_kept, j]`` holds the SI values of the kept rows (NaN where
+    masked) and ``fd.mask[:, j]`` the mask; returns that mask.
+    """
     layout = fd.layout
     ti = fd.times
-    col = fd.table.column(job.header)
-    extra = tuple(sentinels) + tuple(job.spec.sentinels if job.spec is not None else ())
-    c = classify_values(col, decimal=layout.decimal, sentinels=extra)
+    col = fd.collector
     stem = layout.stem
+    column = fd.values[:, j]  # every row as read
+    blank = np.concatenate(col.blank[j]) if col.blank[j] else np.empty(0, np.int64)
+    c = classify_numbers(column, blank, col.sets[j][1], col.pieces[j])
+    col.blank[j] = col.pieces[j] = None
+    pos = np.flatnonzero(c.bad)
 
     if c.text_rows.size and c.n_numbers == 0:
         row = int(c.text_rows[0])
         line = int(line_of([row])[0])
-        cell = fd.table.column(job.header)[row].as_py()
+        cell = c.text[np.searchsorted(pos, row)]
         raise DataError(
             f"{layout.where(column=job.header)}: the column holds text and no numbers (e.g. "
             f"{cell!r} on line {line}). If it is not a measurement, leave it out (a plant "
@@ -162,7 +252,6 @@ def _convert(fd, job, plant, baro, sentinels, excl: _Exclusions, stats: dict, li
     bad_all = c.bad
     reasons = {}  # kind -> (rows, reason per row, raw cell per row)
     if c.reason is not None:
-        pos = np.flatnonzero(c.bad)
         reason = c.reason.copy()
         if c.text_rows.size:
             lines = line_of(c.text_rows)
@@ -170,44 +259,66 @@ def _convert(fd, job, plant, baro, sentinels, excl: _Exclusions, stats: dict, li
                 reason[w] = f"text {str(c.text[w]).strip()!r} in a numeric cell (line {ln})"
             stats["text"][job.tag] = int(c.text_rows.size)
         reasons["cell"] = (pos, reason, c.text)
-    qcol = fd.quality.get(job.header)
-    if qcol is not None:
-        qbad = quality_bad(fd.table.column(qcol)) & ~bad_all
-        if qbad.any():
-            qpos = np.flatnonzero(qbad)
-            qraw = fd.table.column(qcol).take(pa.array(qpos)).to_pylist()
+    qrows, qflags = col.quality(job.header)
+    if qrows.size:
+        fresh = ~bad_all[qrows]
+        qpos, qraw = qrows[fresh], qflags[fresh]
+        if qpos.size:
+            qcol = fd.quality[job.header]
             qreason = np.array(
-                [f"quality flag {str(q).strip()!r} in column {qcol!r}" for q in qraw],
-                dtype=object,
+                [f"quality flag {str(q).strip()!r} in column {qcol!r}" for q in qraw], dtype=object
             )
-            reasons["quality"] = (qpos, qreason, c.values[qpos].astype(object))
-            bad_all = bad_all | qbad
+            reasons["quality"] = (qpos, qreason, column[qpos].astype(object))
+            bad_all = bad_all.copy()
+            bad_all[qpos] = True
     # exclusions of masked samples on kept rows
-    for pos, reason, raw in reasons.values():
-        sel = keep[pos] if has_dups else slice(None)
-        excl.add(_naive_utc(ti.times[pos[sel]]), job.tag, reason[sel], raw[sel], stem)
+    for rows, reason, raw in reasons.values():
+        sel = keep[rows] if has_dups else slice(None)
+        excl.add(_naive_utc(ti.times[rows[sel]]), job.tag, reason[sel], raw[sel], stem)
     if has_dups:
         d = ti.duplicate_rows
-        raw_d = fd.table.column(job.header).take(pa.array(d)).to_numpy(zero_copy_only=False)
+        raw_d = column[d].astype(object)
+        if pos.size:  # a masked cell's raw value is its text
+            w = np.minimum(np.searchsorted(pos, d), pos.size - 1)
+            hit = pos[w] == d
+            raw_d[hit] = c.text[w[hit]]
         excl.add(
             _naive_utc(ti.times[d]),
             job.tag,
             "duplicate time stamp, first row kept",
-            raw_d.astype(object),
+            raw_d,
             stem,
         )
-        values = c.values[keep]
+        values = column[keep]
         bad = bad_all[keep]
     else:
-        values = c.values
+        values = column
         bad = bad_all
     stats["masked"][job.tag] = int(bad.sum())
     stats["samples"][job.tag] = int(keep.sum())
 
+    readings = values
     if job.spec is not None and job.spec.calibration is not None:
         values = job.spec.apply_calibration(values)
     if job.unit is None:
-        return np.asarray(values, dtype=float), bad
+        si = np.asarray(values, dtype=float)
+    else:
+        si = _to_si(fd, job, plant, baro, values, readings, bad, line_of)
+    out = fd.values[: bad.size, j]
+    out[:] = si
+    out[bad] = np.nan
+    fd.mask[:, j] = bad
+    return bad
+
+
+def _to_si(fd, job, plant, baro, values, readings, bad, line_of) -> np.ndarray:
+    """SI values of one column's kept rows; impossible absolute values stop the import."""
+    from perftest.units import nonpositive_pressure, parse_unit, to_si
+
+    layout = fd.layout
+    ti = fd.times
+    keep = ti.keep
+    has_dups = ti.duplicate_rows.size > 0
     spec = parse_unit(job.unit)
     atm = None
     if spec.gauge and job.quantity != "temperature_difference":
@@ -239,7 +350,7 @@ def _convert(fd, job, plant, baro, sentinels, excl: _Exclusions, stats: dict, li
         kept_row = int(np.argmax(impossible))
         row = int(np.flatnonzero(keep)[kept_row]) if has_dups else kept_row
         line = int(line_of([row])[0])
-        raw_v = fd.table.column(job.header)[row].as_py()
+        raw_v = float(readings[kept_row])
         hint = (
             " Check the atmospheric reference and whether the unit is gauge or absolute."
             if spec.gauge
@@ -253,19 +364,24 @@ def _convert(fd, job, plant, baro, sentinels, excl: _Exclusions, stats: dict, li
             column=job.header,
             tag=job.tag,
         )
-    return si, bad
+    return si
 
 
-def _barometer(files, plant, sentinels, excl_dummy, stats, log) -> tuple | None:
-    """SI barometer samples (UTC ns as float, Pa) for gauge conversion, or None."""
+def _barometer(files, plant, excl, stats, log) -> tuple | None:
+    """SI barometer samples (UTC ns as float, Pa) for gauge conversion, or None.
+
+    The barometer column is converted here, before the others (marked in ``fd.done``).
+    """
     if plant is None or plant.site.barometer_tag is None:
         return None
     tag = plant.site.barometer_tag
     for fd in files:
-        for job in fd.jobs:
+        for j, job in enumerate(fd.jobs):
             if job.tag == tag:
                 line_of = _line_fn(fd.layout)
-                si, bad = _convert(fd, job, plant, None, sentinels, excl_dummy, stats, line_of)
+                bad = _convert(fd, j, job, plant, None, excl, stats, line_of)
+                fd.done.add(j)
+                si = fd.values[: bad.size, j]
                 times = fd.times.times[fd.times.keep]
                 ok = ~bad
                 if not ok.any():
@@ -474,23 +590,27 @@ def read_parts(
     _plan(files, plant, unit_map, log)
 
     stats = {"masked": {}, "samples": {}, "text": {}}
-    raw: dict[str, pd.DataFrame] = {}
+    raw: dict[str, RawSource] = {}
     for fd in files:
         lay = fd.layout
         value_cols = list(dict.fromkeys(j.header for j in fd.jobs))
         quality_cols = [fd.quality[h] for h in value_cols if h in fd.quality]
-        fd.table, fd.text_cols = read_table(lay, value_cols, [*fd.time_cols, *quality_cols])
+        fd.collector = _Collector(fd, extra_sentinels)
+        scan = scan_table(lay, value_cols, fd.time_cols, fd.collector, flag_cols=quality_cols)
+        fd.text_cols = scan.text_cols
+        fd.values = fd.collector.values[: scan.rows]
         line_of = _line_fn(lay)
         fd.times = parse_times(
-            _time_texts(fd),
+            fd.collector.time_texts(),
             layout=lay,
             column=" + ".join(fd.time_cols),
             timezone=tz,
             line_of=line_of,
         )
+        fd.collector.times = None
         ti = fd.times
         log.append(
-            f"{lay.name}: {fd.table.num_rows} rows, {ti.times[0]} to {ti.times[-1]} UTC, "
+            f"{lay.name}: {scan.rows} rows, {ti.times[0]} to {ti.times[-1]} UTC, "
             f"median interval {_fmt(ti.median) if ti.median is not None else 'n/a'}; stamps "
             f"read as {ti.zone_rule}"
             + (f" ({tz_origin})" if ti.zone_rule.startswith("local") else "")
@@ -521,34 +641,26 @@ def read_parts(
             log.append(
                 f"{lay.name}: {len(ti.gaps)} gap(s) longer than 1.5 x the median interval: {shown}"
             )
-        frame = fd.table.to_pandas(types_mapper=pd.ArrowDtype, self_destruct=False)
-        frame.index = ti.times
-        raw[lay.stem] = frame
+        wanted = {*fd.time_cols, *quality_cols, *value_cols}
+        columns = tuple(c for c in column_names(lay) if c in wanted)
+        raw[lay.stem] = RawSource(lay, columns, ti.times, scan.size, scan.crc32)
+        # column-major like the values: each tag's flags are contiguous
+        fd.mask = np.empty((len(fd.jobs), int(ti.keep.sum())), dtype=bool).T
 
     excl = _Exclusions()
-    baro_stats = {"masked": {}, "samples": {}, "text": {}}
-    baro = _barometer(files, plant, extra_sentinels, _Exclusions(), baro_stats, log)
+    baro = _barometer(files, plant, excl, stats, log)
 
-    tags: list[str] = []
     for fd in files:
-        ti = fd.times
-        n = int(ti.keep.sum())
-        m = len(fd.jobs)
-        # column-major: each tag's samples are contiguous, as pandas stores them
-        fd.values = np.empty((m, n)).T
-        fd.mask = np.empty((m, n), dtype=bool).T
         line_of = _line_fn(fd.layout)
         for j, job in enumerate(fd.jobs):
-            si, bad = _convert(fd, job, plant, baro, extra_sentinels, excl, stats, line_of)
-            col = fd.values[:, j]
-            col[:] = si
-            col[bad] = np.nan
-            fd.mask[:, j] = bad
-            if bad.all():
+            if j not in fd.done:
+                _convert(fd, j, job, plant, baro, excl, stats, line_of)
+            if fd.mask[:, j].all():
                 msg = f"{fd.layout.name}: tag {job.tag!r} has no valid sample"
                 log.append(msg)
                 pending_warnings.append(msg)
-            tags.append(job.tag)
+        fd.values = fd.values[: fd.mask.shape[0]]  # the kept rows
+        fd.collector = None
         masked = sum(stats["masked"][j.tag] for j in fd.jobs)
         if masked:
             reasons = Counter()
@@ -557,14 +669,13 @@ def read_parts(
                     reasons.update(r.split(" (line")[0].split(";")[0] for r in part[2])
             top = ", ".join(f"{k}: {v}" for k, v in reasons.most_common(8))
             log.append(f"{fd.layout.name}: {masked} sample(s) masked ({top})")
-        fd.table = None  # the raw frame keeps the arrow buffers alive; drop our handle
 
     data, mask = _combine(files, step, excl, log)
     run_units = {j.tag: (j.unit or "") for fd in files for j in fd.jobs}
     quantities = {j.tag: j.quantity for fd in files for j in fd.jobs}
     return {
         "data": data,
-        "raw": raw,
+        "raw": RawTables(raw),
         "mask": mask,
         "exclusions": excl.frame(),
         "log": log,

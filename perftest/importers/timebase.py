@@ -58,7 +58,7 @@ def parse_times(texts: np.ndarray, *, layout, column: str, timezone: str, line_o
 
     Parameters
     ----------
-    texts : ndarray of str
+    texts : array_like or Series of str
         Cells of the time column (or ``date + " " + time``), one per data row.
     layout : FileLayout
         For messages.
@@ -75,7 +75,7 @@ def parse_times(texts: np.ndarray, *, layout, column: str, timezone: str, line_o
         Blank or unparseable stamp, mixed offset/naive stamps, ambiguous or
         nonexistent local time, ambiguous day/month order, a stamp going backwards.
     """
-    s = pd.Series(texts, dtype=object).str.strip()
+    s = pd.Series(texts, dtype="str").str.strip()  # pyarrow-backed: vectorised text ops
     where = layout.where
 
     blank = (s == "").to_numpy()
@@ -88,7 +88,7 @@ def parse_times(texts: np.ndarray, *, layout, column: str, timezone: str, line_o
             line=line,
             column=column,
         )
-    has_offset = s.str.contains(_OFFSET).to_numpy(dtype=bool)
+    has_offset = s.str.contains(_OFFSET.pattern, case=False).to_numpy(dtype=bool)
     if has_offset.any() and not has_offset.all():
         row = _first(has_offset != has_offset[0])
         line = int(line_of([row])[0])
