@@ -27,8 +27,12 @@ from __future__ import annotations
 
 import difflib
 import functools
+import importlib
+import importlib.util
 import math
 import re
+import sys
+import threading
 from dataclasses import dataclass
 
 import numpy as np
@@ -234,6 +238,79 @@ def _if97_tsat(p):
 
 
 # --------------------------------------------------------------------------------------
+# CoolProp's compiled core, loaded without the package's start-up work
+# --------------------------------------------------------------------------------------
+# ``import CoolProp`` runs CoolProp/__init__.py, which asks the library for its list of
+# fluids; that loads every Helmholtz-energy (HEOS) fluid, 5-7 s of CPU time, although
+# IF97 water needs none of them.  The compiled core ``CoolProp.CoolProp`` holds
+# everything used here (AbstractState, the input-pair and parameter constants, PropsSI,
+# HAPropsSI, the global parameter strings) and loads in ~0.01 s on its own.
+#
+# _coolprop() imports the core under its real name while a bare package object (built
+# from the package's own spec, __init__.py not executed) stands in for ``CoolProp`` in
+# sys.modules.  The stand-in is removed at once; the core stays registered as
+# ``CoolProp.CoolProp``.  A later ``import CoolProp`` (user code, tests, other modules)
+# therefore runs the real __init__.py, which finds and re-uses that same core module:
+# one extension module, one set of classes, one fluid library.  HEOS fluids, humid air
+# and fluid_names() load the fluid library inside CoolProp when first used.  The global
+# import lock is held while the stand-in is visible so that no other thread can import
+# ``CoolProp`` and see it.  Any failure falls back to the plain import.
+_CORE = None
+_CORE_LOCK = threading.Lock()
+
+
+def _coolprop():
+    """Return CoolProp's compiled core module ``CoolProp.CoolProp`` (loaded once)."""
+    global _CORE
+    if _CORE is None:
+        with _CORE_LOCK:
+            if _CORE is None:
+                _CORE = _load_coolprop_core()
+    return _CORE
+
+
+def _load_coolprop_core():
+    name, parent = "CoolProp.CoolProp", "CoolProp"
+    core = sys.modules.get(name)
+    if core is not None:
+        return core
+    if parent in sys.modules:  # the package is imported already: nothing to save
+        return importlib.import_module(name)
+    import _imp
+
+    core = None
+    _imp.acquire_lock()
+    try:
+        if parent not in sys.modules and name not in sys.modules:
+            spec = importlib.util.find_spec(parent)
+            if spec is not None and spec.submodule_search_locations is not None:
+                stand_in = importlib.util.module_from_spec(spec)
+                sys.modules[parent] = stand_in
+                try:
+                    core = importlib.import_module(name)
+                except Exception:
+                    sys.modules.pop(name, None)
+                    core = None
+                finally:
+                    if sys.modules.get(parent) is stand_in:
+                        del sys.modules[parent]
+    finally:
+        _imp.release_lock()
+    if core is None or not hasattr(core, "AbstractState"):
+        core = importlib.import_module(name)  # plain import: pays the full start-up
+    return core
+
+
+def _ha_props_si():
+    """CoolProp's ``HAPropsSI`` (in the core for CoolProp 8, a submodule before)."""
+    core = _coolprop()
+    func = getattr(core, "HAPropsSI", None)
+    if func is None:
+        from CoolProp.HumidAirProp import HAPropsSI as func
+    return func
+
+
+# --------------------------------------------------------------------------------------
 # fluid name lookup
 # --------------------------------------------------------------------------------------
 def _norm(name: str) -> str:
@@ -242,7 +319,7 @@ def _norm(name: str) -> str:
 
 @functools.lru_cache(maxsize=1)
 def _name_table() -> dict[str, str]:
-    import CoolProp.CoolProp as CP
+    CP = _coolprop()
 
     table = {}
     for fluid in CP.get_global_param_string("FluidsList").split(","):
@@ -261,7 +338,7 @@ def fluid_names() -> list[str]:
     >>> "R134a" in fluid_names()
     True
     """
-    import CoolProp.CoolProp as CP
+    CP = _coolprop()
 
     return ["water", "water:IAPWS95", "air"] + sorted(
         CP.get_global_param_string("FluidsList").split(",")
@@ -375,7 +452,7 @@ class Fluid:
     """
 
     def __init__(self, name, backend, coolprop_name, saturation_margin=0.05):
-        import CoolProp.CoolProp as CP
+        CP = _coolprop()
 
         self._CP = CP
         self.name = name
@@ -1422,7 +1499,7 @@ def humid_air_state(
             f"wet_bulb, dew_point. Got {sorted(given) or 'none'}."
         )
     ((kind, value),) = given.items()
-    from CoolProp.HumidAirProp import HAPropsSI
+    HAPropsSI = _ha_props_si()
 
     args = _Args("humid_air_state", T=T, p=p, value=value)
     TT, pp, vv = args.flat

@@ -341,3 +341,101 @@ def test_humid_air_vectorised_and_errors():
         humid_air_state(293.15, 101325.0, relative_humidity=60.0)
     with pytest.raises(PropertyRangeError, match="humid air at T = 293.15 K"):
         humid_air_state(293.15, 101325.0, dew_point=300.0)
+
+
+# --------------------------------------------------------------------------------------
+# CoolProp loading: the core without the package's start-up, and a later plain import
+# --------------------------------------------------------------------------------------
+# Each check runs in a fresh interpreter, because what is under test is the order in
+# which modules are first imported.  The child prints one JSON line of values; the
+# comparisons are made here.
+_P, _T = 1e6, 400.0  # compressed liquid, IF97 region 1, far from saturation
+
+_OURS = """
+import sys
+from perftest.properties import get_fluid, humid_air_state, fluid_names
+water = get_fluid("water")
+st = water.state_pT(P, T)
+out["if97_h"], out["if97_s"], out["if97_rho"] = st.h, st.s, st.rho
+out["package_after_if97"] = "CoolProp" in sys.modules
+out["heos_h"] = float(get_fluid("water:IAPWS95").state_pT(P, T).h)
+out["r134a_Tc"] = get_fluid("R134a").T_critical
+out["names_has_r134a"] = "R134a" in fluid_names()
+out["humid_W"] = humid_air_state(303.15, 101325.0, relative_humidity=0.5).humidity_ratio
+out["package_after_all"] = "CoolProp" in sys.modules
+"""
+
+_THEIRS = """
+import CoolProp
+import CoolProp.CoolProp as CP
+from CoolProp.HumidAirProp import HAPropsSI
+out["cp_if97_h"] = CP.PropsSI("H", "P", P, "T", T, "IF97::Water")
+out["cp_if97_s"] = CP.PropsSI("S", "P", P, "T", T, "IF97::Water")
+heos = CoolProp.AbstractState("HEOS", "Water")
+heos.update(CoolProp.PT_INPUTS, P, T)
+out["cp_heos_h"] = heos.hmass()
+out["cp_humid_W"] = HAPropsSI("W", "T", 303.15, "P", 101325.0, "R", 0.5)
+out["cp_has_fluids"] = "Water" in CoolProp.__fluids__ and "R134a" in CoolProp.__fluids__
+out["cp_version"] = CoolProp.__version__
+out["one_core"] = CoolProp.CoolProp is CP is sys.modules["CoolProp.CoolProp"]
+out["one_class"] = CoolProp.AbstractState is CP.AbstractState
+"""
+
+_TAIL = """
+import perftest.properties as props
+out["ours_is_theirs"] = props._coolprop() is sys.modules["CoolProp.CoolProp"]
+out["state_is_theirs"] = isinstance(props.get_fluid("water")._as, CoolProp.AbstractState)
+"""
+
+
+def _fresh_python(*parts: str) -> dict:
+    import json
+    import os
+    import subprocess
+    import sys
+
+    code = f"import json, sys\nout = {{}}\nP, T = {_P!r}, {_T!r}\n"
+    code += "\n".join(parts) + "\nprint(json.dumps(out))\n"
+    env = dict(os.environ, OPENBLAS_NUM_THREADS="1")
+    proc = subprocess.run(
+        [sys.executable, "-c", code], capture_output=True, text=True, env=env, timeout=300
+    )
+    assert proc.returncode == 0, proc.stderr[-3000:]
+    return json.loads(proc.stdout.strip().splitlines()[-1])
+
+
+def _check_consistent(out: dict) -> None:
+    # The same IF97 code in the same library: only the path differs, so 1e-12 relative.
+    assert out["if97_h"] == pytest.approx(out["cp_if97_h"], rel=1e-12)
+    assert out["if97_s"] == pytest.approx(out["cp_if97_s"], rel=1e-12)
+    # The same HEOS equation through the same library: round-off only.
+    assert out["heos_h"] == pytest.approx(out["cp_heos_h"], rel=1e-12)
+    # IF97 is a fit to IAPWS-95; in region 1 their enthalpies differ by the order of
+    # 1e-5 relative (from memory).  1e-3 is loose but still catches a wrong fluid,
+    # backend or unit.
+    assert out["if97_h"] == pytest.approx(out["cp_heos_h"], rel=1e-3)
+    # The same HAPropsSI call: identical up to round-off.
+    assert out["humid_W"] == pytest.approx(out["cp_humid_W"], rel=1e-12)
+    # R134a critical temperature 374.21 K (Tillner-Roth and Baehr 1994, from memory);
+    # CoolProp's reference equation gives it to 0.01 K.
+    assert out["r134a_Tc"] == pytest.approx(374.21, abs=0.01)
+    assert out["names_has_r134a"] and out["cp_has_fluids"]
+    assert out["cp_version"]
+    assert out["one_core"] and out["one_class"]
+    assert out["ours_is_theirs"] and out["state_is_theirs"]
+
+
+def test_perftest_first_then_plain_coolprop_import():
+    out = _fresh_python(_OURS, _THEIRS, _TAIL)
+    # perftest used the compiled core alone: the package's __init__ (which loads every
+    # fluid) had not run, not even for HEOS fluids, names and humid air ...
+    assert out["package_after_if97"] is False
+    assert out["package_after_all"] is False
+    # ... and the later plain import still gives a complete, consistent package.
+    _check_consistent(out)
+
+
+def test_plain_coolprop_import_first_then_perftest():
+    out = _fresh_python(_THEIRS, _OURS, _TAIL)
+    assert out["package_after_if97"] is True
+    _check_consistent(out)
