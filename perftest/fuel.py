@@ -285,24 +285,62 @@ def _check_celsius(t, what, lo, hi):
     return t
 
 
-@functools.lru_cache(maxsize=256)
-def _h_ideal(coolprop_name: str, T: float) -> float:
-    """Ideal-gas molar enthalpy relative to an arbitrary datum [J/mol]."""
-    import CoolProp.CoolProp as CP
+#: Ideal-gas isobaric molar heat capacity of each fluid [J/(mol K)] as a cubic in
+#: tau = T / 298.15 K - 1:  cp°(T) = a0 + a1 tau + a2 tau^2 + a3 tau^3.
+#: Fitted once (least squares, 141 points) over 250-320 K to the ideal-gas part of
+#: CoolProp 8.0.0's reference equations of state (HEOS backend, zero-density limit;
+#: IAPWS-95 for water), keyed by CoolProp fluid name.  Worst fit residual over 250-320 K:
+#: 1.7e-5 relative in cp° (n-pentane), 0.011 J/mol in H°(T) - H°(298.15 K) (n-pentane;
+#: below 0.005 J/mol for every other fluid).  Argon's cp° is 5R/2 exactly.
+#: tests/test_fuel.py recomputes the enthalpy differences with CoolProp.
+CP0_COEFFICIENTS: dict[str, tuple[float, float, float, float]] = {
+    "Methane": (35.7084324, 11.0441306, 12.3346377, -5.07936368),
+    "Ethane": (52.4741526, 35.9447721, 10.7645441, -15.4526138),
+    "n-Propane": (73.3361896, 58.2530889, 10.3017885, -22.8064224),
+    "n-Butane": (98.4798327, 75.4453013, 15.1919259, -36.3660048),
+    "IsoButane": (96.6385554, 80.9629692, 10.4391064, -25.7392815),
+    "n-Pentane": (120.126874, 92.7834623, 16.8793169, -51.8555719),
+    "Isopentane": (118.889175, 102.136705, -4.25417786, -6.97454643),
+    "n-Hexane": (142.755256, 115.965859, 28.8748809, -90.2869197),
+    "Hydrogen": (28.8341092, 2.15176045, -5.06488502, 7.50673222),
+    "CarbonMonoxide": (29.1388194, 0.253542829, 0.734995625, 0.837032939),
+    "Nitrogen": (29.1252691, 0.139707183, 0.445287335, 0.616466302),
+    "CarbonDioxide": (37.1408284, 13.6832833, -4.02878925, -2.83069816),
+    "Oxygen": (29.3759239, 1.4474402, 2.28421575, 0.190261124),
+    "Argon": (20.786275, 0.0, 0.0, 0.0),
+    "Water": (33.5873192, 1.32267469, 2.06282579, 0.392261941),
+}
+#: Temperature range of the cp° fit [K].
+CP0_RANGE = (250.0, 320.0)
+_T25 = 298.15
+#: Enthalpy of vaporisation of water at 298.15 K and 101.325 kPa [J/mol]: ideal-gas
+#: enthalpy from IAPWS-95 minus liquid enthalpy from IAPWS-IF97, both computed once with
+#: CoolProp 8.0.0 (same enthalpy datum).  The base of :func:`vaporisation_enthalpy`
+#: between the ISO 6976 tabulated temperatures.
+_L_WATER_25_EOS = 44012.2409
 
-    st = CP.AbstractState("HEOS", coolprop_name)
-    # the zero-density limit of the reference equation is the ideal gas
-    st.update(CP.DmolarT_INPUTS, 1e-10, T)
-    return st.hmolar()
+
+def _h_ideal(coolprop_name: str, T: float) -> float:
+    """Ideal-gas molar enthalpy relative to 298.15 K, H°(T) - H°(298.15 K) [J/mol].
+
+    The integral of the cp° cubic in :data:`CP0_COEFFICIENTS`; no equation of state is
+    evaluated at run time.
+    """
+    a = CP0_COEFFICIENTS[coolprop_name]
+    tau = T / _T25 - 1.0
+    return _T25 * tau * (a[0] + tau * (a[1] / 2.0 + tau * (a[2] / 3.0 + tau * a[3] / 4.0)))
 
 
 @functools.lru_cache(maxsize=64)
 def _h_liquid_water(T: float) -> float:
-    import CoolProp.CoolProp as CP
+    # IAPWS-IF97 region 1 through CoolProp's compiled core alone (perftest.properties
+    # loads it without the package start-up, which would load every HEOS fluid).
+    # IF97 rather than IAPWS-95: CoolProp's HEOS water refuses 0 °C at 1 atm (below its
+    # melting line by 3 mK); for liquid enthalpy differences between 0 and 25 °C the two
+    # formulations agree to far better than 0.1 J/mol.
+    from perftest.properties import _coolprop
 
-    # IF97 region 1 rather than IAPWS-95: CoolProp's HEOS water refuses 0 °C at 1 atm
-    # (below its melting line by 3 mK); for liquid enthalpy differences between 0 and
-    # 25 °C the two formulations agree to far better than 0.1 J/mol.
+    CP = _coolprop()
     st = CP.AbstractState("IF97", "Water")
     st.update(CP.PT_INPUTS, P_REF, T)
     return st.hmass() * 18.015268e-3
@@ -323,8 +361,9 @@ def vaporisation_enthalpy(combustion_temperature: float = 288.15) -> float:
     Notes
     -----
     The ISO 6976:2016 value is used at 0, 15, 20 and 25 °C; at other temperatures
-    :math:`L = h^{ig}_{w}(T) - h^{l}_{w}(T, p_0)` from IAPWS-95 for the vapour
-    and IAPWS-IF97 for the liquid (CoolProp), which reproduces the tabulated values to 0.003 kJ/mol.
+    :math:`L = h^{ig}_{w}(T) - h^{l}_{w}(T, p_0)` with the ideal-gas vapour from the
+    stored cp° fit to IAPWS-95 (:data:`CP0_COEFFICIENTS`) and the liquid from IAPWS-IF97
+    (CoolProp), which reproduces the tabulated values to 0.004 kJ/mol.
 
     Examples
     --------
@@ -336,7 +375,8 @@ def vaporisation_enthalpy(combustion_temperature: float = 288.15) -> float:
         if abs(t - key) < 1e-6:
             return value
     T = t + _T0
-    return _h_ideal("Water", T) - _h_liquid_water(T)
+    # L(T) = L(25 °C) + [H°w(T) - H°w(25 °C)] - [h_l(T) - h_l(25 °C)]
+    return _L_WATER_25_EOS + _h_ideal("Water", T) - (_h_liquid_water(T) - _h_liquid_water(_T25))
 
 
 @functools.lru_cache(maxsize=256)
@@ -351,7 +391,7 @@ def _superior_molar(name: str, T: float) -> float:
     comp = COMPONENTS[name]
     if comp.superior_25 == 0.0:
         return 0.0
-    T25 = 298.15
+    T25 = _T25
     if abs(T - T25) < 1e-9:
         return comp.superior_25
     c, h, o, n, _ = comp.atoms
@@ -443,8 +483,9 @@ class Gas:
     :math:`d = (M / M_{air}) (Z_{air} / Z)`.
 
     Component values at 25 °C come from the ISO tables; values at other combustion
-    temperatures are carried there by Kirchhoff's law with CoolProp ideal-gas
-    enthalpies and IAPWS-IF97 liquid water, the route by which the standard's own
+    temperatures are carried there by Kirchhoff's law with ideal-gas enthalpies (cp°
+    fits to CoolProp's reference equations, :data:`CP0_COEFFICIENTS`) and IAPWS-IF97
+    liquid water, the route by which the standard's own
     columns for other temperatures are related to its 25 °C column.  Summation factors
     are tabulated at 0, 15 and 20 °C; the volumetric basis is restricted to Z > 0.9.
 

@@ -26,8 +26,6 @@ import warnings
 
 import numpy as np
 import pandas as pd
-from scipy import fft as _fft
-from scipy import stats as _sps
 
 from perftest.errors import InputError
 
@@ -129,6 +127,8 @@ def _acf_columns(arr: np.ndarray, max_lag: int) -> np.ndarray:
         mean = np.where(m > 0, np.nansum(np.where(valid, arr, 0.0), axis=0) / m, 0.0)
     d = np.where(valid, arr - mean, 0.0)
     w = valid.astype(float)
+    from scipy import fft as _fft  # imported on first use, as scipy.stats below
+
     # zero padding to n + max_lag keeps circular wrap-around out of the lags used
     nfft = _fft.next_fast_len(n + max_lag + 1, real=True)
     fd = _fft.rfft(d, nfft, axis=0)
@@ -331,6 +331,8 @@ def modified_thompson_tau(n, alpha: float = 0.05):
             f"needs n - 2 >= 1 degrees of freedom). Got {n!r}. Collect more samples.",
             parameter="n",
         )
+    from scipy import stats as _sps  # on first use: its import costs 1-2 s
+
     with np.errstate(invalid="ignore", divide="ignore"):
         df = np.where(nn >= 3, nn - 2.0, np.nan)
         t = _sps.t.isf(alpha / 2.0, df)
@@ -557,6 +559,8 @@ def coverage_factor(dof=math.inf, level: float = 0.95):
             f"The 'dof' parameter of coverage_factor must be positive (inf allowed). Got {dof!r}.",
             parameter="dof",
         )
+    from scipy import stats as _sps  # on first use: its import costs 1-2 s
+
     q = 0.5 + level / 2.0
     k = np.where(np.isinf(nu), _sps.norm.ppf(q), _sps.t.ppf(q, np.where(np.isinf(nu), 1.0, nu)))
     return float(k) if k.ndim == 0 else k

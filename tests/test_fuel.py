@@ -10,6 +10,7 @@ import math
 import CoolProp.CoolProp as CP
 import pytest
 
+from perftest import fuel
 from perftest.errors import InputError
 from perftest.fuel import COMPONENTS, M_AIR, Z_AIR, Gas, vaporisation_enthalpy
 
@@ -156,3 +157,134 @@ def test_bad_reference_conditions():
         gas.superior_calorific_value(combustion_temperature=310.0)
     with pytest.raises(InputError, match="basis"):
         gas.superior_calorific_value("volume")
+
+
+# -- stored ideal-gas heat capacities ---------------------------------------------------
+
+
+def _coolprop_dh(fluid, T):
+    """H°(T) - H°(298.15 K) [J/mol] and cp°(T) [J/(mol K)] from CoolProp's reference EOS."""
+    st = CP.AbstractState("HEOS", fluid)
+    st.update(CP.DmolarT_INPUTS, 1e-10, 298.15)  # zero-density limit = ideal gas
+    h25 = st.hmolar()
+    st.update(CP.DmolarT_INPUTS, 1e-10, T)
+    return st.hmolar() - h25, st.cp0molar()
+
+
+def test_cp0_table_covers_every_fluid_used():
+    needed = {c.coolprop_name for c in COMPONENTS.values()} | {"Water"}
+    assert needed <= set(fuel.CP0_COEFFICIENTS)
+
+
+# Recompute the stored cp° fits from CoolProp's ideal-gas reference equations over the
+# whole fit range and at the ISO combustion temperatures (0, 15, 15.55, 20 °C).  The fit
+# residual is at most 0.011 J/mol in enthalpy (n-pentane) and 1.7e-5 relative in cp°;
+# coefficient rounding to 9 digits adds < 1e-4 J/mol.  0.02 J/mol (2e-5 kJ/mol, far
+# below the 0.01 kJ/mol printed in ISO 6976 tables) and 3e-5 in cp° leave room for that
+# and nothing more: a wrong coefficient, a wrong fluid or a wrong integral fails.
+@pytest.mark.parametrize("fluid", sorted(fuel.CP0_COEFFICIENTS))
+def test_stored_ideal_gas_enthalpies_against_coolprop(fluid):
+    for T in (250.0, 260.0, 273.15, 288.15, 288.7, 293.15, 298.15, 310.0, 320.0):
+        dh, cp0 = _coolprop_dh(fluid, T)
+        assert fuel._h_ideal(fluid, T) == pytest.approx(dh, abs=0.02), T
+        a = fuel.CP0_COEFFICIENTS[fluid]
+        tau = T / 298.15 - 1.0
+        fit = a[0] + a[1] * tau + a[2] * tau**2 + a[3] * tau**3
+        assert fit == pytest.approx(cp0, rel=3e-5), T
+
+
+# The heating value at a combustion temperature other than 25 °C must not start
+# CoolProp's Helmholtz-energy (HEOS) fluid library: that costs seconds of CPU.  Observed
+# in a fresh interpreter: every use of CoolProp's core by perftest goes through
+# perftest.properties._coolprop(), replaced here by a proxy that records each attribute
+# taken and each AbstractState backend; and the package ``CoolProp`` (whose __init__.py
+# requests the fluid list, which loads the library) must not have been imported.
+#: The fuel of the bundled demo plant (sample_data/brackenfold).
+DEMO_GAS = {
+    "methane": 0.925,
+    "ethane": 0.035,
+    "propane": 0.008,
+    "n-butane": 0.002,
+    "nitrogen": 0.02,
+    "carbon_dioxide": 0.01,
+}
+
+_NO_HEOS_SCRIPT = r"""
+import json, sys
+from perftest import properties
+
+core = properties._coolprop()
+seen = {"backends": [], "names": []}
+
+class Proxy:
+    def __getattr__(self, name):
+        seen["names"].append(name)
+        value = getattr(core, name)
+        if name == "AbstractState":
+            def make(backend, fluid):
+                seen["backends"].append(backend)
+                return value(backend, fluid)
+            return make
+        return value
+
+properties._CORE = Proxy()
+from perftest.fuel import Gas
+DEMO_GAS = DEMO_GAS_DICT
+PREAMBLE
+gas = Gas(DEMO_GAS)
+values = [gas.inferior_calorific_value("mass", combustion_temperature=288.15),
+          gas.superior_calorific_value("molar", combustion_temperature=288.70),
+          gas.inferior_calorific_value("molar", combustion_temperature=280.0)]
+seen["package"] = "CoolProp" in sys.modules
+seen["humid_air"] = "CoolProp.HumidAirProp" in sys.modules
+seen["values"] = values
+print(json.dumps(seen))
+"""
+
+
+def _run_no_heos_script(preamble=""):
+    import json
+    import subprocess
+    import sys
+
+    code = _NO_HEOS_SCRIPT.replace("PREAMBLE", preamble).replace("DEMO_GAS_DICT", repr(DEMO_GAS))
+    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 0, proc.stderr
+    return json.loads(proc.stdout.strip().splitlines()[-1])
+
+
+def test_calorific_value_at_15C_loads_no_heos_fluid():
+    seen = _run_no_heos_script()
+    assert not seen["package"]
+    assert not seen["humid_air"]
+    assert set(seen["backends"]) == {"IF97"}  # liquid water only
+    assert "PropsSI" not in seen["names"]
+    # the values themselves are the same as in this process (which may have CoolProp)
+    gas = Gas(DEMO_GAS)
+    assert seen["values"][0] == gas.inferior_calorific_value("mass")
+    assert seen["values"][2] == gas.inferior_calorific_value("molar", combustion_temperature=280.0)
+
+
+def test_stored_water_vaporisation_enthalpy_at_25C():
+    # The stored base value recomputed: IAPWS-95 ideal gas (CoolProp HEOS, zero density)
+    # minus IAPWS-IF97 liquid at 101.325 kPa, 298.15 K.  Stored to 1e-4 J/mol -> 1e-3.
+    st = CP.AbstractState("HEOS", "Water")
+    st.update(CP.DmolarT_INPUTS, 1e-10, 298.15)
+    liq = CP.AbstractState("IF97", "Water")
+    liq.update(CP.PT_INPUTS, 101325.0, 298.15)
+    expected = st.hmolar() - liq.hmass() * 18.015268e-3
+    assert fuel._L_WATER_25_EOS == pytest.approx(expected, abs=1e-3)
+
+
+# Between the tabulated temperatures: L = h_ideal-gas(T) - h_liquid(T, 101.325 kPa), all
+# IAPWS-95 (CoolProp HEOS).  The library takes the liquid from IAPWS-IF97, which differs
+# from IAPWS-95 by up to 0.13 J/mol here, and the vapour from the cp° fit (< 0.001 J/mol):
+# 0.3 J/mol.  (A wrong enthalpy datum between vapour and liquid is off by kJ/mol.)
+@pytest.mark.parametrize("t1", [0.5, 5.0, 10.0, 15.55, 22.0])
+def test_vaporisation_enthalpy_between_tabulated_temperatures(t1):
+    T = 273.15 + t1
+    st = CP.AbstractState("HEOS", "Water")
+    st.update(CP.PT_INPUTS, 101325.0, T)
+    h_liq = st.hmolar()
+    st.update(CP.DmolarT_INPUTS, 1e-10, T)
+    assert vaporisation_enthalpy(T) == pytest.approx(st.hmolar() - h_liq, abs=0.3)

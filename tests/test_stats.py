@@ -304,3 +304,17 @@ def test_bad_sample_shapes():
         stats.random_uncertainty_of_mean(np.zeros((2, 2, 2)))
     with pytest.raises(InputError, match="must be numeric"):
         stats.effective_sample_size(["a", "b"])
+
+
+def test_import_defers_scipy():
+    # scipy.stats costs 1-2 s to import; perftest.stats takes it on first use only.
+    import subprocess
+    import sys
+
+    code = (
+        "import sys, perftest.stats as s; a = 'scipy.stats' in sys.modules; "
+        "s.coverage_factor(10, 0.95); print(a, 'scipy.stats' in sys.modules)"
+    )
+    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60)
+    assert proc.returncode == 0, proc.stderr
+    assert proc.stdout.split() == ["False", "True"]
