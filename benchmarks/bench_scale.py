@@ -8,8 +8,11 @@ Reference, measured in the same run: a plain Python loop written here,
 ``run.window(a, b).average()`` -> ``perftest.reconcile`` -> ``perftest.evaluate``
 per window.  Printed ratios (reference time / engine time, above 1 = faster):
 
-* ``local``: the engine's own loop.  It adds only the window bookkeeping and the
-  warning capture, so its ratio should stay near 1 (target: at least 0.85).
+* ``local``: the engine's own loop.  It adds the window bookkeeping and the
+  warning capture, and saves the initial guess (each window starts from its
+  neighbour's solution) and the per-result budgets and exergy analysis that a
+  trend table does not show, so its ratio should be at least 1 (target: at
+  least 0.85).
 * ``dask, threads``: windows are computed one at a time per process (the CoolProp
   property objects are not thread-safe), so expect about 1: this shows the cost of
   Dask's graph, nothing more.
@@ -39,6 +42,7 @@ import time  # noqa: E402
 import warnings  # noqa: E402
 from pathlib import Path  # noqa: E402
 
+import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
 
 import perftest  # noqa: E402
@@ -79,7 +83,9 @@ def main() -> None:
     # warm the caches (model build, property objects) so that no contender pays them
     plain_loop(plant, run, 1)
 
-    kw = dict(every=EVERY, eliminate=True)
+    # chunks of an hour (4 windows): the unit of work of the engines, so that the
+    # Dask contenders have four tasks to share out (the default, a day, is one)
+    kw = dict(every=EVERY, eliminate=True, chunk="1h")
     # interleaved, best of 3 each: a change of the machine's load then hits both alike
     t_ref = t_local = float("inf")
     for _ in range(3):
@@ -88,8 +94,10 @@ def main() -> None:
         t, local = timed(perftest.reconcile_many, plant, run, **kw)
         t_local = min(t_local, t)
     assert len(local) == WINDOWS and (local["status"] == "ok").all(), local["reason"]
-    # the engine must agree with the loop it is timed against
-    assert [c for c, _ in ref] == list(local["chi2"])
+    # the engine must agree with the loop it is timed against (to round-off: the
+    # engine warm-starts each window from its neighbour, see tests/test_scale.py)
+    n = len(ref)
+    assert np.allclose([c for c, _ in ref], local["chi2"].iloc[:n], rtol=1e-9, atol=0.0)
 
     print(f"reconcile_many on {WINDOWS} windows of {EVERY} (demo run, {len(run.data)} samples)")
     if hasattr(os, "getloadavg"):

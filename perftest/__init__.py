@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import importlib
 
-from perftest.errors import (
+from perftest.errors import (  # noqa: F401 - re-exported through __all__
     ConvergenceError,
     DataError,
     InputError,
@@ -38,6 +38,8 @@ _LAZY = {
     "Gas": "perftest.fuel",
     "evaluate": "perftest.results",
     "reconcile_many": "perftest.scale",
+    "plan": "perftest.planning",
+    "UncertaintyPlan": "perftest.planning",
 }
 
 __all__ = sorted(

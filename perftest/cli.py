@@ -45,6 +45,19 @@ class _Parser(argparse.ArgumentParser):
         raise SystemExit(2)
 
 
+def _probability(text: str) -> float:
+    """argparse type: a significance level strictly between 0 and 1."""
+    try:
+        value = float(text)
+    except ValueError:
+        value = float("nan")
+    if not 0.0 < value < 1.0:
+        raise argparse.ArgumentTypeError(
+            f"must be a significance level between 0 and 1 (e.g. 0.01); got {text!r}"
+        )
+    return value
+
+
 def build_parser() -> argparse.ArgumentParser:
     """The argument parser of the ``perftest`` command."""
     from perftest import __version__
@@ -115,7 +128,7 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument(
         "--outlier-alpha",
         metavar="ALPHA",
-        type=float,
+        type=_probability,
         default=0.01,
         help="significance level of the outlier screen (default 0.01)",
     )
@@ -130,6 +143,34 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--json", metavar="FILE", help="write the summary JSON here")
     r.add_argument("--html", metavar="FILE", help="write the HTML report here")
     r.add_argument("--markdown", metavar="FILE", help="write the Markdown report here")
+
+    pl = sub.add_parser(
+        "plan",
+        help="predict the uncertainty of a planned test (pre-test analysis)",
+        description="Pre-test uncertainty analysis: from the plant file's [design] values "
+        "and instrument list, predict each result's U95 with and without reconciliation, "
+        "rank the instruments by their share and show what upgrading one would change.",
+        epilog="example:\n  perftest plan plant.toml --duration 2h --interval 1min "
+        "--markdown plan.md",
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    pl.add_argument("plant", metavar="PLANT.toml", help="plant description file")
+    pl.add_argument("--duration", metavar="T", help="planned test duration, e.g. 2h")
+    pl.add_argument("--interval", metavar="T", help="sampling interval of every tag, e.g. 1min")
+    pl.add_argument(
+        "--upgrade-factor",
+        metavar="F",
+        type=float,
+        default=0.5,
+        help="what-if: one instrument's systematic uncertainty times F (default 0.5)",
+    )
+    pl.add_argument("--no-what-if", action="store_true", help="skip the what-if table (faster)")
+    pl.add_argument("--json", metavar="FILE", help="write the plan as JSON here")
+    pl.add_argument("--markdown", metavar="FILE", help="write the plan as Markdown here")
+
+    from perftest.monitor import add_parser as _add_monitor
+
+    _add_monitor(sub, common)
     return p
 
 
@@ -216,6 +257,14 @@ def _summary(outcome, out=None) -> None:
 def _run(args) -> int:
     from perftest.demo import run_demo, run_pipeline
 
+    if args.command == "plan":
+        from perftest.plan_report import run_plan_command
+
+        return run_plan_command(args)
+    if args.command == "monitor":
+        from perftest.monitor import run_command
+
+        return run_command(args)
     progress = _Progress(args.quiet)
     if args.command == "demo":
         outcome = run_demo(args.out, progress=progress, figures=not args.no_figures)
@@ -252,6 +301,13 @@ def _run(args) -> int:
 
 def main(argv=None) -> int:
     """Entry point of the ``perftest`` console script; returns the exit status."""
+    import os
+
+    argv = list(sys.argv[1:] if argv is None else argv)
+    # --debug (anywhere on the line) or PERFTEST_DEBUG=1 shows the traceback of an
+    # internal error instead of the one-line message.
+    debug = "--debug" in argv or os.environ.get("PERFTEST_DEBUG", "") not in ("", "0")
+    argv = [a for a in argv if a != "--debug"]
     parser = build_parser()
     args = parser.parse_args(argv)
     if args.command is None:
@@ -266,6 +322,24 @@ def main(argv=None) -> int:
     except KeyboardInterrupt:
         sys.stderr.write("perftest: error: interrupted\n")
         return 130
+    except OSError as exc:  # a file or folder that cannot be read or written
+        where = f"{exc.filename}: " if exc.filename else ""
+        sys.stderr.write(f"perftest: error: {where}{exc.strerror or exc}\n")
+        return 2
+    except Exception as exc:  # an internal error: a bug, not the user's input
+        if debug:
+            import traceback
+
+            traceback.print_exc(file=sys.stderr)
+        detail = " ".join(str(exc).split())
+        command = " ".join(["perftest", *argv])
+        sys.stderr.write(
+            f"perftest: internal error: {type(exc).__name__}: {detail} -- this is a bug in "
+            f"perftest; please report it with the command ({command}) and the output of "
+            "'perftest --version'; rerun with --debug (or PERFTEST_DEBUG=1) for the "
+            "traceback\n"
+        )
+        return 1
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -40,10 +40,22 @@ from dataclasses import KW_ONLY, dataclass, field
 import numpy as np
 import pandas as pd
 
+from perftest.correction_surface import CorrectionSurface
 from perftest.errors import InputError, PlantFileError
+from perftest.guarantees import (
+    DEFAULT_RULE,
+    DIRECTIONS,
+    RULES,
+    VERDICTS,
+    Guarantee,
+    _entries,
+    guarantee_from_table,
+    guarantees_from_plant,
+)
 
 __all__ = [
     "CorrectionCurve",
+    "CorrectionSurface",
     "Guarantee",
     "apply_corrections",
     "correction_sensitivities",
@@ -54,11 +66,11 @@ __all__ = [
     "KINDS",
     "DIRECTIONS",
     "VERDICTS",
+    "RULES",
+    "DEFAULT_RULE",
 ]
 
 KINDS = ("multiplicative", "additive")
-DIRECTIONS = ("at_least", "at_most")
-VERDICTS = ("met", "not met", "inconclusive")
 
 #: Tolerance on the curve value at the reference (1 or 0); see the module notes.
 NORMALISATION_TOLERANCE = 1e-6
@@ -295,6 +307,15 @@ class CorrectionCurve:
     # ------------------------------------------------------------------ evaluation
 
     @property
+    def variables(self) -> tuple[str]:
+        """The condition variable, as a 1-tuple (the interface shared with tables)."""
+        return (self.variable,)
+
+    def partials(self, x) -> tuple:
+        """``(df/dx,)``: :meth:`derivative` as a 1-tuple (interface shared with tables)."""
+        return (self.derivative(x),)
+
+    @property
     def range(self) -> tuple[float, float]:
         """Range of the variable over which the curve may be used [SI]."""
         if self.polynomial is None:
@@ -369,26 +390,30 @@ class CorrectionCurve:
 # --------------------------------------------------------------------------- applying
 
 
-def _condition(conditions, curve: CorrectionCurve):
-    try:
-        return conditions[curve.variable]
-    except (KeyError, IndexError, TypeError):
-        raise InputError(
-            f"The 'conditions' parameter of apply_corrections must give a value for "
-            f"'{curve.variable}', the variable of correction curve '{curve.name}'.",
-            parameter="conditions",
-        ) from None
+def _condition(conditions, curve) -> list:
+    """Condition values of every variable of ``curve`` (curve or table)."""
+    out = []
+    for var in curve.variables:
+        try:
+            out.append(conditions[var])
+        except (KeyError, IndexError, TypeError):
+            raise InputError(
+                f"The 'conditions' parameter of apply_corrections must give a value for "
+                f"'{var}', a variable of correction curve '{curve.name}'.",
+                parameter="conditions",
+            ) from None
+    return out
 
 
-def _curves(curves) -> list[CorrectionCurve]:
-    if isinstance(curves, CorrectionCurve):
+def _curves(curves) -> list:
+    if isinstance(curves, CorrectionCurve | CorrectionSurface):
         return [curves]
     out = list(curves)
     for c in out:
-        if not isinstance(c, CorrectionCurve):
+        if not isinstance(c, CorrectionCurve | CorrectionSurface):
             raise InputError(
                 "The 'curves' parameter of apply_corrections must hold CorrectionCurve "
-                f"objects. Got {type(c).__name__}.",
+                f"or CorrectionSurface objects. Got {type(c).__name__}.",
                 parameter="curves",
             )
     return out
@@ -398,7 +423,7 @@ def _factors(curves, conditions):
     factor = 1.0
     offset = 0.0
     for c in curves:
-        v = _num(c(_condition(conditions, c)))
+        v = _num(c(*_condition(conditions, c)))
         if c.kind == "multiplicative":
             factor = factor * v
         else:
@@ -413,10 +438,10 @@ def apply_corrections(value, curves: Iterable[CorrectionCurve], conditions: Mapp
     ----------
     value : float, array or Series [SI]
         Measured result.
-    curves : CorrectionCurve or iterable of them
-        The curves that apply to this result.
+    curves : CorrectionCurve, CorrectionSurface or iterable of them
+        The curves (and two-variable tables) that apply to this result.
     conditions : mapping (dict, Series or DataFrame)
-        Value of each curve's ``variable`` during the test [SI].
+        Value of each curve's variables during the test [SI].
 
     Returns
     -------
@@ -497,132 +522,13 @@ def correction_sensitivities(value, curves: Iterable[CorrectionCurve], condition
     out: dict = {"value": _like(np.asarray(1.0 / factor, dtype=float), value)}
     for c in cs:
         xv = _condition(conditions, c)
-        d = _num(c.derivative(xv))
-        if c.kind == "multiplicative":
-            term = -corrected * d / _num(c(xv))
-        else:
-            term = -d / factor
-        prev = out.get(c.variable, 0.0)
-        out[c.variable] = _like(np.asarray(_num(prev) + term, dtype=float), value)
+        at = _num(c(*xv))
+        for var, d in zip(c.variables, c.partials(*xv), strict=True):
+            d = _num(d)
+            term = -corrected * d / at if c.kind == "multiplicative" else -d / factor
+            prev = out.get(var, 0.0)
+            out[var] = _like(np.asarray(_num(prev) + term, dtype=float), value)
     return out
-
-
-# --------------------------------------------------------------------------- guarantees
-
-
-@dataclass(frozen=True)
-class Guarantee:
-    """A guaranteed value of a (corrected) result.
-
-    Parameters
-    ----------
-    quantity : str
-        Result name, e.g. ``"corrected_net_power"``.
-    guaranteed : float [SI]
-        Guaranteed value.
-    direction : {"at_least", "at_most"}
-        ``at_least`` for output or efficiency, ``at_most`` for heat rate.
-    unit : str, optional
-        Unit for display only (the value is SI).
-
-    Notes
-    -----
-    With corrected value :math:`y`, expanded uncertainty :math:`U_{95}` and
-    guaranteed value :math:`G`, a verdict is given only when the whole interval
-    :math:`y \\pm U_{95}` lies on one side of :math:`G` (guard bands of width
-    :math:`U_{95}` on both sides, after [2]_ clause 8):
-
-    ``at_least``: met if :math:`y - U_{95} \\ge G`; not met if
-    :math:`y + U_{95} < G`; inconclusive otherwise.
-
-    ``at_most``: met if :math:`y + U_{95} \\le G`; not met if
-    :math:`y - U_{95} > G`; inconclusive otherwise.
-
-    Examples
-    --------
-    >>> g = Guarantee("corrected_net_power", 400e6, "at_least", unit="MW")
-    >>> g.verdict(405e6, 3e6), g.verdict(401e6, 3e6), g.verdict(395e6, 3e6)
-    ('met', 'inconclusive', 'not met')
-    """
-
-    quantity: str
-    guaranteed: float
-    direction: str
-    unit: str | None = None
-
-    def __post_init__(self):
-        if self.direction not in DIRECTIONS:
-            raise InputError(
-                f"Guarantee '{self.quantity}': 'direction' must be one of {DIRECTIONS}. "
-                f"Got {self.direction!r}.",
-                parameter="direction",
-            )
-        try:
-            g = float(self.guaranteed)
-        except (TypeError, ValueError):
-            g = math.nan
-        if not math.isfinite(g):
-            raise InputError(
-                f"Guarantee '{self.quantity}': 'guaranteed' must be a finite number. "
-                f"Got {self.guaranteed!r}.",
-                parameter="guaranteed",
-            )
-        object.__setattr__(self, "guaranteed", g)
-
-    def _inputs(self, corrected_value, U95=0.0) -> tuple[float, float]:
-        try:
-            y, u = float(corrected_value), float(U95)
-        except (TypeError, ValueError):
-            y, u = math.nan, math.nan
-        if not math.isfinite(y):
-            raise InputError(
-                f"Guarantee '{self.quantity}': the corrected value must be a finite number. "
-                f"Got {corrected_value!r}.",
-                parameter="corrected_value",
-            )
-        if not (math.isfinite(u) and u >= 0):
-            raise InputError(
-                f"Guarantee '{self.quantity}': 'U95' must be a finite non-negative number. "
-                f"Got {U95!r}.",
-                parameter="U95",
-            )
-        return y, u
-
-    def verdict(self, corrected_value, U95) -> str:
-        """``"met"``, ``"not met"`` or ``"inconclusive"`` (rule in the class Notes).
-
-        Parameters
-        ----------
-        corrected_value : float [SI]
-        U95 : float [SI]
-            Expanded uncertainty (about 95 % coverage) of ``corrected_value``.
-
-        Raises
-        ------
-        InputError
-            If a value is not finite or ``U95`` is negative.
-        """
-        y, u = self._inputs(corrected_value, U95)
-        g = self.guaranteed
-        if self.direction == "at_least":
-            if y - u >= g:
-                return "met"
-            if y + u < g:
-                return "not met"
-        else:
-            if y + u <= g:
-                return "met"
-            if y - u > g:
-                return "not met"
-        return "inconclusive"
-
-    def margin(self, corrected_value) -> float:
-        """Signed margin by which the guarantee is beaten [SI] (positive = better).
-
-        ``y - G`` for ``at_least``, ``G - y`` for ``at_most``.
-        """
-        y, _ = self._inputs(corrected_value)
-        return y - self.guaranteed if self.direction == "at_least" else self.guaranteed - y
 
 
 # --------------------------------------------------------------------------- plant file
@@ -734,12 +640,14 @@ def curve_from_table(
             name=table.get("name"),
             result=table.get("result"),
         )
-        if "curve" in table and "polynomial" in table:
+        if sum(k in table for k in ("curve", "polynomial", "surface")) > 1:
             raise PlantFileError(
-                f"Plant file key '{key}': give 'curve' or 'polynomial', not both.",
+                f"Plant file key '{key}': give one of 'curve', 'polynomial' or 'surface'.",
                 key=key,
                 file=file,
             )
+        if "surface" in table:
+            return _surface_from_table(table, conv, ref, ref_unit, normalize, key, file)
         if "curve" in table:
             curve = table["curve"]
             if not isinstance(curve, Mapping) or "x" not in curve or "y" not in curve:
@@ -769,7 +677,9 @@ def curve_from_table(
             coef = [c / s**i for i, c in enumerate(coef)]
             return CorrectionCurve(table["variable"], polynomial=tuple(coef), **common)
         raise PlantFileError(
-            f"Plant file key '{key}' needs 'curve' or 'polynomial'.", key=key, file=file
+            f"Plant file key '{key}' needs 'curve', 'polynomial' or 'surface'.",
+            key=key,
+            file=file,
         )
     except InputError as exc:
         raise PlantFileError(f"Plant file key '{key}': {exc}", key=key, file=file) from None
@@ -781,67 +691,51 @@ def curve_from_table(
         ) from None
 
 
-def guarantee_from_table(
-    table: Mapping, *, convert: Converter | None = None, key: str = "guarantees", file=None
-) -> Guarantee:
-    """Build a :class:`Guarantee` from one ``[[guarantees]]`` TOML table.
-
-    Parameters
-    ----------
-    table : mapping
-        ``quantity``, ``value``, ``unit`` (optional; SI when left out),
-        ``direction``.
-    convert : callable, optional
-        As for :func:`curve_from_table`.
-
-    Returns
-    -------
-    Guarantee  (value in SI, ``unit`` kept for display)
-
-    Raises
-    ------
-    PlantFileError
-        Naming the key when an entry is missing or malformed.
-
-    Examples
-    --------
-    >>> g = guarantee_from_table({"quantity": "corrected_net_power", "value": 400,
-    ...                           "unit": "MW", "direction": "at_least"},
-    ...                          convert=lambda v, u, difference=False: v * 1e6)
-    >>> g.guaranteed
-    400000000.0
-    """
-    if not isinstance(table, Mapping):
-        raise PlantFileError(f"Plant file key '{key}' must be a table.", key=key, file=file)
-    for req in ("quantity", "value", "direction"):
+def _surface_from_table(table, conv, ref, ref_unit, normalize, key, file) -> CorrectionSurface:
+    """``surface = { x, y, values, x_unit, y_unit }`` with ``second_variable`` and
+    ``second_reference`` (docs/plant-file.md)."""
+    for req in ("second_variable", "second_reference"):
         if req not in table:
             raise PlantFileError(
-                f"Plant file key '{key}' needs '{req}'.", key=f"{key}.{req}", file=file
+                f"Plant file key '{key}': a 'surface' needs '{req}' (the variable of its "
+                "columns and its reference value).",
+                key=f"{key}.{req}",
+                file=file,
             )
-    unit = table.get("unit")
-    try:
-        value = float(table["value"])
-        if unit is not None:
-            value = float(np.asarray((convert or _default_convert())(value, unit), dtype=float))
-        return Guarantee(str(table["quantity"]), value, table["direction"], unit=unit)
-    except InputError as exc:
-        raise PlantFileError(f"Plant file key '{key}': {exc}", key=key, file=file) from None
-    except (TypeError, ValueError) as exc:
-        if isinstance(exc, PlantFileError):
-            raise
+    surf = table["surface"]
+    if not isinstance(surf, Mapping) or not {"x", "y", "values"} <= set(surf):
         raise PlantFileError(
-            f"Plant file key '{key}.value' must be a number. Got {table['value']!r}.",
-            key=f"{key}.value",
+            f"Plant file key '{key}.surface' must be a table with 'x', 'y' and 'values' "
+            "(one row of len(y) numbers per x).",
+            key=f"{key}.surface",
             file=file,
-        ) from None
-
-
-def _entries(plant, section: str):
-    sections = getattr(plant, "sections", plant)
-    entries = sections.get(section, []) if isinstance(sections, Mapping) else []
-    if isinstance(entries, Mapping):
-        entries = [entries]
-    return entries, getattr(plant, "path", None)
+        )
+    ref2_value, ref2_unit = _value_unit(table["second_reference"], f"{key}.second_reference", file)
+    ref2 = float(np.asarray(_si(conv, float(ref2_value), ref2_unit), dtype=float))
+    x = np.asarray(_si(conv, [float(v) for v in surf["x"]], surf.get("x_unit", ref_unit)))
+    y = np.asarray(_si(conv, [float(v) for v in surf["y"]], surf.get("y_unit", ref2_unit)))
+    values = [[float(v) for v in row] for row in surf["values"]]
+    if surf.get("values_unit") is not None:
+        if table.get("kind", "multiplicative") != "additive":
+            raise PlantFileError(
+                f"Plant file key '{key}.surface.values_unit' is only for additive tables.",
+                key=f"{key}.surface.values_unit",
+                file=file,
+            )
+        values = np.asarray(_si(conv, values, surf["values_unit"], True), dtype=float).tolist()
+    return CorrectionSurface(
+        table["variable"],
+        table["second_variable"],
+        tuple(np.asarray(x, dtype=float).tolist()),
+        tuple(np.asarray(y, dtype=float).tolist()),
+        values,
+        reference=ref,
+        second_reference=ref2,
+        kind=table.get("kind", "multiplicative"),
+        name=table.get("name"),
+        result=table.get("result"),
+        normalize=normalize,
+    )
 
 
 def curves_from_plant(plant, *, convert: Converter | None = None) -> list[CorrectionCurve]:
@@ -852,14 +746,5 @@ def curves_from_plant(plant, *, convert: Converter | None = None) -> list[Correc
     entries, file = _entries(plant, "corrections")
     return [
         curve_from_table(t, convert=convert, key=f"corrections[{i}]", file=file)
-        for i, t in enumerate(entries)
-    ]
-
-
-def guarantees_from_plant(plant, *, convert: Converter | None = None) -> list[Guarantee]:
-    """All ``[[guarantees]]`` of a plant (``Plant`` or its ``sections`` dict), in SI."""
-    entries, file = _entries(plant, "guarantees")
-    return [
-        guarantee_from_table(t, convert=convert, key=f"guarantees[{i}]", file=file)
         for i, t in enumerate(entries)
     ]

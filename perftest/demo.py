@@ -234,6 +234,24 @@ def run_pipeline(
 
     out.performance = stage("evaluate", _evaluate, out.reconciliation)
 
+    def _options() -> dict:
+        import inspect
+
+        from perftest.results import evaluate
+
+        params = inspect.signature(evaluate).parameters
+        return {
+            "window": how,
+            "steadiest_window_length": window if start is None and end is None else None,
+            "start": None if start is None else str(start),
+            "end": None if end is None else str(end),
+            "outlier_alpha": outlier_alpha,
+            "serial_elimination": eliminate,
+            "reconciliation_alpha": getattr(out.reconciliation, "alpha", None),
+            "coverage_level": params["level"].default,
+            "monte_carlo_seed": params["seed"].default,
+        }
+
     def _report():
         from perftest import report
 
@@ -248,6 +266,8 @@ def run_pipeline(
             missing=out.missing,
             timings=out.timings,
             notes=out.warnings,
+            options=_options(),
+            paths=[str(p) for p in data_paths],
         )
         written = report.write_reports(
             data,

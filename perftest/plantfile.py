@@ -64,6 +64,8 @@ KNOWN_SECTIONS: tuple[str, ...] = (
     "corrections",
     "guarantees",
     "reference",
+    "acceptance",
+    "design",
 )
 _RAW_SECTIONS = (
     "streams",
@@ -73,6 +75,8 @@ _RAW_SECTIONS = (
     "corrections",
     "guarantees",
     "reference",
+    "acceptance",
+    "design",
 )
 _ARRAY_SECTIONS = ("corrections", "guarantees")
 
@@ -1266,6 +1270,8 @@ def load_plant(path) -> Plant:
     path = Path(path)
     try:
         text = path.read_text(encoding="utf-8")
+        # a UTF-8 byte order mark (written by some Windows editors) carries no data
+        text = text.removeprefix("\ufeff")
     except FileNotFoundError:
         raise PlantFileError(
             f"{path}: the plant file does not exist. Check the path "
@@ -1282,6 +1288,12 @@ def load_plant(path) -> Plant:
             "Save it as UTF-8.",
             file=path,
         ) from None
+    if not re.sub(r"(?m)#.*$", "", text).strip():
+        raise PlantFileError(
+            f"{path}: the plant file is empty (no [site], [tags] or other table). Write "
+            "the plant description there (see docs/plant-file.md) or give the right file.",
+            file=path,
+        )
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:

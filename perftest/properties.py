@@ -82,6 +82,12 @@ class _Args:
                         parameter=name,
                     )
                 value = value.to_numpy(dtype=float)
+            if value is None:  # np.asarray(None, float) would be a silent NaN
+                raise InputError(
+                    f"The {name!r} parameter of {func} must be a number or an array of "
+                    "numbers. Got None.",
+                    parameter=name,
+                )
             try:
                 arr = np.asarray(value, dtype=float)
             except (TypeError, ValueError):
@@ -966,8 +972,9 @@ class Fluid:
                 f"{_prefix(where)}{state} is outside the range of {self.formulation} for "
                 f"{self.name}{_range_hint(self)}.{detail}" + _more(failed)
             )
-        T = res["T"]
-        x = res["x"]
+        # a NaN input is a gap: its state is NaN, whatever the backend made of it
+        T = np.where(valid, res["T"], np.nan)
+        x = np.where(valid, res["x"], np.nan)
         two = (x >= 0) & (x <= 1) & (p < self.p_critical)
         side = np.zeros(n)
         if not self.is_if97:

@@ -140,10 +140,13 @@ class Performance:
         sensitivity, u_contribution, share`` (shares sum to one).
     guarantees : pandas.DataFrame
         Columns ``quantity, corrected_value, U95, guaranteed, direction, verdict,
-        unit, margin`` [SI; ``unit`` is the display unit of the plant file].
+        unit, margin, rule, rule_statement`` [SI; ``unit`` is the display unit of the
+        plant file; ``rule`` the verdict rule and ``rule_statement`` its sentence].
     corrections : pandas.DataFrame
         One row per correction curve: ``result, variable, condition, reference,
-        kind, factor`` (factor of a multiplicative curve, offset of an additive one).
+        kind, factor, change, relative_change`` (factor of a multiplicative curve,
+        offset of an additive one; ``change`` is what this correction alone changes
+        the result by [SI], ``relative_change`` that change over the result).
     exergy : pandas.DataFrame
         One row per unit: ``unit, type, exergy_in, exergy_out, work_in, work_out,
         destroyed, u_destroyed, gouy_stodola, heat, share`` [W; share of the fuel
@@ -252,6 +255,48 @@ def _plant_error(plant, message: str, *keys) -> PerftestError:
     return PlantFileError(message, key=".".join(keys))
 
 
+def _metering_conditions(plant, fuel: Mapping) -> tuple[float, float]:
+    """Metering temperature [K] and pressure [Pa] of a fuel ``volume_flow`` tag.
+
+    ``[fuel] reference_conditions = { temperature = {value, unit}, pressure = {value,
+    unit} }``; default 15 degC and 101.325 kPa (the ISO 13443 standard reference
+    conditions, from memory).
+    """
+    ref = fuel.get("reference_conditions", {})
+    if not isinstance(ref, Mapping):
+        raise _plant_error(
+            plant,
+            "[fuel] reference_conditions must be a table "
+            "{ temperature = { value, unit }, pressure = { value, unit } }.",
+            "fuel",
+            "reference_conditions",
+        )
+    unknown = sorted(set(ref) - {"temperature", "pressure"})
+    if unknown:
+        raise _plant_error(
+            plant,
+            f"[fuel] reference_conditions: unknown key(s) {unknown}; "
+            "use 'temperature' and 'pressure'.",
+            "fuel",
+            "reference_conditions",
+        )
+    t = 288.15
+    p = 101325.0
+    if "temperature" in ref:
+        t = float(
+            plant.read_quantity(
+                ref["temperature"], "temperature", "fuel", "reference_conditions", "temperature"
+            )
+        )
+    if "pressure" in ref:
+        p = float(
+            plant.read_quantity(
+                ref["pressure"], "pressure", "fuel", "reference_conditions", "pressure"
+            )
+        )
+    return t, p
+
+
 def _fuel_basis(plant, perf_table: dict) -> dict:
     """Heating value [J/kg or J/m3], its standard uncertainty, the flow reference and
     the fuel-exergy ratio."""
@@ -304,7 +349,10 @@ def _fuel_basis(plant, perf_table: dict) -> dict:
                 "not available in this installation; state lhv = { value, unit } instead."
             ) from None
         comp = fuel["composition"]
-        gas = Gas(comp)
+        try:
+            gas = Gas(comp)
+        except PerftestError as exc:  # name the plant file key, not only the component
+            raise _plant_error(plant, f"[fuel] composition: {exc}", "fuel", "composition") from None
         t_comb = 288.15
         if "combustion_reference_temperature" in fuel:
             t_comb = float(
@@ -317,7 +365,13 @@ def _fuel_basis(plant, perf_table: dict) -> dict:
             )
         kw = {"combustion_temperature": t_comb}
         getter = gas.inferior_calorific_value if basis == "lhv" else gas.superior_calorific_value
-        hv = float(getter("mass" if per == "mass" else "volume", **kw))
+        if per == "mass":
+            hv = float(getter("mass", **kw))
+        else:
+            t_met, p_met = _metering_conditions(plant, fuel)
+            hv = float(
+                getter("volumetric", metering_temperature=t_met, metering_pressure=p_met, **kw)
+            )
         lhv_mass = float(gas.inferior_calorific_value("mass", **kw))
         ratio = fuel_exergy_ratio(comp, lhv_mass, gas.molar_mass)
         if basis == "hhv":
@@ -437,7 +491,13 @@ def _check_name(rec, name: str, key: str, plant) -> None:
 
 
 def evaluate(
-    plant, reconciliation, *, level: float = 0.95, monte_carlo: bool = True, seed: int = 20_260_514
+    plant,
+    reconciliation,
+    *,
+    level: float = 0.95,
+    monte_carlo: bool = True,
+    seed: int = 20_260_514,
+    detail: bool = True,
 ) -> Performance:
     """Compute the performance results of a reconciled plant with uncertainty.
 
@@ -455,6 +515,12 @@ def evaluate(
         Also propagate by Monte Carlo as a check of the linear propagation.
     seed : int
         Seed of the Monte Carlo check (deterministic by default).
+    detail : bool, default True
+        Also tabulate the uncertainty budget of every result and the exergy
+        analysis per unit.  False leaves ``Performance.budgets``, ``exergy`` and
+        ``exergy_losses`` empty and ``exergy_closure`` None, and saves time where
+        only values and uncertainties are needed (a trend of many windows); the
+        results are the same.
 
     Returns
     -------
@@ -515,7 +581,8 @@ def evaluate(
         refs["heat_input"] = table["heat_input"]
     curves = curves_from_plant(plant)
     for c in curves:
-        refs.setdefault(f"condition:{c.variable}", c.variable)
+        for var in c.variables:
+            refs.setdefault(f"condition:{var}", var)
     for role, name in refs.items():
         _check_name(rec, name, f"performance.{role}" if ":" not in role else "corrections", plant)
 
@@ -609,7 +676,7 @@ def evaluate(
         if fuel is not None:
             out["fuel_exergy"] = ex
             out["exergetic_efficiency"] = net / ex
-        conditions = {c.variable: v[pos[c.variable]] for c in curves}
+        conditions = {var: v[pos[var]] for c in curves for var in c.variables}
         for result, cs in corrected_of.items():
             out[f"corrected_{result}"] = apply_corrections(out[result], cs, conditions)
         return np.array([np.asarray(out[k], dtype=float) for k in outputs])
@@ -634,10 +701,10 @@ def evaluate(
         },
         index=pd.Index(outputs, name="name"),
     )
-    budgets = {}
-    for o in outputs:
+    budget_tables = {}
+    for o in outputs if detail else ():
         b = prop.budget_for(o)[["estimate", "u", "sensitivity", "u_contribution", "share"]]
-        budgets[o] = b.copy()
+        budget_tables[o] = b.copy()
     cov_out = pd.DataFrame(prop.cov, index=outputs, columns=outputs)
 
     # ---- Monte Carlo check of the linearisation
@@ -665,19 +732,36 @@ def evaluate(
     # ---- corrections table
     corr_rows = []
     for c in curves:
-        xc = float(x[pos[c.variable]])
+        xc = [float(x[pos[var]]) for var in c.variables]
+        refs_c = getattr(c, "references", (c.reference,))
+        f = float(c(*xc))
+        measured = float(y0[outputs.index(c.result)])
+        # size of this correction alone: change of the result it makes [SI] and relative
+        change = measured / f - measured if c.kind == "multiplicative" else -f
         corr_rows.append(
             dict(
                 result=c.result,
-                variable=c.variable,
-                condition=xc,
-                reference=c.reference,
+                variable=" & ".join(c.variables),
+                condition=xc[0] if len(xc) == 1 else tuple(xc),
+                reference=refs_c[0] if len(refs_c) == 1 else tuple(refs_c),
                 kind=c.kind,
-                factor=float(c(xc)),
+                factor=f,
+                change=change,
+                relative_change=change / measured if measured else math.nan,
             )
         )
     corrections = pd.DataFrame(
-        corr_rows, columns=["result", "variable", "condition", "reference", "kind", "factor"]
+        corr_rows,
+        columns=[
+            "result",
+            "variable",
+            "condition",
+            "reference",
+            "kind",
+            "factor",
+            "change",
+            "relative_change",
+        ],
     )
 
     # ---- guarantees
@@ -702,6 +786,8 @@ def evaluate(
                 verdict=g.verdict(val, U),
                 unit=g.unit,
                 margin=g.margin(val),
+                rule=g.rule,
+                rule_statement=g.statement(),
             )
         )
     guarantees = pd.DataFrame(
@@ -715,18 +801,23 @@ def evaluate(
             "verdict",
             "unit",
             "margin",
+            "rule",
+            "rule_statement",
         ],
     )
 
     # ---- exergy per unit
     fuel_ex = float(results.loc["fuel_exergy", "value"]) if fuel is not None else math.nan
-    exergy, losses, closure, ex_notes = _exergy_analysis(
-        rec,
-        fuel_ex,
-        float(results.loc["net_power", "value"]),
-        float(results.loc["auxiliary_power", "value"]),
-    )
-    notes += ex_notes
+    if detail:
+        exergy, losses, closure, ex_notes = _exergy_analysis(
+            rec,
+            fuel_ex,
+            float(results.loc["net_power", "value"]),
+            float(results.loc["auxiliary_power", "value"]),
+        )
+        notes += ex_notes
+    else:
+        exergy, losses, closure = pd.DataFrame(), {}, None
 
     inputs = pd.DataFrame(
         {"value": x, "u": np.sqrt(np.diag(cov)), "role": [roles[n] for n in names]},
@@ -734,7 +825,7 @@ def evaluate(
     )
     return Performance(
         results=results,
-        budgets=budgets,
+        budgets=budget_tables,
         guarantees=guarantees,
         corrections=corrections,
         exergy=exergy,

@@ -7,24 +7,27 @@ performance results.  Each window becomes one row of a DataFrame: its global tes
 its suspect instruments, the key results with their standard uncertainty, and, for
 a window that could not be used, the reason.
 
-Two engines compute the same rows:
+Windows are computed in chunks (a day of windows by default): within a chunk each
+window's reconciliation starts from its neighbour's solution.  Two engines compute
+the same chunks:
 
 ``"local"``
     a plain loop in this process (pandas only);
 ``"dask"``
-    one :func:`dask.delayed` task per window, computed by a local Dask scheduler
-    (processes by default) or by a ``distributed.Client``.  Install with
+    one Dask task per chunk, computed by a local Dask scheduler (processes by
+    default), a ``distributed.Client`` or a scheduler address.  Install with
     ``pip install "perftest[scale]"``.
 
-Both call the same per-window function on the same window data, so their tables
-are identical, value for value.
+Both call the same per-chunk function on the same data, so their tables are
+identical, value for value.  Runs given as files are read a day at a time
+(:mod:`perftest.scale_files`); finished chunks can be written to a folder of
+Parquet files as they finish and reused by a rerun (:mod:`perftest.scale_store`).
 """
 
 from __future__ import annotations
 
 import dataclasses
-import datetime as _dt
-import math
+import hashlib
 import threading
 import warnings
 from collections.abc import Mapping, Sequence
@@ -34,6 +37,18 @@ import pandas as pd
 
 from perftest.errors import InputError, PerftestError
 from perftest.run import Run
+from perftest.scale_store import Progress, WindowStore, fingerprint
+from perftest.scale_windows import (
+    _as_runs,
+    _check_min_samples,
+    _Chunk,
+    _chunks,
+    _cut,
+    _duration,
+    _Source,
+    _sources,
+    _Window,
+)
 
 __all__ = ["reconcile_many", "ENGINES", "KEY_RESULTS", "TABLE_COLUMNS"]
 
@@ -61,6 +76,8 @@ TABLE_COLUMNS = (
     "n_samples",
     "status",
     "reason",
+    "stable",
+    "unstable",
     "chi2",
     "dof",
     "p_value",
@@ -101,15 +118,8 @@ class _Options:
     results: tuple | None  # None: no evaluation; () : the key results
     screen_outliers: bool
     on_error: str
-
-
-@dataclasses.dataclass(frozen=True)
-class _Window:
-    run: object
-    number: int
-    start: pd.Timestamp
-    end: pd.Timestamp
-    min_samples: int
+    stability: bool = False
+    warm_start: bool = True
 
 
 # --------------------------------------------------------------------------- checks
@@ -128,10 +138,15 @@ def _check_engine(engine, scheduler):
             f"Got scheduler={scheduler!r} with engine='local'.",
             parameter="scheduler",
         )
-    if isinstance(scheduler, str) and scheduler.lower() not in _DASK_SCHEDULERS:
+    if (
+        isinstance(scheduler, str)
+        and scheduler.lower() not in _DASK_SCHEDULERS
+        and "://" not in scheduler
+    ):
         raise InputError(
-            "The 'scheduler' parameter of reconcile_many must be None, a distributed Client "
-            f"or one of {list(_DASK_SCHEDULERS)}. Got {scheduler!r}.",
+            "The 'scheduler' parameter of reconcile_many must be None, a distributed Client, "
+            f"a scheduler address such as 'tcp://127.0.0.1:8786' or one of "
+            f"{list(_DASK_SCHEDULERS)}. Got {scheduler!r}.",
             parameter="scheduler",
         )
 
@@ -168,123 +183,6 @@ def _resolve_scheduler(dask, scheduler):
         return "processes"
 
 
-def _as_runs(run) -> list[tuple[object, Run]]:
-    """``[(label, Run), ...]``: label 0 for one run, positions or mapping keys."""
-    if isinstance(run, Run):
-        return [(0, run)]
-    if isinstance(run, Mapping):
-        items = list(run.items())
-    elif isinstance(run, Sequence) and not isinstance(run, str):
-        items = list(enumerate(run))
-    else:
-        raise InputError(
-            "The 'run' parameter of reconcile_many must be a Run, a list of Runs or a dict "
-            f"of label -> Run. Got {type(run).__name__}.",
-            parameter="run",
-        )
-    if not items:
-        raise InputError(
-            "The 'run' parameter of reconcile_many holds no run. Pass at least one Run.",
-            parameter="run",
-        )
-    for label, r in items:
-        if not isinstance(r, Run):
-            raise InputError(
-                f"The 'run' parameter of reconcile_many must hold Runs. Entry {label!r} is a "
-                f"{type(r).__name__}.",
-                parameter="run",
-            )
-        if len(r.data) == 0:
-            raise InputError(
-                f"The 'run' parameter of reconcile_many holds an empty run (entry {label!r}).",
-                parameter="run",
-            )
-    return items
-
-
-def _duration(value) -> pd.Timedelta:
-    """``every`` as a positive Timedelta, or an InputError."""
-    bad = isinstance(value, bool | int | float | np.number)  # bare numbers have no unit
-    td = None
-    if not bad:
-        try:
-            td = pd.Timedelta(value)
-        except (TypeError, ValueError):
-            bad = True
-    if bad or td is None or td is pd.NaT:
-        raise InputError(
-            "The 'every' parameter of reconcile_many must be a duration such as '15min', "
-            "'1h' or pd.Timedelta(minutes=15) (months and years are not fixed durations), "
-            f"or a list of (start, end) pairs. Got {value!r}.",
-            parameter="every",
-        )
-    if td <= pd.Timedelta(0):
-        raise InputError(
-            f"The 'every' parameter of reconcile_many must be a positive duration. Got {value!r}.",
-            parameter="every",
-        )
-    return td
-
-
-def _is_duration_like(every) -> bool:
-    return isinstance(every, str | _dt.timedelta | np.timedelta64 | pd.DateOffset)
-
-
-def _interval(run: Run) -> pd.Timedelta | None:
-    """Median spacing of the samples (None for a single sample)."""
-    idx = run.data.index
-    if len(idx) < 2:
-        return None
-    return pd.Timedelta(idx.to_series().diff().median())
-
-
-def _timestamp(value, run: Run, what: str) -> pd.Timestamp:
-    try:
-        ts = pd.Timestamp(value)
-    except (TypeError, ValueError):
-        ts = None
-    if ts is None or ts is pd.NaT:
-        raise InputError(
-            f"The 'every' parameter of reconcile_many: {what} must be a time (string or "
-            f"Timestamp). Got {value!r}.",
-            parameter="every",
-        )
-    if ts.tz is None:  # read in the plant's zone, as Run.window reads naive times
-        ts = ts.tz_localize(_zone(run))
-    return ts.tz_convert(run.data.index.tz)
-
-
-def _zone(run: Run) -> str:
-    """The plant's time zone (UTC without a plant), as :meth:`Run.window` uses it."""
-    return getattr(getattr(run.plant, "site", None), "timezone", None) or "UTC"
-
-
-def _min_samples(min_samples, length: pd.Timedelta, interval: pd.Timedelta | None) -> int:
-    if min_samples is None:
-        # Half the samples a full window holds, at least 2 (a spread needs two):
-        # a window that is mostly empty (the tail of a run, a logging gap) is
-        # reported but not reconciled.  Common practice, no source.
-        full = 1 if interval is None else int(length // interval)
-        return max(2, math.ceil(full / 2))
-    return int(min_samples)
-
-
-def _check_min_samples(min_samples):
-    if min_samples is None:
-        return
-    if isinstance(min_samples, bool) or not isinstance(min_samples, int | np.integer):
-        raise InputError(
-            "The 'min_samples' parameter of reconcile_many must be a whole number >= 1 or "
-            f"None. Got {min_samples!r}.",
-            parameter="min_samples",
-        )
-    if min_samples < 1:
-        raise InputError(
-            f"The 'min_samples' parameter of reconcile_many must be >= 1. Got {min_samples}.",
-            parameter="min_samples",
-        )
-
-
 def _has_performance(plant) -> bool:
     sections = getattr(plant, "sections", None) or {}
     return bool(sections.get("performance"))
@@ -317,131 +215,50 @@ def _check_results(results) -> tuple | None:
 # --------------------------------------------------------------------------- windows
 
 
-def _grid(run: Run, length: pd.Timedelta) -> list[tuple[pd.Timestamp, pd.Timestamp]]:
-    """Consecutive windows ``[start, start + length)`` covering the run.
+def _chunk_rows(plant, chunk: _Chunk, run: Run | None, options: _Options) -> list[dict]:
+    """The rows of one chunk, window after window; the single code path of both engines.
 
-    The first window starts at the run's first sample rounded down to a whole
-    multiple of ``length`` counted from that day's midnight in the plant's time
-    zone, so 15-minute windows start at :00, :15, :30 and :45 as an engineer
-    reading a trend expects.
+    ``run`` holds the chunk's samples (in memory); for run files it is None and the
+    chunk's piece of the files is read here, in whichever process computes it.
     """
-    idx = run.data.index
-    first, last = idx[0], idx[-1]
-    midnight = first.tz_convert(_zone(run)).normalize().tz_convert(idx.tz)
-    start = midnight + ((first - midnight) // length) * length
-    out = []
-    while start <= last:
-        out.append((start, start + length))
-        start = start + length
-    return out
+    notes = []
+    if chunk.piece is not None:
+        from perftest.scale_files import read_piece
+
+        run, notes = read_piece(chunk.piece, plant, dict(chunk.read_kw))
+    rows = []
+    previous = None
+    for spec in chunk.windows:
+        w = None if run is None else _cut(run, spec.start, spec.end, lean=False)
+        row, rec = _window_row(plant, w, spec, options, previous)
+        if rec is not None and options.warm_start:
+            previous = rec
+        rows.append(row)
+    if notes and rows:
+        # the importer's notes on the chunk's files go with its first window
+        text = " | ".join(f"read: {n}" for n in dict.fromkeys(notes))
+        rows[0]["warnings"] = " | ".join(t for t in (text, rows[0]["warnings"]) if t)
+    return rows
 
 
-def _windows(runs, every, min_samples, lean: bool) -> list[tuple[_Window, Run | None]]:
-    """Every window of every run with its slice of the run (lean: without raw tables)."""
-    explicit = None
-    length = None
-    if every is not None and not _is_duration_like(every) and isinstance(every, Sequence):
-        explicit = list(every)
-        if not explicit:
-            raise InputError(
-                "The 'every' parameter of reconcile_many holds no window. Give a duration "
-                "such as '15min' or at least one (start, end) pair.",
-                parameter="every",
-            )
-    elif every is not None:
-        length = _duration(every)
-    out = []
-    for label, run in runs:
-        interval = _interval(run)
-        if explicit is not None:
-            bounds = []
-            for k, pair in enumerate(explicit):
-                if isinstance(pair, str) or not isinstance(pair, Sequence) or len(pair) != 2:
-                    raise InputError(
-                        "The 'every' parameter of reconcile_many must be a duration or a "
-                        f"list of (start, end) pairs. Entry {k} is {pair!r}.",
-                        parameter="every",
-                    )
-                t0 = _timestamp(pair[0], run, f"the start of window {k}")
-                t1 = _timestamp(pair[1], run, f"the end of window {k}")
-                if not t1 > t0:
-                    raise InputError(
-                        f"The 'every' parameter of reconcile_many: window {k} must end after "
-                        f"it starts. Got {t0.isoformat()} to {t1.isoformat()}.",
-                        parameter="every",
-                    )
-                bounds.append((t0, t1))
-        elif length is not None:
-            bounds = _grid(run, length)
-        else:  # every=None: the whole run as one window
-            bounds = [(run.data.index[0], run.data.index[-1] + (interval or pd.Timedelta(1)))]
-        for t0, t1 in bounds:
-            if interval is not None and t1 - t0 < interval:
-                raise InputError(
-                    f"The 'every' parameter of reconcile_many gives a window of {t1 - t0}, "
-                    f"shorter than the run's sampling interval of {interval}"
-                    + (f" (run {label!r})" if len(runs) > 1 else "")
-                    + ". Use windows of several samples.",
-                    parameter="every",
-                )
-        for number, (t0, t1) in enumerate(bounds):
-            spec = _Window(label, number, t0, t1, _min_samples(min_samples, t1 - t0, interval))
-            out.append((spec, _cut(run, t0, t1, lean)))
-    return out
-
-
-def _cut(run: Run, start, end, lean: bool) -> Run | None:
-    """``run.window(start, end)``, or None when no sample falls in the window.
-
-    With ``lean`` the window leaves the raw source tables and the exclusions of other
-    times behind (they stay with the original run), so that a window sent to another
-    process carries only its own samples, mask and exclusions.  Averaging reads
-    neither, so a lean window averages exactly as ``run.window(...)`` does.
-    """
-    idx = run.data.index
-    if not ((idx >= start) & (idx < end)).any():
-        return None
-    w = run.window(start, end)
-    if not lean:
-        return w
-    ex = w.exclusions
-    if len(ex):
-        t = pd.to_datetime(ex["time"], utc=True)
-        ex = ex[((t >= start) & (t < end)).to_numpy()]
-    return Run(
-        w.data,
-        mask=w.mask,
-        exclusions=ex,
-        log=w.log,
-        plant=w.plant,
-        units=w.units,
-        quantities=w.quantities,
-        start=w.start,
-        end=w.end,
-    )
-
-
-# --------------------------------------------------------------------------- one window
-
-
-def _window_row(plant, run: Run | None, spec: _Window, options: _Options) -> dict:
-    """The table row of one window; the single code path of both engines."""
+def _window_row(plant, run: Run | None, spec: _Window, options: _Options, start=None):
+    """``(row, reconciliation or None)`` of one window."""
     with _WINDOW_LOCK, warnings.catch_warnings(record=True) as caught:
         # "always": every warning of this window is recorded, whatever the
         # process's warning registry has already seen, so the row does not depend
         # on which window a process happened to compute first.
         warnings.simplefilter("always")
-        row = _compute_row(plant, run, spec, options)
+        row, rec = _compute_row(plant, run, spec, options, start)
     seen = []
     for w in caught:
         text = f"{w.category.__name__}: {w.message}"
         if text not in seen:
             seen.append(text)
     row["warnings"] = " | ".join(seen)
-    return row
+    return row, rec
 
 
-def _compute_row(plant, run, spec, options) -> dict:
+def _compute_row(plant, run, spec, options, start=None):
     from perftest.model import reconcile
 
     row = {
@@ -455,19 +272,31 @@ def _compute_row(plant, run, spec, options) -> dict:
     }
     if run is None:
         row["reason"] = "no sample in the window"
-        return row
+        return row, None
     if row["n_samples"] < spec.min_samples:
         row["reason"] = (
             f"{row['n_samples']} sample(s) in the window, fewer than min_samples={spec.min_samples}"
         )
-        return row
+        return row, None
     stage = "average"
+    rec = None
+    unstable = ""
     try:
         if options.screen_outliers:
             run = run.screen_outliers()
+        if options.stability:
+            stage = "stability"
+            st = run.stability(warn=False)
+            bad = st.index[(st["passed"] == False).to_numpy(dtype=bool, na_value=False)]  # noqa: E712
+            row["stable"] = not len(bad)
+            unstable = ", ".join(f"{t} ({float(st.loc[t, 'ratio']):.2g}x)" for t in bad)
+            row["unstable"] = ", ".join(str(t) for t in bad)
+            stage = "average"
         measurements = run.average()
         stage = "reconcile"
-        rec = reconcile(plant, measurements, eliminate=options.eliminate, alpha=options.alpha)
+        rec = reconcile(
+            plant, measurements, eliminate=options.eliminate, alpha=options.alpha, start=start
+        )
         gt = rec.global_test
         table = rec.to_frame()
         suspects = [str(t) for t in table.loc[table["suspect"].astype(bool), "tag"]]
@@ -486,9 +315,10 @@ def _compute_row(plant, run, spec, options) -> dict:
             from perftest.results import evaluate
 
             stage = "evaluate"
-            # Linear propagation only: the Monte Carlo check belongs to the
-            # detailed evaluation of a chosen window, not to a screening table.
-            perf = evaluate(plant, rec, monte_carlo=False)
+            # Linear propagation only: the Monte Carlo check, the budgets and the
+            # exergy analysis belong to the detailed evaluation of a chosen window,
+            # not to a trend table (the results are the same either way).
+            perf = evaluate(plant, rec, monte_carlo=False, detail=False)
             names = options.results or (
                 *KEY_RESULTS,
                 *(n for n in perf.results.index if str(n).startswith("corrected_")),
@@ -498,19 +328,46 @@ def _compute_row(plant, run, spec, options) -> dict:
                     row[name] = float(perf.results.loc[name, "value"])
                     row[f"u_{name}"] = float(perf.results.loc[name, "u"])
         row["status"] = "ok"
+        if unstable:
+            row["status"] = "unstable"
+            row["reason"] = f"stability: {unstable} of the permissible variation"
     except _EXPECTED_FAILURES as exc:
         if options.on_error == "raise":
             raise
         row["status"] = "failed"
         row["reason"] = f"{stage}: {type(exc).__name__}: {exc}"
-    return row
+        if unstable:
+            row["reason"] += f"; stability: {unstable} of the permissible variation"
+        rec = None
+    return row, rec
 
 
 # --------------------------------------------------------------------------- table
 
 
 def _table(rows: list[dict], results: tuple | None) -> pd.DataFrame:
-    frame = pd.DataFrame(rows)
+    return _normalise(pd.DataFrame(rows), results)
+
+
+def _finish(frames: list[pd.DataFrame], runs: list[int], results: tuple | None) -> pd.DataFrame:
+    """One table from the chunks' tables (``runs``: each chunk's run number)."""
+    kept = [(f, r) for f, r in zip(frames, runs, strict=True) if len(f)]
+    if not kept:
+        return _normalise(pd.DataFrame(columns=[*TABLE_COLUMNS, "warnings"]), results)
+    frame = pd.concat([f.astype(object) for f, _ in kept], ignore_index=True)
+    # Windows given as (start, end) pairs may have been regrouped by their start:
+    # run number, then window number restore the caller's order.
+    key = pd.DataFrame(
+        {
+            "r": np.concatenate([np.full(len(f), r) for f, r in kept]),
+            "w": frame["window"].to_numpy(dtype="int64"),
+        }
+    )
+    perm = key.sort_values(["r", "w"], kind="stable").index.to_numpy()
+    return _normalise(frame.iloc[perm].reset_index(drop=True), results)
+
+
+def _normalise(frame: pd.DataFrame, results: tuple | None) -> pd.DataFrame:
     for col in TABLE_COLUMNS:
         if col not in frame.columns:
             frame[col] = None
@@ -526,17 +383,152 @@ def _table(rows: list[dict], results: tuple | None) -> pd.DataFrame:
         values = [missing if pd.isna(v) else cast(v) for v in frame[col]]
         return pd.array(values, dtype=dtype) if len(values) else pd.array([], dtype=dtype)
 
+    frame["run"] = frame["run"].infer_objects()  # labels 0, 1, ... as int64
+    for col in ("start", "end"):  # one dtype whatever the chunks held (or Parquet gave)
+        times = pd.DatetimeIndex(list(frame[col])) if len(frame) else pd.DatetimeIndex([])
+        frame[col] = times.as_unit("ns") if times.tz is not None else times.tz_localize("UTC")
     for col in ("window", "n_samples"):
         frame[col] = frame[col].astype("int64")
     for col in ("chi2", "p_value", *extra):
         frame[col] = np.asarray(cells(col, float, np.nan, "float64"))
     for col in ("dof", "iterations", "n_suspects"):
         frame[col] = cells(col, int, pd.NA, "Int64")
-    for col in ("passed", "converged"):
+    for col in ("stable", "passed", "converged"):
         frame[col] = cells(col, bool, pd.NA, "boolean")
-    for col in ("status", "reason", "suspects", "eliminated", "warnings"):
+    for col in ("status", "reason", "unstable", "suspects", "eliminated", "warnings"):
         frame[col] = cells(col, str, "", "str")
     return frame
+
+
+# --------------------------------------------------------------------------- engines
+
+
+def _digest(run: Run, begin, end) -> str:
+    """Hash of a run's samples and mask in ``[begin, end)``."""
+    idx = run.data.index
+    i0, i1 = idx.searchsorted(begin), idx.searchsorted(end)
+    h = hashlib.sha256(str(list(run.data.columns)).encode())
+    for frame in (run.data, run.mask):
+        if isinstance(frame, pd.DataFrame):
+            part = frame.iloc[i0:i1]
+            h.update(pd.util.hash_pandas_object(part, index=True).to_numpy().tobytes())
+    return h.hexdigest()
+
+
+def _chunk_key(job: str, chunk: _Chunk, src: _Source) -> str:
+    windows = [(w.number, w.start.isoformat(), w.end.isoformat(), w.min_samples)
+               for w in chunk.windows]  # fmt: skip
+    if chunk.piece is not None:
+        data = chunk.piece.digest
+    elif src.run is not None:
+        data = _digest(src.run, chunk.windows[0].start, max(w.end for w in chunk.windows))
+    else:
+        data = "no data"
+    return fingerprint(job, repr(src.label), windows, data)
+
+
+def _payload(chunk: _Chunk, src: _Source, lean: bool) -> Run | None:
+    if src.run is None:
+        return None
+    if not lean:
+        return src.run
+    begin = min(w.start for w in chunk.windows)
+    end = max(w.end for w in chunk.windows)
+    return _cut(src.run, begin, end, lean=True)
+
+
+def _connect(scheduler):
+    """A ``distributed.Client`` for a scheduler address, or None."""
+    if isinstance(scheduler, str) and "://" in scheduler:
+        try:
+            from distributed import Client
+        except ImportError:
+            raise InputError(
+                "A scheduler address needs the 'distributed' package. Install it with "
+                'pip install "perftest[scale]".',
+                parameter="scheduler",
+            ) from None
+        try:
+            return Client(scheduler, timeout="10s")
+        except OSError as exc:
+            raise InputError(
+                f"The 'scheduler' parameter of reconcile_many: no Dask scheduler answers at "
+                f"{scheduler} ({exc}). Start one (dask scheduler) or check the address.",
+                parameter="scheduler",
+            ) from None
+    return None
+
+
+def _run_dask(dask, scheduler, plant, work, options, done):
+    """Compute ``work`` (an iterator of (chunk, payload)) and call ``done`` per chunk."""
+    try:
+        from distributed import Client
+    except ImportError:
+        Client = None
+    if Client is not None and isinstance(scheduler, Client):
+        from distributed import as_completed
+
+        client = scheduler
+        limit = max(2, 2 * sum(client.nthreads().values()))
+        # the plant (with its built model) travels to each worker once
+        plant_f = client.scatter(plant, broadcast=True, hash=False)
+        pending = as_completed()
+        meta = {}
+        work = iter(work)
+        try:
+            for chunk, payload in work:
+                fut = client.submit(_chunk_rows, plant_f, chunk, payload, options, pure=False)
+                meta[fut.key] = chunk
+                pending.add(fut)
+                while pending.count() >= limit:
+                    fut = next(pending)
+                    done(meta.pop(fut.key), fut.result())
+            for fut in pending:
+                done(meta.pop(fut.key), fut.result())
+        finally:
+            for fut in list(pending.futures):
+                fut.cancel()
+        return
+
+    def lit(value):
+        # traverse=False: the plant and the chunks are dataclasses, which Dask
+        # would otherwise take apart and rebuild field by field.
+        return dask.delayed(value, traverse=False)
+
+    task = dask.delayed(_chunk_rows, pure=False)
+    plant_d, options_d = lit(plant), lit(options)
+    kwargs = {"scheduler": scheduler}
+    pool = None
+    if scheduler in ("processes", "multiprocessing"):
+        # one pool of worker processes for the whole job (Dask would start one per
+        # compute call)
+        import concurrent.futures
+
+        from dask.multiprocessing import get_context
+
+        pool = concurrent.futures.ProcessPoolExecutor(
+            dask.system.CPU_COUNT, mp_context=get_context()
+        )
+        kwargs["pool"] = pool
+    batch_size = max(4, 2 * dask.system.CPU_COUNT)
+
+    def flush(batch):
+        tasks = [task(plant_d, lit(c), lit(p), options_d) for c, p in batch]
+        for (c, _), rows in zip(batch, dask.compute(*tasks, **kwargs), strict=True):
+            done(c, rows)
+
+    try:
+        batch = []
+        for item in work:
+            batch.append(item)
+            if len(batch) >= batch_size:
+                flush(batch)
+                batch = []
+        if batch:
+            flush(batch)
+    finally:
+        if pool is not None:
+            pool.shutdown()
 
 
 def reconcile_many(
@@ -550,8 +542,16 @@ def reconcile_many(
     alpha: float = 0.05,
     min_samples: int | None = None,
     screen_outliers: bool = False,
+    stability: bool = False,
+    warm_start: bool = True,
     scheduler=None,
     on_error: str = "row",
+    store=None,
+    resume: bool = True,
+    progress=None,
+    on_window=None,
+    chunk="1D",
+    read_options: Mapping | None = None,
 ) -> pd.DataFrame:
     """Reconcile many windows of one or several runs; one table row per window.
 
@@ -559,17 +559,23 @@ def reconcile_many(
     ----------
     plant : perftest.plantfile.Plant
         The plant whose balances every window is reconciled against.
-    run : Run, list of Run or dict of label -> Run
-        The run(s).  The ``run`` column of the table holds 0 for a single run, the
+    run : Run, path, list of paths, list or dict of those
+        The run(s): a :class:`Run` in memory, or run files (one path, or a list of
+        paths read together as by :func:`perftest.read_run`), which are then read a
+        day at a time so that memory does not grow with the length of the logs.  A
+        list of Runs (or of lists of paths) or a dict of label -> run gives several
+        runs.  The ``run`` column of the table holds 0 for a single run, the
         position in a list, or the dict key.
     every : str, Timedelta, list of (start, end) pairs or None, default "15min"
         Window length (consecutive windows ``[start, start + every)``, the first
         starting at the first sample rounded down to a multiple of ``every`` from
         midnight in the plant's time zone), or explicit windows (times without a
         zone are read in the plant's time zone, as :meth:`Run.window` reads them;
-        the same windows are cut from every run), or None for each run whole.
+        the same windows are cut from every run), or None for each run whole (in
+        memory only).
     engine : {"local", "dask"}, default "local"
-        ``"local"``: a loop in this process.  ``"dask"``: one Dask task per window.
+        ``"local"``: a loop in this process.  ``"dask"``: one Dask task per chunk of
+        windows.
     results : bool or list of str, default True
         Also evaluate the performance results (:func:`perftest.evaluate`, linear
         propagation) and report ``<name>`` and ``u_<name>`` [SI]: with True the
@@ -587,14 +593,44 @@ def reconcile_many(
         least 2.  Windows with fewer get a row with status ``"skipped"``.
     screen_outliers : bool, default False
         Screen each window with :meth:`Run.screen_outliers` before averaging.
+    stability : bool, default False
+        Judge each window with :meth:`Run.stability` (the plant's limits).  A window
+        with a tag outside its permissible variation is still reconciled but gets
+        status ``"unstable"`` and the tags in ``unstable`` and ``reason``.
+    warm_start : bool, default True
+        Start each window's reconciliation from the solution of the window before
+        it in the same chunk (``start`` of :func:`perftest.reconcile`).  The
+        solution is the same to round-off; only the path to it is shorter.
     scheduler : str or distributed.Client, optional
         Only with ``engine="dask"``: a Dask local scheduler name (``"processes"``,
-        ``"threads"``, ``"sync"``) or a ``distributed.Client``.  Default: the
-        scheduler set in Dask's configuration, else the active ``distributed``
-        client, else ``"processes"``.
+        ``"threads"``, ``"sync"``), a ``distributed.Client``, or the address of a
+        running Dask scheduler (``"tcp://host:8786"``; the workers must see the run
+        files under the same paths).  Default: the scheduler set in Dask's
+        configuration, else the active ``distributed`` client, else
+        ``"processes"``.
     on_error : {"row", "raise"}, default "row"
         What a window whose averaging, reconciliation or evaluation fails does:
         give a row with status ``"failed"`` and the reason, or raise.
+    store : str or Path, optional
+        Folder where each chunk's rows are written as a Parquet file as soon as the
+        chunk is done (see :class:`perftest.scale_store.WindowStore`).  With
+        ``resume`` a rerun skips the chunks already there whose inputs, plant file
+        and options are unchanged, so an interrupted job goes on where it stopped.
+    resume : bool, default True
+        Reuse matching chunks of ``store``; False computes everything again.
+    progress : bool, optional
+        A progress line on stderr (windows done, rate, time left).  Default: only
+        when stderr is a terminal.
+    on_window : callable, optional
+        Called with each finished row (a dict) in table order within a chunk, after
+        the chunk is stored.  An exception it raises stops the job.
+    chunk : str or Timedelta, default "1D"
+        Windows are computed in chunks of this period (by window start, from the
+        plant's midnight): the unit of work of an engine, of warm starting and of
+        the store.
+    read_options : dict, optional
+        Keywords of :func:`perftest.read_run` for run files (``every``, ``sep``,
+        ``units``, ...).
 
     Returns
     -------
@@ -602,35 +638,41 @@ def reconcile_many(
         One row per window, in run then time order, with columns
         :data:`TABLE_COLUMNS`: ``run``, ``window`` (number within its run),
         ``start``, ``end``, ``n_samples`` (sample stamps in the window), ``status``
-        (``"ok"``, ``"skipped"``, ``"failed"``), ``reason`` (empty when ok),
+        (``"ok"``, ``"unstable"``, ``"skipped"``, ``"failed"``), ``reason`` (empty
+        when ok), ``stable`` (NA unless ``stability``), ``unstable`` (tags),
         ``chi2``, ``dof``, ``p_value``, ``passed`` (global test after any
-        elimination), ``converged``, ``iterations``, ``n_suspects``, ``suspects``
-        (comma-separated tags flagged by the measurement test or eliminated),
-        ``eliminated``; then ``<result>, u_<result>`` [SI]; then ``warnings``
-        (the warnings raised while computing the window, one per distinct text).
+        elimination), ``converged``, ``iterations`` (of the final solve; fewer
+        with a warm start), ``n_suspects``, ``suspects`` (comma-separated tags
+        flagged by the measurement test or eliminated), ``eliminated``; then
+        ``<result>, u_<result>`` [SI]; then ``warnings`` (the warnings raised while
+        computing the window, one per distinct text).
 
     Raises
     ------
     InputError
         Unknown engine, Dask asked for but not installed, ``every`` not a duration
         nor a list of windows, a window shorter than the sampling interval, bad
-        ``min_samples``, ``alpha``, ``results``, ``scheduler`` or ``on_error``.
+        ``min_samples``, ``alpha``, ``results``, ``scheduler``, ``on_error``,
+        ``chunk`` or ``store``.
+    DataError
+        A run file is missing or unreadable (names the file and line).
 
     Notes
     -----
-    Every window is computed by the same function on the same window data whatever
-    the engine, so ``engine="dask"`` returns exactly the table of ``engine="local"``.
+    Every chunk is computed by the same function on the same data whatever the
+    engine, so ``engine="dask"`` returns exactly the table of ``engine="local"``.
+    A window's row equals :func:`perftest.reconcile` and :func:`perftest.evaluate`
+    called on that window alone, to round-off (warm starting changes the
+    iterates, not the solution; tests/test_scale.py checks 1e-9 relative).
 
     perftest's CoolProp property objects are shared within a process and are not
     thread-safe, so windows of one process are computed one at a time; parallel
     speed comes from processes (Dask's ``"processes"`` scheduler, the default
-    here, or the worker processes of a ``distributed`` cluster).  The processes
-    scheduler starts fresh Python processes for every call, each importing
-    perftest, CoolProp and scipy and building the plant model: a script using it
-    must guard its entry point with ``if __name__ == "__main__":``, and it pays off
-    only on jobs much longer than that start-up (benchmarks/bench_scale.py).  For
-    repeated calls keep a ``distributed.Client`` of worker processes open and pass
-    it as ``scheduler``.
+    here, or the worker processes of a ``distributed`` cluster).  A script using
+    the processes scheduler must guard its entry point with
+    ``if __name__ == "__main__":``.  For repeated calls keep a
+    ``distributed.Client`` of worker processes open and pass it as ``scheduler``
+    (benchmarks/bench_scale.py, benchmarks/bench_year.py).
 
     Warnings raised inside a window are caught and listed in its ``warnings``
     column instead of being shown once per window.
@@ -655,13 +697,21 @@ def reconcile_many(
             f"{on_error!r}.",
             parameter="on_error",
         )
+    if on_window is not None and not callable(on_window):
+        raise InputError(
+            f"The 'on_window' parameter of reconcile_many must be callable. Got {on_window!r}.",
+            parameter="on_window",
+        )
     _check_min_samples(min_samples)
+    chunk_length = _duration(chunk, "chunk")
     options = _Options(
         eliminate=bool(eliminate),
         alpha=float(alpha),
         results=_check_results(results),
         screen_outliers=bool(screen_outliers),
         on_error=on_error,
+        stability=bool(stability),
+        warm_start=bool(warm_start),
     )
     if options.results is not None and not _has_performance(plant):
         if options.results:
@@ -675,18 +725,61 @@ def reconcile_many(
         options = dataclasses.replace(options, results=None)
     runs = _as_runs(run)
     dask = _import_dask() if engine == "dask" else None
-    windows = _windows(runs, every, min_samples, lean=engine == "dask")
+    read_kw = dict(read_options or {})
+    sources = _sources(plant, runs, read_kw)
+    chunks = _chunks(sources, every, min_samples, chunk_length)
+    wstore = None if store is None else WindowStore(store, resume=resume)
+    from perftest import __version__
+
+    job = fingerprint(
+        __version__,
+        getattr(plant, "text", None) or repr(plant),
+        dataclasses.asdict(dataclasses.replace(options, on_error="row")),
+        sorted((k, repr(v)) for k, v in read_kw.items()),
+        str(chunk_length),
+    )
+    meter = Progress(sum(len(c.windows) for c in chunks), enabled=progress)
+    frames: dict[int, pd.DataFrame] = {}
+    order = {id(c): i for i, c in enumerate(chunks)}
+    keys: dict[int, str] = {}
+
+    def done(c: _Chunk, rows: list[dict]) -> None:
+        i = order[id(c)]
+        frame = _table(rows, options.results)
+        if wstore is not None:
+            wstore.write(c.run_number, c.begin, keys[i], frame)
+        frames[i] = frame
+        meter.add(len(rows), failed=sum(r["status"] == "failed" for r in rows))
+        if on_window is not None:
+            for row in rows:
+                on_window(row)
+
+    lean = engine == "dask"
+
+    def work():
+        for i, c in enumerate(chunks):
+            src = sources[c.run_number]
+            if wstore is not None:
+                keys[i] = _chunk_key(job, c, src)
+                if wstore.has(keys[i]):
+                    frames[i] = wstore.read(keys[i])
+                    meter.add(len(c.windows), reused=True)
+                    continue
+            yield c, _payload(c, src, lean)
 
     if engine == "local":
-        rows = [_window_row(plant, w, spec, options) for spec, w in windows]
+        for c, payload in work():
+            done(c, _chunk_rows(plant, c, payload, options))
     else:
-        # traverse=False: the plant and the window specs are dataclasses, which
-        # Dask would otherwise take apart and rebuild field by field.
-        def lit(value):
-            return dask.delayed(value, traverse=False)
-
-        task = dask.delayed(_window_row, pure=False)
-        plant_d, options_d = lit(plant), lit(options)
-        tasks = [task(plant_d, lit(w), lit(spec), options_d) for spec, w in windows]
-        rows = list(dask.compute(*tasks, scheduler=_resolve_scheduler(dask, scheduler)))
-    return _table(rows, options.results)
+        client = _connect(scheduler)
+        try:
+            resolved = client or _resolve_scheduler(dask, scheduler)
+            _run_dask(dask, resolved, plant, work(), options, done)
+        finally:
+            if client is not None:
+                client.close()
+    meter.close()
+    if wstore is not None:
+        wstore.prune()
+    ordered = [frames[i] for i in range(len(chunks))]
+    return _finish(ordered, [c.run_number for c in chunks], options.results)

@@ -158,3 +158,60 @@ def test_report_command_end_to_end(tmp_path, capsys):
     # progress lines go to stderr, one per stage, with the elapsed time
     assert "reconcile ..." in captured.err
     assert md.read_text(encoding="utf-8").startswith("# ")
+
+
+# --------------------------------------------------------------------------- plan
+
+
+def test_plan_command_writes_json_and_markdown(tmp_path, capsys):
+    js, md = tmp_path / "plan.json", tmp_path / "plan.md"
+    code = main(
+        [
+            "plan",
+            str(DATA / "plant.toml"),
+            "--duration",
+            "1h",
+            "--upgrade-factor",
+            "0.25",
+            "--json",
+            str(js),
+            "--markdown",
+            str(md),
+        ]
+    )
+    captured = capsys.readouterr()
+    assert code == 0, captured.err
+    assert "corrected_heat_rate" in captured.out and "best single upgrade" in captured.out
+    plan = json.loads(js.read_text(encoding="utf-8"))
+    assert plan["duration_s"] == 3600.0 and plan["upgrade_factor"] == 0.25
+    assert {"corrected_net_power", "corrected_heat_rate"} <= set(plan["results"])
+    row = plan["results"]["corrected_heat_rate"]
+    assert row["U95_with"] <= row["U95_without"] * (1 + 1e-12)
+    text = md.read_text(encoding="utf-8")
+    assert text.startswith("# ") and "Upgrading one instrument" in text
+    assert "does not replace" in text  # the caution is carried
+
+
+@pytest.mark.parametrize(
+    ("args", "needle"),
+    [
+        (["--duration", "soon"], "'duration' parameter of plan"),
+        (["--upgrade-factor", "-2"], "'upgrade_factor' parameter of plan"),
+    ],
+)
+def test_plan_bad_arguments_are_one_line_exit_2(capsys, args, needle):
+    code = main(["plan", str(DATA / "plant.toml"), "--no-what-if", *args])
+    assert code == 2
+    assert needle in _one_error_line(capsys.readouterr().err)
+
+
+def test_plan_without_design_table_names_the_file(tmp_path, capsys):
+    text = (DATA / "plant.toml").read_text(encoding="utf-8")
+    cut = text.index("# ---- design point")
+    path = tmp_path / "plant.toml"
+    path.write_text(text[:cut], encoding="utf-8")
+    assert main(["plan", str(path)]) == 2
+    line = _one_error_line(capsys.readouterr().err)
+    assert "plant.toml" in line and "[design]" in line
+    assert main(["plan", str(tmp_path / "missing.toml")]) == 2
+    assert "not found" in _one_error_line(capsys.readouterr().err)

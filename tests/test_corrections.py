@@ -7,7 +7,9 @@ import pandas as pd
 import pytest
 
 from perftest.corrections import (
+    RULES,
     CorrectionCurve,
+    CorrectionSurface,
     Guarantee,
     apply_corrections,
     correction_sensitivities,
@@ -151,7 +153,7 @@ def test_apply_corrections_errors(power_curve):
         apply_corrections(400e6, [power_curve], {"p_amb": 101325.0})
     with pytest.raises(InputError, match="T_amb = 320"):
         apply_corrections(400e6, [power_curve], {"T_amb": 320.0})
-    with pytest.raises(InputError, match="CorrectionCurve objects"):
+    with pytest.raises(InputError, match="CorrectionCurve or CorrectionSurface objects"):
         apply_corrections(400e6, ["curve"], {"T_amb": 290.0})
 
 
@@ -285,7 +287,7 @@ def test_additive_curve_from_table_with_callback():
     [
         ({"reference": 1.0, "curve": {"x": [0, 2], "y": [1, 1]}}, r"corrections\[3\]' needs 'var"),
         ({"variable": "T", "curve": {"x": [0, 2], "y": [1, 1]}}, "needs 'reference'"),
-        ({"variable": "T", "reference": 1.0}, "needs 'curve' or 'polynomial'"),
+        ({"variable": "T", "reference": 1.0}, "needs 'curve', 'polynomial' or 'surface'"),
         ({"variable": "T", "reference": 1.0, "curve": {"x": [0, 2]}}, "'x' and 'y' lists"),
         ({"variable": "T", "reference": 5.0, "curve": {"x": [0, 2], "y": [1, 1]}}, "outside"),
         ({"variable": "T", "reference": 1.0, "curve": {"x": [0, "a"], "y": [1, 1]}}, "numbers"),
@@ -341,3 +343,444 @@ def test_guarantees_from_plant_sections():
         guarantee_from_table(
             {"quantity": "q", "value": 1.0, "direction": "up"}, key="guarantees[0]"
         )
+
+
+# --------------------------------------------------------------------------- scipy
+# Outside check: the interpolation against scipy.interpolate and numpy.  Tables are
+# illustrative numbers; the reference libraries compute the same rule
+# independently, so agreement to round-off (1e-12 relative) is expected.
+
+scipy_interpolate = pytest.importorskip("scipy.interpolate")
+
+
+def test_table_interpolation_against_scipy_interp1d(power_curve):
+    xs = np.random.default_rng(3).uniform(T_X[0], T_X[-1], 200)
+    ref = scipy_interpolate.interp1d(T_X, T_Y, kind="linear")(xs)
+    np.testing.assert_allclose(power_curve(xs), ref, rtol=1e-12)
+
+
+def test_polynomial_against_numpy_polyval():
+    coef = (1.0, -3e-3, 2e-5, -1e-7)  # ascending powers of (x - 288.15 K)
+    c = CorrectionCurve(
+        "T_amb", polynomial=coef, reference=288.15, valid_range=(250.0, 320.0), result="net_power"
+    )
+    xs = np.linspace(250.0, 320.0, 71)
+    # np.polyval takes descending powers
+    np.testing.assert_allclose(c(xs), np.polyval(coef[::-1], xs - 288.15), rtol=1e-13)
+    der = np.polyder(np.array(coef[::-1]))
+    np.testing.assert_allclose(c.derivative(xs), np.polyval(der, xs - 288.15), rtol=1e-12)
+
+
+# Ambient temperature [K] x relative humidity [-]: output factor (illustrative numbers).
+S_X = (268.15, 278.15, 288.15, 298.15, 308.15)
+S_Y = (0.2, 0.6, 1.0)
+S_V = (
+    (1.050, 1.046, 1.041),
+    (1.027, 1.024, 1.020),
+    (1.003, 1.000, 0.996),
+    (0.975, 0.971, 0.966),
+    (0.944, 0.939, 0.933),
+)
+
+
+@pytest.fixture
+def surface():
+    return CorrectionSurface(
+        "T_amb", "RH", S_X, S_Y, S_V, reference=288.15, second_reference=0.6, result="net_power"
+    )
+
+
+def test_surface_interpolation_against_regular_grid_interpolator(surface):
+    ref = scipy_interpolate.RegularGridInterpolator((S_X, S_Y), np.array(S_V), method="linear")
+    rng = np.random.default_rng(5)
+    pts = np.column_stack([rng.uniform(S_X[0], S_X[-1], 300), rng.uniform(0.2, 1.0, 300)])
+    np.testing.assert_allclose(surface(pts[:, 0], pts[:, 1]), ref(pts), rtol=1e-12)
+    # grid nodes are returned exactly
+    assert surface(278.15, 1.0) == pytest.approx(1.020, rel=1e-15)
+    with pytest.raises(InputError, match=r"RH = 1\.1 lies outside"):
+        surface(290.0, 1.1)
+
+
+def test_surface_partials_against_finite_differences(surface):
+    h = 1e-6
+    for x, y in ((281.0, 0.3), (300.0, 0.9)):  # cell interiors: the quotient is exact
+        dx, dy = surface.partials(x, y)
+        assert dx == pytest.approx((surface(x + h, y) - surface(x - h, y)) / (2 * h), rel=1e-6)
+        assert dy == pytest.approx((surface(x, y + h) - surface(x, y - h)) / (2 * h), rel=1e-6)
+    # on the grid line x = 288.15: the mean of the two adjacent cells' slopes
+    left = ((1.000 - 1.024) * 0.5 + (0.996 - 1.020) * 0.5) / 10.0
+    right = ((0.971 - 1.000) * 0.5 + (0.966 - 0.996) * 0.5) / 10.0
+    assert surface.partials(288.15, 0.8)[0] == pytest.approx(0.5 * (left + right), rel=1e-12)
+
+
+def test_surface_in_apply_corrections_and_sensitivities(surface, power_curve):
+    cond = {"T_amb": 296.0, "RH": 0.75}
+    f = float(
+        scipy_interpolate.RegularGridInterpolator((S_X, S_Y), np.array(S_V))([[296.0, 0.75]])[0]
+    )
+    assert apply_corrections(100e6, [surface], cond) == pytest.approx(100e6 / f, rel=1e-13)
+    s = correction_sensitivities(100e6, [surface], cond)
+    for name, step in (("T_amb", 1e-4), ("RH", 1e-6)):
+        up, dn = dict(cond), dict(cond)
+        up[name] += step
+        dn[name] -= step
+        fd = (apply_corrections(100e6, [surface], up) - apply_corrections(100e6, [surface], dn)) / (
+            2 * step
+        )
+        assert s[name] == pytest.approx(fd, rel=1e-6)  # bilinear: exact but round-off
+
+
+@pytest.mark.parametrize(
+    ("kwargs", "match"),
+    [
+        ({"values": S_V[:4]}, "'values' must be 5 rows"),
+        ({"x": (268.15, 268.15, 288.15, 298.15, 308.15)}, "strictly increasing"),
+        ({"reference": 310.0}, "'reference' 310 lies outside"),
+        ({"second_reference": 0.2}, "must equal 1 at the reference point"),
+        ({"kind": "ratio"}, "'kind' must be one of"),
+    ],
+)
+def test_surface_validation(kwargs, match):
+    args = dict(x=S_X, y=S_Y, values=S_V, reference=288.15, second_reference=0.6)
+    args.update(kwargs)
+    with pytest.raises(InputError, match=match):
+        CorrectionSurface("T_amb", "RH", args.pop("x"), args.pop("y"), args.pop("values"), **args)
+
+
+def test_surface_from_plant_table_with_units():
+    table = {
+        "result": "net_power",
+        "variable": "T_amb",
+        "reference": {"value": 15.0, "unit": "degC"},
+        "second_variable": "RH",
+        "second_reference": {"value": 60.0, "unit": "%"},
+        "surface": {
+            "x": [-5.0, 5.0, 15.0, 25.0, 35.0],
+            "x_unit": "degC",
+            "y": [20.0, 60.0, 100.0],
+            "y_unit": "%",
+            "values": [list(r) for r in S_V],
+        },
+    }
+    s = curve_from_table(table)
+    assert isinstance(s, CorrectionSurface) and s.variables == ("T_amb", "RH")
+    assert s.x == pytest.approx(S_X) and s.y == pytest.approx(S_Y)
+    assert s(296.0, 0.75) == pytest.approx(
+        CorrectionSurface("T_amb", "RH", S_X, S_Y, S_V, reference=288.15, second_reference=0.6)(
+            296.0, 0.75
+        ),
+        rel=1e-12,
+    )
+    bad = dict(table)
+    del bad["second_reference"]
+    with pytest.raises(PlantFileError, match="needs 'second_reference'"):
+        curve_from_table(bad, key="corrections[1]")
+
+
+# --------------------------------------------------------------------------- Monte Carlo
+# Outside check: the linear propagation of evaluate() for a corrected result (curve
+# and two-variable table driven by measured conditions) against a Monte Carlo
+# propagation with numpy (JCGM 101:2008, 7.2-7.6), with the correction computed by
+# scipy's interpolators, not by perftest.
+
+_MC_PLANT = """
+[site]
+name = "Correction bench"
+atmospheric_pressure = { value = 101.325, unit = "kPa" }
+
+[tags.JT-1]
+unit = "MW"
+[tags.FT-F]
+unit = "kg/s"
+[tags.TT-S]
+unit = "K"
+[tags.TT-K]
+unit = "K"
+[tags.TT-A]
+unit = "K"
+[tags.RH-A]
+unit = "1"
+
+[performance]
+gross_power = "JT-1"
+heat_input = "fuel"
+source_temperature = "TT-S"
+sink_temperature = "TT-K"
+
+[fuel]
+mass_flow = "FT-F"
+lhv = { value = 50.0, unit = "MJ/kg" }
+uncertainty = { value = 0.5, kind = "percent", level = "standard" }
+exergy_ratio = 1.04
+
+[[corrections]]
+result = "net_power"
+variable = "TT-K"
+reference = { value = 290.0, unit = "K" }
+curve = { x = [280.0, 290.0, 305.0, 315.0], y = [1.01, 1.0, 0.97, 0.95], x_unit = "K" }
+
+[[corrections]]
+result = "net_power"
+variable = "TT-A"
+reference = { value = 288.15, unit = "K" }
+second_variable = "RH-A"
+second_reference = { value = 0.6, unit = "1" }
+[corrections.surface]
+x = [268.15, 278.15, 288.15, 298.15, 308.15]
+y = [0.2, 0.6, 1.0]
+values = [
+    [1.050, 1.046, 1.041],
+    [1.027, 1.024, 1.020],
+    [1.003, 1.000, 0.996],
+    [0.975, 0.971, 0.966],
+    [0.944, 0.939, 0.933],
+]
+
+[[corrections]]
+result = "net_power"
+variable = "TT-A"
+reference = { value = 288.15, unit = "K" }
+kind = "additive"
+polynomial = [0.0, -20000.0]
+"""
+
+
+class _StandIn:
+    """Serves values and a covariance like PlantReconciliation (no balances)."""
+
+    def __init__(self, values: dict, u: dict):
+        self.names = list(values)
+        self.x = np.array([values[n] for n in self.names])
+        self.cov = np.diag([u[n] ** 2 for n in self.names])
+        self.dead_state = (288.15, 101325.0)
+        self.model = None
+
+    def value(self, name):
+        from perftest.errors import PerftestError
+
+        if name not in self.names:
+            raise PerftestError(f"unknown {name}")
+        return float(self.x[self.names.index(name)])
+
+    def covariance(self, names):
+        idx = [self.names.index(n) for n in names]
+        return self.cov[np.ix_(idx, idx)]
+
+
+def test_corrected_result_uncertainty_against_monte_carlo(tmp_path):
+    from perftest.plantfile import load_plant
+    from perftest.results import evaluate
+
+    path = tmp_path / "plant.toml"
+    path.write_text(_MC_PLANT, encoding="utf-8")
+    values = {"JT-1": 30e6, "FT-F": 2.0, "TT-S": 600.0, "TT-K": 300.0, "TT-A": 296.0, "RH-A": 0.5}
+    u = {"JT-1": 0.09e6, "FT-F": 0.01, "TT-S": 1.0, "TT-K": 1.5, "TT-A": 1.0, "RH-A": 0.03}
+    perf = evaluate(load_plant(path), _StandIn(values, u), monte_carlo=False)
+
+    rng = np.random.default_rng(17)
+    n = 200_000
+    d = {k: values[k] + u[k] * rng.standard_normal(n) for k in values}
+    f1 = scipy_interpolate.interp1d([280.0, 290.0, 305.0, 315.0], [1.01, 1.0, 0.97, 0.95])(
+        d["TT-K"]
+    )
+    f2 = scipy_interpolate.RegularGridInterpolator((S_X, S_Y), np.array(S_V))(
+        np.column_stack([d["TT-A"], d["RH-A"]])
+    )
+    g = -20000.0 * (d["TT-A"] - 288.15)
+    corrected = (d["JT-1"] - g) / (f1 * f2)
+    # 200 000 trials estimate a standard deviation to 1/sqrt(2n) = 0.16 %; the curve
+    # kinks within +-2u of the conditions make the linearisation good to about 1 %,
+    # so 3 % covers both.
+    assert perf.uncertainty("corrected_net_power") == pytest.approx(corrected.std(ddof=1), rel=0.03)
+    assert perf.value("corrected_net_power") == pytest.approx(corrected.mean(), rel=1e-3)
+    # the size of each correction is reported: the surface alone changes the
+    # result by P/f2 - P at the test conditions
+    row = perf.corrections[perf.corrections["variable"] == "TT-A & RH-A"].iloc[0]
+    f2_0 = float(
+        scipy_interpolate.RegularGridInterpolator((S_X, S_Y), np.array(S_V))([[296.0, 0.5]])[0]
+    )
+    assert row["factor"] == pytest.approx(f2_0, rel=1e-12)
+    assert row["relative_change"] == pytest.approx(1 / f2_0 - 1, rel=1e-9)
+
+
+# --------------------------------------------------------------------------- verdict rules
+# Hand-worked cases, G = 100 (at_least) or 100 (at_most), U95 = 2.  The rules are
+# the usual contract conventions: guard bands on both sides (JCGM 106:2012,
+# guarded acceptance and rejection, from memory), test uncertainty granted to the
+# supplier (JCGM 106 guarded rejection; common practice, no source), plain
+# comparison (JCGM 106 simple acceptance), and a fixed contractual tolerance
+# (common practice, no source).
+
+
+@pytest.mark.parametrize(
+    ("rule", "direction", "value", "tol", "expected"),
+    [
+        # supplier_benefit, at_least: met iff y + U >= G
+        ("supplier_benefit", "at_least", 98.0, None, "met"),  # boundary 98 + 2 = 100
+        ("supplier_benefit", "at_least", 97.9, None, "not met"),
+        ("supplier_benefit", "at_least", 103.0, None, "met"),
+        # supplier_benefit, at_most: met iff y - U <= G
+        ("supplier_benefit", "at_most", 102.0, None, "met"),
+        ("supplier_benefit", "at_most", 102.1, None, "not met"),
+        # plain: y >= G (at_least), y <= G (at_most); U ignored
+        ("plain", "at_least", 100.0, None, "met"),
+        ("plain", "at_least", 99.99, None, "not met"),
+        ("plain", "at_most", 100.01, None, "not met"),
+        ("plain", "at_most", 99.0, None, "met"),
+        # tolerance T = 0.5: at_least met iff y + T >= G; at_most iff y - T <= G
+        ("tolerance", "at_least", 99.5, 0.5, "met"),
+        ("tolerance", "at_least", 99.4, 0.5, "not met"),
+        ("tolerance", "at_most", 100.5, 0.5, "met"),
+        ("tolerance", "at_most", 100.6, 0.5, "not met"),
+        # guarded, same as the default truth table above
+        ("guarded", "at_least", 101.0, None, "inconclusive"),
+        ("guarded", "at_least", 102.0, None, "met"),
+    ],
+)
+def test_verdict_rules_truth_table(rule, direction, value, tol, expected):
+    g = Guarantee("corrected_net_power", 100.0, direction, rule=rule, tolerance=tol)
+    assert g.verdict(value, 2.0) == expected
+
+
+def test_only_the_guarded_rule_is_ever_inconclusive():
+    ys = np.linspace(95.0, 105.0, 201)
+    for rule in RULES:
+        for direction in ("at_least", "at_most"):
+            g = Guarantee(
+                "q", 100.0, direction, rule=rule, tolerance=0.5 if rule == "tolerance" else None
+            )
+            verdicts = {g.verdict(y, 2.0) for y in ys}
+            assert ("inconclusive" in verdicts) == (rule == "guarded"), (rule, direction)
+            # every rule is monotone: a better value never turns met into not met
+            order = ys if direction == "at_least" else ys[::-1]
+            seq = [g.verdict(y, 2.0) for y in order]
+            first_met = seq.index("met")
+            assert all(v == "met" for v in seq[first_met:]), (rule, direction)
+
+
+def test_rule_statements_name_the_rule_and_inequality():
+    g = Guarantee("corrected_heat_rate", 2.5, "at_most", rule="supplier_benefit", unit="kJ/kWh")
+    s = g.statement()
+    assert s.startswith("Rule supplier_benefit") and "y - U95 <= G" in s
+    t = Guarantee(
+        "corrected_net_power", 30e6, "at_least", rule="tolerance", tolerance=0.3e6, unit="MW"
+    )
+    assert "0.3 MW" in t.statement() and "y + T >= G" in t.statement()
+    assert "inconclusive" in Guarantee("x", 1.0, "at_least").statement()
+
+
+@pytest.mark.parametrize(
+    ("kwargs", "match"),
+    [
+        ({"rule": "lenient"}, "'rule' must be one of"),
+        ({"rule": "tolerance"}, "needs a finite non-negative 'tolerance'"),
+        ({"rule": "tolerance", "tolerance": -1.0}, "needs a finite non-negative"),
+        ({"rule": "plain", "tolerance": 1.0}, "'tolerance' is only used by rule 'tolerance'"),
+    ],
+)
+def test_rule_validation(kwargs, match):
+    with pytest.raises(InputError, match=match):
+        Guarantee("corrected_net_power", 1.0, "at_least", **kwargs)
+
+
+_G_PLANT = """
+[site]
+name = "Rules"
+
+[tags.JT-1]
+unit = "MW"
+
+[acceptance]
+rule = "supplier_benefit"
+
+[[guarantees]]
+quantity = "corrected_net_power"
+value = 400
+unit = "MW"
+direction = "at_least"
+
+[[guarantees]]
+quantity = "corrected_heat_rate"
+value = 9000
+unit = "kJ/kWh"
+direction = "at_most"
+rule = "tolerance"
+tolerance = { value = 1.0, kind = "percent" }
+
+[[guarantees]]
+quantity = "net_power"
+value = 400
+unit = "MW"
+direction = "at_least"
+rule = "tolerance"
+tolerance = { value = 2, unit = "MW" }
+"""
+
+
+def test_rules_from_the_plant_file(tmp_path):
+    from perftest.plantfile import load_plant
+
+    path = tmp_path / "plant.toml"
+    path.write_text(_G_PLANT, encoding="utf-8")
+    g = guarantees_from_plant(load_plant(path))
+    assert [x.rule for x in g] == ["supplier_benefit", "tolerance", "tolerance"]
+    assert g[1].tolerance == pytest.approx(0.01 * 2.5, rel=1e-12)  # 1 % of 9000 kJ/kWh in J/J
+    assert g[2].tolerance == pytest.approx(2e6, rel=1e-12)
+
+
+@pytest.mark.parametrize(
+    ("old", "new", "match", "line_of"),
+    [
+        ('rule = "supplier_benefit"', 'rule = "lenient"', "'rule' must be one of",
+         'rule = "lenient"'),
+        ('[acceptance]\nrule = "supplier_benefit"', '[acceptance]\nrules = "plain"',
+         "unknown key 'rules'", 'rules = "plain"'),
+        ('rule = "tolerance"\ntolerance = { value = 1.0, kind = "percent" }\n',
+         'rule = "tolerance"\n', "rule 'tolerance' needs tolerance", 'rule = "tolerance"'),
+        ('tolerance = { value = 2, unit = "MW" }', 'tolerance = { value = 2, kind = "%" }',
+         "'kind' must be", 'tolerance = { value = 2, kind = "%" }'),
+        ('direction = "at_most"', 'direction = "below"', "'direction' must be one of",
+         'direction = "below"'),
+        ('value = 9000', 'value = "high"', "must be a number", 'value = "high"'),
+        ('unit = "kJ/kWh"\n', 'unit = "kJ/kWh"\nmargin = 3\n', "unknown key 'margin'",
+         "margin = 3"),
+    ],
+)  # fmt: skip
+def test_bad_guarantee_keys_name_key_and_line(tmp_path, old, new, match, line_of):
+    from perftest.plantfile import load_plant
+
+    text = _G_PLANT.replace(old, new, 1)
+    assert text != _G_PLANT
+    path = tmp_path / "plant.toml"
+    path.write_text(text, encoding="utf-8")
+    with pytest.raises(PlantFileError, match=match) as info:
+        guarantees_from_plant(load_plant(path))
+    lines = text.splitlines()
+    assert info.value.line == lines.index(line_of) + 1, str(info.value)
+
+
+def test_rule_reaches_summary_json_and_markdown(tmp_path):
+    """The rule name and its sentence appear in summary.json rows and the report."""
+    from perftest import report
+    from perftest.plantfile import load_plant
+    from perftest.results import evaluate
+
+    text = _MC_PLANT + (
+        '\n[acceptance]\nrule = "plain"\n\n[[guarantees]]\nquantity = "corrected_net_power"\n'
+        'value = 29.0\nunit = "MW"\ndirection = "at_least"\n'
+    )
+    path = tmp_path / "plant.toml"
+    path.write_text(text, encoding="utf-8")
+    plant = load_plant(path)
+    values = {"JT-1": 30e6, "FT-F": 2.0, "TT-S": 600.0, "TT-K": 300.0, "TT-A": 296.0, "RH-A": 0.5}
+    u = {"JT-1": 0.09e6, "FT-F": 0.01, "TT-S": 1.0, "TT-K": 1.5, "TT-A": 1.0, "RH-A": 0.03}
+    perf = evaluate(plant, _StandIn(values, u), monte_carlo=False)
+    data = report.collect(plant, performance=perf)
+    row = report.summary_json(data)["guarantees"][0]
+    for key in ("quantity", "corrected_value", "U95", "guaranteed", "direction", "verdict"):
+        assert key in row
+    assert row["rule"] == "plain" and row["rule_statement"].startswith("Rule plain")
+    assert row["verdict"] == ("met" if row["corrected_value"] >= 29e6 else "not met")
+    md = report.render_markdown(data)
+    assert row["rule_statement"] in md
+    assert "relative_change" in md  # the size of every correction is tabulated

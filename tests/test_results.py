@@ -244,3 +244,78 @@ def test_bad_input(tmp_path):
     names = list(values)
     with pytest.raises(PlantFileError, match="TT-S"):
         evaluate(plant, StandIn(values, _cov()[np.ix_(range(4), range(4))][: len(names)]))
+
+
+VOLUME_FUEL = """
+[site]
+name = "Test bench"
+atmospheric_pressure = { value = 101.325, unit = "kPa" }
+
+[tags.JT-1]
+unit = "MW"
+[tags.JT-2]
+unit = "MW"
+[tags.FV-F]
+unit = "m3/s"
+[tags.TT-S]
+unit = "K"
+[tags.TT-K]
+unit = "K"
+
+[performance]
+gross_power = "JT-1"
+auxiliary_power = "JT-2"
+heat_input = "fuel"
+source_temperature = "TT-S"
+sink_temperature = "TT-K"
+
+[fuel]
+volume_flow = "FV-F"
+composition = { methane = 0.95, ethane = 0.03, nitrogen = 0.02 }
+{reference}
+"""
+
+
+@pytest.mark.parametrize(
+    ("reference", "t_met", "p_met"),
+    [
+        ("", 288.15, 101325.0),
+        (
+            'reference_conditions = { temperature = { value = 0.0, unit = "degC" }, '
+            'pressure = { value = 1.01325, unit = "bar" } }',
+            273.15,
+            101325.0,
+        ),
+    ],
+)
+def test_volume_flow_fuel_uses_the_volumetric_calorific_value(tmp_path, reference, t_met, p_met):
+    from perftest.fuel import Gas
+
+    path = tmp_path / "plant.toml"
+    path.write_text(VOLUME_FUEL.replace("{reference}", reference), encoding="utf-8")
+    plant = load_plant(path)
+    gas = Gas({"methane": 0.95, "ethane": 0.03, "nitrogen": 0.02})
+    # 2 kg/s of fuel metered as a volume flow at the stated reference conditions.
+    rho = gas.density(t_met, p_met)
+    values = {**VALUES, "FV-F": 2.0 / rho}
+    values.pop("FT-F")
+    u = {**U, "FV-F": 0.01 / rho}
+    names = list(values)
+    stand_in = StandIn(values, np.diag([u.get(n, U.get(n)) ** 2 for n in names]))
+    perf = evaluate(plant, stand_in, monte_carlo=False)
+    # Volume flow x volumetric calorific value (ISO 6976: the volumetric value is the
+    # molar value x the real-gas molar density at metering conditions) must equal the
+    # mass flow x the mass-based value: the heat input of the same 2 kg/s of gas.
+    expected = 2.0 * gas.inferior_calorific_value("mass")
+    assert perf.value("heat_input") == pytest.approx(expected, rel=1e-12)
+
+
+def test_volume_flow_reference_conditions_are_validated(tmp_path):
+    path = tmp_path / "plant.toml"
+    path.write_text(
+        VOLUME_FUEL.replace("{reference}", "reference_conditions = { temp = 15.0 }"),
+        encoding="utf-8",
+    )
+    stand_in = StandIn({**VALUES, "FV-F": 2.0}, np.eye(len(VALUES) + 1))
+    with pytest.raises(PlantFileError, match="reference_conditions.*temp"):
+        evaluate(load_plant(path), stand_in, monte_carlo=False)

@@ -97,8 +97,9 @@ def select_rows(M0: np.ndarray, br0: np.ndarray) -> RowSelection:
     d = np.diag(M0).copy()
     sd = np.sqrt(np.maximum(d, 0.0))
     big = sd.max() if m0 else 0.0
-    nonzero = np.flatnonzero(sd > ZERO_ROW_RTOL * big) if big > 0 else np.zeros(0, int)
-    zero_rows = np.setdiff1d(np.arange(m0), nonzero)
+    live = sd > ZERO_ROW_RTOL * big if big > 0 else np.zeros(m0, bool)
+    nonzero = np.flatnonzero(live)
+    zero_rows = np.flatnonzero(~live)
     bscale = 1.0 + np.max(np.abs(br0)) / max(big, np.finfo(float).tiny) if m0 else 1.0
     # A zero row reads 0 = b_j: a contradiction unless b_j vanishes.
     for j in zero_rows:

@@ -165,8 +165,14 @@ def solve_dense(p: Problem) -> Core:
         x_cov = np.diag(s) if p.is_diag else S.copy()
         lam = np.zeros(A.shape[0])
     redundant = vdiag > _dense.REDUNDANCY_RTOL * s
-    # Unmeasured: the scaled unknowns are colB * y, so y = G (bt - At xhat) / colB.
     k = B.shape[1]
+    if r and k == 0 and sel.inconsistent is None and not _closes(A, b, xhat):
+        # Uncertainties spread over many decades make the Gram matrix of the constraints
+        # (metric of S) numerically singular: two balances that share one very uncertain
+        # instrument look parallel and one is dropped, so A xhat = b fails.  Solve again
+        # in the null space of A, where closure does not depend on S at all.
+        return _solve_nullspace(p, constraint_residual, constraint_u)
+    # Unmeasured: the scaled unknowns are colB * y, so y = G (bt - At xhat) / colB.
     T = (proj.G @ At) / colB[:, None] if k else np.zeros((0, n))
     y = (proj.G @ bt) / colB - T @ xhat if k else np.zeros(0)
     y_cov = T @ x_cov @ T.T
@@ -187,6 +193,74 @@ def solve_dense(p: Problem) -> Core:
         constraint_residual=constraint_residual,
         constraint_u=constraint_u,
         inconsistent=sel.inconsistent,
+    )
+
+
+# Closure check of the dense solution: |A xhat - b| against the size of the terms
+# |A| |xhat| + |b|.  A correct solve closes to a few hundred ulp; 1e-9 leaves room for
+# ill-conditioning that still gives a usable estimate.
+CLOSURE_RTOL = 1e-9
+
+
+def _closes(A, b, xhat) -> bool:
+    scale = np.abs(A) @ np.abs(xhat) + np.abs(b)
+    return bool(np.all(np.abs(A @ xhat - b) <= CLOSURE_RTOL * scale + np.finfo(float).tiny))
+
+
+def _solve_nullspace(p: Problem, constraint_residual, constraint_u) -> Core:
+    """Reconcile in the null space of ``A`` (no unmeasured variables).
+
+    :math:`\\hat x = x_p + N t` with :math:`A x_p = b` and :math:`A N = 0`, and ``t``
+    the weighted least-squares fit :math:`\\min |L^{-1}(x_p + N t - x)|` with
+    :math:`S = L L^T`.  Closure holds to the round-off of ``A`` whatever the spread
+    of the uncertainties; the fit uses an SVD (numpy/scipy ``lstsq``), whose error
+    grows only with the condition number of :math:`L^{-1} N`, not its square.
+    """
+    x, S, s, A, b = p.x, p.S, p.sdiag, p.A, p.b
+    n = x.size
+    rows = np.linalg.norm(A, axis=1)
+    keep = rows > 0
+    An = A[keep] / rows[keep, None]
+    bn = b[keep] / rows[keep]
+    N = scipy.linalg.null_space(An)
+    xp = scipy.linalg.lstsq(An, bn, check_finite=False)[0]
+    if p.is_diag:
+        u = np.sqrt(s)
+        Mt, rhs = N / u[:, None], (x - xp) / u
+    else:
+        Lm = scipy.linalg.cholesky(S, lower=True, check_finite=False)
+        Mt = scipy.linalg.solve_triangular(Lm, N, lower=True, check_finite=False)
+        rhs = scipy.linalg.solve_triangular(Lm, x - xp, lower=True, check_finite=False)
+    U, sv, Vt = scipy.linalg.svd(Mt, full_matrices=False, check_finite=False)
+    good = sv > sv.max(initial=0.0) * n * np.finfo(float).eps if sv.size else sv > 0
+    t = Vt[good].T @ ((U[:, good].T @ rhs) / sv[good])
+    xhat = xp + N @ t
+    K = N @ (Vt[good].T / sv[good])
+    x_cov = K @ K.T
+    d = xhat - x
+    if p.is_diag:
+        wd = d / s
+        chi2 = float(d @ wd)
+    else:
+        wd = scipy.linalg.cho_solve((Lm, True), d, check_finite=False)
+        chi2 = float(d @ wd)
+    vdiag = np.maximum(s - np.diag(x_cov), 0.0)
+    lam = scipy.linalg.lstsq(A.T, -wd, check_finite=False)[0]
+    cov_tuple = (x_cov, np.zeros((0, 0)), np.zeros((n, 0)))
+    return Core(
+        xhat=xhat,
+        y=np.zeros(0),
+        observable=np.zeros(0, dtype=bool),
+        lam=lam,
+        chi2=chi2,
+        dof=int(n - N.shape[1]),
+        vdiag=vdiag,
+        redundant=vdiag > _dense.REDUNDANCY_RTOL * s,
+        covariances=lambda: cov_tuple,
+        y_var=np.zeros(0),
+        constraint_residual=constraint_residual,
+        constraint_u=constraint_u,
+        inconsistent=None,
     )
 
 

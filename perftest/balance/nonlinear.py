@@ -211,6 +211,22 @@ def reconcile_nonlinear(
             f"returning (Jx, Jy), or None. Got {type(jacobian).__name__}.",
             parameter="jacobian",
         )
+    if isinstance(max_iter, bool) or not isinstance(max_iter, int | np.integer) or max_iter < 1:
+        raise InputError(
+            f"The 'max_iter' parameter of {func} must be a whole number of at least 1. "
+            f"Got {max_iter!r}.",
+            parameter="max_iter",
+        )
+    if (
+        isinstance(tol, bool)
+        or not isinstance(tol, int | float | np.floating)
+        or not (0.0 < float(tol) < 1.0)
+    ):
+        raise InputError(
+            f"The 'tol' parameter of {func} must be a number between 0 and 1 (relative "
+            f"tolerance, e.g. 1e-8). Got {tol!r}.",
+            parameter="tol",
+        )
     xm = _checks.vector(x, "x", func)
     n = xm.size
     y = np.zeros(0) if y0 is None else _checks.vector(y0, "y0", func)

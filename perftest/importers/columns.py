@@ -124,6 +124,14 @@ def _as_sentinels(sentinels) -> tuple:
         return ()
     if isinstance(sentinels, str | int | float):
         sentinels = [sentinels]
+    try:
+        sentinels = list(sentinels)
+    except TypeError:
+        raise InputError(
+            "The 'sentinels' parameter of read_run must be a number, a text or a list of "
+            f"them. Got {type(sentinels).__name__}.",
+            parameter="sentinels",
+        ) from None
     out = []
     for s in sentinels:
         if isinstance(s, bool) or not isinstance(s, str | int | float | np.number):
@@ -167,14 +175,22 @@ def _is_time_like(cells: list[str]) -> bool:
             return False  # numbers are values, not stamps
         except ValueError:
             pass
-    parsed = pd.to_datetime(pd.Series(cells), errors="coerce", format="mixed")
+    # utc=True: stamps with and without offsets (refused later, naming the line)
+    # must not stop the detection with pandas' "mixed time zones" ValueError
+    parsed = pd.to_datetime(pd.Series(cells), errors="coerce", format="mixed", utc=True)
     return bool(parsed.notna().all())
 
 
 def _time_columns(layout: FileLayout, time_column) -> list[str]:
     header = layout.header
     if time_column is not None:
-        names = [time_column] if isinstance(time_column, str) else list(time_column)
+        if isinstance(time_column, str):
+            names = [time_column]
+        else:
+            try:
+                names = list(time_column)
+            except TypeError:
+                names = []  # not a name nor a pair: refused just below
         if not 1 <= len(names) <= 2 or not all(isinstance(n, str) for n in names):
             raise InputError(
                 "The 'time_column' parameter of read_run must be a column name or a pair "

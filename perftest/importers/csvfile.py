@@ -175,6 +175,13 @@ def _split(line: str, sep: str) -> list[str]:
 
 
 def _decode_head(path: Path, head: bytes) -> tuple[str, str]:
+    if head.startswith((b"\xff\xfe", b"\xfe\xff")):
+        # "Unicode text" exports of spreadsheet programs are UTF-16 with this mark
+        raise DataError(
+            f"{path.name}: the file is UTF-16 text (it starts with a UTF-16 byte order "
+            "mark). Save or export it as UTF-8 (or ANSI) CSV and read it again.",
+            file=path,
+        )
     if b"\x00" in head:
         raise DataError(
             f"{path.name}: the file looks binary (it holds NUL bytes), not a text CSV. "

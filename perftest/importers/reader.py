@@ -582,6 +582,13 @@ def read_parts(
             + ("units row below it, " if lay.units_row is not None else "no units row, ")
             + f"time from {' + '.join(repr(c) for c in fd.time_cols)}"
         )
+        if lay.header and not lay.header[-1]:
+            # a trailing separator on the header line: the last column has no name
+            # and is not read; say so, so that nothing goes unnoticed
+            log.append(
+                f"{lay.name}: the last column (column {len(lay.header)}) has no name in the "
+                "header and was not read"
+            )
         if fd.quality:
             log.append(
                 f"{lay.name}: quality columns "

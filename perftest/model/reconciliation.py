@@ -489,7 +489,43 @@ def _solve(model: PlantModel, extra: tuple, measurements, y0):
     return reconcile_nonlinear(residual, x, cov, y0=y0, jacobian=jacobian, y_scale=y_scale), tags
 
 
-def reconcile(plant, measurements, *, eliminate=False, alpha=0.05) -> PlantReconciliation:
+def _warm_solve(model: PlantModel, extra: tuple, measurements, x0, start):
+    """``_solve`` from ``start`` (see :func:`reconcile`), or None to start cold."""
+    from perftest.errors import PerftestError
+
+    if start is None:
+        return None
+    if isinstance(start, PlantReconciliation):
+        start = {name: start._slots[i] for name, i in start.model.index.items()}
+    from collections.abc import Mapping
+
+    if not isinstance(start, Mapping):
+        raise InputError(
+            "The 'start' parameter of reconcile must be a PlantReconciliation or a mapping "
+            f"of model variable name -> value [SI]. Got {type(start).__name__}.",
+            parameter="start",
+        )
+    y0 = np.array([float(start.get(v, np.nan)) for v in model.unmeasured], dtype=float)
+    if not np.all(np.isfinite(y0)):
+        cold = initial_guess(model, x0)
+        y0 = np.where(np.isfinite(y0), y0, cold)
+    try:
+        model.residual(x0, y0)
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            out = _solve(model, extra, measurements, y0)
+    except (PerftestError, ArithmeticError, ValueError):
+        # PerftestError includes ConvergenceError and PropertyRangeError: the cold
+        # start decides, so that a window fails exactly as it does without a start.
+        return None
+    for w in caught:  # the solver's own notes, issued as the cold path issues them
+        warnings.warn(w.message, w.category, stacklevel=3)
+    return out
+
+
+def reconcile(
+    plant, measurements, *, eliminate=False, alpha=0.05, start=None
+) -> PlantReconciliation:
     """Reconcile a plant's measurements against its mass and energy balances.
 
     Parameters
@@ -504,6 +540,13 @@ def reconcile(plant, measurements, *, eliminate=False, alpha=0.05) -> PlantRecon
         passes or nothing redundant is left (serial elimination).
     alpha : float
         Significance level of the global and measurement tests.
+    start : PlantReconciliation or mapping of str to float, optional
+        Starting values of the unmeasured variables [SI]: a reconciliation of the
+        same plant (e.g. the neighbouring window of a trend) or model variable name
+        -> value.  Variables it lacks start from the usual initial guess.  Only the
+        path to the solution changes: a start that is not a valid state, or from
+        which the iteration does not converge, is dropped and the usual initial
+        guess used, so failures are those of a call without ``start``.
 
     Returns
     -------
@@ -527,6 +570,18 @@ def reconcile(plant, measurements, *, eliminate=False, alpha=0.05) -> PlantRecon
     balance (a shared calibration): these enter the reconciliation without a balance
     of their own, so the correlation adjusts them consistently.
     """
+    if not hasattr(plant, "tags") or not hasattr(plant, "sections"):
+        raise InputError(
+            "The 'plant' parameter of reconcile must be a Plant (perftest.load_plant). "
+            f"Got {type(plant).__name__}.",
+            parameter="plant",
+        )
+    if not all(hasattr(measurements, a) for a in ("value", "cov", "tags", "index")):
+        raise InputError(
+            "The 'measurements' parameter of reconcile must be Measurements (Run.average()). "
+            f"Got {type(measurements).__name__}.",
+            parameter="measurements",
+        )
     if not 0.0 < alpha < 1.0:
         raise InputError(
             f"The 'alpha' parameter of reconcile must be between 0 and 1. Got {alpha!r}.",
@@ -567,11 +622,15 @@ def reconcile(plant, measurements, *, eliminate=False, alpha=0.05) -> PlantRecon
     extra = tuple(extra)
 
     x0 = values[[measurements.index(t) for t in model.measured]]
-    y0 = initial_guess(model, x0)
-    # The starting point must be a valid state of every stream; this raises a
-    # PropertyRangeError naming the stream otherwise.
-    model.residual(x0, y0)
-    result, tags = _solve(model, extra, measurements, y0)
+    result = _warm_solve(model, extra, measurements, x0, start)
+    if result is None:
+        y0 = initial_guess(model, x0)
+        # The starting point must be a valid state of every stream; this raises a
+        # PropertyRangeError naming the stream otherwise.
+        model.residual(x0, y0)
+        result, tags = _solve(model, extra, measurements, y0)
+    else:
+        result, tags = result
 
     steps = []
     # Serial elimination, the same rule as perftest.balance.serial_elimination: while

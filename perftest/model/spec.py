@@ -201,6 +201,16 @@ def _fail(plant, message: str, *keys) -> PlantFileError:
     return plant.error(message, *keys)
 
 
+def _same_si(a: str, b: str) -> bool:
+    """Two glossary quantities held in the same SI unit (power and heat flow: W)."""
+    from perftest.units import si_unit
+
+    try:
+        return si_unit(a) == si_unit(b)
+    except PerftestError:
+        return True  # a quantity the unit table does not know: not this check's business
+
+
 def _read_source(plant, value, quantity: str, keys, tag_ids: list) -> Source:
     """A tag/group id, the word ``unmeasured``, or a fixed value with unit."""
     if isinstance(value, str):
@@ -212,6 +222,16 @@ def _read_source(plant, value, quantity: str, keys, tag_ids: list) -> Source:
                 f"'{value}' is neither a tag nor a group of this plant. "
                 "Declare it under [tags] or [groups], write a fixed value "
                 '{ value = ..., unit = "..." }, or write "unmeasured".',
+                *keys,
+            )
+        spec = plant.tags.get(value) or plant.groups.get(value)
+        measures = getattr(spec, "quantity", None)
+        if measures and measures != quantity and not _same_si(measures, quantity):
+            raise _fail(
+                plant,
+                f"'{value}' measures {measures.replace('_', ' ')}, but this variable is a "
+                f"{quantity.replace('_', ' ')}. Name a tag of that quantity, or correct the "
+                "tag's unit or quantity.",
                 *keys,
             )
         if value not in tag_ids:

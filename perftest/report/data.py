@@ -84,6 +84,9 @@ class ReportData:
         Significance level of the gross-error tests.
     critical_z : float
         Critical value of the measurement test.
+    audit : dict
+        :meth:`perftest.audit.AuditRecord.to_dict` of the evaluation (empty when
+        built by hand).
     """
 
     title: str = "perftest report"
@@ -113,6 +116,7 @@ class ReportData:
     alpha: float = 0.05
     critical_z: float = 1.959963984540054
     version: str = ""
+    audit: dict = field(default_factory=dict)
 
 
 def _frame(obj, attr: str | None = None) -> pd.DataFrame:
@@ -194,6 +198,8 @@ def collect(
     timings=None,
     notes=(),
     trend_tags=None,
+    options=None,
+    paths=(),
 ) -> ReportData:
     """Gather the tables of one evaluation into a :class:`ReportData`.
 
@@ -219,6 +225,10 @@ def collect(
     trend_tags : sequence of str, optional
         Tags for the stability figure (default: a power, a flow, a temperature and
         a pressure tag).
+    options : mapping, optional
+        Options of the evaluation, recorded in the audit record.
+    paths : sequence of path
+        Input files to fingerprint besides the plant file and the run's own files.
 
     Returns
     -------
@@ -289,6 +299,12 @@ def collect(
 
     from statistics import NormalDist
 
+    from perftest.audit import build_audit
+
+    audit = build_audit(
+        plant, run, window_run, reconciliation, paths=paths, options=options
+    ).to_dict()
+
     return ReportData(
         title=title,
         window=window,
@@ -317,6 +333,7 @@ def collect(
         alpha=alpha,
         critical_z=float(NormalDist().inv_cdf(1.0 - alpha / 2.0)),
         version=__version__,
+        audit=audit,
     )
 
 

@@ -349,20 +349,42 @@ def sections(data: ReportData, *, figures=()) -> list:
     gtab = T.guarantees_table(data)
     if not gtab.empty:
         b.append(Block("h2", "Guarantees"))
-        b.append(
-            Block(
-                "p",
+        statements = [
+            f"{q}: {st}"
+            for q, st in zip(
+                data.guarantees["quantity"],
+                data.guarantees.get("rule_statement", [""] * len(data.guarantees)),
+                strict=True,
+            )
+            if isinstance(st, str) and st
+        ]
+        if not statements:
+            statements = [
                 "A verdict is given only when the corrected value +- U95 lies "
                 "wholly on one side of the guaranteed value; otherwise it is "
-                "inconclusive.",
-            )
-        )
+                "inconclusive."
+            ]
+        b.append(Block("p", "Verdict rule (chosen in the plant file):"))
+        b.append(Block("list", items=statements))
         b.append(_table(gtab, [v != "met" for v in gtab["verdict"]]))
 
     # ---- notes, log, timings
     if data.notes:
         b.append(Block("h2", "Notes"))
         b.append(Block("list", items=list(data.notes)))
+    if data.audit:
+        from perftest.audit import audit_lines
+
+        b.append(Block("h2", "Audit record"))
+        b.append(
+            Block(
+                "p",
+                "What was done to the data and with what: input file fingerprints, "
+                "samples excluded, outliers rejected, instruments dropped, unit "
+                "conversions, options and software versions.",
+            )
+        )
+        b.append(Block("list", items=audit_lines(data.audit)))
     if data.log:
         b.append(Block("h2", "Audit trail"))
         b.append(Block("list", items=list(data.log)))

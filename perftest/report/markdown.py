@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 
 import pandas as pd
@@ -12,8 +13,22 @@ from perftest.report.document import sections
 __all__ = ["render_markdown", "write_markdown", "markdown_table"]
 
 
+# What a Markdown renderer would take as raw HTML or a character reference
+# (CommonMark 0.31, sections 6.6 "Raw HTML" and 2.5 "Entity and numeric character
+# references"): "<" before a letter, "/", "!" or "?", and "&" before a name or number
+# and ";".  Only those are escaped, so "<= 3" or "A & B" stay readable in the file.
+_HTML_START = re.compile(r"<(?=[A-Za-z/!?])")
+_ENTITY = re.compile(r"&(?=#?[A-Za-z0-9]+;)")
+
+
+def _text(text) -> str:
+    """Text taken from inputs made inert: Markdown renderers pass raw HTML through,
+    so a tag named ``<script>`` must reach the file as ``&lt;script>``."""
+    return _HTML_START.sub("&lt;", _ENTITY.sub("&amp;", str(text)))
+
+
 def _cell(text: str) -> str:
-    return str(text).replace("|", "\\|").replace("\n", " ")
+    return _text(text).replace("|", "\\|").replace("\n", " ")
 
 
 def markdown_table(df: pd.DataFrame, flags=None) -> str:
@@ -46,21 +61,22 @@ def render_markdown(data: ReportData, *, figures=(), figure_dir: str = "figures"
     out: list = []
     for blk in sections(data, figures=figures):
         if blk.kind == "h1":
-            out.append(f"# {blk.text}")
+            out.append(f"# {_text(blk.text)}")
         elif blk.kind == "h2":
-            out.append(f"## {blk.text}")
+            out.append(f"## {_text(blk.text)}")
         elif blk.kind == "p":
-            out.append(blk.text)
+            out.append(_text(blk.text))
         elif blk.kind == "caution":
-            out.append(f"> **Caution.** {blk.text}")
+            out.append(f"> **Caution.** {_text(blk.text)}")
         elif blk.kind == "warning":
-            out.append(f"> **Attention:** {blk.text}")
+            out.append(f"> **Attention:** {_text(blk.text)}")
         elif blk.kind == "list":
             out.append("\n".join(f"- {_cell(i)}" for i in blk.items))
         elif blk.kind == "table":
             out.append(markdown_table(blk.table, blk.flags))
         elif blk.kind == "figure":
-            out.append(f"![{blk.text}]({figure_dir}/{blk.figure}.png)\n\n*{blk.text}*")
+            cap = _text(blk.text)
+            out.append(f"![{cap}]({figure_dir}/{blk.figure}.png)\n\n*{cap}*")
     return "\n\n".join(out) + "\n"
 
 

@@ -63,7 +63,10 @@ def summary_json(data: ReportData) -> dict:
     dict
         ``{"plant", "perftest_version", "caution", "window", "global_test",
         "measurements", "results", "guarantees", "eliminated", "excluded_samples",
-        "corrections", "exergy", "notes", "missing_stages", "timings"}``.
+        "corrections", "exergy", "notes", "missing_stages", "timings", "audit"}``.
+        ``audit`` is :meth:`perftest.audit.AuditRecord.to_dict` (masked samples,
+        outliers, eliminated instruments, unit conversions, input file SHA-256,
+        versions, options, ``created`` time stamp).
         ``global_test`` is ``{"chi2", "dof", "p_value", "passed"}`` (nulls when
         the reconciliation did not run); each measurement is ``{"tag", "measured",
         "u_measured", "reconciled", "u_reconciled", "z", "suspect", ...}``; each
@@ -135,6 +138,8 @@ def summary_json(data: ReportData) -> dict:
                 "verdict": str(r.verdict),
                 "unit": _si_unit(data, r.quantity),
                 "display_unit": r.unit,
+                "rule": str(getattr(r, "rule", "guarded")),
+                "rule_statement": str(getattr(r, "rule_statement", "")),
             }
         )
 
@@ -161,6 +166,7 @@ def summary_json(data: ReportData) -> dict:
         "notes": list(data.notes),
         "missing_stages": list(data.missing),
         "timings": dict(data.timings),
+        "audit": dict(data.audit),
     }
     return _jsonable(out)
 

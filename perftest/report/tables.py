@@ -9,6 +9,7 @@ deviations are converted as intervals (no offset, no gauge shift).
 from __future__ import annotations
 
 import math
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -28,6 +29,8 @@ __all__ = [
     "exergy_table",
     "closure_table",
     "timings_table",
+    "spreadsheet_safe",
+    "write_csv",
 ]
 
 # kJ in one International Table Btu (exact; NIST SP 811, Appendix B).
@@ -273,7 +276,8 @@ def budget_table(data: ReportData, name: str, top: int | None = None) -> pd.Data
 def guarantees_table(data: ReportData) -> pd.DataFrame:
     """Guarantee verdicts in the guarantee's own unit.
 
-    Columns ``quantity, corrected_value, U95, guaranteed, unit, direction, verdict``.
+    Columns ``quantity, corrected_value, U95, guaranteed, unit, direction, verdict,
+    rule``.
     """
     g = data.guarantees
     if g.empty:
@@ -304,6 +308,7 @@ def guarantees_table(data: ReportData) -> pd.DataFrame:
                 unit=unit,
                 direction=r.direction.replace("_", " "),
                 verdict=r.verdict,
+                rule=getattr(r, "rule", "guarded"),
             )
         )
     return pd.DataFrame(rows)
@@ -363,3 +368,64 @@ def timings_table(data: ReportData) -> pd.DataFrame:
             "share": t.to_numpy() / total * 100.0 if total > 0 else math.nan,
         }
     )
+
+
+# A cell whose text starts with one of these is read as a formula by spreadsheet
+# programs; tab and carriage return can hide one (common practice, no source).
+_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+
+def _number_text(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
+
+
+def spreadsheet_safe(value):
+    """A cell value that a spreadsheet program shows as text, never runs as a formula.
+
+    Text taken from input files (tag names, descriptions, units, notes) that starts
+    with ``=``, ``+``, ``-``, ``@``, a tab or a carriage return gets a leading single
+    quote.  Numbers, and texts that are plain numbers such as ``-1.5``, stay as they are.
+
+    Parameters
+    ----------
+    value : object
+
+    Returns
+    -------
+    object
+        ``value`` unchanged, or the neutralised text.
+    """
+    if isinstance(value, str) and value.startswith(_FORMULA_START) and not _number_text(value):
+        return "'" + value
+    return value
+
+
+def write_csv(df: pd.DataFrame, path) -> Path:
+    """Write a report table as CSV (UTF-8), text cells made :func:`spreadsheet_safe`.
+
+    Parameters
+    ----------
+    df : DataFrame
+    path : path
+        The file to write; its folder is created.  The caller chooses the name:
+        nothing in the table decides where it goes.
+
+    Returns
+    -------
+    Path
+    """
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    out = df.copy()
+    out.columns = [spreadsheet_safe(str(c)) for c in out.columns]
+    for c in out.columns:
+        if out[c].dtype == object or pd.api.types.is_string_dtype(out[c]):
+            out[c] = out[c].map(spreadsheet_safe)
+    if out.index.dtype == object or pd.api.types.is_string_dtype(out.index):
+        out.index = out.index.map(spreadsheet_safe)
+    out.to_csv(path, encoding="utf-8")
+    return path

@@ -527,7 +527,7 @@ def _toml_value(v) -> str:
     return str(v)
 
 
-def plant_toml(guarantees: dict) -> str:
+def plant_toml(guarantees: dict, balance: dict) -> str:
     """Text of plant.toml."""
     out = [
         "# Brackenfold power station, unit 1: plant description for perftest.",
@@ -701,8 +701,51 @@ def plant_toml(guarantees: dict) -> str:
         'unit = "kJ/kWh"',
         'direction = "at_most"',
         "",
+        "# The verdict rule of the contract: guard bands of U95 on both sides.",
+        "[acceptance]",
+        'rule = "guarded"',
+        "",
     ]
+    out += design_toml(balance)
     return "\n".join(out)
+
+
+# Planned test for the pre-test uncertainty analysis (perftest plan): the steady
+# window is two hours long; the historian logs once a minute, the logger every 5 s.
+PLANNED_DURATION = "2h"
+_INTERVALS = {"historian": "1min", "logger": "5s"}
+
+
+def design_toml(balance: dict) -> list[str]:
+    """The [design] table: design value, expected sample scatter and noise
+    correlation time of every tag, from the design heat balance and the noise the
+    logs are generated with."""
+    out = [
+        "# ---- design point and planned logging, for the pre-test uncertainty analysis",
+        "# value and scatter (standard deviation of single samples) in the tag's unit",
+        "[design]",
+        f"duration = {_toml_value(PLANNED_DURATION)}",
+        f"interval = {_toml_value(_INTERVALS['historian'])}",
+        "",
+        "[design.tags]",
+    ]
+    for tag in TAG_SPECS:
+        where, unit, reads, sigma, tau = INSTRUMENTS[tag]
+        d = _DECIMALS[unit]
+        entry = f"value = {float(round(reads(balance), d))!r}, scatter = {float(sigma)!r}"
+        if where != "historian":
+            entry += f", interval = {_toml_value(_INTERVALS[where])}"
+        entry += f', correlation_time = "{int(tau)}s"'
+        out.append(f'"{tag}" = {{ {entry} }}')
+    out += [
+        "",
+        "# Expanded test uncertainty the contract allows (invented figures).",
+        "[design.allowed]",
+        'corrected_net_power = { value = 0.5, kind = "percent" }',
+        'corrected_heat_rate = { value = 1.0, kind = "percent" }',
+        "",
+    ]
+    return out
 
 
 # --------------------------------------------------------------------------- main
@@ -738,7 +781,7 @@ def main(out: Path = HERE) -> dict:
         "corrected_net_power": round(corrected_net * 0.97 / 1e6, 1),  # MW
         "corrected_heat_rate": round(corrected_hr * 3600.0 * 1.004, 0),  # kJ/kWh
     }
-    (out / "plant.toml").write_text(plant_toml(guarantees), encoding="utf-8")
+    (out / "plant.toml").write_text(plant_toml(guarantees, balance), encoding="utf-8")
 
     truth = {
         "description": "True values of the invented Brackenfold unit 1 test (SI units).",

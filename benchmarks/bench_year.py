@@ -1,0 +1,206 @@
+"""Fleet-scale monitoring speed: a year of one-minute logs in 15-minute windows.
+
+The job: the Brackenfold demo unit logged every minute for ``--days`` days (365 by
+default: 525,600 rows per file), cut into 15-minute windows, each averaged,
+judged for stability, reconciled with serial elimination and evaluated (linear
+propagation) by ``perftest.reconcile_many`` reading the run files a day at a time.
+
+Measured in the same run, printed with the load average beside them:
+
+* windows per second of the local engine (a child process, so that its peak
+  memory is its own);
+* windows per second of the Dask engine on a ``distributed`` LocalCluster of 2
+  worker processes with one thread each, started and warmed (one day computed)
+  before timing; target: Dask / local >= 1.6 on a 2-core machine;
+* peak resident memory of the local engine for a short job (``--days`` / 12) and
+  the full one; target: full / short <= 1.3 (memory does not grow with the length
+  of the logs).
+
+The logs are generated here, vectorised, from the demo's consistent heat balance
+(``sample_data/brackenfold/generate.py``: design point, instruments, noise
+levels), with a daily load cycle of +-4 %, autocorrelated noise and a slow drift of
+the fuel flowmeter FT-201 (+1.5 % over a year) on top; they are written to a
+temporary folder and removed afterwards.  Run:
+``python benchmarks/bench_year.py --days 365`` (a full year takes a while: the
+script prints the measured rate first, so a shorter ``--days`` gives the same
+ratios sooner).
+"""
+
+from __future__ import annotations
+
+import os
+
+# One BLAS thread per process: two worker processes each running a multi-threaded
+# BLAS would oversubscribe the 2 cores and time the load, not the engines.
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+os.environ.setdefault("OMP_NUM_THREADS", "1")
+
+import argparse  # noqa: E402
+import importlib.util  # noqa: E402
+import json  # noqa: E402
+import resource  # noqa: E402
+import shutil  # noqa: E402
+import subprocess  # noqa: E402
+import sys  # noqa: E402
+import tempfile  # noqa: E402
+import time  # noqa: E402
+import warnings  # noqa: E402
+from pathlib import Path  # noqa: E402
+
+import numpy as np  # noqa: E402
+import pandas as pd  # noqa: E402
+
+DEMO = Path(__file__).resolve().parents[1] / "sample_data" / "brackenfold"
+EVERY = "15min"
+RATIO_TARGET = 1.6
+MEMORY_TARGET = 1.3
+DRIFT_TAG, DRIFT_PER_YEAR = "FT-201", 0.015
+
+
+def _generator():
+    spec = importlib.util.spec_from_file_location("brackenfold_generate", DEMO / "generate.py")
+    mod = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mod)
+    return mod
+
+
+def _ar1(rng, n, tau_steps, sigma):
+    """AR(1) noise of standard deviation sigma and correlation time tau (in steps)."""
+    from scipy.signal import lfilter
+
+    phi = np.exp(-1.0 / max(tau_steps, 1e-9))
+    e = rng.standard_normal(n) * sigma * np.sqrt(1.0 - phi**2)
+    return lfilter([1.0], [1.0, -phi], e)
+
+
+def generate(folder: Path, days: int, seed: int = 7) -> list[Path]:
+    """``historian.csv`` and ``logger.csv`` of ``days`` days at one sample a minute."""
+    gen = _generator()
+    balance = gen.solve_heat_balance()
+    rng = np.random.default_rng(seed)
+    n = days * 1440
+    t = pd.date_range(gen.START.normalize(), periods=n, freq="1min")
+    minutes = np.arange(n, dtype=float)
+    load = 1.0 + 0.04 * np.sin(2 * np.pi * minutes / 1440.0) + _ar1(rng, n, 10, 0.0015)
+    frames: dict = {"historian": {}, "logger": {}}
+    units: dict = {"historian": {}, "logger": {}}
+    for tag, (where, unit, reads, sigma, tau) in gen.INSTRUMENTS.items():
+        value = np.full(n, reads(balance), dtype=float)
+        if tag in gen._LOAD_TAGS:
+            value *= load
+        value += _ar1(rng, n, tau / 60.0, sigma)
+        if tag == gen.FAULTY_TAG:
+            value *= gen.FAULTY_FACTOR
+        if tag == DRIFT_TAG:
+            value *= 1.0 + DRIFT_PER_YEAR * minutes / (365 * 1440)
+        frames[where][tag] = value
+        units[where][tag] = unit
+    paths = []
+    for where, cols in frames.items():
+        frame = pd.DataFrame(cols, index=t)
+        path = folder / f"{where}.csv"
+        with open(path, "w", newline="") as f:
+            f.write("Timestamp," + ",".join(frame.columns) + "\n")
+            if where == "historian":  # the historian writes a units row, as in the demo
+                f.write("units," + ",".join(units[where][c] for c in frame.columns) + "\n")
+            frame.to_csv(f, header=False, float_format="%.5f", date_format="%Y-%m-%d %H:%M:%S")
+        paths.append(path)
+    return paths
+
+
+def _job(plant_path, files, **kw):
+    import perftest
+
+    plant = perftest.load_plant(plant_path)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return perftest.reconcile_many(
+            plant, [str(f) for f in files], every=EVERY, eliminate=True, stability=True,
+            progress=False, **kw,
+        )  # fmt: skip
+
+
+def child(args) -> None:
+    """One local job in this process; prints seconds, windows and peak memory [MiB]."""
+    t = time.perf_counter()
+    table = _job(args.plant, args.files)
+    seconds = time.perf_counter() - t
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+    ok = int((table["status"].isin(["ok", "unstable"])).sum())
+    print(json.dumps({"seconds": seconds, "windows": len(table), "ok": ok, "peak_mib": peak}))
+    table.to_parquet(args.table)
+
+
+def _local(plant, files, table_path):
+    cmd = [sys.executable, __file__, "--child", "--plant", str(plant), "--table",
+           str(table_path), "--files", *map(str, files)]  # fmt: skip
+    out = subprocess.run(cmd, capture_output=True, text=True, check=True)
+    return json.loads(out.stdout.strip().splitlines()[-1])
+
+
+def _load() -> str:
+    return "load average " + ", ".join(f"{v:.2f}" for v in os.getloadavg())
+
+
+def main() -> None:
+    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    p.add_argument("--days", type=int, default=365, help="days of logs (default 365)")
+    p.add_argument("--workers", type=int, default=2)
+    p.add_argument("--child", action="store_true", help=argparse.SUPPRESS)
+    p.add_argument("--plant", help=argparse.SUPPRESS)
+    p.add_argument("--table", help=argparse.SUPPRESS)
+    p.add_argument("--files", nargs="*", help=argparse.SUPPRESS)
+    args = p.parse_args()
+    if args.child:
+        child(args)
+        return
+    plant = DEMO / "plant.toml"
+    tmp = Path(tempfile.mkdtemp(prefix="perftest-year-"))
+    try:
+        # the short job also warms the Dask workers: at least a day (chunk) each
+        short_days = max(args.workers, args.days // 12)
+        t = time.perf_counter()
+        (tmp / "full").mkdir()
+        (tmp / "short").mkdir()
+        full = generate(tmp / "full", args.days)
+        short = generate(tmp / "short", short_days)
+        size = sum(f.stat().st_size for f in full) / 2**20
+        print(f"generated {args.days} days of 1-minute logs ({size:.0f} MiB) and "
+              f"{short_days} days in {time.perf_counter() - t:.0f} s")  # fmt: skip
+        print(_load())
+
+        res_short = _local(plant, short, tmp / "short.parquet")
+        res_full = _local(plant, full, tmp / "local.parquet")
+        local_rate = res_full["windows"] / res_full["seconds"]
+        print(f"local engine: {res_full['windows']} windows ({res_full['ok']} reconciled) in "
+              f"{res_full['seconds']:.1f} s = {local_rate:.2f} windows/s  [{_load()}]")  # fmt: skip
+
+        from distributed import Client, LocalCluster
+
+        with LocalCluster(n_workers=args.workers, threads_per_worker=1, processes=True,
+                          dashboard_address=None) as cluster, \
+                Client(cluster) as client:  # fmt: skip
+            # warm-up: every worker imports perftest, builds the model, sets up properties
+            _job(plant, short, engine="dask", scheduler=client)
+            t = time.perf_counter()
+            table = _job(plant, full, engine="dask", scheduler=client)
+            seconds = time.perf_counter() - t
+        dask_rate = len(table) / seconds
+        local = pd.read_parquet(tmp / "local.parquet")
+        same = table.equals(local)
+        ratio = dask_rate / local_rate
+        print(f"dask, {args.workers} warm workers: {len(table)} windows in {seconds:.1f} s = "
+              f"{dask_rate:.2f} windows/s; identical to local: {same}  [{_load()}]")  # fmt: skip
+        verdict = "PASS" if ratio >= RATIO_TARGET else "FAIL"
+        print(f"ratio dask/local {ratio:.2f} (target >= {RATIO_TARGET})  {verdict}")
+        mem = res_full["peak_mib"] / res_short["peak_mib"]
+        verdict = "PASS" if mem <= MEMORY_TARGET else "FAIL"
+        print(f"peak memory, local engine: {short_days} days {res_short['peak_mib']:.0f} MiB, "
+              f"{args.days} days {res_full['peak_mib']:.0f} MiB; ratio {mem:.2f} "
+              f"(target <= {MEMORY_TARGET})  {verdict}")  # fmt: skip
+    finally:
+        shutil.rmtree(tmp, ignore_errors=True)
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,183 @@
+"""Partial results on disk and a progress line for :func:`perftest.reconcile_many`.
+
+:class:`WindowStore` keeps the rows of a long job in a folder of Parquet files, one
+file per finished chunk of windows, written as soon as the chunk is done.  Each
+file name carries the chunk's key: a hash of everything its rows depend on (the
+plant file text, the options, the window bounds and the chunk's input data), so a
+rerun finds the chunks it has already done and skips them, while a chunk whose
+input or options changed gets a new key and is computed again.  Files of keys that
+the finished job no longer uses are removed at the end, so that the folder is then
+one Parquet dataset of exactly the job's rows (``pandas.read_parquet(folder)``).
+
+:class:`Progress` writes one throttled line to stderr: windows done, rate,
+estimated time left and the count of failed windows.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import sys
+import time
+from pathlib import Path
+
+import pandas as pd
+
+from perftest.errors import InputError
+
+__all__ = ["WindowStore", "Progress", "fingerprint"]
+
+_PREFIX = "part-"
+
+
+def fingerprint(*items) -> str:
+    """A sha256 hex digest of JSON-able items (str() for the rest)."""
+    text = json.dumps(items, sort_keys=True, default=str)
+    return hashlib.sha256(text.encode()).hexdigest()
+
+
+class WindowStore:
+    """A folder of Parquet files, one per finished chunk of windows.
+
+    Parameters
+    ----------
+    folder : str or Path
+        Created when missing.  It must hold nothing but this store's files.
+    resume : bool, default True
+        Reuse chunks already in the folder whose key matches; False computes
+        every chunk again (and replaces the files).
+    """
+
+    def __init__(self, folder, resume: bool = True):
+        self.folder = Path(folder)
+        if self.folder.exists() and not self.folder.is_dir():
+            raise InputError(
+                f"The 'store' parameter of reconcile_many must be a folder. {self.folder} is "
+                "a file.",
+                parameter="store",
+            )
+        self.folder.mkdir(parents=True, exist_ok=True)
+        strangers = [
+            p.name
+            for p in self.folder.iterdir()
+            if not (p.name.startswith(_PREFIX) and p.suffix in (".parquet", ".tmp"))
+        ]
+        if strangers:
+            raise InputError(
+                f"The 'store' folder {self.folder} holds files that are not window results "
+                f"({', '.join(sorted(strangers)[:3])}). Give an empty or a new folder.",
+                parameter="store",
+            )
+        self.resume = resume
+        self._existing = {self._key_of(p): p for p in self.folder.glob(f"{_PREFIX}*.parquet")}
+        self.used: dict[str, Path] = {}
+
+    @staticmethod
+    def _key_of(path: Path) -> str:
+        return path.stem.rsplit("-", 1)[-1]
+
+    def path(self, run_number: int, start: pd.Timestamp, key: str) -> Path:
+        stamp = start.tz_convert("UTC").strftime("%Y%m%dT%H%M%SZ")
+        return self.folder / f"{_PREFIX}{run_number:04d}-{stamp}-{key[:20]}.parquet"
+
+    def has(self, key: str) -> bool:
+        return self.resume and key[:20] in self._existing
+
+    def read(self, key: str) -> pd.DataFrame:
+        path = self._existing[key[:20]]
+        self.used[key[:20]] = path
+        return pd.read_parquet(path)
+
+    def write(self, run_number: int, start: pd.Timestamp, key: str, frame: pd.DataFrame) -> None:
+        """Write one chunk's rows (atomically: a killed job leaves no half file)."""
+        path = self.path(run_number, start, key)
+        tmp = path.with_suffix(".tmp")
+        frame.to_parquet(tmp, index=False)
+        os.replace(tmp, path)
+        self.used[key[:20]] = path
+
+    def prune(self) -> list[Path]:
+        """Remove the files of keys this job did not use; returns them."""
+        gone = []
+        for p in self.folder.iterdir():
+            stale = p.suffix == ".tmp" or (
+                p.suffix == ".parquet" and self.used.get(self._key_of(p)) != p
+            )
+            if stale:
+                p.unlink()
+                gone.append(p)
+        return gone
+
+
+class Progress:
+    """A progress line on a stream, at most one update every ``every`` seconds.
+
+    Parameters
+    ----------
+    total : int
+        Windows in the job.
+    enabled : bool or None
+        None: only when the stream is a terminal.
+    stream : file, default sys.stderr
+    every : float, default 0.5
+        Smallest interval between two updates [s].
+    """
+
+    def __init__(self, total: int, enabled=None, stream=None, every: float = 0.5):
+        self.stream = stream if stream is not None else sys.stderr
+        if enabled is None:
+            isatty = getattr(self.stream, "isatty", None)
+            enabled = bool(isatty and isatty())
+        self.enabled = bool(enabled)
+        self.tty = bool(getattr(self.stream, "isatty", lambda: False)())
+        self.total = int(total)
+        self.done = self.reused = self.failed = 0
+        self.every = float(every)
+        self.t0 = time.perf_counter()
+        self._last = -1e9
+        self._width = 0
+
+    def add(self, rows: int, failed: int = 0, reused: bool = False) -> None:
+        self.done += rows
+        self.failed += failed
+        if reused:
+            self.reused += rows
+        now = time.perf_counter()
+        if now - self._last >= self.every:
+            self._last = now
+            self._show(final=False)
+
+    def close(self) -> None:
+        self._show(final=True)
+
+    def _show(self, final: bool) -> None:
+        if not self.enabled:
+            return
+        elapsed = time.perf_counter() - self.t0
+        fresh = self.done - self.reused
+        rate = fresh / elapsed if elapsed > 0 else 0.0
+        left = self.total - self.done
+        eta = f"{_clock(left / rate)} left" if rate > 0 and left > 0 else ""
+        pct = 100.0 * self.done / self.total if self.total else 100.0
+        text = (
+            f"windows {self.done}/{self.total} ({pct:.0f} %), {rate:.1f}/s"
+            + (f", {self.reused} from earlier run" if self.reused else "")
+            + (f", {self.failed} failed" if self.failed else "")
+            + (f", {eta}" if eta else "")
+            + (f", {_clock(elapsed)} elapsed" if final else "")
+        )
+        if self.tty:
+            pad = max(0, self._width - len(text))
+            self.stream.write("\r" + text + " " * pad + ("\n" if final else ""))
+            self._width = len(text)
+        else:
+            self.stream.write(text + "\n")
+        self.stream.flush()
+
+
+def _clock(seconds: float) -> str:
+    seconds = int(round(seconds))
+    h, rest = divmod(seconds, 3600)
+    m, s = divmod(rest, 60)
+    return f"{h}:{m:02d}:{s:02d}" if h else f"{m}:{s:02d}"

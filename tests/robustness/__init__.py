@@ -1,0 +1,1 @@
+"""Robustness suite: bad input per layer, property-based tests, safety, reproducibility."""
