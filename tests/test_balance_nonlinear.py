@@ -236,3 +236,116 @@ def test_bilinear_far_start(y0):
     np.testing.assert_allclose(r.y, ref.y, rtol=1e-8)
     # The energy balance fixes h2 = (m0 h0 + m1 h1) / m2 at the solution.
     assert r.y[1] == pytest.approx((r.x[0] * r.x[2] + r.x[1] * r.x[3]) / r.y[0], rel=1e-9)
+
+
+# --------------------------------------------------------------------------- decoupled
+# A condenser hotwell in miniature: x = (m1, m2, h_in, Q, T, h_out) measured;
+# y = (h, p, W) unmeasured.  Rows: mass m1 = m2; energy m2 (h_in - h) = Q; a
+# compressed-liquid state h = cp (T - 273.15) + v (p - p_sat(T)), defined only above
+# saturation (a ValueError below, as the property layer refuses a liquid state
+# there); a pump-like row W = m2 (h_out - h).  The pressure enters the state row
+# alone, through the small slope v = dh/dp: with p unmeasured it is free in that
+# row, which then says nothing about the rest.  cp, v and the Magnus formula for
+# p_sat are round textbook values for water near 40 degC (from memory); the test
+# needs only their shape.
+_CP, _V = 4180.0, 1.0e-3
+
+
+def _p_sat(T):
+    t = T - 273.15
+    return 611.2 * np.exp(17.62 * t / (t + 243.12))
+
+
+def _hotwell(x, y, *, domain=True):
+    m1, m2, h_in, Q, T, h_out = x
+    h, p, W = y
+    if domain and not p > _p_sat(T):
+        raise ValueError("liquid state below saturation")
+    return np.array(
+        [
+            m1 - m2,
+            (m2 * (h_in - h) - Q) / 1e6,
+            (h - _CP * (T - 273.15) - _V * (p - _p_sat(T))) / 1e3,
+            (W - m2 * (h_out - h)) / 1e6,
+        ]
+    )
+
+
+# The energy balance puts h some 30 kJ/kg below the liquid at T: the row closes only
+# at p = p_sat - 3e7 Pa, outside the domain.
+X_HW = np.array([30.0, 30.6, 2.30e6, 6.58e7, 311.15, 1.68e5])
+U_HW = np.array([0.3, 0.3, 2.0e4, 6.0e5, 0.15, 1.0e3])
+Y0_HW = np.array([1.59e5, 1.0e4, 3.0e5])
+
+
+def test_pressure_free_in_its_row_with_no_root_is_unobservable():
+    """The iteration stalled at the saturation boundary: the exact step in p was
+    ~3e7 Pa, against a trust region of ~5e4 Pa, and every step towards it left the
+    liquid domain (ConvergenceError after 50 iterations, residual norm ~1e-14).
+    Now the state row and p are set aside, the rest is reconciled, and p is
+    reported not observable."""
+    cov = np.diag(U_HW**2)
+    r = reconcile_nonlinear(_hotwell, X_HW, cov, y0=Y0_HW)
+    assert r.converged
+    np.testing.assert_array_equal(r.observable, [True, False, True])
+    assert np.isnan(r.y[1]) and np.isnan(r.y_u[1])
+    assert np.isnan(r.y_cov[1]).all() and np.isnan(r.xy_cov[:, 1]).all()
+    # The other rows close at the estimates (mass, energy, pump row), to rounding.
+    h, W = r.y[0], r.y[2]
+    closed = _hotwell(r.x, [h, 1e30, W], domain=False)[[0, 1, 3]]
+    assert np.max(np.abs(closed)) < 1e-9
+    assert r.residual_norm < 1e-9
+
+    # Closed form (p free, so only m1 = m2 is redundant): m1 = m2 = their mean,
+    # chi2 = (m1 - m2)^2 / (2 u^2) = 2, dof 1; h_in, Q, T, h_out not adjusted.
+    m = X_HW[:2].mean()
+    np.testing.assert_allclose(r.x, [m, m, *X_HW[2:]], rtol=1e-12)
+    assert r.chi2 == pytest.approx(2.0, rel=1e-9)
+    assert r.dof == 1
+    assert h == pytest.approx(X_HW[2] - X_HW[3] / m, rel=1e-10)
+
+    # Independent solution: SLSQP on the same rows and weights with the state row
+    # continued below saturation (no domain check) and p free; variables scaled to
+    # O(1) (x = xm + u a, y = y0 + s b; SLSQP is not scale invariant).
+    s = np.array([1e4, 1e7, 1e5])
+
+    def split(z):
+        return X_HW + U_HW * z[:6], Y0_HW + s * z[6:]
+
+    opt = slsqp(
+        lambda z: 0.5 * float(z[:6] @ z[:6]),
+        np.zeros(9),
+        lambda z: _hotwell(*split(z), domain=False),
+    )
+    x_s, y_s = split(opt.x)
+    # SLSQP stops when the objective (1.0 here) changes by less than ftol = 1e-15;
+    # the objective is quadratic in the distance, so x is good to ~sqrt(1e-15) u,
+    # ~3e-8 u; 1e-6 u leaves room for the constraint tolerance.
+    assert np.max(np.abs(x_s - r.x) / U_HW) < 1e-6
+    assert abs(y_s[0] - h) < 1e-6 * r.y_u[0]
+    assert abs(y_s[2] - W) < 1e-6 * r.y_u[2]
+    # ... and its p lies below saturation: the row has no root in the domain.
+    assert y_s[1] < _p_sat(X_HW[4]) - 1e7
+
+    # Uncertainty of W = m2 (h_out - h) = m (h_out - h_in) + Q from its row, by
+    # linear propagation in closed form: var(m) = u_m^2 / 2.
+    var_W = (
+        (X_HW[5] - X_HW[2]) ** 2 * U_HW[0] ** 2 / 2
+        + m**2 * (U_HW[5] ** 2 + U_HW[2] ** 2)
+        + U_HW[3] ** 2
+    )
+    # rounding only (the propagation is exact for this row, linear in h and W)
+    assert r.y_u[2] == pytest.approx(np.sqrt(var_W), rel=1e-8)
+    assert r.y_cov[2, 2] == pytest.approx(var_W, rel=1e-8)
+    # Its covariances with the other estimates, by the same closed form: W and h are
+    # linear in (m, h_in, Q, h_out) with gradients (h_out - h_in, -m, 1, m) and
+    # (Q / m^2, 1, -1 / m, 0); cov(m1, m2) = var(m) since both are the mean.
+    var_m = U_HW[0] ** 2 / 2
+    h_in, Q, h_out = X_HW[2], X_HW[3], X_HW[5]
+    cov_Wx = [(h_out - h_in) * var_m] * 2 + [-m * U_HW[2] ** 2, U_HW[3] ** 2, 0.0]
+    cov_Wx += [m * U_HW[5] ** 2]
+    cov_Wh = (h_out - h_in) * Q / m**2 * var_m - m * U_HW[2] ** 2 - U_HW[3] ** 2 / m
+    # (the T entry is exactly 0; atol covers its rounding, ~1e-16 of var_W)
+    np.testing.assert_allclose(r.xy_cov[:, 2], cov_Wx, rtol=1e-8, atol=1e-12 * var_W)
+    assert r.y_cov[0, 2] == pytest.approx(cov_Wh, rel=1e-8)
+    assert r.y_cov[2, 0] == r.y_cov[0, 2]

@@ -603,3 +603,150 @@ def test_zero_uncertainty_is_refused(tmp_path):
         warnings.simplefilter("ignore", ReconciliationWarning)
         with pytest.raises(InputError, match="'FT-1' has a zero uncertainty"):
             perftest.reconcile(plant, meas)
+
+
+# --------------------------------------------------------------------------- demo re-draw
+@pytest.fixture(scope="module")
+def demo_averages():
+    """The demo plant and its averaged measurements, as benchmarks/bench_soak.py has them."""
+    from perftest.demo import DEFAULT_OUTLIER_ALPHA, DEFAULT_WINDOW, data_dir
+
+    folder = data_dir()
+    plant = perftest.load_plant(folder / "plant.toml")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        run = perftest.read_run([folder / "historian.csv", folder / "logger.csv"], plant)
+        m0 = (
+            run.steadiest_window(DEFAULT_WINDOW)
+            .screen_outliers(alpha=DEFAULT_OUTLIER_ALPHA)
+            .average()
+        )
+    return plant, m0
+
+
+def test_demo_redraw_liquid_pressure_left_unobservable_by_elimination(demo_averages):
+    """Draw 140 of benchmarks/bench_soak.py (seed 20260514): the demo's averages
+    re-drawn within their own covariance.  Serial elimination drops FT-171, then
+    PT-151; the condensate pressure is then known only through the liquid's small
+    (dh/dp)_T in its state row, and the balances put the enthalpy some 70 kJ/kg
+    below the liquid at the measured temperature, i.e. the pressure ~7e7 Pa below
+    saturation.  The solver crept to the saturation boundary and stopped with a
+    ConvergenceError; now the pressure is reported not observable and the rest is
+    reconciled."""
+    from dataclasses import replace
+
+    plant, m0 = demo_averages
+    value0 = np.array(m0.value, dtype=float)
+    ok = np.isfinite(value0)
+    L = np.zeros((value0.size, value0.size))
+    L[np.ix_(ok, ok)] = np.linalg.cholesky(np.asarray(m0.cov, dtype=float)[np.ix_(ok, ok)])
+    rng = np.random.default_rng(20260514)
+    for _ in range(140):  # the benchmark's draws 1 ... 140
+        value = value0 + L @ rng.standard_normal(value0.size)
+    meas = replace(m0, value=value)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ReconciliationWarning)
+        rec = perftest.reconcile(plant, meas, eliminate=True)
+    # the case of the failure: this elimination sequence
+    assert [e.tag for e in rec.eliminated] == ["FT-171", "PT-151"]
+    assert rec.result.converged and rec.global_test["passed"]
+    unmeasured = rec.unmeasured.set_index("name")
+    assert not unmeasured.loc["condensate.pressure", "observable"]
+    assert np.isnan(rec.value("condensate.pressure"))
+    others = unmeasured.drop(index="condensate.pressure")
+    assert others["observable"].all() and np.isfinite(others[["value", "u"]].to_numpy()).all()
+
+    # Balances recomputed from the reconciled values (not the solver's residuals).
+    # The solver stops with every row below 1e-8 of its standard deviation (some
+    # 0.1 kg/s and 1e5-1e6 W here), i.e. ~1e-9 kg/s and ~1e-2 W: bounds 1e-7 kg/s and
+    # 1e-8 of the energy throughput (~1 W) are loose.
+    closure = rec.closure()
+    assert np.nanmax(np.abs(closure["mass_imbalance"])) < 1e-7
+    assert (np.abs(closure["energy_imbalance"]) < 1e-8 * closure["energy_throughput"]).all()
+
+    # Independent solution: SLSQP on the model's residuals and the same weights, with
+    # the condensate pressure free.  It enters the condensate state row alone, so
+    # that row only defines it: SLSQP minimises over the other variables under the
+    # other rows (the pressure held at its measured value, which no row kept uses).
+    model = rec.model
+    rows = [i for i, row in enumerate(model.rows) if row.name != "condensate:state"]
+    assert len(rows) == len(model.rows) - 1
+    jp = model.unmeasured.index("condensate.pressure")
+    keep = np.array([j for j in range(model.n_y) if j != jp])
+    tags = rec.solver_tags
+    idx = [meas.index(t) for t in tags]
+    xm = np.asarray(meas.value, dtype=float)[idx]
+    Lw = np.linalg.cholesky(np.asarray(meas.cov, dtype=float)[np.ix_(idx, idx)])
+    n, nm = xm.size, model.n_x
+    y_start = initial_guess(model, xm[:nm])
+    y_start[jp] = meas["PT-151"].value
+    ys = np.maximum(np.abs(y_start[keep]), 1.0)
+
+    # Variables scaled to O(1): x = xm + Lw a (a whitened), y = ys b.
+    def split(z):
+        y = y_start.copy()
+        y[keep] = ys * z[n:]
+        return xm + Lw @ z[:n], y
+
+    def constraint(z):
+        x, y = split(z)
+        return model.residual(x[:nm], y)[rows]
+
+    def constraint_jac(z):
+        x, y = split(z)
+        Jx, Jy = model.jacobian(x[:nm], y)
+        Jx = np.hstack([Jx.toarray(), np.zeros((Jx.shape[0], n - nm))])
+        return np.hstack([Jx[rows] @ Lw, Jy.toarray()[rows][:, keep] * ys])
+
+    sol = scipy.optimize.minimize(
+        lambda z: 0.5 * float(z[:n] @ z[:n]),
+        np.concatenate([np.zeros(n), y_start[keep] / ys]),
+        jac=lambda z: np.concatenate([z[:n], np.zeros(z.size - n)]),
+        constraints=[{"type": "eq", "fun": constraint, "jac": constraint_jac}],
+        method="SLSQP",
+        options={"ftol": 1e-10, "maxiter": 200},
+    )
+    assert sol.success, sol.message
+    x_s, y_s = split(sol.x)
+    # As in test_cycle_agrees_with_scipy_slsqp: SLSQP stops when the objective
+    # changes by less than ftol = 1e-10, and the objective is quadratic in the
+    # distance (in units of u), so its x can be off by up to ~sqrt(1e-10) = 1e-5 u.
+    u = np.sqrt(np.diag(np.asarray(meas.cov, dtype=float)[np.ix_(idx, idx)]))
+    assert np.max(np.abs(x_s - rec.result.x) / u) < 1e-5
+    y_rec, y_u = rec.result.y[keep], rec.result.y_u[keep]
+    assert np.max(np.abs(y_s[keep] - y_rec) / y_u) < 1e-5
+    # chi2 is twice the objective at the optimum, where the objective is stationary
+    # along the constraints: an x off by 1e-5 u moves it by ~1e-10, plus SLSQP's
+    # constraint violation times the multipliers (both O(1e-9) at most); 1e-8 absolute.
+    assert 2 * sol.fun == pytest.approx(rec.global_test["chi2"], abs=1e-8)
+
+
+def test_demo_elimination_after_an_unobservable_pressure(demo_averages):
+    """Serial elimination restarting from a solution with a nan (unobservable) entry.
+
+    The demo's averages without FT-171 and PT-151 (nan: unmeasured) leave the
+    condensate pressure not observable; a -8 u gross error on the main steam flow
+    FT-101 then fails the global test, and the next reconciliation started from the
+    previous solution, nan included (InputError: 'y0' must hold finite numbers).
+    """
+    from dataclasses import replace
+
+    plant, m0 = demo_averages
+    value = np.array(m0.value, dtype=float)
+    for tag in ("FT-171", "PT-151"):
+        value[m0.index(tag)] = np.nan
+    i = m0.index("FT-101")
+    value[i] -= 8.0 * m0.u[i]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ReconciliationWarning)
+        rec = perftest.reconcile(plant, replace(m0, value=value), eliminate=True)
+    assert [e.tag for e in rec.eliminated] == ["FT-101"]
+    assert rec.result.converged and rec.global_test["passed"]
+    assert np.isnan(rec.value("condensate.pressure"))
+    # The balances' estimate of the main steam flow is back near the value measured
+    # before the gross error was added: within 3 standard uncertainties of the
+    # difference (estimate and measurement are independent once FT-101 is dropped).
+    row = rec.to_frame().set_index("tag").loc["FT-101"]
+    assert row["eliminated"]
+    measured = float(m0.value[i])
+    assert abs(row["reconciled"] - measured) < 3 * np.hypot(row["u_reconciled"], m0.u[i])

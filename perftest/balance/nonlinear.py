@@ -186,8 +186,20 @@ def reconcile_nonlinear(
     :math:`\\|W f\\|^2` alone with stiff measured values (restoration; also used when
     the linearised constraints contradict each other); (3) the exact step cut to the
     trust region, with backtracking.  If none lowers the merit function the
-    iteration has stalled and a :class:`ConvergenceError` is raised.  Every
-    Jacobian evaluation counts as one iteration.  The chi-square statistic is the
+    iteration has stalled.  A stalled (or ``max_iter``-long) iteration is retried
+    once without the unmeasured variables that enter a single row each (Jacobian
+    pattern at the start and at the last iterate): such a variable is free in its
+    row, so the row constrains nothing else, and setting both aside changes no
+    other estimate, nor ``chi2`` or ``dof``.  This is the case of a liquid's
+    pressure known only through the small :math:`(\\partial h/\\partial p)_T`, whose
+    exact step is many times its size and whose estimate may lie outside the
+    model's domain (below saturation), where the iteration stalls.  The reduced
+    problem starts again from ``y0`` with its own ``max_iter``; each variable set
+    aside is then solved from its own row (Newton, halving), with its covariance
+    propagated through that row, and is reported not observable (``nan``) when
+    the row has no root inside the model's domain.  If the reduced problem does
+    not converge either, a :class:`ConvergenceError` is raised.  Every Jacobian
+    evaluation counts as one iteration.  The chi-square statistic is the
     objective at the solution and its degrees of freedom the rank of the projected
     Jacobian [2]_.
 
@@ -295,6 +307,7 @@ def reconcile_nonlinear(
                 return 0.5 * float(d @ d)
 
     xk = xm.copy()
+    y_start = y.copy()
     fk = f
     mu = 0.0
     row_scale = None
@@ -422,7 +435,7 @@ def reconcile_nonlinear(
         xk, y, fk = xt, yt, ft
     if not converged:
         norm = float(np.linalg.norm(fk))
-        raise ConvergenceError(
+        error = ConvergenceError(
             f"reconcile_nonlinear did not converge in {it} iterations (max_iter = "
             f"{max_iter}); the constraint residual norm is {norm:.3g}. Check the model "
             f"and the starting values 'y0', or raise 'max_iter'.",
@@ -431,6 +444,13 @@ def reconcile_nonlinear(
             iterations=it,
             parameter="residual",
         )
+        if k and row_scale is not None and not isinstance(residual, _Reduced):
+            out = _solve_decoupled(
+                residual, jac, xm, cov, y_start, xk, y, m, row_scale, y_scale, tol, max_iter, it
+            )
+            if out is not None:
+                return out
+        raise error
     # Statistics from the final linearisation (at the solution).  The step of the
     # last solve is below tolerance, so its x, y are the solution.
     core.y = y + core.y
@@ -596,3 +616,212 @@ def _obj_grad(xk, xm, S, sdiag, is_diag, chol):
     import scipy.linalg
 
     return scipy.linalg.cho_solve((chol, True), d, check_finite=False)
+
+
+# ------------------------------------------------------------ decoupled unmeasured
+# An unmeasured variable that enters a single constraint row is free in that row: the
+# row constrains nothing else and only defines that variable (a power or heat that
+# closes one unit's energy balance, the pressure of a liquid whose temperature is
+# measured, known through the small (dh/dp)_T alone).  When the iteration stalls,
+# such variables are set aside with their rows, the rest is reconciled alone (the
+# same estimates, chi2 and dof: the rows set aside constrain nothing else), and each
+# variable is then solved from its own row.  A row with no root inside the model's
+# domain (a liquid pressure whose estimate would lie below saturation or be negative)
+# leaves its variable not observable (nan), as the linear engine reports a variable
+# the balances do not determine.
+
+
+class _Reduced:
+    """Residual and Jacobian of the rows kept when decoupled unmeasured variables are set aside.
+
+    ``rows`` are the rows kept and ``keep`` the unmeasured variables kept; the others
+    enter none of the kept rows, so their values do not change them.  They are held
+    at the first vector of ``fills`` at which the full model can be evaluated (their
+    own rows may be outside the model's domain at some of them).
+    """
+
+    def __init__(self, residual, jac, rows, keep, fills):
+        self.residual = residual
+        self.jac = jac
+        self.rows = rows
+        self.keep = keep
+        self.fills = fills
+
+    def _call(self, fn, x, y):
+        error = None
+        for fill in self.fills:
+            v = fill.copy()
+            v[self.keep] = y
+            try:
+                return fn(x, v)
+            except (ArithmeticError, ValueError) as exc:
+                error = exc
+        raise error
+
+    def __call__(self, x, y):
+        f = self._call(lambda xx, v: np.asarray(self.residual(xx, v), dtype=float), x, y)
+        return f[self.rows]
+
+    def jacobian(self, x, y):
+        Jx, Jy = self._call(self.jac, x, y)
+        return Jx[self.rows], Jy[self.rows][:, self.keep]
+
+
+def _dense_row(J, r):
+    if sp.issparse(J):
+        return np.asarray(sp.csr_matrix(J)[r].toarray(), dtype=float).ravel()
+    return np.array(J[r], dtype=float)
+
+
+def _solve_decoupled(
+    residual, jac, xm, cov, y_start, x_last, y_last, m, row_scale, y_scale, tol, max_iter, it
+):
+    """Reconcile with the single-row unmeasured variables set aside, then solve their rows.
+
+    Returns the :class:`Reconciliation` of the whole problem, or None when there is
+    nothing to set aside or the reduced problem does not converge either (the caller
+    then raises its ConvergenceError).  The reduced problem starts from ``y_start``
+    and has its own ``max_iter`` linearisations.
+    """
+    import dataclasses
+
+    from perftest.errors import PerftestError
+
+    k = y_start.size
+    try:
+        # The sparsity of Jy at two points (start and last iterate), so that a
+        # derivative that happens to vanish at one of them is not taken for a gap.
+        pattern = None
+        for xx, yy in ((xm, y_start), (x_last, y_last)):
+            Jy = abs(sp.csc_matrix(jac(xx, yy)[1]))
+            pattern = Jy if pattern is None else pattern + Jy
+    except (ArithmeticError, ValueError):
+        return None
+    pattern = sp.csc_matrix(pattern)
+    pattern.eliminate_zeros()
+    decoupled = np.flatnonzero(np.diff(pattern.indptr) == 1)
+    if decoupled.size == 0:
+        return None
+    row_of = pattern.indices[pattern.indptr[decoupled]]
+    rows = np.setdiff1d(np.arange(m), row_of)
+    keep = np.setdiff1d(np.arange(k), decoupled)
+    if rows.size == 0:
+        return None
+    red = _Reduced(residual, jac, rows, keep, (y_start, y_last))
+    try:
+        inner = reconcile_nonlinear(
+            red, xm, cov, y0=y_start[keep], jacobian=red.jacobian, tol=tol,
+            max_iter=max_iter, y_scale=y_scale[keep],
+        )  # fmt: skip
+    except PerftestError:
+        return None
+
+    # Each decoupled variable from its own row.  It is not determined when it shares
+    # the row with another decoupled variable or with an unobservable one.
+    obs_keep = np.asarray(inner.observable, dtype=bool)
+    unobs = np.zeros(k, dtype=bool)
+    unobs[keep[~obs_keep]] = True
+    by_row = pattern.tocsr()
+    shared = np.bincount(row_of, minlength=m)[row_of] > 1
+    y_full = y_start.copy()
+    y_full[keep] = np.where(obs_keep, inner.y, y_start[keep])
+    x_hat = np.asarray(inner.x, dtype=float)
+    found = np.zeros(decoupled.size, dtype=bool)
+    grads = []
+    for i, (j, r) in enumerate(zip(decoupled, row_of, strict=True)):
+        cols = by_row.indices[by_row.indptr[r] : by_row.indptr[r + 1]]
+        if shared[i] or unobs[cols].any():
+            continue
+        out = None
+        for t0 in (y_start[j], y_last[j]):
+            y_full[j] = t0
+            out = _root_in_row(residual, jac, x_hat, y_full, j, r, m, row_scale[r], tol, max_iter)
+            if out is not None:
+                break
+        if out is None:
+            y_full[j] = y_start[j]
+            continue
+        y_full[j], jx, jy = out
+        found[i] = True
+        grads.append((-jx / jy[j], -jy[keep] / jy[j]))
+    F = decoupled[found]
+    n = x_hat.size
+    Gx = np.array([g[0] for g in grads]).reshape(F.size, n)
+    Gy = np.array([g[1] for g in grads]).reshape(F.size, keep.size)
+
+    # Covariances by first-order propagation through the rows (implicit function):
+    # dy_j = -(J_x dx + J_y,keep dy_keep) / (dr / dy_j).
+    x_cov = np.asarray(inner.x_cov, dtype=float)
+    yk = np.asarray(inner.y_cov, dtype=float)
+    xyk = np.asarray(inner.xy_cov, dtype=float)
+    Yc, XYc = np.nan_to_num(yk), np.nan_to_num(xyk)  # Gy is 0 on unobservable columns
+    cFx = Gx @ x_cov + Gy @ XYc.T
+    cFk = Gx @ XYc + Gy @ Yc
+    cFF = cFx @ Gx.T + cFk @ Gy.T
+    y_cov = np.full((k, k), np.nan)
+    y_cov[np.ix_(keep, keep)] = yk
+    y_cov[np.ix_(F, keep)] = cFk
+    y_cov[np.ix_(keep, F)] = cFk.T
+    y_cov[np.ix_(F, F)] = cFF
+    y_cov[unobs, :] = np.nan
+    y_cov[:, unobs] = np.nan
+    xy_cov = np.full((n, k), np.nan)
+    xy_cov[:, keep] = xyk
+    xy_cov[:, F] = cFx.T
+    covs = (x_cov, y_cov, xy_cov)
+
+    y = np.full(k, np.nan)
+    y[keep] = inner.y
+    y[F] = y_full[F]
+    observable = np.zeros(k, dtype=bool)
+    observable[keep] = obs_keep
+    observable[F] = True
+    y_u = np.full(k, np.nan)
+    y_u[keep] = inner.y_u
+    y_u[F] = np.sqrt(np.maximum(np.diag(cFF), 0.0))
+    # Residual norm over every row but those of the variables left undetermined.
+    closed = np.setdiff1d(np.arange(m), row_of[~found])
+    f_final = _evaluate(residual, x_hat.copy(), y_full.copy(), m)
+    norm = inner.residual_norm if f_final is None else float(np.linalg.norm(f_final[closed]))
+    return dataclasses.replace(
+        inner,
+        y=y,
+        observable=observable,
+        y_u=y_u,
+        iterations=it + inner.iterations,
+        residual_norm=norm,
+        covariance_source=lambda: covs,
+    )
+
+
+def _root_in_row(residual, jac, x, y, j, r, m, row_scale, tol, max_iter):
+    """Newton iteration on row ``r`` for ``y[j]`` alone, halving steps that do not lower |f_r|.
+
+    Returns ``(y_j, Jx[r], Jy[r])`` at the root (row below ``tol`` standard
+    deviations), or None when no root is reached inside the model's domain.
+    """
+    y = y.copy()
+    f = _evaluate(residual, x.copy(), y.copy(), m)
+    if f is None:
+        return None
+    for _ in range(max_iter):
+        try:
+            Jx, Jy = jac(x, y)
+        except (ArithmeticError, ValueError):
+            return None
+        jx, jy = _dense_row(Jx, r), _dense_row(Jy, r)
+        if abs(f[r]) * row_scale <= tol:
+            return float(y[j]), jx, jy
+        if not (np.isfinite(jy[j]) and jy[j] != 0.0):
+            return None
+        step = -f[r] / jy[j]
+        for alpha in _halvings():
+            yt = y.copy()
+            yt[j] += alpha * step
+            ft = _evaluate(residual, x.copy(), yt.copy(), m)
+            if ft is not None and abs(ft[r]) < abs(f[r]):
+                y, f = yt, ft
+                break
+        else:
+            return None
+    return None

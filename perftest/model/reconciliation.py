@@ -651,10 +651,16 @@ def reconcile(
         )
         previous = model.slot_values(result.x[: model.n_x], result.y)
         model = model.bind([t for t in model.measured if t != tag])
+        y_next = previous[model._ys]
+        if not np.all(np.isfinite(y_next)):
+            # a variable the previous step left unobservable (nan) starts from the
+            # usual initial guess
+            x_next = values[[measurements.index(t) for t in model.measured]]
+            y_next = np.where(np.isfinite(y_next), y_next, initial_guess(model, x_next))
         with warnings.catch_warnings():
             # dof reaching 0 is an expected end of elimination, not news
             warnings.simplefilter("ignore", ReconciliationWarning)
-            result, tags = _solve(model, extra, measurements, previous[model._ys])
+            result, tags = _solve(model, extra, measurements, y_next)
 
     dead, dead_src, T0_tag = _dead_state(plant, measurements)
     rec = PlantReconciliation(
