@@ -138,6 +138,25 @@ def _local(plant, files, table_path):
     return json.loads(out.stdout.strip().splitlines()[-1])
 
 
+def _compare(table: pd.DataFrame, local: pd.DataFrame) -> str:
+    """ "True", or which columns differ and by how much (relative, for numbers)."""
+    if list(table.columns) != list(local.columns) or len(table) != len(local):
+        return "False (columns or rows differ)"
+    out = []
+    for col in local.columns:
+        a, b = local[col], table[col]
+        if a.dtype.kind == "f" and b.dtype.kind == "f":
+            x, y = a.to_numpy(), b.to_numpy()
+            bad = ~((x == y) | (np.isnan(x) & np.isnan(y)))
+            if bad.any():
+                rel = np.nanmax(np.abs(x[bad] - y[bad]) / np.abs(x[bad]))
+                out.append(f"{col}: {int(bad.sum())} rows, max rel. diff {rel:.1e}")
+        elif list(a.astype(str)) != list(b.astype(str)):
+            n = int((a.astype(str).to_numpy() != b.astype(str).to_numpy()).sum())
+            out.append(f"{col}: {n} rows")
+    return "True" if not out else "False (" + "; ".join(out) + ")"
+
+
 def _load() -> str:
     return "load average " + ", ".join(f"{v:.2f}" for v in os.getloadavg())
 
@@ -187,7 +206,7 @@ def main() -> None:
             seconds = time.perf_counter() - t
         dask_rate = len(table) / seconds
         local = pd.read_parquet(tmp / "local.parquet")
-        same = table.equals(local)
+        same = _compare(table, local)
         ratio = dask_rate / local_rate
         print(f"dask, {args.workers} warm workers: {len(table)} windows in {seconds:.1f} s = "
               f"{dask_rate:.2f} windows/s; identical to local: {same}  [{_load()}]")  # fmt: skip
