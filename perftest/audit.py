@@ -88,13 +88,17 @@ class MaskedSamples:
 
 @dataclass(frozen=True)
 class DroppedInstrument:
-    """One serial-elimination step: the tag dropped and the test that dropped it."""
+    """One serial-elimination step: the tag dropped and the test that dropped it.
+
+    ``tied_with`` lists the tags the measurement test could not tell from it.
+    """
 
     tag: str
     z: float
     chi2: float
     dof: int
     p_value: float
+    tied_with: tuple = ()
 
 
 @dataclass(frozen=True)
@@ -187,7 +191,14 @@ class AuditRecord:
             ],
             "outliers_rejected": dict(self.outliers),
             "eliminated": [
-                {"tag": e.tag, "z": e.z, "chi2": e.chi2, "dof": e.dof, "p_value": e.p_value}
+                {
+                    "tag": e.tag,
+                    "z": e.z,
+                    "chi2": e.chi2,
+                    "dof": e.dof,
+                    "p_value": e.p_value,
+                    "indistinguishable_from": list(e.tied_with),
+                }
                 for e in self.eliminated
             ],
             "unit_conversions": [
@@ -248,6 +259,11 @@ def audit_lines(audit: Mapping) -> list[str]:
         out.append(
             f"Dropped by serial elimination, step {k}: {e['tag']} (|z| = {abs(e['z']):.3g}; "
             f"before the step chi2 = {e['chi2']:.4g}, dof = {e['dof']}, p = {e['p_value']:.3g})"
+            + (
+                "; indistinguishable by the test from " + ", ".join(e["indistinguishable_from"])
+                if e.get("indistinguishable_from")
+                else ""
+            )
         )
     if not steps:
         out.append("Instruments dropped by serial elimination: none")
@@ -436,7 +452,14 @@ def build_audit(
     if created is None:
         created = datetime.now(UTC).replace(microsecond=0).isoformat()
     eliminated = tuple(
-        DroppedInstrument(str(e.tag), float(e.z), float(e.chi2), int(e.dof), float(e.p_value))
+        DroppedInstrument(
+            str(e.tag),
+            float(e.z),
+            float(e.chi2),
+            int(e.dof),
+            float(e.p_value),
+            tuple(str(t) for t in getattr(e, "tied_with", ())),
+        )
         for e in getattr(reconciliation, "eliminated", ())
     )
     return AuditRecord(

@@ -13,6 +13,7 @@ Outside checks used here:
 
 from __future__ import annotations
 
+import math
 import re
 import warnings
 from pathlib import Path
@@ -750,3 +751,31 @@ def test_demo_elimination_after_an_unobservable_pressure(demo_averages):
     assert row["eliminated"]
     measured = float(m0.value[i])
     assert abs(row["reconciled"] - measured) < 3 * np.hypot(row["u_reconciled"], m0.u[i])
+
+
+def test_elimination_reports_instruments_the_test_cannot_tell_apart(tmp_path):
+    # Two flow meters on either side of a valve: one mass balance, two measurements.
+    # The normalised adjustment of each equals the balance's normalised residual,
+    # |r| / sqrt(u1^2 + u2^2) (closed form of weighted least squares with one
+    # constraint; e.g. Narasimhan & Jordache 2000, ch. 7, from memory): the measurement
+    # test cannot say which meter is wrong, and the step must say so.
+    text = BASE.replace(
+        '[streams.s_out]\nfluid = "water"\nphase = "liquid"\n',
+        '[streams.s_out]\nfluid = "water"\nphase = "liquid"\nmass_flow = "FT-2"\n',
+    ).replace("[tags.TT-1]", '[tags.FT-2]\nunit = "kg/s"\n[tags.TT-1]')
+    path = tmp_path / "plant.toml"
+    path.write_text(text, encoding="utf-8")
+    plant = perftest.load_plant(path)
+    tags = ["FT-1", "FT-2", "PT-1", "TT-1"]
+    u = np.array([0.1, 0.11, 5000.0, 0.2])
+    meas = Measurements.from_values(tags, np.array([10.0, 11.0, 5e5, 330.0]), u)
+    rec = perftest.reconcile(plant, meas, eliminate=True)
+    step = rec.eliminated[0]
+    assert {step.tag, *step.tied_with} == {"FT-1", "FT-2"} and len(step.tied_with) == 1
+    assert step.z == pytest.approx(1.0 / math.hypot(0.1, 0.11), rel=1e-9)
+    # the report's elimination table and the audit record carry the tie
+    from perftest import report
+
+    data = report.collect(plant, None, None, meas, reconciliation=rec)
+    assert data.eliminated[0]["indistinguishable_from"] == step.tied_with[0]
+    assert "cannot tell which of them is faulty" in report.render_markdown(data)

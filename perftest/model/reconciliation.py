@@ -36,6 +36,10 @@ _DERIVED_QUANTITY = {
 }
 
 
+#: Relative tolerance below which two measurement-test statistics count as equal.
+TIE_RTOL = 1e-6
+
+
 @dataclass(frozen=True)
 class EliminatedTag:
     """One step of serial elimination: the tag dropped and the test that dropped it.
@@ -48,6 +52,11 @@ class EliminatedTag:
         Its measurement-test statistic before it was dropped.
     chi2, dof, p_value : float, int, float
         Global test before it was dropped.
+    tied_with : tuple of str
+        Other redundant tags whose statistic equals ``z`` (to 1e-6 relative).  The
+        measurement test cannot tell these apart (they sit in the same balances in
+        the same way), so the choice of ``tag`` among them is arbitrary and any of
+        them may be the faulty one; reports say so.
     """
 
     tag: str
@@ -55,6 +64,7 @@ class EliminatedTag:
     chi2: float
     dof: int
     p_value: float
+    tied_with: tuple = ()
 
 
 @dataclass(frozen=True, eq=False)
@@ -644,9 +654,18 @@ def reconcile(
             break
         j = int(np.argmax(z))
         tag = model.measured[j]
+        # Equal statistics (to round-off) cannot be told apart by the test.
+        tied = tuple(
+            model.measured[i] for i in np.flatnonzero(z >= z[j] * (1.0 - TIE_RTOL)) if i != j
+        )
         steps.append(
             EliminatedTag(
-                tag, float(result.z[j]), float(result.chi2), int(result.dof), float(result.p_value)
+                tag,
+                float(result.z[j]),
+                float(result.chi2),
+                int(result.dof),
+                float(result.p_value),
+                tied,
             )
         )
         previous = model.slot_values(result.x[: model.n_x], result.y)

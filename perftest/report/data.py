@@ -278,7 +278,14 @@ def collect(
         rec_frame = _frame(reconciliation, "to_frame")
         global_test = dict(reconciliation.global_test)
         eliminated = [
-            dict(tag=e.tag, z=e.z, chi2=e.chi2, dof=e.dof, p_value=e.p_value)
+            dict(
+                tag=e.tag,
+                z=e.z,
+                chi2=e.chi2,
+                dof=e.dof,
+                p_value=e.p_value,
+                indistinguishable_from=", ".join(getattr(e, "tied_with", ())),
+            )
             for e in getattr(reconciliation, "eliminated", ())
         ]
         closure = _frame(reconciliation, "closure")

@@ -242,6 +242,16 @@ def sections(data: ReportData, *, figures=()) -> list:
             el = pd.DataFrame(data.eliminated)
             b.append(Block("p", "Serial elimination (instruments dropped, in order):"))
             b.append(_table(el))
+            if any(e.get("indistinguishable_from") for e in data.eliminated):
+                b.append(
+                    Block(
+                        "warning",
+                        "Where a step lists instruments it is indistinguishable from, "
+                        "their measurement-test statistics are equal: the test cannot "
+                        "tell which of them is faulty, and the one dropped was chosen "
+                        "arbitrarily. Check all of them before accepting the result.",
+                    )
+                )
         if "reconciliation" in figs:
             b.append(
                 Block(
