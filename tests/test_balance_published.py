@@ -16,7 +16,7 @@ The running example of both chapters is a cooling-water network: a cooling-water
 feeds plant 1 (stream F1), which splits into F2 (to plant 2) and F3 (to plant 3); F2 leaves
 plant 2 as F4, F3 leaves plant 3 as F5, and F4 and F5 join in plant 4, which returns F6.
 
-The numbers below were read from the transcription of that example in a university course
+The numbers below were read from a copy of that example in a university course
 notebook, "Data Reconciliation / Mérleghiba kiegyenlítés", Abonyi research group
 (University of Pannonia), which states it follows the module (via
 https://chemeng-processing.blogspot.com/2014/04/basic-concepts-in-data-reconciliation.html):

@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
+from standin import StandIn
 
 from perftest.corrections import (
     RULES,
@@ -545,28 +546,6 @@ polynomial = [0.0, -20000.0]
 """
 
 
-class _StandIn:
-    """Serves values and a covariance like PlantReconciliation (no balances)."""
-
-    def __init__(self, values: dict, u: dict):
-        self.names = list(values)
-        self.x = np.array([values[n] for n in self.names])
-        self.cov = np.diag([u[n] ** 2 for n in self.names])
-        self.dead_state = (288.15, 101325.0)
-        self.model = None
-
-    def value(self, name):
-        from perftest.errors import PerftestError
-
-        if name not in self.names:
-            raise PerftestError(f"unknown {name}")
-        return float(self.x[self.names.index(name)])
-
-    def covariance(self, names):
-        idx = [self.names.index(n) for n in names]
-        return self.cov[np.ix_(idx, idx)]
-
-
 def test_corrected_result_uncertainty_against_monte_carlo(tmp_path):
     from perftest.plantfile import load_plant
     from perftest.results import evaluate
@@ -575,7 +554,7 @@ def test_corrected_result_uncertainty_against_monte_carlo(tmp_path):
     path.write_text(_MC_PLANT, encoding="utf-8")
     values = {"JT-1": 30e6, "FT-F": 2.0, "TT-S": 600.0, "TT-K": 300.0, "TT-A": 296.0, "RH-A": 0.5}
     u = {"JT-1": 0.09e6, "FT-F": 0.01, "TT-S": 1.0, "TT-K": 1.5, "TT-A": 1.0, "RH-A": 0.03}
-    perf = evaluate(load_plant(path), _StandIn(values, u), monte_carlo=False)
+    perf = evaluate(load_plant(path), StandIn(values, u), monte_carlo=False)
 
     rng = np.random.default_rng(17)
     n = 200_000
@@ -774,7 +753,7 @@ def test_rule_reaches_summary_json_and_markdown(tmp_path):
     plant = load_plant(path)
     values = {"JT-1": 30e6, "FT-F": 2.0, "TT-S": 600.0, "TT-K": 300.0, "TT-A": 296.0, "RH-A": 0.5}
     u = {"JT-1": 0.09e6, "FT-F": 0.01, "TT-S": 1.0, "TT-K": 1.5, "TT-A": 1.0, "RH-A": 0.03}
-    perf = evaluate(plant, _StandIn(values, u), monte_carlo=False)
+    perf = evaluate(plant, StandIn(values, u), monte_carlo=False)
     data = report.collect(plant, performance=perf)
     row = report.summary_json(data)["guarantees"][0]
     for key in ("quantity", "corrected_value", "U95", "guaranteed", "direction", "verdict"):

@@ -14,8 +14,9 @@ import textwrap
 
 import numpy as np
 import pytest
+from standin import StandIn
 
-from perftest.errors import InputError, PerftestError, PlantFileError
+from perftest.errors import InputError, PlantFileError
 from perftest.plantfile import load_plant
 from perftest.results import Performance, evaluate, fuel_exergy_ratio
 
@@ -63,26 +64,6 @@ value = {guarantee}
 unit = "MW"
 direction = "at_least"
 """
-
-
-class StandIn:
-    """Serves reconciled values and their covariance like PlantReconciliation."""
-
-    def __init__(self, values: dict, cov: np.ndarray):
-        self.names = list(values)
-        self.x = np.array([values[n] for n in self.names], dtype=float)
-        self.cov = np.asarray(cov, dtype=float)
-        self.dead_state = (288.15, 101325.0)
-        self.model = None
-
-    def value(self, name):
-        if name not in self.names:
-            raise PerftestError(f"unknown {name}")
-        return float(self.x[self.names.index(name)])
-
-    def covariance(self, names):
-        idx = [self.names.index(n) for n in names]
-        return self.cov[np.ix_(idx, idx)]
 
 
 def _plant(tmp_path, extra: str = ""):
@@ -246,34 +227,15 @@ def test_bad_input(tmp_path):
         evaluate(plant, StandIn(values, _cov()[np.ix_(range(4), range(4))][: len(names)]))
 
 
-VOLUME_FUEL = """
-[site]
-name = "Test bench"
-atmospheric_pressure = { value = 101.325, unit = "kPa" }
-
-[tags.JT-1]
-unit = "MW"
-[tags.JT-2]
-unit = "MW"
-[tags.FV-F]
-unit = "m3/s"
-[tags.TT-S]
-unit = "K"
-[tags.TT-K]
-unit = "K"
-
-[performance]
-gross_power = "JT-1"
-auxiliary_power = "JT-2"
-heat_input = "fuel"
-source_temperature = "TT-S"
-sink_temperature = "TT-K"
-
-[fuel]
-volume_flow = "FV-F"
-composition = { methane = 0.95, ethane = 0.03, nitrogen = 0.02 }
-{reference}
-"""
+# The PLANT above with the fuel metered as a volume flow and given by its composition.
+VOLUME_FUEL = (
+    textwrap.dedent(PLANT)
+    .split("[fuel]")[0]
+    .replace('[tags.FT-F]\nunit = "kg/s"', '[tags.FV-F]\nunit = "m3/s"')
+    .replace('mass_flow = "FT-F"', "")
+    + '[fuel]\nvolume_flow = "FV-F"\n'
+    + "composition = { methane = 0.95, ethane = 0.03, nitrogen = 0.02 }\n{reference}\n"
+)
 
 
 @pytest.mark.parametrize(

@@ -25,7 +25,7 @@ from perftest.uncertainty import (
 # JCGM 100:2008 (GUM) Annex H.2, Table H.2: five sets of simultaneous observations
 # of voltage V [V], current I [mA] and phase angle phi [rad] (values from memory;
 # their means, standard deviations of the means and correlation coefficients are
-# checked against the published ones below, which guards the transcription).
+# checked against the published ones below, which guards against a mistyped value).
 GUM_H2_OBSERVATIONS = np.array(
     [
         [5.007, 19.663, 1.0456],
@@ -74,7 +74,7 @@ def gum_h2_inputs():
     return mean, cov_mean
 
 
-def test_gum_h2_table_transcription(gum_h2_inputs):
+def test_gum_h2_observations_reproduce_published_statistics(gum_h2_inputs):
     mean, cov = gum_h2_inputs
     s = np.sqrt(np.diag(cov))
     r = cov / np.outer(s, s)
