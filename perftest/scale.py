@@ -28,7 +28,6 @@ from __future__ import annotations
 
 import dataclasses
 import hashlib
-import sys
 import threading
 import warnings
 from collections.abc import Mapping, Sequence
@@ -216,56 +215,12 @@ def _check_results(results) -> tuple | None:
 # --------------------------------------------------------------------------- windows
 
 
-#: GIL switch interval [s] while a chunk is computed.  A Dask worker runs its task in
-#: a thread beside its event loop; at Python's default of 5 ms the loop's frequent
-#: wake-ups take the GIL from the task so often that a worker computed windows about
-#: a quarter slower per CPU-second than a plain process (measured on the demo plant:
-#: 2 workers 53.5 windows/s at 5 ms, 69.6 windows/s at 0.1 s).  The event loop still
-#: runs every 0.1 s, well inside Dask's heartbeat and timeout periods.
-CHUNK_SWITCH_INTERVAL = 0.1
-
-
 def _chunk_rows(plant, chunk: _Chunk, run: Run | None, options: _Options) -> list[dict]:
     """The rows of one chunk, window after window; the single code path of both engines.
 
     ``run`` holds the chunk's samples (in memory); for run files it is None and the
-    chunk's piece of the files is read here, in whichever process computes it.  The
-    GIL switch interval is raised to :data:`CHUNK_SWITCH_INTERVAL` meanwhile and
-    restored afterwards.
+    chunk's piece of the files is read here, in whichever process computes it.
     """
-    with _LongSwitchInterval():
-        return _chunk_rows_inner(plant, chunk, run, options)
-
-
-class _LongSwitchInterval:
-    """Raise the GIL switch interval while any chunk of this process is computed.
-
-    Counted, so that chunks computed by several threads at once restore the
-    interval the process had before the first of them began.
-    """
-
-    _lock = threading.Lock()
-    _active = 0
-    _saved = None
-
-    def __enter__(self):
-        cls = type(self)
-        with cls._lock:
-            if cls._active == 0:
-                cls._saved = sys.getswitchinterval()
-                sys.setswitchinterval(max(cls._saved, CHUNK_SWITCH_INTERVAL))
-            cls._active += 1
-
-    def __exit__(self, *exc):
-        cls = type(self)
-        with cls._lock:
-            cls._active -= 1
-            if cls._active == 0:
-                sys.setswitchinterval(cls._saved)
-        return False
-
-
-def _chunk_rows_inner(plant, chunk: _Chunk, run: Run | None, options: _Options) -> list[dict]:
     notes = []
     if chunk.piece is not None:
         from perftest.scale_files import read_piece

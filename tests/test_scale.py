@@ -654,31 +654,3 @@ def test_stability_keeps_unstable_windows(plant, faulty_run):
     assert "stability: TT-H" in row["reason"] and not row["stable"]
     assert not pd.isna(row["chi2"])  # still reconciled, kept with its reason
     assert bool(table.loc[3, "stable"]) or table.loc[3, "status"] != "ok"
-
-
-def test_chunk_switch_interval_is_restored_after_concurrent_chunks():
-    # The interval is raised while chunks run and restored to the process's own
-    # value when the last of several overlapping chunks ends, in any order.
-    import sys
-    import threading
-
-    from perftest import scale
-
-    before = sys.getswitchinterval()
-    inside = []
-    gate = threading.Barrier(2)
-
-    def chunk():
-        with scale._LongSwitchInterval():
-            gate.wait()
-            inside.append(sys.getswitchinterval())
-            gate.wait()
-
-    threads = [threading.Thread(target=chunk) for _ in range(2)]
-    for t in threads:
-        t.start()
-    for t in threads:
-        t.join()
-    # (CPython stores the interval in whole microseconds: compare to 1e-6 s)
-    assert inside == pytest.approx([scale.CHUNK_SWITCH_INTERVAL] * 2, abs=1e-6)
-    assert sys.getswitchinterval() == pytest.approx(before, abs=1e-6)
