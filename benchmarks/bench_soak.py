@@ -67,19 +67,9 @@ def main(argv=None) -> int:
     os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 
     import perftest
-    from perftest.demo import DEFAULT_OUTLIER_ALPHA, DEFAULT_WINDOW, data_dir
+    from perftest.demo import demo_measurements
 
-    folder = data_dir()
-    plant = perftest.load_plant(folder / "plant.toml")
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        run = perftest.read_run([folder / "historian.csv", folder / "logger.csv"], plant)
-        m0 = (
-            run.steadiest_window(DEFAULT_WINDOW)
-            .screen_outliers(alpha=DEFAULT_OUTLIER_ALPHA)
-            .average()
-        )
-    del run
+    plant, m0 = demo_measurements()
     value0 = np.array(m0.value, dtype=float)
     cov = np.array(m0.cov, dtype=float)
     ok = np.isfinite(value0)
@@ -150,6 +140,7 @@ def main(argv=None) -> int:
     # a draw may be refused with a PerftestError (a drawn state on the wrong side of
     # saturation, say); anything else would have stopped the loop
     return 1 if grows else 0
+
 
 if __name__ == "__main__":
     sys.exit(main())

@@ -99,6 +99,34 @@ def data_dir() -> Path:
     return path
 
 
+def demo_measurements():
+    """The demo plant and its averaged measurements, as ``perftest demo`` makes them.
+
+    The steadiest :data:`DEFAULT_WINDOW` of the demo run, screened for outliers at
+    :data:`DEFAULT_OUTLIER_ALPHA` and averaged; the demo's expected data-quality
+    warnings are silenced.
+
+    Returns
+    -------
+    (Plant, Measurements)
+    """
+    import warnings as _warnings
+
+    import perftest
+
+    folder = data_dir()
+    plant = perftest.load_plant(folder / "plant.toml")
+    with _warnings.catch_warnings():
+        _warnings.simplefilter("ignore")
+        run = perftest.read_run([folder / "historian.csv", folder / "logger.csv"], plant)
+        m = (
+            run.steadiest_window(DEFAULT_WINDOW)
+            .screen_outliers(alpha=DEFAULT_OUTLIER_ALPHA)
+            .average()
+        )
+    return plant, m
+
+
 def _available(module: str) -> bool:
     try:
         return importlib.util.find_spec(module) is not None

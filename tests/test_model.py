@@ -610,19 +610,9 @@ def test_zero_uncertainty_is_refused(tmp_path):
 @pytest.fixture(scope="module")
 def demo_averages():
     """The demo plant and its averaged measurements, as benchmarks/bench_soak.py has them."""
-    from perftest.demo import DEFAULT_OUTLIER_ALPHA, DEFAULT_WINDOW, data_dir
+    from perftest.demo import demo_measurements
 
-    folder = data_dir()
-    plant = perftest.load_plant(folder / "plant.toml")
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        run = perftest.read_run([folder / "historian.csv", folder / "logger.csv"], plant)
-        m0 = (
-            run.steadiest_window(DEFAULT_WINDOW)
-            .screen_outliers(alpha=DEFAULT_OUTLIER_ALPHA)
-            .average()
-        )
-    return plant, m0
+    return demo_measurements()
 
 
 def test_demo_redraw_liquid_pressure_left_unobservable_by_elimination(demo_averages):

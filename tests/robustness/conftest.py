@@ -60,18 +60,6 @@ def plant_file(tmp_path) -> Path:
 @pytest.fixture(scope="session")
 def demo_measurements():
     """The demo plant and its averaged measurements, as ``perftest demo`` makes them."""
-    import warnings
+    from perftest.demo import demo_measurements
 
-    import perftest
-    from perftest.demo import DEFAULT_OUTLIER_ALPHA, DEFAULT_WINDOW
-
-    plant = perftest.load_plant(DEMO / "plant.toml")
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        run = perftest.read_run([DEMO / "historian.csv", DEMO / "logger.csv"], plant)
-        m = (
-            run.steadiest_window(DEFAULT_WINDOW)
-            .screen_outliers(alpha=DEFAULT_OUTLIER_ALPHA)
-            .average()
-        )
-    return plant, m
+    return demo_measurements()
