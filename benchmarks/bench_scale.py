@@ -16,12 +16,14 @@ per window.  Printed ratios (reference time / engine time, above 1 = faster):
 * ``dask, threads``: windows are computed one at a time per process (the CoolProp
   property objects are not thread-safe), so expect about 1: this shows the cost of
   Dask's graph, nothing more.
-* ``dask, processes``: Dask's local processes scheduler, the engine's default.  The
-  time includes starting the worker processes, each of which imports perftest,
-  CoolProp and scipy; on a small job that start-up can eat the gain.
-* ``dask, N warm workers``: a ``distributed`` cluster of worker processes
-  started and warmed up before timing, as on a long-lived cluster: this is the
-  parallel gain itself, bounded by the number of cores.
+* ``dask, processes``: Dask's local processes scheduler.
+* ``dask, default cluster``: no scheduler given, so the engine starts a
+  ``perftest.scale.local_cluster`` for the job and closes it after.  Both this
+  time and the one above include starting the worker processes, each of which
+  imports perftest, CoolProp and scipy; on a small job that start-up eats the gain.
+* ``dask, N warm workers``: a ``perftest.scale.local_cluster`` of worker
+  processes started and warmed up before timing, as on a long-lived cluster: this
+  is the parallel gain itself, bounded by the number of cores.
 
 No target for the Dask ratios: they depend on the cores that are actually free, so
 the script prints the load average beside them (a load above the core count means
@@ -112,6 +114,8 @@ def main() -> None:
     try:
         import dask
         import distributed
+
+        from perftest.scale import local_cluster
     except ImportError:
         print('  dask: not installed (pip install "perftest[scale]"); skipped')
         return
@@ -125,13 +129,15 @@ def main() -> None:
         perftest.reconcile_many, plant, run, engine="dask", scheduler="threads", **kw
     )
     dask_line("dask, threads", seconds, table)
-    seconds, table = timed(perftest.reconcile_many, plant, run, engine="dask", **kw)
+    seconds, table = timed(
+        perftest.reconcile_many, plant, run, engine="dask", scheduler="processes", **kw
+    )
     dask_line("dask, processes", seconds, table)
+    seconds, table = timed(perftest.reconcile_many, plant, run, engine="dask", **kw)
+    dask_line("dask, default cluster", seconds, table)
 
     n = max(1, min(dask.system.CPU_COUNT, WINDOWS))
-    with distributed.Client(
-        n_workers=n, threads_per_worker=1, processes=True, dashboard_address=None
-    ) as client:
+    with local_cluster(n) as cluster, distributed.Client(cluster) as client:
         # warm-up: the whole job once, so that every worker has imported perftest,
         # built the model and set up its property objects before the timed call
         perftest.reconcile_many(plant, run, engine="dask", scheduler=client, **kw)

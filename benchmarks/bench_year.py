@@ -9,9 +9,10 @@ Measured in the same run, printed with the load average beside them:
 
 * windows per second of the local engine (a child process, so that its peak
   memory is its own);
-* windows per second of the Dask engine on a ``distributed`` LocalCluster of 2
-  worker processes with one thread each, started and warmed (one day computed)
-  before timing; target: Dask / local >= 1.6 on a 2-core machine;
+* windows per second of the Dask engine on ``perftest.scale.local_cluster(2)``
+  (2 worker processes with one thread each, Dask's worker profiler off), started
+  and warmed (the short job computed) before timing; target: Dask / local >= 1.6
+  on a 2-core machine;
 * peak resident memory of the local engine for a short job (``--days`` / 12) and
   the full one; target: full / short <= 1.3 (memory does not grow with the length
   of the logs).
@@ -194,11 +195,11 @@ def main() -> None:
         print(f"local engine: {res_full['windows']} windows ({res_full['ok']} reconciled) in "
               f"{res_full['seconds']:.1f} s = {local_rate:.2f} windows/s  [{_load()}]")  # fmt: skip
 
-        from distributed import Client, LocalCluster
+        from distributed import Client
 
-        with LocalCluster(n_workers=args.workers, threads_per_worker=1, processes=True,
-                          dashboard_address=None) as cluster, \
-                Client(cluster) as client:  # fmt: skip
+        from perftest.scale import local_cluster
+
+        with local_cluster(args.workers) as cluster, Client(cluster) as client:
             # warm-up: every worker imports perftest, builds the model, sets up properties
             _job(plant, short, engine="dask", scheduler=client)
             t = time.perf_counter()

@@ -74,16 +74,16 @@ def summary(table: pd.DataFrame) -> dict:
 
 
 def _cluster(workers: int):
-    """A local Dask cluster of ``workers`` processes (one thread each), no dashboard."""
+    """A local Dask cluster of ``workers`` processes (:func:`perftest.scale.local_cluster`)."""
     try:
-        from distributed import Client, LocalCluster
+        from distributed import Client
     except ImportError:
         raise PerftestError(
             'perftest monitor --engine dask needs Dask: pip install "perftest[scale]".'
         ) from None
-    cluster = LocalCluster(
-        n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=None
-    )
+    from perftest.scale import local_cluster
+
+    cluster = local_cluster(workers)
     return cluster, Client(cluster)
 
 

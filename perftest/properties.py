@@ -567,9 +567,11 @@ class Fluid:
             if want_dhdp:
                 # The IF97 backend has no first_partial_deriv; central difference in p.
                 dp = _FD_REL_STEP * p
-                hp, okp = self._fast(CP.PT_INPUTS, p + dp, T, ["h"])
-                hm, okm = self._fast(CP.PT_INPUTS, p - dp, T, ["h"])
-                res["dhdp"] = (hp["h"] - hm["h"]) / (2.0 * dp)
+                # a non-finite p gives nan steps, which _fast marks not ok
+                with np.errstate(invalid="ignore"):
+                    hp, okp = self._fast(CP.PT_INPUTS, p + dp, T, ["h"])
+                    hm, okm = self._fast(CP.PT_INPUTS, p - dp, T, ["h"])
+                    res["dhdp"] = (hp["h"] - hm["h"]) / (2.0 * dp)
                 ok = ok & okp & okm
         else:
             res, ok, err = self._loop(CP.PT_INPUTS, p, T, keys)

@@ -14,9 +14,10 @@ the same chunks:
 ``"local"``
     a plain loop in this process (pandas only);
 ``"dask"``
-    one Dask task per chunk, computed by a local Dask scheduler (processes by
-    default), a ``distributed.Client`` or a scheduler address.  Install with
-    ``pip install "perftest[scale]"``.
+    one Dask task per chunk, computed by a ``distributed`` cluster of local worker
+    processes started for the job (:func:`local_cluster`) by default, by a
+    ``distributed.Client`` or a scheduler address, or by one of Dask's local
+    schedulers.  Install with ``pip install "perftest[scale]"``.
 
 Both call the same per-chunk function on the same data, so their tables are
 identical, value for value.  Runs given as files are read a day at a time
@@ -26,6 +27,7 @@ Parquet files as they finish and reused by a rerun (:mod:`perftest.scale_store`)
 
 from __future__ import annotations
 
+import copy
 import dataclasses
 import hashlib
 import threading
@@ -50,7 +52,7 @@ from perftest.scale_windows import (
     _Window,
 )
 
-__all__ = ["reconcile_many", "ENGINES", "KEY_RESULTS", "TABLE_COLUMNS"]
+__all__ = ["reconcile_many", "local_cluster", "ENGINES", "KEY_RESULTS", "TABLE_COLUMNS"]
 
 #: Engines that :func:`reconcile_many` accepts.
 ENGINES = ("local", "dask")
@@ -163,13 +165,19 @@ def _import_dask():
     return dask
 
 
+# _resolve_scheduler's answer when the job should start its own local_cluster
+_OWN_CLUSTER = object()
+
+
 def _resolve_scheduler(dask, scheduler):
-    """The scheduler passed to ``dask.compute``.
+    """The scheduler passed to ``dask.compute``, or ``_OWN_CLUSTER``.
 
     An explicit choice wins.  Otherwise a scheduler set in Dask's configuration or an
-    active ``distributed`` client is used, as Dask itself would; failing both, the
-    local processes scheduler, the only local one that computes windows in parallel
-    here (windows of one process take turns, see ``_WINDOW_LOCK``).
+    active ``distributed`` client is used, as Dask itself would; failing both, a
+    :func:`local_cluster` started for the job when ``distributed`` is installed,
+    else the local processes scheduler, the only one of Dask's local schedulers
+    that computes windows in parallel here (windows of one process take turns, see
+    ``_WINDOW_LOCK``).
     """
     if scheduler is not None:
         return scheduler
@@ -177,10 +185,74 @@ def _resolve_scheduler(dask, scheduler):
         return None
     try:
         from distributed import default_client
-
-        return default_client()
-    except (ImportError, ValueError):
+    except ImportError:
         return "processes"
+    try:
+        return default_client()
+    except ValueError:
+        return _OWN_CLUSTER
+
+
+def local_cluster(n_workers: int | None = None, *, profiler: bool = False, **kwargs):
+    """A ``distributed.LocalCluster`` set up for :func:`reconcile_many`.
+
+    Worker processes with one thread each (the windows of one process take turns,
+    so a second thread would only wait), no dashboard, and, unless ``profiler``,
+    Dask's statistical worker profiler switched off.  That profiler samples the
+    computing thread's Python stack every 10 ms from the worker's event loop; on
+    this job, which is mostly short Python calls, it cost the workers about a fifth
+    of their windows per second (benchmarks/bench_year.py, 14 days of one-minute
+    logs on 2 workers: 55 windows/s with it, 68 without, same table).
+
+    Parameters
+    ----------
+    n_workers : int, optional
+        Worker processes; default the number of CPUs Dask sees.
+    profiler : bool, default False
+        Keep Dask's worker profiler (its "Profile" page) running.
+    **kwargs
+        Passed to ``distributed.LocalCluster`` and override the settings above.
+
+    Returns
+    -------
+    distributed.LocalCluster
+        Close it (``with local_cluster() as cluster:``) when done.  Keep one open
+        and pass ``distributed.Client(cluster)`` as ``scheduler`` to run several
+        jobs on warm workers.
+
+    Raises
+    ------
+    InputError
+        ``distributed`` is not installed.
+
+    Notes
+    -----
+    Workers started elsewhere (``dask worker``) take the same setting from the
+    environment variable ``DASK_DISTRIBUTED__WORKER__PROFILE__ENABLED=False``.
+    """
+    dask = _import_dask()
+    try:
+        from distributed import LocalCluster
+    except ImportError:
+        raise InputError(
+            "A local Dask cluster needs the 'distributed' package. Install it with pip "
+            'install "perftest[scale]".',
+            parameter="engine",
+        ) from None
+    settings = {} if profiler else {"distributed.worker.profile.enabled": False}
+    opts = dict(
+        n_workers=n_workers or dask.system.CPU_COUNT,
+        threads_per_worker=1,
+        processes=True,
+        dashboard_address=None,
+    )
+    opts.update(kwargs)
+    with dask.config.set(settings):
+        if opts["processes"] and "config" not in opts:
+            # each worker process gets this configuration from its nanny, also for
+            # workers the cluster starts later (scale up)
+            opts["config"] = copy.deepcopy(dask.config.config)
+        return LocalCluster(**opts)
 
 
 def _has_performance(plant) -> bool:
@@ -606,8 +678,9 @@ def reconcile_many(
         ``"threads"``, ``"sync"``), a ``distributed.Client``, or the address of a
         running Dask scheduler (``"tcp://host:8786"``; the workers must see the run
         files under the same paths).  Default: the scheduler set in Dask's
-        configuration, else the active ``distributed`` client, else
-        ``"processes"``.
+        configuration, else the active ``distributed`` client, else a
+        :func:`local_cluster` started for this job and closed after it (one worker
+        process per CPU), else (``distributed`` not installed) ``"processes"``.
     on_error : {"row", "raise"}, default "row"
         What a window whose averaging, reconciliation or evaluation fails does:
         give a row with status ``"failed"`` and the reason, or raise.
@@ -667,12 +740,12 @@ def reconcile_many(
 
     perftest's CoolProp property objects are shared within a process and are not
     thread-safe, so windows of one process are computed one at a time; parallel
-    speed comes from processes (Dask's ``"processes"`` scheduler, the default
-    here, or the worker processes of a ``distributed`` cluster).  A script using
-    the processes scheduler must guard its entry point with
+    speed comes from processes (the worker processes of a ``distributed``
+    cluster, the default here, or Dask's ``"processes"`` scheduler).  A script
+    starting worker processes must guard its entry point with
     ``if __name__ == "__main__":``.  For repeated calls keep a
-    ``distributed.Client`` of worker processes open and pass it as ``scheduler``
-    (benchmarks/bench_scale.py, benchmarks/bench_year.py).
+    :func:`local_cluster` open and pass a ``distributed.Client`` of it as
+    ``scheduler`` (benchmarks/bench_scale.py, benchmarks/bench_year.py).
 
     Warnings raised inside a window are caught and listed in its ``warnings``
     column instead of being shown once per window.
@@ -772,12 +845,20 @@ def reconcile_many(
             done(c, _chunk_rows(plant, c, payload, options))
     else:
         client = _connect(scheduler)
+        cluster = None
         try:
             resolved = client or _resolve_scheduler(dask, scheduler)
+            if resolved is _OWN_CLUSTER:
+                from distributed import Client
+
+                cluster = local_cluster()
+                client = resolved = Client(cluster)
             _run_dask(dask, resolved, plant, work(), options, done)
         finally:
             if client is not None:
                 client.close()
+            if cluster is not None:
+                cluster.close()
     meter.close()
     if wstore is not None:
         wstore.prune()

@@ -769,3 +769,59 @@ def test_elimination_reports_instruments_the_test_cannot_tell_apart(tmp_path):
     data = report.collect(plant, None, None, meas, reconciliation=rec)
     assert data.eliminated[0]["indistinguishable_from"] == step.tied_with[0]
     assert "cannot tell which of them is faulty" in report.render_markdown(data)
+
+
+def test_liquid_pressure_known_only_through_enthalpy_is_weakly_determined(demo_averages):
+    """PT-151 (condensate pressure, ~10 kPa) not logged: the pressure then enters
+    the condensate's state row alone, through the liquid's small (dh/dp)_T.  The
+    row has a root, so the pressure is observable, but the enthalpy's u from the
+    balances (kJ/kg) becomes MPa of pressure: a value that says nothing.  It must
+    be flagged, warned about and noted for the reports; the nominal demo flags
+    nothing."""
+    from dataclasses import replace
+
+    from perftest.model.reconciliation import WEAK_RTOL
+
+    plant, m0 = demo_averages
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        nominal = perftest.reconcile(plant, m0)
+    assert not [w for w in caught if "weakly" in str(w.message)]
+    assert not nominal.unmeasured["weak"].any() and nominal.notes == ()
+
+    value = np.array(m0.value, dtype=float)
+    value[m0.index("PT-151")] = np.nan
+    meas = replace(m0, value=value)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        rec = perftest.reconcile(plant, meas)
+    texts = [str(w.message) for w in caught if w.category is ReconciliationWarning]
+    assert any(re.search(r"'condensate\.pressure' .*weakly determined", t) for t in texts)
+    un = rec.unmeasured.set_index("name")
+    p = un.loc["condensate.pressure"]
+    assert p["observable"] and p["weak"]
+    assert p["u"] > WEAK_RTOL * abs(p["value"])
+    # the pump's energy balance then takes its inlet enthalpy, and so its power,
+    # from the same row: weak too (a negative pump power within its u); the rest not
+    assert sorted(un.index[un["weak"]]) == ["condensate.pressure", "pump.power"]
+    pump = un.loc["pump.power"]
+    assert pump["u"] > WEAK_RTOL * abs(pump["value"])
+    assert len(rec.notes) == 2 and "condensate.pressure" in rec.notes[0]
+
+    # Outside check of the size of u: with p free in the row h = h(p, T), the
+    # implicit function gives u_p^2 = (u_h^2 - 2 (dh/dT) cov(h, T) + (dh/dT)^2 u_T^2)
+    # / (dh/dp)^2, the partial derivatives of IAPWS-IF97 region 1 at the estimate
+    # taken from the iapws package by central differences.
+    iapws = pytest.importorskip("iapws")
+    T = rec.value("TT-151")
+    cov = rec.covariance(["condensate.enthalpy", "TT-151"])
+    P = p["value"] / 1e6  # MPa
+
+    def h(P_, T_):
+        return iapws.IAPWS97(P=P_, T=T_).h * 1e3  # J/kg
+
+    dP, dT = 1e-3 * P, 1e-3
+    dhdp = (h(P + dP, T) - h(P - dP, T)) / (2 * dP * 1e6)
+    dhdT = (h(P, T + dT) - h(P, T - dT)) / (2 * dT)
+    var = cov[0, 0] - 2 * dhdT * cov[0, 1] + dhdT**2 * cov[1, 1]
+    assert p["u"] == pytest.approx(math.sqrt(var) / abs(dhdp), rel=0.02)

@@ -304,13 +304,60 @@ def test_dask_equals_local(plant, faulty_run):
     got = reconcile_many(plant, faulty_run, "15min", results=False, engine="dask",
                          scheduler="threads")  # fmt: skip
     pd.testing.assert_frame_equal(got, local, check_exact=True)
-    # scheduler=None is Dask's processes scheduler: windows and rows cross a process
-    # boundary by pickling.  "fork" starts the workers from this already-loaded
-    # process (a spawned worker spends ten seconds importing CoolProp and scipy);
-    # the pickling is the same either way.
+    # Dask's processes scheduler: windows and rows cross a process boundary by
+    # pickling.  "fork" starts the workers from this already-loaded process (a
+    # spawned worker spends ten seconds importing CoolProp and scipy); the pickling
+    # is the same either way.
     with dask.config.set({"multiprocessing.context": "fork"}):
-        got = reconcile_many(plant, faulty_run, "15min", results=False, engine="dask")
+        got = reconcile_many(plant, faulty_run, "15min", results=False, engine="dask",
+                             scheduler="processes")  # fmt: skip
     pd.testing.assert_frame_equal(got, local, check_exact=True)
+
+
+def test_dask_default_starts_and_closes_a_local_cluster(plant, run, monkeypatch):
+    """No scheduler, none configured, no active client: the job starts its own
+    local_cluster and closes it afterwards."""
+    distributed = pytest.importorskip("distributed")
+    import perftest.scale as scale
+
+    original = scale.local_cluster
+    started = []
+
+    def spy(*args, **kw):
+        # in-process workers keep the test fast; the other settings are its own
+        cluster = original(1, processes=False)
+        started.append(cluster)
+        return cluster
+
+    monkeypatch.setattr(scale, "local_cluster", spy)
+    got = reconcile_many(plant, run, "30min", results=False, engine="dask")
+    assert len(started) == 1
+    assert started[0].status.name == "closed"
+    with pytest.raises(ValueError):
+        distributed.default_client()  # the job's client is closed too
+    pd.testing.assert_frame_equal(got, reconcile_many(plant, run, "30min", results=False))
+
+
+def test_local_cluster_switches_the_worker_profiler_off():
+    distributed = pytest.importorskip("distributed")
+    from perftest.scale import local_cluster
+
+    def profiling(dask_worker):
+        import dask
+
+        return (
+            dask.config.get("distributed.worker.profile.enabled"),
+            "profile" in dask_worker.periodic_callbacks,
+        )
+
+    # one spawned worker process: the setting must reach it through its nanny
+    with local_cluster(1) as cluster, distributed.Client(cluster) as client:
+        assert list(client.run(profiling).values()) == [(False, False)]
+        assert list(client.nthreads().values()) == [1]
+    # kept on request (in-process worker: the setting is read in this process)
+    with local_cluster(1, profiler=True, processes=False) as cluster, \
+            distributed.Client(cluster) as client:  # fmt: skip
+        assert list(client.run(profiling).values()) == [(True, True)]
 
 
 def test_dask_follows_its_configured_scheduler(plant, run):

@@ -16,7 +16,13 @@ from perftest.model import thermo
 from perftest.model.equations import PlantModel, build_model
 from perftest.model.guess import initial_guess
 
-__all__ = ["PlantReconciliation", "EliminatedTag", "reconcile", "DEFAULT_DEAD_STATE"]
+__all__ = [
+    "PlantReconciliation",
+    "EliminatedTag",
+    "reconcile",
+    "DEFAULT_DEAD_STATE",
+    "WEAK_RTOL",
+]
 
 #: Dead state used when the plant file states none: 25 degC and one standard
 #: atmosphere, the usual reference environment of exergy tables (common practice,
@@ -38,6 +44,14 @@ _DERIVED_QUANTITY = {
 
 #: Relative tolerance below which two measurement-test statistics count as equal.
 TIE_RTOL = 1e-6
+
+#: An observable unmeasured variable whose standard uncertainty exceeds this
+#: fraction of its magnitude is "weakly determined": the balances give it a value,
+#: but one that says next to nothing (for instance a liquid's pressure known only
+#: through the small pressure dependence of its enthalpy, which may land at
+#: hundreds of bar).  Our own threshold: at u = |value| / 2 the 95 % interval
+#: already spans zero.
+WEAK_RTOL = 0.5
 
 
 @dataclass(frozen=True)
@@ -365,8 +379,10 @@ class PlantReconciliation:
     def unmeasured(self) -> pd.DataFrame:
         """Estimates of the unmeasured model variables.
 
-        Columns ``name, quantity, value, u, observable`` [SI]; value and u are nan
-        where the balances do not determine the variable.
+        Columns ``name, quantity, value, u, observable, weak`` [SI]; value and u
+        are nan where the balances do not determine the variable; ``weak`` marks an
+        observable variable whose u exceeds ``WEAK_RTOL`` times its magnitude
+        (determined in name only: do not use its value).
         """
         r = self.result
         names = self.model.unmeasured
@@ -377,8 +393,14 @@ class PlantReconciliation:
                 "value": r.y,
                 "u": r.y_u,
                 "observable": r.observable,
+                "weak": _weak(r),
             }
         )
+
+    @property
+    def notes(self) -> tuple:
+        """Notes for the reports: the weakly determined unmeasured variables."""
+        return tuple(_weak_notes(self.model.unmeasured, self.model.quantities, self.result))
 
     def closure(self) -> pd.DataFrame:
         """Mass and energy imbalance of every unit at the reconciled values.
@@ -431,6 +453,25 @@ class PlantReconciliation:
             out.append((uid, unit.declared_type, mass, energy, e_in + max(extra, 0.0)))
         cols = ["unit", "type", "mass_imbalance", "energy_imbalance", "energy_throughput"]
         return pd.DataFrame(out, columns=cols)
+
+
+def _weak(result) -> np.ndarray:
+    """Observable unmeasured variables with u > WEAK_RTOL * |value|."""
+    y = np.asarray(result.y, dtype=float)
+    u = np.asarray(result.y_u, dtype=float)
+    obs = np.asarray(result.observable, dtype=bool)
+    with np.errstate(invalid="ignore"):
+        return obs & np.isfinite(y) & (u > WEAK_RTOL * np.abs(y))
+
+
+def _weak_notes(names, quantities, result) -> list[str]:
+    weak = np.flatnonzero(_weak(result))
+    return [
+        f"Unmeasured '{names[i]}' ({quantities[names[i]]}) is only weakly determined by "
+        f"the balances: {result.y[i]:.4g} with u = {result.y_u[i]:.3g} [SI], more than "
+        f"{WEAK_RTOL:g} of its magnitude; do not use this value, measure it instead."
+        for i in weak
+    ]
 
 
 def _dead_state(plant, measurements):
@@ -697,6 +738,8 @@ def reconcile(
     if T0_tag is not None:
         _, _, where = rec._joint
         object.__setattr__(rec, "_T0_index", where.get(T0_tag))
+    for text in _weak_notes(model.unmeasured, model.quantities, result):
+        warnings.warn(text, ReconciliationWarning, stacklevel=2)
     if not rec.global_test["passed"]:
         warnings.warn(
             f"The global test fails (chi2 = {result.chi2:.3g}, dof = {result.dof}, "

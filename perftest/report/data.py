@@ -291,6 +291,7 @@ def collect(
         closure = _frame(reconciliation, "closure")
         streams = _frame(reconciliation, "streams")
         alpha = float(getattr(reconciliation, "alpha", 0.05))
+        all_notes += [str(s) for s in getattr(reconciliation, "notes", ())]
 
     results = budgets = guarantees = corrections = exergy = mc = None
     losses: dict = {}
