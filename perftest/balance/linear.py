@@ -166,12 +166,6 @@ def solve_dense(p: Problem) -> Core:
         lam = np.zeros(A.shape[0])
     redundant = vdiag > _dense.REDUNDANCY_RTOL * s
     k = B.shape[1]
-    if r and k == 0 and sel.inconsistent is None and not _closes(A, b, xhat):
-        # Uncertainties spread over many decades make the Gram matrix of the constraints
-        # (metric of S) numerically singular: two balances that share one very uncertain
-        # instrument look parallel and one is dropped, so A xhat = b fails.  Solve again
-        # in the null space of A, where closure does not depend on S at all.
-        return _solve_nullspace(p, constraint_residual, constraint_u)
     # Unmeasured: the scaled unknowns are colB * y, so y = G (bt - At xhat) / colB.
     T = (proj.G @ At) / colB[:, None] if k else np.zeros((0, n))
     y = (proj.G @ bt) / colB - T @ xhat if k else np.zeros(0)
@@ -196,70 +190,119 @@ def solve_dense(p: Problem) -> Core:
     )
 
 
-# Closure check of the dense solution: |A xhat - b| against the size of the terms
-# |A| |xhat| + |b|.  A correct solve closes to a few hundred ulp; 1e-9 leaves room for
-# ill-conditioning that still gives a usable estimate.
+# Closure check of a solution: |A xhat + B y - b| against the size of the terms
+# |A| |xhat| + |B| |y| + |b|.  A correct solve closes to a few hundred ulp; 1e-9 leaves
+# room for ill-conditioning that still gives a usable estimate.
 CLOSURE_RTOL = 1e-9
 
+# Largest problem (measured + unmeasured variables) that the null-space fallback
+# solves with dense factorisations (an SVD of this size takes about a second).
+FALLBACK_MAX = 3000
 
-def _closes(A, b, xhat) -> bool:
-    scale = np.abs(A) @ np.abs(xhat) + np.abs(b)
-    return bool(np.all(np.abs(A @ xhat - b) <= CLOSURE_RTOL * scale + np.finfo(float).tiny))
+
+def _closes(p: Problem, xhat, y) -> bool:
+    A, B, b = p.A, p.B, p.b
+    res = A @ xhat - b
+    scale = abs(A) @ np.abs(xhat) + np.abs(b)
+    if B.shape[1]:
+        res = res + B @ y
+        scale = scale + abs(B) @ np.abs(y)
+    return bool(np.all(np.abs(res) <= CLOSURE_RTOL * scale + np.finfo(float).tiny))
 
 
-def _solve_nullspace(p: Problem, constraint_residual, constraint_u) -> Core:
-    """Reconcile in the null space of ``A`` (no unmeasured variables).
+def _dense_array(M):
+    return M.toarray() if sp.issparse(M) else np.asarray(M, dtype=float)
 
-    :math:`\\hat x = x_p + N t` with :math:`A x_p = b` and :math:`A N = 0`, and ``t``
-    the weighted least-squares fit :math:`\\min |L^{-1}(x_p + N t - x)|` with
-    :math:`S = L L^T`.  Closure holds to the round-off of ``A`` whatever the spread
-    of the uncertainties; the fit uses an SVD (numpy/scipy ``lstsq``), whose error
-    grows only with the condition number of :math:`L^{-1} N`, not its square.
+
+def _solve_nullspace(p: Problem, core: Core) -> Core | None:
+    """Reconcile in the null space of the constraints ``[A B]``.
+
+    Used when the projected solve (``core``) does not close the balances or finds
+    them contradictory.  Uncertainties spread over many decades make the Gram matrix
+    of the constraints in the metric of S numerically singular: two balances that
+    share one very uncertain instrument look parallel, one is dropped and the
+    balances do not close, or the dropped one is taken for a contradiction.  Here
+    :math:`(\\hat x, \\hat y) = z_p + N t` with :math:`A x_p + B y_p = b` and
+    :math:`[A\\ B] N = 0`, and ``t`` is the weighted least-squares fit
+    :math:`\\min |L^{-1}(x_p + N_x t - x)|` with :math:`S = L L^T`.  Closure holds to
+    the round-off of the constraints whatever the spread of the uncertainties; the
+    fit uses an SVD, whose error grows only with the condition number of
+    :math:`L^{-1} N_x`, not its square.  Directions of ``t`` that do not move ``x``
+    move only unmeasured variables: those variables are not observable.
+
+    Returns None (the caller keeps ``core``) when the constraints are contradictory
+    in this metric too, or the problem is larger than ``FALLBACK_MAX``.
     """
-    x, S, s, A, b = p.x, p.S, p.sdiag, p.A, p.b
-    n = x.size
-    rows = np.linalg.norm(A, axis=1)
+    x, s = p.x, p.sdiag
+    n, k = x.size, p.B.shape[1]
+    if n + k > FALLBACK_MAX:
+        return None
+    A, B = _dense_array(p.A), _dense_array(p.B)
+    colB = np.max(np.abs(B), axis=0) if k and B.shape[0] else np.ones(k)
+    colB = np.where(colB > 0, colB, 1.0)
+    Z = np.hstack([A, B / colB]) if k else A
+    rows = np.linalg.norm(Z, axis=1)
     keep = rows > 0
-    An = A[keep] / rows[keep, None]
-    bn = b[keep] / rows[keep]
-    N = scipy.linalg.null_space(An)
-    xp = scipy.linalg.lstsq(An, bn, check_finite=False)[0]
+    Zn = Z[keep] / rows[keep, None]
+    bn = p.b[keep] / rows[keep]
+    if np.any(p.b[~keep] != 0.0):
+        return None  # a row 0 = b_j with b_j != 0: truly contradictory
+    zp = scipy.linalg.lstsq(Zn, bn, check_finite=False)[0] if Zn.size else np.zeros(n + k)
+    scale = np.abs(Zn) @ np.abs(zp) + np.abs(bn)
+    if np.any(np.abs(Zn @ zp - bn) > CLOSURE_RTOL * scale + np.finfo(float).tiny):
+        return None  # contradictory constraints: the caller reports them
+    N = scipy.linalg.null_space(Zn, check_finite=False) if Zn.size else np.eye(n + k)
+    Nx, Ny = N[:n], N[n:]
+    xp, yp = zp[:n], zp[n:]
     if p.is_diag:
         u = np.sqrt(s)
-        Mt, rhs = N / u[:, None], (x - xp) / u
+        Mt, rhs = Nx / u[:, None], (x - xp) / u
     else:
+        S = _dense_array(p.S)
         Lm = scipy.linalg.cholesky(S, lower=True, check_finite=False)
-        Mt = scipy.linalg.solve_triangular(Lm, N, lower=True, check_finite=False)
+        Mt = scipy.linalg.solve_triangular(Lm, Nx, lower=True, check_finite=False)
         rhs = scipy.linalg.solve_triangular(Lm, x - xp, lower=True, check_finite=False)
-    U, sv, Vt = scipy.linalg.svd(Mt, full_matrices=False, check_finite=False)
-    good = sv > sv.max(initial=0.0) * n * np.finfo(float).eps if sv.size else sv > 0
-    t = Vt[good].T @ ((U[:, good].T @ rhs) / sv[good])
-    xhat = xp + N @ t
-    K = N @ (Vt[good].T / sv[good])
-    x_cov = K @ K.T
-    d = xhat - x
-    if p.is_diag:
-        wd = d / s
-        chi2 = float(d @ wd)
+    q = N.shape[1]
+    if q and n:
+        U, sv, Vt = scipy.linalg.svd(Mt, full_matrices=True, check_finite=False)
+        g = int(np.count_nonzero(sv > sv.max(initial=0.0) * max(n, q) * np.finfo(float).eps))
     else:
-        wd = scipy.linalg.cho_solve((Lm, True), d, check_finite=False)
-        chi2 = float(d @ wd)
+        U, sv, Vt, g = np.zeros((n, 0)), np.zeros(0), np.eye(q), 0
+    good = Vt[:g]
+    t = good.T @ ((U[:, :g].T @ rhs) / sv[:g])
+    xhat = xp + Nx @ t
+    ys = yp + Ny @ t
+    K = N @ (good.T / sv[:g])
+    Kx, Ky = K[:n], K[n:] / colB[:, None]
+    x_cov = Kx @ Kx.T
+    y_cov = Ky @ Ky.T
+    xy_cov = Kx @ Ky.T
+    # directions of t that leave x unmoved move only y: not observable
+    moved = Ny @ Vt[g:].T
+    observable = np.sqrt(np.einsum("ij,ij->i", moved, moved)) < _dense.OBS_TOL
+    d = xhat - x
+    wd = d / s if p.is_diag else scipy.linalg.cho_solve((Lm, True), d, check_finite=False)
+    chi2 = float(d @ wd)
     vdiag = np.maximum(s - np.diag(x_cov), 0.0)
-    lam = scipy.linalg.lstsq(A.T, -wd, check_finite=False)[0]
-    cov_tuple = (x_cov, np.zeros((0, 0)), np.zeros((n, 0)))
+    # multipliers of the original constraints: S^-1 (xhat - x) + A^T lam = 0, B^T lam = 0
+    lam = scipy.linalg.lstsq(
+        np.vstack([A.T, B.T]) if k else A.T, np.concatenate([-wd, np.zeros(k)]),
+        check_finite=False,
+    )[0]  # fmt: skip
+    cov_tuple = (x_cov, y_cov, xy_cov)
     return Core(
         xhat=xhat,
-        y=np.zeros(0),
-        observable=np.zeros(0, dtype=bool),
+        y=ys / colB,
+        observable=observable,
         lam=lam,
         chi2=chi2,
-        dof=int(n - N.shape[1]),
+        dof=int(n - g),
         vdiag=vdiag,
         redundant=vdiag > _dense.REDUNDANCY_RTOL * s,
         covariances=lambda: cov_tuple,
-        y_var=np.zeros(0),
-        constraint_residual=constraint_residual,
-        constraint_u=constraint_u,
+        y_var=np.diag(y_cov).copy(),
+        constraint_residual=core.constraint_residual,
+        constraint_u=core.constraint_u,
         inconsistent=None,
     )
 
@@ -273,13 +316,35 @@ def _trsolve(L, rhs, trans=0):
     return z
 
 
-def solve(p: Problem) -> Core:
-    """Dispatch to the dense or the sparse core."""
+def solve(p: Problem, *, strict: bool = False) -> Core:
+    """Dispatch to the dense or the sparse core, with the null-space fallback.
+
+    ``strict`` (reconcile_linear): the fallback whenever the projected solution does
+    not close the balances or finds them contradictory.  Otherwise (the steps of
+    reconcile_nonlinear, whose linearised constraints are solved again at every
+    iterate and which handles contradictory ones itself) only when a problem
+    without unmeasured variables and with redundancy does not close.
+    """
     if p.sparse:
         from perftest.balance import _sparse
 
-        return _sparse.solve_sparse(p)
-    return solve_dense(p)
+        core = _sparse.solve_sparse(p)
+    else:
+        core = solve_dense(p)
+    if strict:
+        suspect = core.inconsistent is not None or not _closes(p, core.xhat, core.y)
+    else:
+        suspect = (
+            p.B.shape[1] == 0
+            and core.dof > 0
+            and core.inconsistent is None
+            and not _closes(p, core.xhat, core.y)
+        )
+    if suspect:
+        fallback = _solve_nullspace(p, core)
+        if fallback is not None:
+            return fallback
+    return core
 
 
 def raise_if_inconsistent(core: Core, func: str) -> None:
@@ -431,7 +496,7 @@ def reconcile_linear(x, cov, A, b=None, B=None) -> Reconciliation:
     """
     func = "reconcile_linear"
     p = check_problem(x, cov, A, b, B, func)
-    core = solve(p)
+    core = solve(p, strict=True)
     raise_if_inconsistent(core, func)
     if core.dof == 0:
         warnings.warn(

@@ -59,6 +59,78 @@ def test_uncertainties_over_ten_decades(seed):
     assert np.all(np.sqrt(np.clip(np.diag(r.x_cov), 0, None)) <= u * (1 + 1e-9))
 
 
+def _exact_kkt(x, u, A, b, B):
+    """Exact solution of the Lagrange (KKT) system of min sum((x - x_m)/u)^2 subject to
+    A x + B y = b, in rational arithmetic (fractions.Fraction) from the float inputs:
+    no round-off at all, so no shared factorisation and no conditioning to share."""
+    from fractions import Fraction as F
+
+    n, k, m = x.size, B.shape[1], A.shape[0]
+    size = n + k + m
+    M = [[F(0)] * (size + 1) for _ in range(size)]
+    for i in range(n):
+        w = 1 / F(u[i]) ** 2
+        M[i][i], M[i][size] = w, F(x[i]) * w
+    for r in range(m):
+        for i in range(n):
+            M[i][n + k + r] = M[n + k + r][i] = F(A[r, i])
+        for j in range(k):
+            M[n + j][n + k + r] = M[n + k + r][n + j] = F(B[r, j])
+        M[n + k + r][size] = F(b[r])
+    for c in range(size):  # Gauss-Jordan, exact
+        piv = next(r for r in range(c, size) if M[r][c] != 0)
+        M[c], M[piv] = M[piv], M[c]
+        for r in range(size):
+            if r != c and M[r][c] != 0:
+                f = M[r][c] / M[c][c]
+                M[r] = [a - f * e for a, e in zip(M[r], M[c], strict=True)]
+    sol = np.array([float(M[i][size] / M[i][i]) for i in range(n + k)])
+    return sol[:n], sol[n:]
+
+
+@pytest.mark.parametrize("sparse", [False, True], ids=["dense", "sparse"])
+@pytest.mark.parametrize("seed", [218, 236, 249, 360])
+def test_many_decades_with_unmeasured_not_taken_for_a_contradiction(seed, sparse):
+    """Random full-rank, consistent networks with two unmeasured variables and
+    uncertainties spread over 6 to 7.5 decades (the draws of the property-based
+    networks with up to 8 decades that failed).  The projected solve, in the metric
+    of S, took a nearly parallel pair of balances for linearly dependent ones with
+    disagreeing right-hand sides and refused the consistent constraints
+    ("must be consistent ... misfit -77.4 standard deviations").  Now the null-space
+    solve takes over and the result equals the exact solution."""
+    import scipy.sparse as sp
+
+    rng = np.random.default_rng(seed)
+    n = rng.integers(3, 13)
+    k = int(rng.integers(0, 3))
+    m = int(rng.integers(1, max(2, n + k - 1)))
+    decades = rng.uniform(0, 8)
+    A = rng.normal(size=(m, n))
+    B = rng.normal(size=(m, k))
+    x_true, y_true = rng.uniform(1, 100, n), rng.uniform(1, 100, k)
+    b = A @ x_true + B @ y_true
+    u = x_true * 10.0 ** rng.uniform(-2 - decades, -2, n)
+    x = x_true + rng.normal(size=n) * u
+    assert k == 2 and decades > 6 and np.linalg.matrix_rank(np.hstack([A, B])) == m
+    if sparse:
+        r = perftest.reconcile_linear(x, sp.diags(u**2), sp.csr_matrix(A), b=b, B=sp.csr_matrix(B))
+    else:
+        r = perftest.reconcile_linear(x, np.diag(u**2), A, b=b, B=B)
+    x_exact, y_exact = _exact_kkt(x, u, A, b, B)
+    # The float result carries the round-off of x itself (a few ulp of |x| ~ 100,
+    # i.e. ~1e-13, which is 1e-5 of the smallest u here): 100 ulp of |x| plus 1e-6 u.
+    eps = np.finfo(float).eps
+    assert np.all(np.abs(r.x - x_exact) <= 1e-6 * u + 100 * eps * np.abs(x_exact))
+    np.testing.assert_allclose(r.y, y_exact, rtol=1e-10)
+    assert r.observable.all() and r.dof == m - k
+    # chi2 = sum((x_hat - x)/u)^2: those ~1e-5 u errors times adjustments of O(1) u
+    # move it by ~1e-5; 1e-4 absolute.
+    assert r.chi2 == pytest.approx(float(np.sum(((x_exact - x) / u) ** 2)), abs=1e-4)
+    # the balances close to round-off
+    closure = A @ r.x + B @ r.y - b
+    assert np.all(np.abs(closure) <= 1e-9 * (np.abs(A) @ np.abs(r.x) + np.abs(B) @ np.abs(r.y)))
+
+
 def test_nearly_dependent_constraints():
     rng = np.random.default_rng(3)
     A0 = rng.normal(size=(2, 6))

@@ -148,15 +148,16 @@ def test_random_bytes_never_crash(tmp_path_factory, content):
 
 
 @st.composite
-def networks(draw):
+def networks(draw, max_decades=4.0):
     """A random full-rank constraint set A x + B y = b with true values that satisfy it,
-    measurements scattered around them, and uncertainties over several decades."""
+    measurements scattered around them, and uncertainties over up to 2 + max_decades
+    decades."""
     seed = draw(st.integers(0, 2**32 - 1))
     rng = np.random.default_rng(seed)
     n = draw(st.integers(3, 12))
     k = draw(st.integers(0, 2))
     m = draw(st.integers(1, max(1, n + k - 2)))
-    decades = draw(st.floats(0.0, 4.0))
+    decades = draw(st.floats(0.0, max_decades))
     A = rng.normal(size=(m, n))
     B = rng.normal(size=(m, k)) if k else None
     x_true = rng.uniform(1.0, 100.0, size=n)
@@ -167,13 +168,17 @@ def networks(draw):
     return x, np.diag(u**2), A, b, B
 
 
-# a drawn network may leave no redundancy (dof 0): expected here, not news
+# a drawn network may leave no redundancy (dof 0): expected here, not news.
+# Closure and shrinking u must hold however far the uncertainties spread (up to ten
+# decades: the null-space solve takes over where the projected one loses closure);
+# the invariance tests compare two float solutions, whose round-off grows with that
+# spread, so they draw up to six decades (their 1e-6 tolerances hold there).
 NO_DOF_WARNING = pytest.mark.filterwarnings("ignore:The constraints leave no redundancy")
 
 
 @NO_DOF_WARNING
 @FAST
-@given(net=networks())
+@given(net=networks(max_decades=8.0))
 def test_reconciled_values_close_the_balances(net):
     x, cov, A, b, B = net
     r = perftest.reconcile_linear(x, cov, A, b=b, B=B)
@@ -188,7 +193,7 @@ def test_reconciled_values_close_the_balances(net):
 
 @NO_DOF_WARNING
 @FAST
-@given(net=networks())
+@given(net=networks(max_decades=8.0))
 def test_reconciled_uncertainty_never_exceeds_measured(net):
     x, cov, A, b, B = net
     r = perftest.reconcile_linear(x, cov, A, b=b, B=B)
