@@ -634,7 +634,8 @@ def reconcile_many(
     run : Run, path, list of paths, list or dict of those
         The run(s): a :class:`Run` in memory, or run files (one path, or a list of
         paths read together as by :func:`perftest.read_run`), which are then read a
-        day at a time so that memory does not grow with the length of the logs.  A
+        day at a time so that memory does not grow with the length of the logs (it
+        holds one chunk plus its longest window; windows may span several days).  A
         list of Runs (or of lists of paths) or a dict of label -> run gives several
         runs.  The ``run`` column of the table holds 0 for a single run, the
         position in a list, or the dict key.

@@ -292,13 +292,6 @@ def _bounds(src: _Source, every, explicit, length, n_runs):
                 + ". Use windows of several samples.",
                 parameter="every",
             )
-        if src.run is None and t1 - t0 > pd.Timedelta("1D"):
-            raise InputError(
-                f"The 'every' parameter of reconcile_many gives a window of {t1 - t0}; run "
-                "files are read a day at a time, so windows may last at most one day. Read "
-                "the run with perftest.read_run for longer windows.",
-                parameter="every",
-            )
     return bounds
 
 

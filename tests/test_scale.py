@@ -606,6 +606,32 @@ def test_run_files_read_a_day_at_a_time(plant, tmp_path):
     np.testing.assert_allclose(got["chi2"], expected["chi2"], rtol=1e-9)
 
 
+def test_run_files_with_windows_longer_than_a_day(plant, tmp_path):
+    """Windows of two days (and explicit ones across three midnights) from a file
+    read a day at a time: a chunk's piece then spans the days its windows need.
+    Outside check as above: the run read whole, then reconcile_many in memory."""
+    df = logs(5 * 1440, seed=6)
+    df.index = pd.date_range("2031-03-01 00:00", periods=len(df), freq="1min", tz="UTC")
+    path = tmp_path / "five_days.csv"
+    _write_csv(df, path)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        whole = perftest.read_run(path, plant)
+    t = pd.Timestamp("2031-03-01 12:00", tz="UTC")
+    for every in (
+        "2D",
+        [(t, t + pd.Timedelta("3D")), (t + pd.Timedelta("1D"), t + pd.Timedelta("2D"))],
+    ):
+        kw = dict(every=every, results=False, warm_start=False)
+        expected = reconcile_many(plant, whole, **kw)
+        got = reconcile_many(plant, path, **kw)
+        assert (got["status"] == "ok").all()
+        assert got["n_samples"].max() >= 2 * 1440  # windows of two days or more, whole
+        cols = ["start", "end", "n_samples", "status", "dof", "passed", "suspects"]
+        pd.testing.assert_frame_equal(got[cols], expected[cols])
+        np.testing.assert_allclose(got["chi2"], expected["chi2"], rtol=1e-9)
+
+
 def test_bad_line_in_a_later_day_names_the_original_line(plant, tmp_path):
     df = logs(2 * 1440, seed=5)
     df.index = pd.date_range("2031-03-01 00:00", periods=len(df), freq="1min", tz="UTC")
