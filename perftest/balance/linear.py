@@ -200,14 +200,16 @@ CLOSURE_RTOL = 1e-9
 FALLBACK_MAX = 3000
 
 
-def _closes(p: Problem, xhat, y) -> bool:
+def _closure_error(p: Problem, xhat, y) -> float:
+    """Largest |A xhat + B y - b| of a row relative to the size of its terms."""
     A, B, b = p.A, p.B, p.b
     res = A @ xhat - b
     scale = abs(A) @ np.abs(xhat) + np.abs(b)
     if B.shape[1]:
         res = res + B @ y
         scale = scale + abs(B) @ np.abs(y)
-    return bool(np.all(np.abs(res) <= CLOSURE_RTOL * scale + np.finfo(float).tiny))
+    tiny = np.finfo(float).tiny
+    return float(np.max(np.abs(res) / (scale + tiny), initial=0.0))
 
 
 def _dense_array(M):
@@ -319,11 +321,13 @@ def _trsolve(L, rhs, trans=0):
 def solve(p: Problem, *, strict: bool = False) -> Core:
     """Dispatch to the dense or the sparse core, with the null-space fallback.
 
-    ``strict`` (reconcile_linear): the fallback whenever the projected solution does
-    not close the balances or finds them contradictory.  Otherwise (the steps of
-    reconcile_nonlinear, whose linearised constraints are solved again at every
-    iterate and which handles contradictory ones itself) only when a problem
-    without unmeasured variables and with redundancy does not close.
+    ``strict`` (reconcile_linear): the fallback when the projected solve finds the
+    constraints contradictory (it confirms or clears that) or its solution does not
+    close them to ``CLOSURE_RTOL``.  Otherwise (the steps of reconcile_nonlinear,
+    whose linearised constraints are solved again at every iterate and which
+    handles contradictory ones itself) only for the second reason, and only for a
+    problem without unmeasured variables and with redundancy.  Of two solutions
+    that do not close, the one closer to closing is kept.
     """
     if p.sparse:
         from perftest.balance import _sparse
@@ -331,18 +335,19 @@ def solve(p: Problem, *, strict: bool = False) -> Core:
         core = _sparse.solve_sparse(p)
     else:
         core = solve_dense(p)
-    if strict:
-        suspect = core.inconsistent is not None or not _closes(p, core.xhat, core.y)
-    else:
-        suspect = (
-            p.B.shape[1] == 0
-            and core.dof > 0
-            and core.inconsistent is None
-            and not _closes(p, core.xhat, core.y)
-        )
-    if suspect:
+    if core.inconsistent is not None:
+        if strict:
+            # None when the constraints are contradictory in this metric too
+            return _solve_nullspace(p, core) or core
+        return core
+    if not strict and (p.B.shape[1] or not core.dof):
+        return core
+    error = _closure_error(p, core.xhat, core.y)
+    if error > CLOSURE_RTOL:
+        # the null-space solve can be the worse of the two when the columns of the
+        # constraints differ by many orders of magnitude: keep the one that closes
         fallback = _solve_nullspace(p, core)
-        if fallback is not None:
+        if fallback is not None and _closure_error(p, fallback.xhat, fallback.y) < error:
             return fallback
     return core
 

@@ -278,3 +278,42 @@ def test_summary_refuses_to_write_nan():
     assert "NaN" not in text
     with pytest.raises(ValueError):
         report.dumps({"x": float("nan")})  # strict serialiser: NaN is refused
+
+
+def test_null_space_solve_kept_only_when_it_closes_better(monkeypatch):
+    """The linearised balances of the demo plant (one Newton step of its
+    reconciliation): columns in W, J/kg and kg/s differ by ten orders of magnitude
+    and a few rows hold only tiny terms.  There the projected solve closes better
+    than the null-space solve, so a reconcile_linear call on the same constraints
+    must keep the projected solution."""
+    import perftest.balance.linear as lin
+    from perftest.demo import demo_measurements
+
+    captured = []
+    solve_dense = lin.solve_dense
+
+    def keep(p):
+        captured.append(p)
+        return solve_dense(p)
+
+    monkeypatch.setattr(lin, "solve_dense", keep)
+    plant, m0 = demo_measurements()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        perftest.reconcile(plant, m0)
+    monkeypatch.setattr(lin, "solve_dense", solve_dense)
+    chosen = 0
+    for p in captured:
+        core = solve_dense(p)
+        error = lin._closure_error(p, core.xhat, core.y)
+        fallback = lin._solve_nullspace(p, core)
+        if error <= lin.CLOSURE_RTOL or fallback is None:
+            continue
+        if lin._closure_error(p, fallback.xhat, fallback.y) < error:
+            continue
+        chosen += 1
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            r = perftest.reconcile_linear(p.x, p.S, p.A, b=p.b, B=p.B)
+        np.testing.assert_array_equal(r.x, core.xhat)
+    assert chosen  # the situation occurs in these steps
