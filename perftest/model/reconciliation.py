@@ -50,7 +50,7 @@ TIE_RTOL = 1e-6
 #: but one that says next to nothing (for instance a liquid's pressure known only
 #: through the small pressure dependence of its enthalpy, which may land at
 #: hundreds of bar).  Our own threshold: at u = |value| / 2 the 95 % interval
-#: already spans zero.
+#: (about +-2u) already reaches zero.
 WEAK_RTOL = 0.5
 
 
@@ -469,7 +469,7 @@ def _weak_notes(names, quantities, result) -> list[str]:
     return [
         f"Unmeasured '{names[i]}' ({quantities[names[i]]}) is only weakly determined by "
         f"the balances: {result.y[i]:.4g} with u = {result.y_u[i]:.3g} [SI], more than "
-        f"{WEAK_RTOL:g} of its magnitude; do not use this value, measure it instead."
+        f"{WEAK_RTOL:g} times its magnitude; do not use this value, measure it instead."
         for i in weak
     ]
 
