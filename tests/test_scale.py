@@ -586,37 +586,41 @@ def _write_csv(frame, path):
     out.to_csv(path, float_format="%.6f")
 
 
-def test_run_files_read_a_day_at_a_time(plant, tmp_path):
-    """Three days in one file: same rows as the run read whole (outside check:
-    perftest.read_run of the whole file, then reconcile_many in memory)."""
-    df = logs(3 * 1440 - 30, seed=4)  # ends 00:30 before the third midnight
+def _file_and_whole(plant, path, minutes, seed):
+    """A run file of ``minutes`` one-minute rows from 2031-03-01 and the run read whole."""
+    df = logs(minutes, seed=seed)
     df.index = pd.date_range("2031-03-01 00:00", periods=len(df), freq="1min", tz="UTC")
-    path = tmp_path / "three_days.csv"
     _write_csv(df, path)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        whole = perftest.read_run(path, plant)
-    kw = dict(every="6h", results=False, warm_start=False)
-    expected = reconcile_many(plant, whole, **kw)
-    got = reconcile_many(plant, path, **kw)
-    assert len(got) == 12 and (got["status"] == "ok").all()
+        return perftest.read_run(path, plant)
+
+
+def _same_windows(got, expected):
     cols = ["start", "end", "n_samples", "status", "dof", "passed", "suspects"]
     pd.testing.assert_frame_equal(got[cols], expected[cols])
     # same data and arithmetic: only the order of summation may differ
     np.testing.assert_allclose(got["chi2"], expected["chi2"], rtol=1e-9)
 
 
+def test_run_files_read_a_day_at_a_time(plant, tmp_path):
+    """Three days in one file: same rows as the run read whole (outside check:
+    perftest.read_run of the whole file, then reconcile_many in memory)."""
+    path = tmp_path / "three_days.csv"
+    whole = _file_and_whole(plant, path, 3 * 1440 - 30, 4)  # ends 00:30 before midnight
+    kw = dict(every="6h", results=False, warm_start=False)
+    expected = reconcile_many(plant, whole, **kw)
+    got = reconcile_many(plant, path, **kw)
+    assert len(got) == 12 and (got["status"] == "ok").all()
+    _same_windows(got, expected)
+
+
 def test_run_files_with_windows_longer_than_a_day(plant, tmp_path):
     """Windows of two days (and explicit ones across three midnights) from a file
     read a day at a time: a chunk's piece then spans the days its windows need.
     Outside check as above: the run read whole, then reconcile_many in memory."""
-    df = logs(5 * 1440, seed=6)
-    df.index = pd.date_range("2031-03-01 00:00", periods=len(df), freq="1min", tz="UTC")
     path = tmp_path / "five_days.csv"
-    _write_csv(df, path)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        whole = perftest.read_run(path, plant)
+    whole = _file_and_whole(plant, path, 5 * 1440, 6)
     t = pd.Timestamp("2031-03-01 12:00", tz="UTC")
     for every in (
         "2D",
@@ -627,9 +631,7 @@ def test_run_files_with_windows_longer_than_a_day(plant, tmp_path):
         got = reconcile_many(plant, path, **kw)
         assert (got["status"] == "ok").all()
         assert got["n_samples"].max() >= 2 * 1440  # windows of two days or more, whole
-        cols = ["start", "end", "n_samples", "status", "dof", "passed", "suspects"]
-        pd.testing.assert_frame_equal(got[cols], expected[cols])
-        np.testing.assert_allclose(got["chi2"], expected["chi2"], rtol=1e-9)
+        _same_windows(got, expected)
 
 
 def test_bad_line_in_a_later_day_names_the_original_line(plant, tmp_path):
