@@ -172,20 +172,19 @@ def read_design(plant, *, duration=None, interval=None) -> DesignPoint:
 
         return fail
 
-    if duration is not None:
-        dur = _seconds(duration, "the duration", arg_fail("duration"))
-    elif "duration" in raw:
-        dur = _seconds(raw["duration"], "'duration'", _plant_fail(plant, "design", "duration"))
-    else:
-        dur = DEFAULT_DURATION
-        notes.append("Test duration not stated in [design]: 2 h assumed.")
-    if interval is not None:
-        dt0 = _seconds(interval, "the interval", arg_fail("interval"))
-    elif "interval" in raw:
-        dt0 = _seconds(raw["interval"], "'interval'", _plant_fail(plant, "design", "interval"))
-    else:
-        dt0 = DEFAULT_INTERVAL
-        notes.append("Sampling interval not stated in [design]: 1 min assumed.")
+    def seconds(given, key, default, note):
+        """The argument if given, else the [design] key, else the default (noted)."""
+        if given is not None:
+            return _seconds(given, f"the {key}", arg_fail(key))
+        if key in raw:
+            return _seconds(raw[key], f"'{key}'", _plant_fail(plant, "design", key))
+        notes.append(note)
+        return default
+
+    dur = seconds(duration, "duration", DEFAULT_DURATION,
+                  "Test duration not stated in [design]: 2 h assumed.")  # fmt: skip
+    dt0 = seconds(interval, "interval", DEFAULT_INTERVAL,
+                  "Sampling interval not stated in [design]: 1 min assumed.")  # fmt: skip
     if not dur > 0 or not dt0 > 0:
         raise InputError(
             f"The planned duration and interval must be positive. Got {dur} s and {dt0} s.",

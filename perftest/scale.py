@@ -223,13 +223,22 @@ def local_cluster(n_workers: int | None = None, *, profiler: bool = False, **kwa
     Raises
     ------
     InputError
-        ``distributed`` is not installed.
+        ``n_workers`` is not a whole number of at least 1, or ``distributed`` is not
+        installed.
 
     Notes
     -----
     Workers started elsewhere (``dask worker``) take the same setting from the
     environment variable ``DASK_DISTRIBUTED__WORKER__PROFILE__ENABLED=False``.
     """
+    if n_workers is not None and (
+        isinstance(n_workers, bool) or not isinstance(n_workers, int) or n_workers < 1
+    ):
+        raise InputError(
+            f"The 'n_workers' parameter of local_cluster must be a whole number of at least "
+            f"1, or None for one worker per CPU. Got {n_workers!r}.",
+            parameter="n_workers",
+        )
     dask = _import_dask()
     try:
         from distributed import LocalCluster

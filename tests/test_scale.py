@@ -360,6 +360,15 @@ def test_local_cluster_switches_the_worker_profiler_off():
         assert list(client.run(profiling).values()) == [(True, True)]
 
 
+@pytest.mark.parametrize("n", [0, -2, 1.5, "2", True])
+def test_local_cluster_refuses_a_bad_worker_count(n):
+    pytest.importorskip("distributed")
+    from perftest.scale import local_cluster
+
+    with pytest.raises(InputError, match="'n_workers' parameter of local_cluster"):
+        local_cluster(n)
+
+
 def test_dask_follows_its_configured_scheduler(plant, run):
     dask = pytest.importorskip("dask")
     from perftest.scale import _resolve_scheduler
