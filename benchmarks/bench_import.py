@@ -17,7 +17,7 @@ Method
   in), which tracemalloc would not (pyarrow allocates outside Python's allocator).
 * Warm and cold: the target is checked on a "warm" child, which first reads a
   three-row file of the same layout with the same reader, so that the one-time
-  cost of loading libraries (scipy under ``perftest.run``, pint's unit registry,
+  cost of loading libraries (scipy under ``perftest.run.core``, pint's unit registry,
   pyarrow's CSV code: tens of MB that do not grow with the file) is not counted
   against the file.  A "cold" child, which reads the large file first, is
   measured as well and printed for information.

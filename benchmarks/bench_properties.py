@@ -16,7 +16,7 @@ import time
 import CoolProp.CoolProp as CP
 import numpy as np
 
-from perftest.properties import get_fluid
+from perftest.thermo.properties import get_fluid
 
 N = 100_000
 TARGET = 1.5

@@ -10,7 +10,7 @@ average
     References: (a) ``DataFrame.mean`` + ``DataFrame.std`` (the floor: no
     autocorrelation, no covariance); (b) the same random part as
     ``Run.average`` computed bare with numpy: mean, standard deviation, effective
-    sample size from the FFT autocorrelation (``perftest.stats`` documents the
+    sample size from the FFT autocorrelation (``perftest.run.stats`` documents the
     rule: lags up to n // 4, stop before the first non-positive one, weights
     1 - k/n) and s / sqrt(n_eff).  The largest relative difference of u_random
     between perftest and (b) is printed as a check that both compute the same.
@@ -37,7 +37,7 @@ import pandas as pd
 from scipy import fft as sfft
 from scipy.signal import lfilter
 
-from perftest.run import Run
+from perftest.run.core import Run
 
 PHI = 0.9  # lag-one correlation of the test signals
 

@@ -115,7 +115,7 @@ def main() -> None:
         import dask
         import distributed
 
-        from perftest.scale import local_cluster
+        from perftest.scale.many import local_cluster
     except ImportError:
         print('  dask: not installed (pip install "perftest[scale]"); skipped')
         return

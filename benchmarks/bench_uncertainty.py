@@ -29,7 +29,7 @@ for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
 import numpy as np  # noqa: E402  (after the thread settings)
 import uncertainties  # noqa: E402
 
-from perftest.uncertainty import propagate, propagate_linear  # noqa: E402
+from perftest.evaluation.uncertainty import propagate, propagate_linear  # noqa: E402
 
 TARGET_RATIO = 50.0
 TARGET_RTOL = 1e-9

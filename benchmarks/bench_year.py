@@ -197,7 +197,7 @@ def main() -> None:
 
         from distributed import Client
 
-        from perftest.scale import local_cluster
+        from perftest.scale.many import local_cluster
 
         with local_cluster(args.workers) as cluster, Client(cluster) as client:
             # warm-up: every worker imports perftest, builds the model, sets up properties

@@ -168,7 +168,7 @@ def build_parser() -> argparse.ArgumentParser:
     pl.add_argument("--json", metavar="FILE", help="write the plan as JSON here")
     pl.add_argument("--markdown", metavar="FILE", help="write the plan as Markdown here")
 
-    from perftest.monitor import add_parser as _add_monitor
+    from perftest.scale.monitor import add_parser as _add_monitor
 
     _add_monitor(sub, common)
     return p
@@ -258,11 +258,11 @@ def _run(args) -> int:
     from perftest.demo import run_demo, run_pipeline
 
     if args.command == "plan":
-        from perftest.plan_report import run_plan_command
+        from perftest.report.plan import run_plan_command
 
         return run_plan_command(args)
     if args.command == "monitor":
-        from perftest.monitor import run_command
+        from perftest.scale.monitor import run_command
 
         return run_command(args)
     progress = _Progress(args.quiet)

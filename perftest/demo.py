@@ -28,13 +28,13 @@ DEMO_FILES = ("historian.csv", "logger.csv")
 
 #: Pipeline stages in order, with the module each needs.
 STAGES = {
-    "load plant": "perftest.plantfile",
+    "load plant": "perftest.plant.file",
     "read run": "perftest.importers",
-    "choose window": "perftest.run",
-    "screen outliers": "perftest.run",
-    "average": "perftest.measurements",
-    "reconcile": "perftest.model",
-    "evaluate": "perftest.results",
+    "choose window": "perftest.run.core",
+    "screen outliers": "perftest.run.core",
+    "average": "perftest.run.measurements",
+    "reconcile": "perftest.balance.plant",
+    "evaluate": "perftest.evaluation.results",
     "write reports": "perftest.report",
 }
 
@@ -215,7 +215,7 @@ def run_pipeline(
         return value
 
     def _load():
-        from perftest.plantfile import load_plant
+        from perftest.plant.file import load_plant
 
         return load_plant(plant_path)
 
@@ -249,14 +249,14 @@ def run_pipeline(
     out.measurements = stage("average", lambda: out.window_run.average(), out.window_run)
 
     def _reconcile():
-        from perftest.model import reconcile
+        from perftest.balance.plant import reconcile
 
         return reconcile(out.plant, out.measurements, eliminate=eliminate)
 
     out.reconciliation = stage("reconcile", _reconcile, out.measurements)
 
     def _evaluate():
-        from perftest.results import evaluate
+        from perftest.evaluation.results import evaluate
 
         return evaluate(out.plant, out.reconciliation)
 
@@ -265,7 +265,7 @@ def run_pipeline(
     def _options() -> dict:
         import inspect
 
-        from perftest.results import evaluate
+        from perftest.evaluation.results import evaluate
 
         params = inspect.signature(evaluate).parameters
         return {

@@ -146,7 +146,7 @@ def test_planted_bad_samples_are_excluded_with_reasons(outcome, truth):
 
 def test_missing_stage_is_reported(tmp_path, monkeypatch):
     real = demo._available
-    monkeypatch.setattr(demo, "_available", lambda m: m != "perftest.model" and real(m))
+    monkeypatch.setattr(demo, "_available", lambda m: m != "perftest.balance.plant" and real(m))
     out = demo.run_demo(tmp_path, figures=False)
     assert any(m.startswith("reconcile") for m in out.missing)
     assert any(m.startswith("evaluate") for m in out.missing)

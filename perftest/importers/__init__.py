@@ -1,4 +1,4 @@
-"""Run-file importers: CSV logs into a :class:`~perftest.run.Run`.
+"""Run-file importers: CSV logs into a :class:`~perftest.run.core.Run`.
 
 See docs/run-files.md for the accepted files, the alignment rule and the masks.
 """

@@ -1,4 +1,4 @@
-"""``read_run``: one or several run CSV files into one :class:`~perftest.run.Run`.
+"""``read_run``: one or several run CSV files into one :class:`~perftest.run.core.Run`.
 
 The steps, in order (docs/run-files.md states the rules for users):
 
@@ -428,7 +428,7 @@ def read_run(
     every=None,
     sentinels=None,
 ):
-    """Read one or several run CSV files into a :class:`~perftest.run.Run` (SI inside).
+    """Read one or several run CSV files into a :class:`~perftest.run.core.Run` (SI inside).
 
     Parameters
     ----------
@@ -486,7 +486,7 @@ def read_run(
     (``every`` given).  Nothing is interpolated: an interval without an unmasked
     sample is NaN and masked.  See docs/run-files.md.
     """
-    from perftest.run import Run
+    from perftest.run.core import Run
 
     parts = read_parts(
         paths,
@@ -526,7 +526,7 @@ def read_parts(
         constructor takes them, plus ``warnings`` (messages not yet issued).
     """
     if isinstance(plant, str | os.PathLike):
-        from perftest.plantfile import load_plant
+        from perftest.plant.file import load_plant
 
         plant = load_plant(plant)
     if plant is not None and not hasattr(plant, "tags"):

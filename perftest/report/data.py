@@ -85,7 +85,7 @@ class ReportData:
     critical_z : float
         Critical value of the measurement test.
     audit : dict
-        :meth:`perftest.audit.AuditRecord.to_dict` of the evaluation (empty when
+        :meth:`perftest.report.audit.AuditRecord.to_dict` of the evaluation (empty when
         built by hand).
     """
 
@@ -307,7 +307,7 @@ def collect(
 
     from statistics import NormalDist
 
-    from perftest.audit import build_audit
+    from perftest.report.audit import build_audit
 
     audit = build_audit(
         plant, run, window_run, reconciliation, paths=paths, options=options

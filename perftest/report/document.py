@@ -383,7 +383,7 @@ def sections(data: ReportData, *, figures=()) -> list:
         b.append(Block("h2", "Notes"))
         b.append(Block("list", items=list(data.notes)))
     if data.audit:
-        from perftest.audit import audit_lines
+        from perftest.report.audit import audit_lines
 
         b.append(Block("h2", "Audit record"))
         b.append(

@@ -64,7 +64,7 @@ def summary_json(data: ReportData) -> dict:
         ``{"plant", "perftest_version", "caution", "window", "global_test",
         "measurements", "results", "guarantees", "eliminated", "excluded_samples",
         "corrections", "exergy", "notes", "missing_stages", "timings", "audit"}``.
-        ``audit`` is :meth:`perftest.audit.AuditRecord.to_dict` (masked samples,
+        ``audit`` is :meth:`perftest.report.audit.AuditRecord.to_dict` (masked samples,
         outliers, eliminated instruments, unit conversions, input file SHA-256,
         versions, options, ``created`` time stamp).
         ``global_test`` is ``{"chi2", "dof", "p_value", "passed"}`` (nulls when

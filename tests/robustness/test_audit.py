@@ -17,7 +17,7 @@ import numpy as np
 import pytest
 
 import perftest
-from perftest.audit import build_audit, file_fingerprint, normalise_reason
+from perftest.report.audit import build_audit, file_fingerprint, normalise_reason
 from perftest.demo import run_demo
 
 from .conftest import DEMO, PLANT, RUN, write_text

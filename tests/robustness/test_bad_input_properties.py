@@ -19,7 +19,7 @@ import numpy as np
 import pytest
 
 from perftest.errors import InputError, PerftestError, PropertyRangeError
-from perftest.properties import get_fluid, humid_air_state
+from perftest.thermo.properties import get_fluid, humid_air_state
 
 WATER = get_fluid("water")
 
@@ -180,7 +180,7 @@ def test_bad_property_call(call, error, fragment):
         call()
 
 
-# NaN is the property layer's mark of a gap in a logged signal (perftest.properties
+# NaN is the property layer's mark of a gap in a logged signal (perftest.thermo.properties
 # module notes: "NaN inputs give NaN outputs"): it must come out as NaN at that
 # element only, never as a made-up finite number and never spread to the other
 # elements.  The layers above refuse NaN before it reaches a result (see

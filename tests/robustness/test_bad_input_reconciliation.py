@@ -17,7 +17,7 @@ import pytest
 
 import perftest
 from perftest.errors import ConvergenceError, InputError, PerftestError
-from perftest.measurements import Measurements
+from perftest.run.measurements import Measurements
 
 # A splitter: stream 1 = stream 2 + stream 3.  Flows in kg/s (invented numbers).
 X = np.array([100.0, 60.0, 41.0])

@@ -20,8 +20,8 @@ import pytest
 
 import perftest
 from perftest.errors import PerftestError
-from perftest.measurements import Measurements
-from perftest.properties import get_fluid
+from perftest.run.measurements import Measurements
+from perftest.thermo.properties import get_fluid
 
 
 def reference_solution(x, u, A, b):

@@ -97,8 +97,8 @@ def test_the_source_check_can_fail(tmp_path):
 
 def test_plant_file_is_parsed_as_data_only():
     # the plant file is read with tomllib (a data format: no expressions); no other
-    # parser is imported by perftest.plantfile
-    tree = ast.parse((PACKAGE / "plantfile.py").read_text(encoding="utf-8"))
+    # parser is imported by perftest.plant.file
+    tree = ast.parse((PACKAGE / "plant" / "file.py").read_text(encoding="utf-8"))
     imported = {a.name for n in ast.walk(tree) if isinstance(n, ast.Import) for a in n.names}
     imported |= {n.module for n in ast.walk(tree) if isinstance(n, ast.ImportFrom) and n.module}
     assert "tomllib" in imported

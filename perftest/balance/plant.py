@@ -1,0 +1,751 @@
+"""Reconciling a plant's measurements: :func:`reconcile` and its result."""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass, field
+from functools import cached_property
+
+import numpy as np
+import pandas as pd
+import scipy.sparse as sp
+
+from perftest.errors import InputError, ReconciliationWarning
+from perftest.plant import states as thermo
+from perftest.plant.equations import PlantModel, build_model
+from perftest.plant.guess import initial_guess
+
+__all__ = [
+    "PlantReconciliation",
+    "EliminatedTag",
+    "reconcile",
+    "DEFAULT_DEAD_STATE",
+    "WEAK_RTOL",
+]
+
+#: Dead state used when the plant file states none: 25 degC and one standard
+#: atmosphere, the usual reference environment of exergy tables (common practice,
+#: no source).
+DEFAULT_DEAD_STATE = (298.15, 101325.0)
+
+# Problems with at most this many variables (measured + unmeasured) go to the balance
+# engine with dense Jacobians; larger ones sparse (see _solve).
+_DENSE_LIMIT = 500
+
+# Stream quantities derived from (p, h) after the reconciliation.
+_DERIVED = ("entropy", "exergy", "exergy_flow")
+_DERIVED_QUANTITY = {
+    "entropy": "specific_entropy",
+    "exergy": "specific_exergy",
+    "exergy_flow": "power",
+}
+
+
+#: Relative tolerance below which two measurement-test statistics count as equal.
+TIE_RTOL = 1e-6
+
+#: An observable unmeasured variable whose standard uncertainty exceeds this
+#: fraction of its magnitude is "weakly determined": the balances give it a value,
+#: but one that says next to nothing (for instance a liquid's pressure known only
+#: through the small pressure dependence of its enthalpy, which may land at
+#: hundreds of bar).  Our own threshold: at u = |value| / 2 the 95 % interval
+#: (about +-2u) already reaches zero.
+WEAK_RTOL = 0.5
+
+
+@dataclass(frozen=True)
+class EliminatedTag:
+    """One step of serial elimination: the tag dropped and the test that dropped it.
+
+    Attributes
+    ----------
+    tag : str
+        Tag or group id moved to the unmeasured variables.
+    z : float
+        Its measurement-test statistic before it was dropped.
+    chi2, dof, p_value : float, int, float
+        Global test before it was dropped.
+    tied_with : tuple of str
+        Other redundant tags whose statistic equals ``z`` (to 1e-6 relative).  The
+        measurement test cannot tell these apart (they sit in the same balances in
+        the same way), so the choice of ``tag`` among them is arbitrary and any of
+        them may be the faulty one; reports say so.
+    """
+
+    tag: str
+    z: float
+    chi2: float
+    dof: int
+    p_value: float
+    tied_with: tuple = ()
+
+
+@dataclass(frozen=True, eq=False)
+class PlantReconciliation:
+    """Outcome of :func:`reconcile`.
+
+    Attributes
+    ----------
+    plant : Plant
+    model : PlantModel
+        The model as bound in the final reconciliation.
+    measurements : Measurements
+        As passed in.
+    result : perftest.balance.Reconciliation
+        The balance engine's result; its ``x`` holds ``solver_tags``.
+    solver_tags : tuple of str
+        Tags in ``result.x``: the model's measured tags, then tags outside the
+        balance that are correlated with them (adjusted through the correlation).
+    carried : tuple of str
+        Tags outside the balance and uncorrelated with it: carried through unchanged.
+    eliminated : tuple of EliminatedTag
+        Serial-elimination steps (empty unless ``eliminate=True``).
+    alpha : float
+        Significance level of the global and measurement tests.
+    dead_state : tuple of float
+        ``(T0 [K], p0 [Pa])`` of the exergy values.
+    dead_state_source : str
+        Where the dead state came from (plant file value, tag or default).
+    """
+
+    plant: object
+    model: PlantModel
+    measurements: object
+    result: object
+    solver_tags: tuple
+    carried: tuple
+    eliminated: tuple
+    alpha: float
+    dead_state: tuple
+    dead_state_source: str
+    _T0_index: int | None = field(default=None, repr=False)
+
+    # ------------------------------------------------------------ joint vector
+    # Every reported quantity is a linear function (at the solution) of the joint
+    # vector z = [x (solver tags), y (unmeasured), carried tags].
+    @cached_property
+    def _joint(self):
+        r = self.result
+        n, k = r.x.size, r.y.size
+        meas = self.measurements
+        ci = np.array([meas.index(t) for t in self.carried], dtype=int)
+        c = ci.size
+        values = np.concatenate([r.x, r.y, np.asarray(meas.value, dtype=float)[ci]])
+        cov = np.zeros((n + k + c, n + k + c))
+        cov[:n, :n] = r.x_cov
+        cov[:n, n : n + k] = r.xy_cov
+        cov[n : n + k, :n] = np.asarray(r.xy_cov).T
+        cov[n : n + k, n : n + k] = r.y_cov
+        cov[n + k :, n + k :] = meas.cov[np.ix_(ci, ci)]
+        where = {t: i for i, t in enumerate(self.solver_tags)}
+        where.update({t: n + k + i for i, t in enumerate(self.carried)})
+        return values, cov, where
+
+    @cached_property
+    def _slots(self) -> np.ndarray:
+        """Values of every model variable at the solution."""
+        return self.model.slot_values(self.result.x[: self.model.n_x], self.result.y)
+
+    def _slot_gradient(self, slot: int) -> tuple[float, dict]:
+        model = self.model
+        n = self.result.x.size
+        if model._slot_x[slot] >= 0:
+            return float(self._slots[slot]), {int(model._slot_x[slot]): 1.0}
+        if model._slot_y[slot] >= 0:
+            j = int(model._slot_y[slot])
+            return float(self._slots[slot]), {n + j: 1.0}
+        return float(self._slots[slot]), {}
+
+    @cached_property
+    def _derived(self) -> dict:
+        """Entropy and exergy of every stream from (p, h), with their gradients."""
+        T0, p0 = self.dead_state
+        out = {}
+        idx = self.model.index
+        by_fluid: dict = {}
+        for sid, st in self.model.spec.streams.items():
+            by_fluid.setdefault(st.fluid, []).append(sid)
+        for fl, sids in by_fluid.items():
+            p = np.array([self._slots[idx[f"{s}.pressure"]] for s in sids])
+            h = np.array([self._slots[idx[f"{s}.enthalpy"]] for s in sids])
+            st = thermo.state_ph(fl, p, h, tuple(sids))
+            T = np.atleast_1d(np.asarray(st.T, dtype=float))
+            s = np.atleast_1d(np.asarray(st.s, dtype=float))
+            rho = np.atleast_1d(np.asarray(st.rho, dtype=float))
+            h0, s0 = thermo.dead_state(fl, T0, p0)
+            for i, sid in enumerate(sids):
+                out[sid] = dict(T=T[i], s=s[i], rho=rho[i], e=h[i] - h0 - T0 * (s[i] - s0), s0=s0)
+        return out
+
+    def _linear(self, name: str) -> tuple[float, dict]:
+        """Value and gradient (over the joint vector) of a tag or model variable."""
+        _, _, where = self._joint
+        model = self.model
+        if name in where:
+            i = where[name]
+            return float(self._joint[0][i]), {i: 1.0}
+        if name in model.index:
+            return self._slot_gradient(model.index[name])
+        elim = {e.tag for e in self.eliminated}
+        if name in elim or name in model.spec.tag_ids:
+            # A tag not in x (dropped or never measured): its estimate is the model
+            # variable it measures.
+            for slot, var in enumerate(model.variables):
+                if model.sources[var].tag == name:
+                    return self._slot_gradient(slot)
+        stream, _, var = name.rpartition(".")
+        if stream in model.spec.streams and var in _DERIVED:
+            d = self._derived[stream]
+            pv, pg = self._slot_gradient(model.index[f"{stream}.pressure"])
+            hv, hg = self._slot_gradient(model.index[f"{stream}.enthalpy"])
+            T0 = self.dead_state[0]
+            # Gibbs relation T ds = dh - v dp: ds/dh = 1/T, ds/dp = -1/(rho T);
+            # exergy e = h - h0 - T0 (s - s0).
+            if var == "entropy":
+                value, dh, dp = d["s"], 1.0 / d["T"], -1.0 / (d["rho"] * d["T"])
+            else:
+                value, dh, dp = d["e"], 1.0 - T0 / d["T"], T0 / (d["rho"] * d["T"])
+            grad: dict = {}
+            for g, c in ((hg, dh), (pg, dp)):
+                for i, a in g.items():
+                    grad[i] = grad.get(i, 0.0) + a * c
+            if var != "entropy" and self._T0_index is not None:
+                # de/dT0 = -(s - s0) at fixed p0 (dh0 = T0 ds0 along the isobar)
+                grad[self._T0_index] = grad.get(self._T0_index, 0.0) - (d["s"] - d["s0"])
+            if var == "exergy_flow":
+                mv, mg = self._slot_gradient(model.index[f"{stream}.mass_flow"])
+                grad = {i: mv * a for i, a in grad.items()}
+                for i, a in mg.items():
+                    grad[i] = grad.get(i, 0.0) + a * value
+                value = mv * value
+            return float(value), grad
+        raise InputError(
+            f"The 'name' parameter must be a tag, a group or a model variable of plant "
+            f"'{self.plant.name}' ('<stream>.mass_flow|pressure|temperature|enthalpy|"
+            f"entropy|exergy|exergy_flow', '<unit>.power|heat|heat_loss|losses'). "
+            f"Got {name!r}.",
+            parameter="name",
+        )
+
+    def value(self, name: str) -> float:
+        """Reconciled value of a tag or model variable [SI].
+
+        Parameters
+        ----------
+        name : str
+            Tag or group id (reconciled value; for tags outside the balance the
+            measured value), or a model variable such as ``"main_steam.temperature"``,
+            ``"hp_turbine.power"``, ``"boiler.heat"``, ``"main_steam.exergy"``.
+
+        Returns
+        -------
+        float
+            ``nan`` for an unobservable unmeasured variable.
+        """
+        return self._linear(name)[0]
+
+    def uncertainty(self, name: str) -> float:
+        """Standard uncertainty of :meth:`value` [SI]."""
+        return float(np.sqrt(self.covariance([name])[0, 0]))
+
+    def covariance(self, names) -> np.ndarray:
+        """Joint covariance of tags and model variables [SI].
+
+        Parameters
+        ----------
+        names : sequence of str
+            As for :meth:`value`.
+
+        Returns
+        -------
+        ndarray (len(names), len(names))
+            From the reconciled covariance, propagated linearly through the property
+            derivatives for entropy and exergy.  Rows of unobservable variables are nan.
+        """
+        if isinstance(names, str):
+            names = [names]
+        _, cov, _ = self._joint
+        G = np.zeros((len(names), cov.shape[0]))
+        for r, name in enumerate(names):
+            value, grad = self._linear(name)
+            for i, a in grad.items():
+                G[r, i] += a
+            if not math.isfinite(value):
+                G[r, :] = np.nan
+        # nan entries of y_cov (unobservable) must not leak into observable rows
+        used = np.flatnonzero(np.any(G != 0, axis=0) | np.any(np.isnan(G), axis=0))
+        Gu = np.nan_to_num(G[:, used])
+        out = Gu @ np.nan_to_num(cov[np.ix_(used, used)]) @ Gu.T
+        bad = np.any(np.isnan(G), axis=1) | np.any(
+            (G[:, used] != 0) & np.isnan(np.diag(cov)[used])[None, :], axis=1
+        )
+        out[bad, :] = np.nan
+        out[:, bad] = np.nan
+        return out
+
+    # ------------------------------------------------------------ tables
+    @property
+    def global_test(self) -> dict:
+        """``{"chi2", "dof", "p_value", "passed"}`` of the final reconciliation."""
+        r = self.result
+        return {
+            "chi2": float(r.chi2),
+            "dof": int(r.dof),
+            "p_value": float(r.p_value),
+            "passed": bool(r.p_value >= self.alpha),
+        }
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per measured tag (every tag of the measurements).
+
+        Returns
+        -------
+        pandas.DataFrame
+            Columns ``tag, quantity, measured, u_measured, reconciled, u_reconciled,
+            adjustment, z, redundant, suspect, in_balance, eliminated, variables``
+            [SI].  Tags outside the balance keep their measured value (``in_balance``
+            False, ``z`` nan); eliminated tags show the balance's estimate of the
+            variable they measured and are marked suspect.
+        """
+        r = self.result
+        meas = self.measurements
+        pos = {t: i for i, t in enumerate(self.solver_tags)}
+        flagged = set(int(i) for i in r.suspects(self.alpha))
+        elim = {e.tag for e in self.eliminated}
+        uses: dict = {}
+        for var in self.model.variables:
+            tag = self.model.sources[var].tag
+            if tag is not None:
+                uses.setdefault(tag, []).append(var)
+        rows = []
+        for i, tag in enumerate(meas.tags):
+            measured = float(meas.value[i])
+            u_m = float(meas.u[i])
+            z = float("nan")
+            redundant = suspect = False
+            if tag in pos:
+                j = pos[tag]
+                rec, u_rec = float(r.x[j]), float(r.u_reconciled[j])
+                z = float(r.z[j])
+                redundant = bool(r.redundant[j])
+                suspect = j in flagged
+            elif tag in elim or tag in uses:
+                rec, u_rec = self.value(tag), self.uncertainty(tag)
+                suspect = tag in elim
+            else:
+                rec, u_rec = measured, u_m
+            rows.append(
+                dict(
+                    tag=tag,
+                    quantity=meas.quantities[i],
+                    measured=measured,
+                    u_measured=u_m,
+                    reconciled=rec,
+                    u_reconciled=u_rec,
+                    adjustment=rec - measured,
+                    z=z,
+                    redundant=redundant,
+                    suspect=suspect,
+                    in_balance=tag in uses,
+                    eliminated=tag in elim,
+                    variables=", ".join(uses.get(tag, ())),
+                )
+            )
+        return pd.DataFrame(rows)
+
+    @cached_property
+    def streams(self) -> pd.DataFrame:
+        """Reconciled state of every stream, with standard uncertainties.
+
+        Index: stream id.  Columns ``fluid, phase`` and, each followed by ``u_<name>``:
+        ``mass_flow`` [kg/s], ``pressure`` [Pa], ``temperature`` [K], ``enthalpy``
+        [J/kg], ``entropy`` [J/(kg K)], ``exergy`` [J/kg] (specific flow exergy
+        against :attr:`dead_state`) and ``exergy_flow`` [W].
+        """
+        cols = ("mass_flow", "pressure", "temperature", "enthalpy", *_DERIVED)
+        records = []
+        for sid, st in self.model.spec.streams.items():
+            names = [f"{sid}.{c}" for c in cols]
+            cov = self.covariance(names)
+            rec = {"stream": sid, "fluid": st.fluid, "phase": st.phase}
+            for j, c in enumerate(cols):
+                rec[c] = self.value(names[j])
+                rec[f"u_{c}"] = float(np.sqrt(cov[j, j]))
+            records.append(rec)
+        return pd.DataFrame(records).set_index("stream")
+
+    @cached_property
+    def unmeasured(self) -> pd.DataFrame:
+        """Estimates of the unmeasured model variables.
+
+        Columns ``name, quantity, value, u, observable, weak`` [SI]; value and u
+        are nan where the balances do not determine the variable; ``weak`` marks an
+        observable variable whose u exceeds ``WEAK_RTOL`` times its magnitude
+        (determined in name only: do not use its value).
+        """
+        r = self.result
+        names = self.model.unmeasured
+        return pd.DataFrame(
+            {
+                "name": list(names),
+                "quantity": [self.model.quantities[n] for n in names],
+                "value": r.y,
+                "u": r.y_u,
+                "observable": r.observable,
+                "weak": _weak(r),
+            }
+        )
+
+    @property
+    def notes(self) -> tuple:
+        """Notes for the reports: the weakly determined unmeasured variables."""
+        return tuple(_weak_notes(self.model.unmeasured, self.model.quantities, self.result))
+
+    def closure(self) -> pd.DataFrame:
+        """Mass and energy imbalance of every unit at the reconciled values.
+
+        Computed directly from the reconciled stream values and unit variables
+        (not from the solver's residuals):
+        mass :math:`\\sum_{in}\\dot m - \\sum_{out}\\dot m` [kg/s] over all streams of
+        the unit, energy :math:`\\sum_{in}\\dot m h - \\sum_{out}\\dot m h + \\dot Q_{in}
+        - P_{out} - \\dot Q_{out} - \\dot Q_{loss}` [W] (for a generator
+        :math:`\\sum P_{turbine} - P_e - L`).  Both should be ~0.
+
+        Returns
+        -------
+        pandas.DataFrame
+            Columns ``unit, type, mass_imbalance, energy_imbalance, energy_throughput``;
+            ``energy_throughput`` [W] is the sum of the inflowing energy terms, a size
+            for judging the imbalance.
+        """
+        v = self._slots
+        idx = self.model.index
+        out = []
+        for uid, unit in self.model.spec.units.items():
+
+            def val(name):
+                return v[idx[name]] if name in idx else 0.0
+
+            if unit.type == "generator":
+                shaft = sum(val(f"{t}.power") for t in unit.shaft)
+                elec = val(f"{uid}.power")
+                loss = val(f"{uid}.losses") + (unit.loss_fraction or 0.0) * elec
+                out.append((uid, unit.declared_type, np.nan, shaft - elec - loss, shaft))
+                continue
+            m_in = sum(val(f"{s}.mass_flow") for s in unit.inlets)
+            m_out = sum(val(f"{s}.mass_flow") for s in unit.outlets)
+            e_in = sum(val(f"{s}.mass_flow") * val(f"{s}.enthalpy") for s in unit.inlets)
+            e_out = sum(val(f"{s}.mass_flow") * val(f"{s}.enthalpy") for s in unit.outlets)
+            t = unit.type
+            extra = 0.0
+            if t in ("turbine", "generic"):
+                extra -= val(f"{uid}.power")
+            if t == "pump":
+                extra += val(f"{uid}.power")
+            if t in ("boiler", "generic"):
+                extra += val(f"{uid}.heat")
+            if t == "condenser" and not unit.ports.get("coolant_inlet"):
+                extra -= val(f"{uid}.heat")
+            extra -= val(f"{uid}.heat_loss")
+            energy = e_in - e_out + extra if "energy" in unit.balances else np.nan
+            mass = m_in - m_out if "mass" in unit.balances else np.nan
+            out.append((uid, unit.declared_type, mass, energy, e_in + max(extra, 0.0)))
+        cols = ["unit", "type", "mass_imbalance", "energy_imbalance", "energy_throughput"]
+        return pd.DataFrame(out, columns=cols)
+
+
+def _weak(result) -> np.ndarray:
+    """Observable unmeasured variables with u > WEAK_RTOL * |value|."""
+    y = np.asarray(result.y, dtype=float)
+    u = np.asarray(result.y_u, dtype=float)
+    obs = np.asarray(result.observable, dtype=bool)
+    with np.errstate(invalid="ignore"):
+        return obs & np.isfinite(y) & (u > WEAK_RTOL * np.abs(y))
+
+
+def _weak_notes(names, quantities, result) -> list[str]:
+    weak = np.flatnonzero(_weak(result))
+    return [
+        f"Unmeasured '{names[i]}' ({quantities[names[i]]}) is only weakly determined by "
+        f"the balances: {result.y[i]:.4g} with u = {result.y_u[i]:.3g} [SI], more than "
+        f"{WEAK_RTOL:g} times its magnitude; do not use this value, measure it instead."
+        for i in weak
+    ]
+
+
+def _dead_state(plant, measurements):
+    site = plant.site
+    T0, p0 = DEFAULT_DEAD_STATE
+    src = []
+    T0_tag = None
+    if site.dead_state_temperature is not None:
+        T0 = float(site.dead_state_temperature)
+        src.append("T0 from [site] dead_state_temperature")
+    elif site.dead_state_temperature_tag and site.dead_state_temperature_tag in measurements:
+        T0_tag = site.dead_state_temperature_tag
+        T0 = float(measurements[T0_tag].value)
+        src.append(f"T0 = mean of tag '{T0_tag}'")
+    else:
+        src.append("T0 = 298.15 K (default)")
+    tag = site.dead_state_pressure_tag
+    if tag and tag in measurements:
+        p0 = float(measurements[tag].value)
+        src.append(f"p0 = mean of tag '{tag}'")
+    elif site.dead_state_pressure is not None:
+        p0 = float(site.dead_state_pressure)
+        src.append("p0 from [site] (default 101.325 kPa)")
+    return (T0, p0), "; ".join(src), T0_tag
+
+
+def _solve(model: PlantModel, extra: tuple, measurements, y0):
+    """Run the balance engine on ``model`` with tags ``extra`` appended to ``x``."""
+    from perftest.balance import reconcile_nonlinear
+
+    tags = (*model.measured, *extra)
+    idx = np.array([measurements.index(t) for t in tags], dtype=int)
+    x = np.asarray(measurements.value, dtype=float)[idx]
+    cov = np.asarray(measurements.cov, dtype=float)[np.ix_(idx, idx)]
+    n = model.n_x
+
+    def residual(xx, yy):
+        return model.residual(xx[:n], yy)
+
+    # The model's Jacobian is sparse; the balance engine's dense path is faster for
+    # plant-sized problems (measured on benchmarks/bench_model.py: 185 variables,
+    # dense about 2x faster), so small problems are handed over dense.
+    dense = len(tags) + model.n_y <= _DENSE_LIMIT
+
+    def jacobian(xx, yy):
+        Jx, Jy = model.jacobian(xx[:n], yy)
+        if extra:
+            Jx = sp.hstack([Jx, sp.csr_matrix((Jx.shape[0], len(extra)))], format="csr")
+        if dense:
+            return Jx.toarray(), Jy.toarray()
+        return Jx, Jy
+
+    # y sizes for the step test: the engineering size of each quantity, so that a
+    # near-zero heat loss is not judged relative to 1 W.
+    typical = {
+        "mass_flow": 1.0,
+        "pressure": 1e5,
+        "temperature": 1.0,
+        "specific_enthalpy": 1e3,
+        "power": 1e3,
+        "heat_flow": 1e3,
+        "fraction": 1e-3,
+    }
+    y_scale = np.array([typical.get(model.quantities[v], 1.0) for v in model.unmeasured])
+    y_scale = np.maximum(np.abs(y0), y_scale) if y0.size else y_scale
+    return reconcile_nonlinear(residual, x, cov, y0=y0, jacobian=jacobian, y_scale=y_scale), tags
+
+
+def _warm_solve(model: PlantModel, extra: tuple, measurements, x0, start):
+    """``_solve`` from ``start`` (see :func:`reconcile`), or None to start cold."""
+    from perftest.errors import PerftestError
+
+    if start is None:
+        return None
+    if isinstance(start, PlantReconciliation):
+        start = {name: start._slots[i] for name, i in start.model.index.items()}
+    from collections.abc import Mapping
+
+    if not isinstance(start, Mapping):
+        raise InputError(
+            "The 'start' parameter of reconcile must be a PlantReconciliation or a mapping "
+            f"of model variable name -> value [SI]. Got {type(start).__name__}.",
+            parameter="start",
+        )
+    y0 = np.array([float(start.get(v, np.nan)) for v in model.unmeasured], dtype=float)
+    if not np.all(np.isfinite(y0)):
+        cold = initial_guess(model, x0)
+        y0 = np.where(np.isfinite(y0), y0, cold)
+    try:
+        model.residual(x0, y0)
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            out = _solve(model, extra, measurements, y0)
+    except (PerftestError, ArithmeticError, ValueError):
+        # PerftestError includes ConvergenceError and PropertyRangeError: the cold
+        # start decides, so that a window fails exactly as it does without a start.
+        return None
+    for w in caught:  # the solver's own notes, issued as the cold path issues them
+        warnings.warn(w.message, w.category, stacklevel=3)
+    return out
+
+
+def reconcile(
+    plant, measurements, *, eliminate=False, alpha=0.05, start=None
+) -> PlantReconciliation:
+    """Reconcile a plant's measurements against its mass and energy balances.
+
+    Parameters
+    ----------
+    plant : perftest.plant.file.Plant
+        The plant (its ``[streams]`` and ``[units]`` make the model).
+    measurements : perftest.run.measurements.Measurements
+        Averaged tag values [SI] with their covariance.
+    eliminate : bool
+        When the global test fails, drop the measurement with the largest
+        measurement-test statistic, reconcile again, and repeat until the test
+        passes or nothing redundant is left (serial elimination).
+    alpha : float
+        Significance level of the global and measurement tests.
+    start : PlantReconciliation or mapping of str to float, optional
+        Starting values of the unmeasured variables [SI]: a reconciliation of the
+        same plant (e.g. the neighbouring window of a trend) or model variable name
+        -> value.  Variables it lacks start from the usual initial guess.  Only the
+        path to the solution changes: a start that is not a valid state, or from
+        which the iteration does not converge, is dropped and the usual initial
+        guess used, so failures are those of a call without ``start``.
+
+    Returns
+    -------
+    PlantReconciliation
+
+    Raises
+    ------
+    PlantFileError
+        The plant's streams or units are invalid.
+    PropertyRangeError
+        A stream's state lies outside the property range or on the wrong side of
+        saturation for its declared phase (names the stream and the state).
+    ConvergenceError
+        The nonlinear reconciliation did not converge.
+
+    Notes
+    -----
+    Tags the model uses but the measurements lack (or hold as nan) become
+    unmeasured variables, with a :class:`ReconciliationWarning`.  Tags the model does
+    not use are carried through unchanged, except those correlated with a tag in the
+    balance (a shared calibration): these enter the reconciliation without a balance
+    of their own, so the correlation adjusts them consistently.
+    """
+    if not hasattr(plant, "tags") or not hasattr(plant, "sections"):
+        raise InputError(
+            "The 'plant' parameter of reconcile must be a Plant (perftest.load_plant). "
+            f"Got {type(plant).__name__}.",
+            parameter="plant",
+        )
+    if not all(hasattr(measurements, a) for a in ("value", "cov", "tags", "index")):
+        raise InputError(
+            "The 'measurements' parameter of reconcile must be Measurements (Run.average()). "
+            f"Got {type(measurements).__name__}.",
+            parameter="measurements",
+        )
+    if not 0.0 < alpha < 1.0:
+        raise InputError(
+            f"The 'alpha' parameter of reconcile must be between 0 and 1. Got {alpha!r}.",
+            parameter="alpha",
+        )
+    model = build_model(plant)
+    values = np.asarray(measurements.value, dtype=float)
+    present = [
+        t
+        for t in model.spec.tag_ids
+        if t in measurements and math.isfinite(values[measurements.index(t)])
+    ]
+    missing = [t for t in model.spec.tag_ids if t not in present]
+    if missing:
+        warnings.warn(
+            f"Tags {', '.join(missing)} are used by the plant model but have no measured "
+            "value; they are treated as unmeasured.",
+            ReconciliationWarning,
+            stacklevel=2,
+        )
+    for t in present:
+        if not measurements[t].u > 0:
+            raise InputError(
+                f"Tag '{t}' has a zero uncertainty, which the reconciliation cannot weigh. "
+                "State its uncertainty in the plant file or make the variable a fixed value.",
+                tag=t,
+            )
+    model = model.bind(present)
+    in_model = set(present)
+    cov = np.asarray(measurements.cov, dtype=float)
+    mi = [measurements.index(t) for t in present]
+    extra, carried = [], []
+    for i, t in enumerate(measurements.tags):
+        if t in in_model or t in model.spec.tag_ids:
+            continue
+        correlated = mi and np.any(cov[i, mi] != 0.0)
+        (extra if correlated and math.isfinite(values[i]) else carried).append(t)
+    extra = tuple(extra)
+
+    x0 = values[[measurements.index(t) for t in model.measured]]
+    result = _warm_solve(model, extra, measurements, x0, start)
+    if result is None:
+        y0 = initial_guess(model, x0)
+        # The starting point must be a valid state of every stream; this raises a
+        # PropertyRangeError naming the stream otherwise.
+        model.residual(x0, y0)
+        result, tags = _solve(model, extra, measurements, y0)
+    else:
+        result, tags = result
+
+    steps = []
+    # Serial elimination, the same rule as perftest.balance.serial_elimination: while
+    # the global test fails and redundancy remains, the redundant measurement with the
+    # largest measurement-test statistic becomes unmeasured.  Here "unmeasured" means
+    # the model variables the tag measured become entries of y again.
+    while eliminate and result.p_value < alpha and result.dof > 0:
+        z = np.where(result.redundant, result.z, -np.inf)[: model.n_x]
+        z = np.where(np.isnan(z), -np.inf, z)
+        if not np.isfinite(z.max(initial=-np.inf)):
+            break
+        j = int(np.argmax(z))
+        tag = model.measured[j]
+        # Equal statistics (to round-off) cannot be told apart by the test.
+        tied = tuple(
+            model.measured[i] for i in np.flatnonzero(z >= z[j] * (1.0 - TIE_RTOL)) if i != j
+        )
+        steps.append(
+            EliminatedTag(
+                tag,
+                float(result.z[j]),
+                float(result.chi2),
+                int(result.dof),
+                float(result.p_value),
+                tied,
+            )
+        )
+        previous = model.slot_values(result.x[: model.n_x], result.y)
+        model = model.bind([t for t in model.measured if t != tag])
+        y_next = previous[model._ys]
+        if not np.all(np.isfinite(y_next)):
+            # a variable the previous step left unobservable (nan) starts from the
+            # usual initial guess
+            x_next = values[[measurements.index(t) for t in model.measured]]
+            y_next = np.where(np.isfinite(y_next), y_next, initial_guess(model, x_next))
+        with warnings.catch_warnings():
+            # dof reaching 0 is an expected end of elimination, not news
+            warnings.simplefilter("ignore", ReconciliationWarning)
+            result, tags = _solve(model, extra, measurements, y_next)
+
+    dead, dead_src, T0_tag = _dead_state(plant, measurements)
+    rec = PlantReconciliation(
+        plant=plant,
+        model=model,
+        measurements=measurements,
+        result=result,
+        solver_tags=tuple(tags),
+        carried=tuple(carried),
+        eliminated=tuple(steps),
+        alpha=float(alpha),
+        dead_state=dead,
+        dead_state_source=dead_src,
+    )
+    if T0_tag is not None:
+        _, _, where = rec._joint
+        object.__setattr__(rec, "_T0_index", where.get(T0_tag))
+    for text in _weak_notes(model.unmeasured, model.quantities, result):
+        warnings.warn(text, ReconciliationWarning, stacklevel=2)
+    if not rec.global_test["passed"]:
+        warnings.warn(
+            f"The global test fails (chi2 = {result.chi2:.3g}, dof = {result.dof}, "
+            f"p = {result.p_value:.3g} < alpha = {alpha}): some measurements or the "
+            "model disagree. See to_frame() for suspects, or use eliminate=True.",
+            ReconciliationWarning,
+            stacklevel=2,
+        )
+    return rec

@@ -1,0 +1,572 @@
+"""Balance equations of a plant as scaled residuals with a sparse analytic Jacobian.
+
+Variables
+---------
+Every stream carries four *model variables* (``<stream>.mass_flow``,
+``.pressure``, ``.temperature``, ``.enthalpy``), a wet stream with a measured or
+fixed quality also ``.quality``; units carry ``<unit>.power``, ``.heat``,
+``.heat_loss`` and (generators) ``.losses`` where their type uses them.  Each model
+variable is either
+
+* **measured**: it equals the value of a tag or group in ``x`` (one tag may
+  measure several model variables, e.g. one pressure transmitter for the
+  outlets of a splitter: they are then equal by assumption);
+* **fixed**: a constant from the plant file;
+* **unmeasured**: an entry of ``y`` (named like the model variable).
+
+Enthalpy is a variable of its own, tied to the state by a *state equation*
+(``h - h(p, T) = 0`` for single-phase streams, ``T - T_sat(p) = 0`` for wet
+streams, plus ``h - h(p, x) = 0`` when the quality is known).  This keeps the
+energy balances bilinear in (m, h), lets an enthalpy be measured like any other
+variable, and leaves a wet turbine exhaust with measured pressure and an
+unmeasured enthalpy that the turbine energy balance determines.
+
+Scaling
+-------
+Each residual is divided by a fixed engineering unit so that an imbalance of the
+size of a good instrument's uncertainty is O(0.1-1): mass balances in kg/s,
+energy balances and the generator equation in MW, state and enthalpy equalities in
+kJ/kg, pressure equalities in bar, saturation equations in K.  Scaling a row does
+not change the solution of the weighted least-squares problem (the linearised
+constraint set is the same), only what the solver sees; :meth:`PlantModel.imbalance`
+gives the unscaled residuals, which the balances satisfy in absolute terms.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from functools import cached_property
+
+import numpy as np
+import scipy.sparse as sp
+
+from perftest.errors import InputError
+from perftest.plant import states as thermo
+from perftest.plant.spec import STREAM_VARIABLES, ModelSpec, Source, read_model_spec
+
+__all__ = ["PlantModel", "Row", "build_model"]
+
+# Divisors of the residual rows (see module docstring).
+_SCALE = {
+    "mass": 1.0,  # kg/s
+    "energy": 1.0e6,  # W -> MW
+    "state": 1.0e3,  # J/kg -> kJ/kg
+    "saturation": 1.0,  # K
+    "quality": 1.0e3,  # J/kg -> kJ/kg
+    "equal_h": 1.0e3,  # J/kg -> kJ/kg
+    "equal_p": 1.0e5,  # Pa -> bar
+}
+
+_UNIT_QUANTITY = {
+    "power": "power",
+    "heat": "heat_flow",
+    "heat_loss": "heat_flow",
+    "losses": "power",
+}
+_STREAM_QUANTITY = dict(STREAM_VARIABLES, quality="fraction")
+
+
+@dataclass(frozen=True)
+class Row:
+    """One balance equation.
+
+    Attributes
+    ----------
+    name : str
+        ``"<unit>:mass"``, ``"<unit>:energy"``, ``"<stream>:state"`` ...
+    kind : str
+        Key of the scaling table (``mass``, ``energy``, ``state`` ...).
+    owner : str
+        Unit or stream id the equation belongs to.
+    scale : float
+        Divisor of the residual [SI unit of the row].
+    """
+
+    name: str
+    kind: str
+    owner: str
+    scale: float
+
+
+class _Builder:
+    """Collects variables and equation terms while walking the plant."""
+
+    def __init__(self):
+        self.names: list[str] = []
+        self.sources: list[Source] = []
+        self.quantities: list[str] = []
+        self.index: dict[str, int] = {}
+        self.rows: list[Row] = []
+        self.linear: list[tuple[int, int, float]] = []  # (row, slot, coef)
+        self.bilinear: list[tuple[int, int, int, float]] = []  # (row, m, h, coef)
+        self.state: list[tuple[int, str]] = []  # (row, stream) h - h(p, T)
+        self.saturation: list[tuple[int, str]] = []  # (row, stream) T - Tsat(p)
+        self.quality: list[tuple[int, str]] = []  # (row, stream) h - h(p, x)
+
+    def slot(self, name: str, source: Source, quantity: str) -> int:
+        self.index[name] = len(self.names)
+        self.names.append(name)
+        self.sources.append(source)
+        self.quantities.append(quantity)
+        return self.index[name]
+
+    def row(self, name: str, kind: str, owner: str) -> int:
+        self.rows.append(Row(name, kind, owner, _SCALE[kind]))
+        return len(self.rows) - 1
+
+
+def _flow_terms(b: _Builder, r: int, streams, sign: float) -> None:
+    for sid in streams:
+        b.bilinear.append((r, b.index[f"{sid}.mass_flow"], b.index[f"{sid}.enthalpy"], sign))
+
+
+def _mass_rows(spec: ModelSpec, b: _Builder) -> None:
+    """Mass balances; one row of each closed loop is dropped (it is the sum of the others)."""
+    nodes = []  # (row name, owner, inlets, outlets)
+    for uid, unit in spec.units.items():
+        if "mass" not in unit.balances:
+            continue
+        p = unit.ports
+        if unit.type == "heat_exchanger":
+            nodes.append((f"{uid}:mass:hot", uid, p["hot_inlet"], p["hot_outlet"]))
+            nodes.append((f"{uid}:mass:cold", uid, p["cold_inlet"], p["cold_outlet"]))
+        elif unit.paths:
+            for a, c in unit.paths:
+                nodes.append((f"{uid}:mass:{a}", uid, (a,), (c,)))
+        else:
+            nodes.append((f"{uid}:mass", uid, p["inlets"], p["outlets"]))
+            if p.get("coolant_inlet"):
+                nodes.append((f"{uid}:mass:coolant", uid, p["coolant_inlet"], p["coolant_outlet"]))
+    # Union-find over nodes joined by streams.  A group of nodes in which every
+    # stream has both ends has mass balances that sum to zero identically: the
+    # constraint matrix would be rank deficient, so the last one is left out.
+    parent = list(range(len(nodes)))
+
+    def find(i):
+        while parent[i] != i:
+            parent[i] = parent[parent[i]]
+            i = parent[i]
+        return i
+
+    ends: dict[str, list[int]] = {}
+    for i, (_, _, ins, outs) in enumerate(nodes):
+        for sid in (*ins, *outs):
+            ends.setdefault(sid, []).append(i)
+    for touching in ends.values():
+        for j in touching[1:]:
+            parent[find(j)] = find(touching[0])
+    open_root = {find(touching[0]) for touching in ends.values() if len(touching) < 2}
+    last_of: dict[int, int] = {}
+    for i in range(len(nodes)):
+        last_of[find(i)] = i
+    drop = {i for root, i in last_of.items() if root not in open_root}
+    for i, (name, owner, ins, outs) in enumerate(nodes):
+        if i in drop:
+            continue
+        r = b.row(name, "mass", owner)
+        b.linear.extend((r, b.index[f"{s}.mass_flow"], 1.0) for s in ins)
+        b.linear.extend((r, b.index[f"{s}.mass_flow"], -1.0) for s in outs)
+
+
+def _unit_rows(spec: ModelSpec, b: _Builder) -> None:
+    for uid, unit in spec.units.items():
+        v = {name: b.index[f"{uid}.{name}"] for name in unit.variables}
+        p = unit.ports
+        t = unit.type
+        if t in ("splitter", "valve"):
+            (inlet,) = p["inlets"]
+            for sid in p["outlets"]:
+                r = b.row(f"{uid}:enthalpy:{sid}", "equal_h", uid)
+                b.linear += [(r, b.index[f"{sid}.enthalpy"], 1.0)]
+                b.linear += [(r, b.index[f"{inlet}.enthalpy"], -1.0)]
+                if t == "splitter":
+                    r = b.row(f"{uid}:pressure:{sid}", "equal_p", uid)
+                    b.linear += [(r, b.index[f"{sid}.pressure"], 1.0)]
+                    b.linear += [(r, b.index[f"{inlet}.pressure"], -1.0)]
+            continue
+        if t == "generator":
+            r = b.row(f"{uid}:energy", "energy", uid)
+            for tid in unit.shaft:
+                b.linear.append((r, b.index[f"{tid}.power"], 1.0))
+            factor = 1.0 + (unit.loss_fraction or 0.0)
+            b.linear.append((r, v["power"], -factor))
+            if "losses" in v:
+                b.linear.append((r, v["losses"], -1.0))
+            continue
+        if "energy" not in unit.balances:
+            continue
+        r = b.row(f"{uid}:energy", "energy", uid)
+        if t == "heat_exchanger":
+            _flow_terms(b, r, p["hot_inlet"], 1.0)
+            _flow_terms(b, r, p["hot_outlet"], -1.0)
+            b.linear.append((r, v["heat"], -1.0))
+            rc = b.row(f"{uid}:heat", "energy", uid)
+            _flow_terms(b, rc, p["cold_outlet"], 1.0)
+            _flow_terms(b, rc, p["cold_inlet"], -1.0)
+            b.linear.append((rc, v["heat"], -1.0))
+        else:
+            _flow_terms(b, r, p["inlets"], 1.0)
+            _flow_terms(b, r, p["outlets"], -1.0)
+            sign = {
+                ("turbine", "power"): -1.0,
+                ("pump", "power"): 1.0,
+                ("boiler", "heat"): 1.0,
+                ("condenser", "heat"): -1.0,
+                ("generic", "heat"): 1.0,
+                ("generic", "power"): -1.0,
+            }
+            for name in ("power", "heat"):
+                if name in v:
+                    b.linear.append((r, v[name], sign[(t, name)]))
+            if t == "condenser" and p.get("coolant_inlet"):
+                rc = b.row(f"{uid}:coolant", "energy", uid)
+                _flow_terms(b, rc, p["coolant_outlet"], 1.0)
+                _flow_terms(b, rc, p["coolant_inlet"], -1.0)
+                b.linear.append((rc, v["heat"], -1.0))
+        if "heat_loss" in v:
+            b.linear.append((r, v["heat_loss"], -1.0))
+
+
+def _state_rows(spec: ModelSpec, b: _Builder) -> None:
+    for sid, stream in spec.streams.items():
+        h = b.index[f"{sid}.enthalpy"]
+        if stream.phase == "wet":
+            r = b.row(f"{sid}:saturation", "saturation", sid)
+            b.linear.append((r, b.index[f"{sid}.temperature"], 1.0))
+            b.saturation.append((r, sid))
+            if "quality" in stream.sources:
+                r = b.row(f"{sid}:quality", "quality", sid)
+                b.linear.append((r, h, 1.0))
+                b.quality.append((r, sid))
+        else:
+            r = b.row(f"{sid}:state", "state", sid)
+            b.linear.append((r, h, 1.0))
+            b.state.append((r, sid))
+
+
+class PlantModel:
+    """Variables and balance equations of a plant, bound to a set of measured tags.
+
+    Build it with :func:`build_model`.  ``x`` holds the values of the measured
+    tags (in the order of :attr:`measured`), ``y`` the unmeasured model variables
+    (in the order of :attr:`unmeasured`).
+
+    Attributes
+    ----------
+    plant : Plant
+    spec : ModelSpec
+        The checked streams and units.
+    variables : tuple of str
+        Every model variable, ``"<stream>.<var>"`` / ``"<unit>.<var>"``.
+    rows : tuple of Row
+        The equations, in residual order.
+    measured : tuple of str
+        Tag/group ids in ``x``.
+    unmeasured : tuple of str
+        Model variables in ``y``.
+    """
+
+    def __init__(self, plant, spec: ModelSpec, builder: _Builder, measured=None):
+        self.plant = plant
+        self.spec = spec
+        self._b = builder
+        self.variables = tuple(builder.names)
+        self.rows = tuple(builder.rows)
+        self.index = dict(builder.index)
+        self.quantities = dict(zip(builder.names, builder.quantities, strict=True))
+        self.sources = dict(zip(builder.names, builder.sources, strict=True))
+        available = spec.tag_ids if measured is None else tuple(measured)
+        unknown = [t for t in available if t not in spec.tag_ids]
+        if unknown:
+            raise InputError(
+                "The 'measured' parameter of PlantModel.bind must list tags the model uses. "
+                f"Got {', '.join(unknown)}.",
+                parameter="measured",
+            )
+        self.measured = tuple(t for t in spec.tag_ids if t in set(available))
+        x_pos = {t: i for i, t in enumerate(self.measured)}
+        n_slots = len(self.variables)
+        self._const = np.zeros(n_slots)
+        self._slot_x = np.full(n_slots, -1)
+        self._slot_y = np.full(n_slots, -1)
+        unmeasured = []
+        for i, src in enumerate(builder.sources):
+            if src.kind == "fixed":
+                self._const[i] = src.value
+            elif src.kind == "measured" and src.tag in x_pos:
+                self._slot_x[i] = x_pos[src.tag]
+            else:
+                self._slot_y[i] = len(unmeasured)
+                unmeasured.append(self.variables[i])
+        self.unmeasured = tuple(unmeasured)
+        self._xs = np.flatnonzero(self._slot_x >= 0)
+        self._ys = np.flatnonzero(self._slot_y >= 0)
+        self._scale = np.array([r.scale for r in self.rows])
+        self._prepare_terms()
+
+    # ------------------------------------------------------------ structure
+    def _prepare_terms(self) -> None:
+        b = self._b
+        m = len(self.rows)
+        n = len(self.variables)
+        if b.linear:
+            r, c, a = (np.array(z) for z in zip(*b.linear, strict=True))
+        else:
+            r, c, a = np.zeros(0, int), np.zeros(0, int), np.zeros(0)
+        self._L = sp.csr_matrix((a, (r, c)), shape=(m, n))
+        self._lin = (r.astype(int), c.astype(int), a.astype(float))
+        if b.bilinear:
+            br, bm, bh, bc = (np.array(z) for z in zip(*b.bilinear, strict=True))
+        else:
+            br = bm = bh = np.zeros(0, int)
+            bc = np.zeros(0)
+        self._bil = (br.astype(int), bm.astype(int), bh.astype(int), bc.astype(float))
+        idx = self.index
+
+        def groups(items, need_phase=True):
+            out: dict = {}
+            for row, sid in items:
+                st = self.spec.streams[sid]
+                key = (st.fluid, st.phase if need_phase else None)
+                out.setdefault(key, []).append((row, sid))
+            res = []
+            for (fl, ph), lst in out.items():
+                rows = np.array([r for r, _ in lst])
+                sids = tuple(s for _, s in lst)
+                p = np.array([idx[f"{s}.pressure"] for s in sids])
+                T = np.array([idx[f"{s}.temperature"] for s in sids])
+                q = np.array([idx.get(f"{s}.quality", -1) for s in sids])
+                res.append((fl, ph, rows, sids, p, T, q))
+            return res
+
+        self._state_groups = groups(b.state)
+        self._sat_groups = groups(b.saturation, need_phase=False)
+        self._quality_groups = groups(b.quality, need_phase=False)
+
+    def bind(self, measured) -> PlantModel:
+        """The same model with only ``measured`` tags in ``x``; the rest become unmeasured.
+
+        Parameters
+        ----------
+        measured : iterable of str
+            Tag/group ids available (a subset of ``spec.tag_ids``).
+        """
+        return PlantModel(self.plant, self.spec, self._b, measured=tuple(measured))
+
+    @property
+    def n_x(self) -> int:
+        return len(self.measured)
+
+    @property
+    def n_y(self) -> int:
+        return len(self.unmeasured)
+
+    def slot_values(self, x, y) -> np.ndarray:
+        """Values of every model variable (order of :attr:`variables`) from ``x`` and ``y``."""
+        v = self._const.copy()
+        v[self._xs] = np.asarray(x, dtype=float)[self._slot_x[self._xs]]
+        v[self._ys] = np.asarray(y, dtype=float)[self._slot_y[self._ys]]
+        return v
+
+    def variable_table(self):
+        """One row per model variable: name, quantity, source, tag, fixed value, position.
+
+        Returns
+        -------
+        pandas.DataFrame
+            Columns ``name, quantity, source, tag, fixed_value, x_index, y_index``
+            (``source`` is ``measured``, ``fixed`` or ``unmeasured`` in this binding).
+        """
+        import pandas as pd
+
+        src = []
+        for i, name in enumerate(self.variables):
+            s = self.sources[name]
+            kind = (
+                "fixed"
+                if s.kind == "fixed"
+                else ("measured" if self._slot_x[i] >= 0 else "unmeasured")
+            )
+            src.append(
+                (
+                    name,
+                    self.quantities[name],
+                    kind,
+                    s.tag,
+                    s.value,
+                    int(self._slot_x[i]),
+                    int(self._slot_y[i]),
+                )
+            )
+        cols = ["name", "quantity", "source", "tag", "fixed_value", "x_index", "y_index"]
+        return pd.DataFrame(src, columns=cols)
+
+    # ------------------------------------------------------------ equations
+    def _evaluate(self, v: np.ndarray, jac: bool):
+        """Unscaled residuals and (optionally) COO Jacobian entries over model variables."""
+        m = len(self.rows)
+        r = self._L @ v
+        br, bm, bh, bc = self._bil
+        r += np.bincount(br, bc * v[bm] * v[bh], minlength=m)
+        rows, cols, vals = [], [], []
+        if jac:
+            rows += [self._lin[0], br, br]
+            cols += [self._lin[1], bm, bh]
+            vals += [self._lin[2], bc * v[bh], bc * v[bm]]
+        for fl, ph, rr, sids, p, T, _ in self._state_groups:
+            h, dhdT, dhdp = thermo.h_pT(fl, ph, v[p], v[T], sids)
+            r[rr] -= h
+            if jac:
+                rows += [rr, rr]
+                cols += [p, T]
+                vals += [-dhdp, -dhdT]
+        for fl, _, rr, sids, p, _, _ in self._sat_groups:
+            Ts, dTdp = thermo.saturation(fl, v[p], sids)
+            r[rr] -= Ts
+            if jac:
+                rows.append(rr)
+                cols.append(p)
+                vals.append(-dTdp)
+        for fl, _, rr, sids, p, _, q in self._quality_groups:
+            h, dhdp, dhdx = thermo.h_px(fl, v[p], v[q], sids)
+            r[rr] -= h
+            if jac:
+                rows += [rr, rr]
+                cols += [p, q]
+                vals += [-dhdp, -dhdx]
+        if not jac:
+            return r, None
+        return r, (np.concatenate(rows), np.concatenate(cols), np.concatenate(vals))
+
+    def imbalance(self, x, y) -> np.ndarray:
+        """Unscaled residual of every row [kg/s, W, J/kg, Pa or K, see :attr:`rows`]."""
+        return self._evaluate(self.slot_values(x, y), jac=False)[0]
+
+    def residual(self, x, y) -> np.ndarray:
+        """Scaled residuals (see the module docstring), shape ``(len(rows),)``.
+
+        Parameters
+        ----------
+        x : ndarray (n_x,)
+            Measured tag values [SI].
+        y : ndarray (n_y,)
+            Unmeasured model variables [SI].
+        """
+        return self.imbalance(x, y) / self._scale
+
+    def jacobian(self, x, y):
+        """Sparse Jacobians of :meth:`residual`.
+
+        Returns
+        -------
+        Jx : scipy.sparse.csr_matrix (m, n_x)
+        Jy : scipy.sparse.csr_matrix (m, n_y)
+            Derivatives of the scaled residuals.  Property derivatives come from the
+            property layer (``dh/dT`` at constant p, ``dh/dp`` at constant T, the
+            Clausius-Clapeyron slope of the saturation line).
+        """
+        _, (r, c, a) = self._evaluate(self.slot_values(x, y), jac=True)
+        a = a / self._scale[r]
+        m = len(self.rows)
+        to_x = self._slot_x[c]
+        to_y = self._slot_y[c]
+        kx = to_x >= 0
+        ky = to_y >= 0
+        Jx = sp.csr_matrix((a[kx], (r[kx], to_x[kx])), shape=(m, self.n_x))
+        Jy = sp.csr_matrix((a[ky], (r[ky], to_y[ky])), shape=(m, self.n_y))
+        return Jx, Jy
+
+    def slot_jacobian(self, v: np.ndarray) -> sp.csr_matrix:
+        """Jacobian of the scaled residuals with respect to every model variable."""
+        _, (r, c, a) = self._evaluate(v, jac=True)
+        return sp.csr_matrix(
+            (a / self._scale[r], (r, c)), shape=(len(self.rows), len(self.variables))
+        )
+
+    @cached_property
+    def _neighbours(self):
+        """Stream -> streams joined to it through a unit, split by what they share."""
+        same_p: dict = {s: set() for s in self.spec.streams}
+        near: dict = {s: set() for s in self.spec.streams}
+        for unit in self.spec.units.values():
+            p = unit.ports
+            if unit.type == "heat_exchanger":
+                sides = [p["hot_inlet"] + p["hot_outlet"], p["cold_inlet"] + p["cold_outlet"]]
+            elif unit.type == "condenser":
+                sides = [p["inlets"] + p["outlets"], p["coolant_inlet"] + p["coolant_outlet"]]
+            else:
+                sides = [unit.inlets + unit.outlets]
+            # Pressure changes little across splitters, mixers, exchangers, boilers
+            # and condensers; across turbines, pumps and valves it does not.
+            shares_p = unit.type not in ("turbine", "pump", "valve")
+            for side in sides:
+                for a in side:
+                    for c in side:
+                        if a != c:
+                            near[a].add(c)
+                            if shares_p:
+                                same_p[a].add(c)
+        return same_p, near
+
+
+def build_model(plant) -> PlantModel:
+    """Variables and balance equations of a plant.
+
+    Parameters
+    ----------
+    plant : perftest.plant.file.Plant
+        A loaded plant file with ``[streams.*]`` and ``[units.*]`` tables.
+
+    Returns
+    -------
+    PlantModel
+        Bound to every tag the model refers to (use :meth:`PlantModel.bind` for a
+        subset).  Cached per plant instance.
+
+    Raises
+    ------
+    PlantFileError
+        Naming the key and line of a stream or unit that cannot be used.
+
+    Notes
+    -----
+    Equations (SI; scaled as in the module docstring):
+
+    * mass, per unit (per side of a heat exchanger, per path of a boiler):
+      :math:`\\sum_{in} \\dot m - \\sum_{out} \\dot m = 0`;
+    * energy: :math:`\\sum_{in} \\dot m h - \\sum_{out} \\dot m h + \\dot Q_{in}
+      - P_{out} - \\dot Q_{loss} = 0` with, per type, turbine :math:`-P`, pump
+      :math:`+P`, boiler :math:`+\\dot Q`, condenser :math:`-\\dot Q`; heat exchanger
+      :math:`\\dot m_c (h_{c,out} - h_{c,in}) = \\dot Q` and
+      :math:`\\dot m_h (h_{h,in} - h_{h,out}) = \\dot Q + \\dot Q_{loss}`; a condenser
+      with a coolant side also :math:`\\dot m_w (h_{w,out} - h_{w,in}) = \\dot Q`;
+    * splitter: :math:`h_k = h_{in}`, :math:`p_k = p_{in}` per outlet; valve
+      :math:`h_{out} = h_{in}`;
+    * generator: :math:`\\sum P_{turbine} = P_e (1 + f) + L`;
+    * state: :math:`h = h(p, T)` (single phase) or :math:`T = T_{sat}(p)` and, with
+      a known quality, :math:`h = h(p, x)` (wet).
+    """
+    cached = getattr(plant, "_perftest_model", None)
+    if cached is not None:
+        return cached
+    spec = read_model_spec(plant)
+    b = _Builder()
+    for sid, stream in spec.streams.items():
+        for var in STREAM_VARIABLES:
+            b.slot(f"{sid}.{var}", stream.sources[var], _STREAM_QUANTITY[var])
+        if "quality" in stream.sources:
+            b.slot(f"{sid}.quality", stream.sources["quality"], "fraction")
+    for uid, unit in spec.units.items():
+        for var, src in unit.variables.items():
+            b.slot(f"{uid}.{var}", src, _UNIT_QUANTITY[var])
+    _mass_rows(spec, b)
+    _unit_rows(spec, b)
+    _state_rows(spec, b)
+    model = PlantModel(plant, spec, b)
+    # The model lives on the plant (which is frozen, hence object.__setattr__), so the
+    # cache goes away with the plant; a plant type that refuses is simply not cached.
+    try:
+        object.__setattr__(plant, "_perftest_model", model)
+    except (AttributeError, TypeError):
+        pass
+    return model

@@ -1,0 +1,162 @@
+"""The few property calls the balance model needs, with their derivatives.
+
+Everything goes through :mod:`perftest.thermo.properties`; this module only shapes the
+calls for the model (arrays in, arrays out, derivatives for the Jacobian) and
+makes a property-range failure name the stream it happened in.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from perftest.errors import PerftestError, PropertyRangeError
+
+__all__ = ["h_pT", "saturation", "h_px", "state_ph", "dead_state", "fluid"]
+
+# Relative pressure step of the one-sided difference used for dh/dp at fixed
+# quality (the only derivative the property layer does not give).  1e-6 keeps the
+# truncation error ~1e-6 relative and stays far above the ~1e-12 round-off of
+# the saturation functions.
+_DP_REL = 1e-6
+
+
+def fluid(name: str):
+    """The cached property object of a fluid name."""
+    from perftest.thermo.properties import get_fluid
+
+    return get_fluid(name)
+
+
+def _per_stream(call, streams, *arrays):
+    """Run ``call`` on all streams at once; on failure, again one by one to name it.
+
+    ``call(*arrays, where=...)`` must accept a ``where`` text for its messages.  The
+    vectorised call is the fast path; the loop only runs to build the message.
+    """
+    try:
+        return call(*arrays, where=None)
+    except PerftestError as exc:
+        for i, sid in enumerate(streams):
+            try:
+                call(*(np.asarray(a)[i : i + 1] for a in arrays), where=f"stream '{sid}'")
+            except PerftestError as inner:
+                raise PropertyRangeError(
+                    f"{inner} Check the stream's measured values and its 'phase' and "
+                    "'fluid' in the plant file.",
+                    key=f"streams.{sid}",
+                ) from None
+        raise PropertyRangeError(f"streams {', '.join(streams)}: {exc}") from None
+
+
+def h_pT(name: str, phase, p, T, streams=()):
+    """Enthalpy and its partial derivatives from pressure and temperature.
+
+    Parameters
+    ----------
+    name : str
+        Fluid name.
+    phase : str or None
+        Declared phase (checked by the property layer).
+    p : ndarray [Pa]
+    T : ndarray [K]
+    streams : sequence of str
+        Stream ids, for messages.
+
+    Returns
+    -------
+    h : ndarray [J/kg]
+    dh_dT : ndarray [J/(kg K)]
+        At constant pressure (= cp).
+    dh_dp : ndarray [J/(kg Pa)]
+        At constant temperature.
+    """
+    f = fluid(name)
+    p = np.asarray(p, dtype=float)
+    T = np.asarray(T, dtype=float)
+    h, dhdT, dhdp = _per_stream(
+        lambda pp, TT, where: f.h_pT(pp, TT, phase, where=where), streams, p, T
+    )
+    return np.asarray(h, dtype=float), np.asarray(dhdT, dtype=float), np.asarray(dhdp, float)
+
+
+def saturation(name: str, p, streams=()):
+    """Saturation temperature and its slope along the saturation line.
+
+    Returns
+    -------
+    T_sat : ndarray [K]
+    dT_dp : ndarray [K/Pa]
+
+    Notes
+    -----
+    The slope is the Clausius-Clapeyron equation, exact along the saturation line of
+    a pure fluid:
+
+    .. math:: \\frac{dT_{sat}}{dp} = \\frac{T_{sat} (v_g - v_f)}{h_g - h_f}
+    """
+    f = fluid(name)
+    p = np.asarray(p, dtype=float)
+
+    def call(pp, where):
+        return f.state_px(pp, np.zeros_like(pp), where=where), f.state_px(
+            pp, np.ones_like(pp), where=where
+        )
+
+    liq, vap = _per_stream(call, streams, p)
+    T = np.asarray(liq.T, dtype=float)
+    dv = 1.0 / np.asarray(vap.rho, dtype=float) - 1.0 / np.asarray(liq.rho, dtype=float)
+    dh = np.asarray(vap.h, dtype=float) - np.asarray(liq.h, dtype=float)
+    return T, T * dv / dh
+
+
+def h_px(name: str, p, x, streams=()):
+    """Enthalpy of a wet mixture and its derivatives.
+
+    Returns
+    -------
+    h : ndarray [J/kg]
+        :math:`h_f + x (h_g - h_f)`.
+    dh_dp : ndarray [J/(kg Pa)]
+        At constant quality (one-sided difference, relative step ``_DP_REL``).
+    dh_dx : ndarray [J/kg]
+        The latent heat :math:`h_g - h_f`.
+    """
+    f = fluid(name)
+    p = np.asarray(p, dtype=float)
+    x = np.asarray(x, dtype=float)
+
+    def sat_h(pp, where):
+        return (
+            np.asarray(f.state_px(pp, np.zeros_like(pp), where=where).h, dtype=float),
+            np.asarray(f.state_px(pp, np.ones_like(pp), where=where).h, dtype=float),
+        )
+
+    hf, hg = _per_stream(sat_h, streams, p)
+    dp = p * _DP_REL
+    hf2, hg2 = _per_stream(sat_h, streams, p + dp)
+    h = hf + x * (hg - hf)
+    dh_dp = ((hf2 - hf) + x * ((hg2 - hf2) - (hg - hf))) / dp
+    return h, dh_dp, hg - hf
+
+
+def state_ph(name: str, p, h, streams=()):
+    """Full state from pressure and enthalpy (tables, exergy, starting values).
+
+    Returns
+    -------
+    State
+        The property layer's record (``T, s, rho, x`` ... as arrays).
+    """
+    f = fluid(name)
+    return _per_stream(
+        lambda pp, hh, where: f.state_ph(pp, hh, where=where),
+        streams,
+        np.atleast_1d(np.asarray(p, dtype=float)),
+        np.atleast_1d(np.asarray(h, dtype=float)),
+    )
+
+
+def dead_state(name: str, T0: float, p0: float):
+    """Enthalpy and entropy of a fluid at the dead state ``(T0, p0)`` [J/kg, J/(kg K)]."""
+    h0, s0 = fluid(name).dead_state(T0, p0)
+    return float(h0), float(s0)

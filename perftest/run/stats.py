@@ -1,0 +1,603 @@
+"""Statistics of logged samples: uncertainty of a mean, outlier tests, degrees of freedom.
+
+Pure numeric functions (numpy/scipy only).  Samples may be a 1-D array or
+Series (one tag) or a 2-D array / DataFrame with one column per tag; NaN marks
+a masked sample and is left out.  With a 2-D input the functions work column by
+column in one vectorised pass and return one value per column.
+
+References
+----------
+.. [1] JCGM 100:2008, Evaluation of measurement data - Guide to the expression of
+   uncertainty in measurement (GUM), 2008.
+.. [2] ASME PTC 19.1-2018, Test Uncertainty, 2018 (modified Thompson tau method).
+.. [3] G. V. Bayley and J. M. Hammersley, "The 'effective' number of independent
+   observations in an autocorrelated time series", Supplement to the Journal of
+   the Royal Statistical Society 8(2), 184-197, 1946. DOI 10.2307/2983560
+   (DOI from memory).
+.. [4] A. Zieba, "Effective number of observations and unbiased estimators of
+   variance for autocorrelated data - an overview", Metrology and Measurement
+   Systems 17(1), 3-16, 2010. DOI 10.2478/v10178-010-0001-0
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+
+import numpy as np
+import pandas as pd
+
+from perftest.errors import InputError
+
+__all__ = [
+    "random_uncertainty_of_mean",
+    "effective_sample_size",
+    "autocorrelation",
+    "modified_thompson_tau",
+    "thompson_tau_outliers",
+    "mean_statistics",
+    "welch_satterthwaite",
+    "coverage_factor",
+    "standard_from_expanded",
+]
+
+
+def _as_2d(samples, func: str, parameter: str = "samples"):
+    """Return ``(array2d, was_1d, columns)`` as float; NaN kept."""
+    columns = None
+    if isinstance(samples, pd.DataFrame):
+        columns = samples.columns
+        arr = samples.to_numpy(dtype=float, na_value=np.nan)
+    elif isinstance(samples, pd.Series):
+        arr = samples.to_numpy(dtype=float, na_value=np.nan)
+    else:
+        try:
+            arr = np.asarray(samples, dtype=float)
+        except (TypeError, ValueError) as exc:
+            raise InputError(
+                f"The '{parameter}' parameter of {func} must be numeric. Got {exc}.",
+                parameter=parameter,
+            ) from None
+    if arr.ndim == 1:
+        return arr[:, None], True, columns
+    if arr.ndim == 2:
+        return arr, False, columns
+    raise InputError(
+        f"The '{parameter}' parameter of {func} must be 1-D (one tag) or 2-D "
+        f"(samples x tags). Got an array with {arr.ndim} dimensions.",
+        parameter=parameter,
+    )
+
+
+def _out(values: np.ndarray, was_1d: bool, columns):
+    if was_1d:
+        return float(values[0])
+    if columns is not None:
+        return pd.Series(values, index=columns)
+    return values
+
+
+def autocorrelation(samples, max_lag: int | None = None) -> np.ndarray:
+    """Sample autocorrelation of each column, NaN gaps allowed.
+
+    Parameters
+    ----------
+    samples : array_like or Series or DataFrame
+        Equally spaced samples [any unit]; NaN marks a masked sample.
+    max_lag : int, optional
+        Largest lag returned.  Default ``n - 1``.
+
+    Returns
+    -------
+    ndarray
+        ``rho[k]`` for ``k = 0 .. max_lag`` (1-D input) or ``rho[k, j]`` per column.
+
+    Notes
+    -----
+    Deviations :math:`d_t = x_t - \\bar x` (mean of the valid samples) are paired
+    at lag :math:`k` only where both samples are valid, and each lag is
+    normalised by its own number of pairs :math:`P_k`:
+
+    .. math:: \\hat\\rho_k = \\frac{P_k^{-1}\\sum d_t d_{t+k}}{m^{-1}\\sum d_t^2}
+
+    with :math:`m` valid samples.  Masked samples therefore neither add nor
+    remove correlation; without gaps :math:`P_k = n - k`.  Sums are formed with
+    FFTs (O(n log n) per column).
+
+    Examples
+    --------
+    >>> rho = autocorrelation([1.0, 2.0, 1.0, 2.0, 1.0, 2.0])
+    >>> round(float(rho[1]), 2)
+    -1.0
+    """
+    arr, was_1d, _ = _as_2d(samples, "autocorrelation")
+    n = arr.shape[0]
+    if max_lag is None:
+        max_lag = max(n - 1, 0)
+    max_lag = int(min(max_lag, max(n - 1, 0)))
+    rho = _acf_columns(arr, max_lag)
+    return rho[:, 0] if was_1d else rho
+
+
+def _acf_columns(arr: np.ndarray, max_lag: int) -> np.ndarray:
+    n = arr.shape[0]
+    valid = np.isfinite(arr)
+    m = valid.sum(axis=0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = np.where(m > 0, np.nansum(np.where(valid, arr, 0.0), axis=0) / m, 0.0)
+    d = np.where(valid, arr - mean, 0.0)
+    w = valid.astype(float)
+    from scipy import fft as _fft  # imported on first use, as scipy.stats below
+
+    # zero padding to n + max_lag keeps circular wrap-around out of the lags used
+    nfft = _fft.next_fast_len(n + max_lag + 1, real=True)
+    fd = _fft.rfft(d, nfft, axis=0)
+    sums = _fft.irfft(fd * np.conj(fd), nfft, axis=0)[: max_lag + 1]
+    if np.all(valid):
+        pairs = (n - np.arange(max_lag + 1, dtype=float))[:, None] * np.ones((1, arr.shape[1]))
+    else:
+        fw = _fft.rfft(w, nfft, axis=0)
+        pairs = np.rint(_fft.irfft(fw * np.conj(fw), nfft, axis=0)[: max_lag + 1])
+    with np.errstate(invalid="ignore", divide="ignore"):
+        var = np.where(m > 0, sums[0] / np.maximum(m, 1), np.nan)
+        rho = np.where(pairs > 0, sums / np.maximum(pairs, 1.0), np.nan) / var
+    rho[0] = np.where(var > 0, 1.0, np.nan)
+    return rho
+
+
+def effective_sample_size(samples, *, max_lag: int | None = None):
+    """Effective number of independent samples of an autocorrelated record.
+
+    Parameters
+    ----------
+    samples : array_like or Series or DataFrame
+        Equally spaced samples of one tag (1-D) or of several tags (2-D, one
+        column per tag) [any unit]; NaN marks a masked sample.
+    max_lag : int, optional
+        Last lag summed.  Default ``n // 4`` (common practice, no source: lags
+        beyond a quarter of the record are too noisy to be of use).
+
+    Returns
+    -------
+    float or ndarray or Series
+        :math:`n_{eff}` in [1, m] where m is the number of valid samples (NaN
+        for a column with no valid sample).
+
+    Notes
+    -----
+    From the variance of the mean of a stationary series ([3]_, [4]_ Eq. 5):
+
+    .. math::
+
+        n_{eff} = \\frac{n}{1 + 2\\sum_{k=1}^{K} (1 - k/n)\\,\\hat\\rho_k}
+
+    The sum stops at the last lag before :math:`\\hat\\rho_k` first becomes
+    non-positive, or at ``max_lag``: past that point the estimates are mostly
+    noise and would make :math:`n_{eff}` erratic.  The result is clamped to
+    [1, m]; a negatively correlated (alternating) record therefore gets no
+    credit beyond its sample count.  A column with zero variance gets
+    :math:`n_{eff} = m`.
+
+    References
+    ----------
+    .. [3] Bayley and Hammersley, 1946, DOI 10.2307/2983560 (from memory).
+    .. [4] Zieba, 2010, Metrology and Measurement Systems 17(1), 3-16,
+       DOI 10.2478/v10178-010-0001-0.
+
+    Examples
+    --------
+    >>> x = [1.0, 2.0, 3.0, 4.0, 5.0, 6.0, 7.0, 8.0]
+    >>> effective_sample_size(x) < 8
+    True
+    """
+    arr, was_1d, columns = _as_2d(samples, "effective_sample_size")
+    return _out(_neff_columns(arr, max_lag), was_1d, columns)
+
+
+def _neff_columns(arr: np.ndarray, max_lag: int | None) -> np.ndarray:
+    n = arr.shape[0]
+    m = np.isfinite(arr).sum(axis=0).astype(float)
+    if n < 3:
+        return np.where(m > 0, m, np.nan)
+    K = n // 4 if max_lag is None else int(max_lag)
+    K = max(1, min(K, n - 1))
+    rho = _acf_columns(arr, K)[1:]
+    # keep lags up to (not including) the first non-positive or undefined one
+    positive = np.nan_to_num(rho, nan=-1.0) > 0.0
+    keep = np.cumprod(positive, axis=0).astype(bool)
+    weights = (1.0 - np.arange(1, K + 1) / n)[:, None]
+    s = np.sum(np.where(keep, weights * rho, 0.0), axis=0)
+    neff = n / (1.0 + 2.0 * s)
+    neff = np.clip(neff, 1.0, np.maximum(m, 1.0))
+    # zero variance: every lag undefined, no correlation to speak of
+    flat = ~np.isfinite(rho[0]) if K >= 1 else np.zeros(arr.shape[1], bool)
+    neff = np.where(flat, m, neff)
+    return np.where(m > 0, neff, np.nan)
+
+
+def random_uncertainty_of_mean(samples, *, autocorrelation: bool = True, max_lag=None):
+    """Standard uncertainty of the mean of samples (random part, GUM Type A).
+
+    Parameters
+    ----------
+    samples : array_like or Series or DataFrame
+        Samples of one tag (1-D) or of several tags (2-D) [any unit]; NaN left out.
+    autocorrelation : bool, default True
+        Use the effective sample size instead of the sample count.
+    max_lag : int, optional
+        Passed to :func:`effective_sample_size`.
+
+    Returns
+    -------
+    float or ndarray or Series
+        :math:`s/\\sqrt{n_{eff}}` [unit of the samples]; NaN when fewer than 2
+        valid samples.
+
+    Notes
+    -----
+    .. math:: u(\\bar x) = s / \\sqrt{n_{eff}}
+
+    with :math:`s` the sample standard deviation (``ddof=1``) ([1]_ Eq. 5 for
+    independent samples, :math:`n_{eff} = n`).  For autocorrelated samples
+    :math:`s^2` itself is biased low by the factor
+    :math:`(n - n/n_{eff})/(n - 1)` ([4]_); the bias is below 1 % when
+    :math:`n/n_{eff} < 0.01\\,n`, as in any steady-state window of more than a
+    few hundred samples, and is not corrected here.
+
+    References
+    ----------
+    .. [1] JCGM 100:2008 (GUM), section 4.2.
+    .. [4] Zieba, 2010, DOI 10.2478/v10178-010-0001-0.
+
+    Examples
+    --------
+    >>> round(random_uncertainty_of_mean([1.0, 2.0, 3.0, 4.0], autocorrelation=False), 4)
+    0.6455
+    """
+    arr, was_1d, columns = _as_2d(samples, "random_uncertainty_of_mean")
+    return _out(mean_statistics(arr, autocorrelation, max_lag)[4], was_1d, columns)
+
+
+def mean_statistics(arr: np.ndarray, autocorrelation: bool = True, max_lag=None):
+    """Column statistics in one pass: ``(m, mean, s, n_eff, u_mean)``.
+
+    ``arr`` is 2-D (samples x columns), NaN = masked.  ``m`` valid counts, ``s``
+    with ``ddof=1`` (NaN when m < 2), ``n_eff`` from :func:`effective_sample_size`
+    (or m without autocorrelation) and ``u_mean = s / sqrt(n_eff)``.  Used by
+    :meth:`perftest.run.core.Run.average` so that the autocorrelation is computed once.
+    """
+    arr = np.asarray(arr, dtype=float)
+    m = np.isfinite(arr).sum(axis=0)
+    with warnings.catch_warnings(), np.errstate(invalid="ignore", divide="ignore"):
+        warnings.simplefilter("ignore", RuntimeWarning)
+        mean = np.nanmean(arr, axis=0)
+        s = np.where(m >= 2, np.nanstd(arr, axis=0, ddof=1), np.nan)
+    neff = _neff_columns(arr, max_lag) if autocorrelation else np.where(m > 0, m, np.nan)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        u = s / np.sqrt(neff)
+    return m, mean, s, neff.astype(float), u
+
+
+def modified_thompson_tau(n, alpha: float = 0.05):
+    """Critical value of the modified Thompson tau outlier test.
+
+    Parameters
+    ----------
+    n : int or array of int
+        Number of samples (at least 3).
+    alpha : float, default 0.05
+        Significance level (two-sided).
+
+    Returns
+    -------
+    float or ndarray
+        :math:`\\tau` (dimensionless); NaN where ``n < 3`` in an array input.
+
+    Raises
+    ------
+    InputError
+        If ``alpha`` is not in (0, 1) or a scalar ``n`` is below 3.
+
+    Notes
+    -----
+    .. math::
+
+        \\tau = \\frac{t\\,(n-1)}{\\sqrt{n}\\,\\sqrt{n - 2 + t^2}},
+        \\quad t = t_{\\alpha/2,\\,n-2}
+
+    with :math:`t_{\\alpha/2,\\,n-2}` the upper :math:`\\alpha/2` point of Student's t
+    with :math:`n-2` degrees of freedom ([2]_, modified Thompson tau method).
+    :math:`\\tau \\to z_{\\alpha/2}` as :math:`n \\to \\infty`.
+
+    References
+    ----------
+    .. [2] ASME PTC 19.1-2018, Test Uncertainty.
+
+    Examples
+    --------
+    >>> round(modified_thompson_tau(10), 4)
+    1.7984
+    """
+    if not (0.0 < float(alpha) < 1.0):
+        raise InputError(
+            f"The 'alpha' parameter of modified_thompson_tau must lie in (0, 1). Got {alpha!r}.",
+            parameter="alpha",
+        )
+    scalar = np.ndim(n) == 0
+    nn = np.asarray(n, dtype=float)
+    if scalar and not (nn >= 3):
+        raise InputError(
+            f"The 'n' parameter of modified_thompson_tau must be at least 3 (the test "
+            f"needs n - 2 >= 1 degrees of freedom). Got {n!r}. Collect more samples.",
+            parameter="n",
+        )
+    from scipy import stats as _sps  # on first use: its import costs 1-2 s
+
+    with np.errstate(invalid="ignore", divide="ignore"):
+        df = np.where(nn >= 3, nn - 2.0, np.nan)
+        t = _sps.t.isf(alpha / 2.0, df)
+        tau = t * (nn - 1.0) / (np.sqrt(nn) * np.sqrt(nn - 2.0 + t * t))
+    return float(tau) if scalar else tau
+
+
+def thompson_tau_outliers(samples, alpha: float = 0.05, *, max_rejections: int | None = None):
+    """Flag outliers by the modified Thompson tau test, one at a time.
+
+    Parameters
+    ----------
+    samples : array_like or Series or DataFrame
+        Samples of one tag (1-D) or of several tags (2-D) [any unit]; NaN
+        samples are never flagged and take no part.
+    alpha : float, default 0.05
+        Significance level of each single test.
+    max_rejections : int, optional
+        Stop after this many rejections per column.  Default: no limit (the test
+        stops by itself when no sample exceeds the limit or fewer than 3 remain).
+
+    Returns
+    -------
+    ndarray of bool or DataFrame
+        True where a sample is rejected; same shape as ``samples``.
+
+    Notes
+    -----
+    At each pass the sample with the largest :math:`\\delta = |x_i - \\bar x|`
+    is rejected if :math:`\\delta > \\tau s` (:math:`\\tau` from
+    :func:`modified_thompson_tau` for the current count, :math:`s` with
+    ``ddof=1``); mean and :math:`s` are then recomputed without it and the test
+    repeats ([2]_).  All columns are tested in the same pass.  The test assumes
+    independent, normally distributed samples: on a drifting or strongly
+    autocorrelated record it flags the ends of the drift, so judge stability first.
+
+    Iterated to the end on a long record of normal scatter, the test keeps
+    cutting the tails: it stops near the truncation point :math:`c` where
+    :math:`c = \\tau\\,\\sigma_{trunc}(c)`, the standard deviation of a normal
+    distribution truncated at :math:`\\pm c`.  For ``alpha = 0.05`` and large n
+    this is :math:`c \\approx 1.35\\sigma`, i.e. about 18 % of perfectly good
+    samples; for ``alpha = 0.01`` the cascade does not start and about 1.5 % go.
+    Use a small ``alpha`` (or ``max_rejections``) on records of hundreds of samples.
+
+    References
+    ----------
+    .. [2] ASME PTC 19.1-2018, Test Uncertainty.
+
+    Examples
+    --------
+    >>> x = [10.0, 10.1, 9.9, 10.0, 10.2, 9.8, 10.1, 13.0]
+    >>> thompson_tau_outliers(x).nonzero()[0].tolist()
+    [7]
+    """
+    arr, was_1d, columns = _as_2d(samples, "thompson_tau_outliers")
+    modified_thompson_tau(3, alpha)  # validates alpha
+    rejected = _thompson_columns(arr, alpha, max_rejections)
+    if was_1d:
+        return rejected[:, 0]
+    if columns is not None:
+        return pd.DataFrame(rejected, index=samples.index, columns=columns)
+    return rejected
+
+
+def _thompson_columns(arr: np.ndarray, alpha: float, max_rejections) -> np.ndarray:
+    # The sample farthest from the mean is always the smallest or the largest one
+    # left, so each column is sorted once and the test walks inwards from both
+    # ends, keeping running sums: one pass costs O(columns), not O(samples).
+    n, ncol = arr.shape
+    rejected = np.zeros(arr.shape, dtype=bool)
+    if n == 0 or ncol == 0:
+        return rejected
+    # work on (columns x samples): sorting along contiguous rows is much faster
+    a_t = np.ascontiguousarray(arr.T)
+    valid = np.isfinite(a_t)
+    m = valid.sum(axis=1)
+    # shift by the mean so that the running sums do not lose digits
+    centre = np.where(m > 0, np.sum(np.where(valid, a_t, 0.0), axis=1) / np.maximum(m, 1), 0.0)
+    d = np.where(valid, a_t - centre[:, None], np.inf)  # masked samples sort last
+    order = np.argsort(d, axis=1)
+    ds = np.take_along_axis(d, order, axis=1)
+    lo = np.zeros(ncol, dtype=int)
+    hi = m - 1
+    s1 = np.sum(np.where(valid, d, 0.0), axis=1)
+    s2 = np.sum(np.where(valid, d * d, 0.0), axis=1)
+    count = np.zeros(ncol, dtype=int)
+    limit = n if max_rejections is None else int(max_rejections)
+    cols = np.arange(ncol)
+    # tau depends on the count only: one table instead of a t quantile per pass
+    tau_table = modified_thompson_tau(np.arange(n + 1), alpha)
+    active = cols[(m >= 3) & (limit > 0)]
+    while active.size:
+        k = m[active]
+        mean = s1[active] / k
+        var = np.maximum(s2[active] - s1[active] * mean, 0.0) / (k - 1)
+        a = ds[active, lo[active]]
+        b = ds[active, hi[active]]
+        dev_lo = mean - a
+        dev_hi = b - mean
+        take_hi = dev_hi >= dev_lo
+        delta = np.where(take_hi, dev_hi, dev_lo)
+        tau = tau_table[k]
+        reject = (var > 0) & (delta > tau * np.sqrt(var))
+        c = active[reject]
+        th = take_hi[reject]
+        row = np.where(th, hi[c], lo[c])
+        val = ds[c, row]
+        rejected[order[c, row], c] = True
+        s1[c] -= val
+        s2[c] -= val * val
+        m[c] -= 1
+        hi[c] -= th
+        lo[c] += ~th
+        count[c] += 1
+        active = c[(m[c] >= 3) & (count[c] < limit)]
+    return rejected
+
+
+def welch_satterthwaite(u, dof) -> float:
+    """Effective degrees of freedom of a combined standard uncertainty.
+
+    Parameters
+    ----------
+    u : array_like
+        Uncertainty contributions :math:`u_i = |c_i| u(x_i)` [one common unit].
+    dof : array_like
+        Degrees of freedom of each contribution; ``inf`` allowed.
+
+    Returns
+    -------
+    float
+        :math:`\\nu_{eff}` (``inf`` when every contribution has infinite degrees of
+        freedom or all contributions are zero).  Not rounded: the GUM truncates
+        it to the next lower integer before looking up :math:`t`, which
+        :func:`coverage_factor` need not do because Student's t accepts
+        non-integer degrees of freedom.
+
+    Raises
+    ------
+    InputError
+        If lengths differ, an uncertainty is negative or a dof is not positive.
+
+    Notes
+    -----
+    .. math:: \\nu_{eff} = \\frac{u_c^4}{\\sum_i u_i^4/\\nu_i}, \\quad u_c^2 = \\sum_i u_i^2
+
+    ([1]_ Annex G, Eq. G.2b), valid for uncorrelated contributions.
+
+    References
+    ----------
+    .. [1] JCGM 100:2008 (GUM), Annex G.4.
+
+    Examples
+    --------
+    >>> round(welch_satterthwaite([1.0, 1.0], [10, 10]), 6)
+    20.0
+    """
+    uu = np.atleast_1d(np.asarray(u, dtype=float))
+    nu = np.broadcast_to(np.asarray(dof, dtype=float), uu.shape) if np.ndim(dof) == 0 else None
+    if nu is None:
+        nu = np.atleast_1d(np.asarray(dof, dtype=float))
+    if uu.shape != nu.shape or uu.ndim != 1:
+        raise InputError(
+            "The 'u' and 'dof' parameters of welch_satterthwaite must be 1-D and of equal "
+            f"length. Got shapes {uu.shape} and {nu.shape}.",
+            parameter="dof",
+        )
+    if np.any(~np.isfinite(uu)) or np.any(uu < 0):
+        raise InputError(
+            "The 'u' parameter of welch_satterthwaite must hold finite, non-negative "
+            f"uncertainties. Got {uu.tolist()}.",
+            parameter="u",
+        )
+    if np.any(np.isnan(nu)) or np.any(nu <= 0):
+        raise InputError(
+            "The 'dof' parameter of welch_satterthwaite must hold positive degrees of "
+            f"freedom (inf allowed). Got {nu.tolist()}.",
+            parameter="dof",
+        )
+    uc2 = float(np.sum(uu**2))
+    if uc2 == 0.0:
+        return math.inf
+    # scale first: u**4 under- or overflows for tiny or huge SI values
+    r = uu**2 / uc2
+    denom = float(np.sum(np.where(np.isinf(nu), 0.0, r**2 / nu)))
+    return math.inf if denom == 0.0 else 1.0 / denom
+
+
+def coverage_factor(dof=math.inf, level: float = 0.95):
+    """Coverage factor k for a coverage probability (Student t, normal for inf dof).
+
+    Parameters
+    ----------
+    dof : float or array_like, default inf
+        Effective degrees of freedom (non-integer allowed).
+    level : float, default 0.95
+        Coverage probability in (0, 1).
+
+    Returns
+    -------
+    float or ndarray
+        :math:`k = t_{(1+p)/2,\\,\\nu}` (dimensionless).
+
+    Notes
+    -----
+    [1]_ Annex G.3, Table G.2.
+
+    Examples
+    --------
+    >>> round(coverage_factor(), 3)
+    1.96
+    >>> round(coverage_factor(16, 0.99), 2)
+    2.92
+    """
+    if not (0.0 < float(level) < 1.0):
+        raise InputError(
+            f"The 'level' parameter of coverage_factor must lie in (0, 1). Got {level!r}. "
+            "Write 95 % as 0.95.",
+            parameter="level",
+        )
+    nu = np.asarray(dof, dtype=float)
+    if np.any(np.isnan(nu)) or np.any(nu <= 0):
+        raise InputError(
+            f"The 'dof' parameter of coverage_factor must be positive (inf allowed). Got {dof!r}.",
+            parameter="dof",
+        )
+    from scipy import stats as _sps  # on first use: its import costs 1-2 s
+
+    q = 0.5 + level / 2.0
+    k = np.where(np.isinf(nu), _sps.norm.ppf(q), _sps.t.ppf(q, np.where(np.isinf(nu), 1.0, nu)))
+    return float(k) if k.ndim == 0 else k
+
+
+def standard_from_expanded(U, level: float = 0.95, dof=math.inf):
+    """Standard uncertainty from an expanded uncertainty stated at a coverage level.
+
+    Parameters
+    ----------
+    U : float or array_like
+        Expanded uncertainty [any unit].
+    level : float, default 0.95
+        Coverage probability it was stated at.
+    dof : float, default inf
+        Degrees of freedom behind it (inf: normal distribution).
+
+    Returns
+    -------
+    float or ndarray
+        :math:`u = U / k` [unit of U].
+
+    Notes
+    -----
+    [1]_ section 4.3.4 (an uncertainty quoted at a confidence level is divided by
+    the matching factor of the normal distribution unless stated otherwise).
+
+    Examples
+    --------
+    >>> round(standard_from_expanded(2.0, level=0.9545), 3)
+    1.0
+    """
+    Ua = np.asarray(U, dtype=float)
+    if np.any(Ua < 0):
+        raise InputError(
+            f"The 'U' parameter of standard_from_expanded must be non-negative. Got {U!r}.",
+            parameter="U",
+        )
+    u = Ua / coverage_factor(dof, level)
+    return float(u) if np.ndim(u) == 0 else u

@@ -1,0 +1,14 @@
+"""Fluid and fuel properties: the thermodynamic library every later stage calls.
+
+:mod:`~perftest.thermo.properties` wraps CoolProp (water and steam by IAPWS-IF97 or
+IAPWS-95, gases, refrigerants, humid air) behind :func:`get_fluid`;
+:mod:`~perftest.thermo.fuel` holds ISO 6976 calorific values and densities of gas
+mixtures (:class:`Gas`).
+
+May import: :mod:`perftest.errors` and :mod:`perftest.units` only.
+"""
+
+from perftest.thermo.fuel import Gas
+from perftest.thermo.properties import Fluid, HumidAir, State, get_fluid, specific_exergy
+
+__all__ = ["Fluid", "Gas", "HumidAir", "State", "get_fluid", "specific_exergy"]

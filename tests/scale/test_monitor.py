@@ -1,0 +1,138 @@
+"""Tests of ``perftest monitor`` and the trend figure (perftest.scale.monitor, report.trend).
+
+Outside checks: the command's table is compared with ``perftest.reconcile_many``
+called directly on the run read whole by ``perftest.read_run`` (an independent
+path: in memory, no store, no day-by-day reading); the summary counts with pandas
+counts of that table; the figure's artists with matplotlib's own objects.
+"""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+import warnings
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+import perftest
+from perftest.cli import main
+from perftest.report.trend import trend_figure
+
+DEMO = Path(__file__).resolve().parents[2] / "sample_data" / "brackenfold"
+FILES = [DEMO / "historian.csv", DEMO / "logger.csv"]
+
+
+@pytest.fixture(scope="module")
+def demo_out(tmp_path_factory):
+    out = tmp_path_factory.mktemp("monitor")
+    argv = ["monitor", str(DEMO / "plant.toml"), "--data", str(FILES[0]), "--data",
+            str(FILES[1]), "--every", "30min", "--out", str(out), "-q"]  # fmt: skip
+    assert main(argv) == 0
+    return out
+
+
+@pytest.fixture(scope="module")
+def direct():
+    plant = perftest.load_plant(DEMO / "plant.toml")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        run = perftest.read_run(FILES, plant)
+    return perftest.reconcile_many(plant, run, "30min", eliminate=True, stability=True)
+
+
+def test_monitor_writes_the_table(demo_out, direct):
+    table = pd.read_csv(demo_out / "windows.csv")
+    # four hours in 30-minute windows, and the aligned stamp 12:00 (the logger's
+    # last samples belong to it, read_run's alignment rule) in a ninth, skipped
+    assert len(table) == len(direct) == 9
+    assert direct["status"].iloc[-1] == "skipped"
+    assert list(table["status"]) == list(direct["status"])
+    assert list(table["suspects"].fillna("")) == list(direct["suspects"])
+    # the CSV prints floats with repr precision: equal to the last digit; the two
+    # paths differ only in the warm start (1e-9, see tests/test_scale.py)
+    for col in ("chi2", "first_law_efficiency", "u_first_law_efficiency", "carnot_efficiency"):
+        np.testing.assert_allclose(table[col], direct[col], rtol=1e-9)
+    stored = pd.read_parquet(demo_out / "windows.parquet")
+    assert sorted(stored["window"]) == list(range(9))
+
+
+def test_monitor_summary(demo_out, direct):
+    info = json.loads((demo_out / "monitor.json").read_text())
+    counts = direct["status"].value_counts()
+    for status in ("ok", "unstable", "skipped", "failed"):
+        assert info["windows"][status] == int(counts.get(status, 0))
+    assert info["windows"]["total"] == len(direct)
+    # FT-171 reads 3 % high in the demo (sample_data/brackenfold/generate.py)
+    n = int(direct["suspects"].str.contains("FT-171").sum())
+    assert n > 0 and info["suspect_windows_by_tag"]["FT-171"] == n
+    assert "do not replace" in info["caution"]
+    assert (demo_out / "trend.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_monitor_resumes(demo_out, capsys):
+    before = {p.name: p.stat().st_mtime_ns for p in (demo_out / "windows.parquet").iterdir()}
+    argv = ["monitor", str(DEMO / "plant.toml"), "--data", str(FILES[0]), "--data",
+            str(FILES[1]), "--every", "30min", "--out", str(demo_out), "-q",
+            "--no-figures"]  # fmt: skip
+    assert main(argv) == 0
+    after = {p.name: p.stat().st_mtime_ns for p in (demo_out / "windows.parquet").iterdir()}
+    assert after == before  # nothing recomputed, nothing rewritten
+
+
+@pytest.mark.parametrize(
+    ("extra", "match"),
+    [
+        (["--data", "missing.csv"], "missing.csv: run file not found"),
+        (["--every", "fortnightly"], "'every' parameter"),
+        (["--workers", "0"], "--workers must be at least 1"),
+        (["--scheduler", "tcp://127.0.0.1:1"], "--scheduler is used with --engine dask"),
+    ],
+)
+def test_monitor_bad_input_one_line(tmp_path, capsys, extra, match):
+    argv = ["monitor", str(DEMO / "plant.toml"), "--data", str(FILES[0]), "--data",
+            str(FILES[1]), "--out", str(tmp_path / "o"), "-q", *extra]  # fmt: skip
+    assert main(argv) == 2
+    err = capsys.readouterr().err
+    assert err.startswith("perftest: error:") and match in err
+    assert err.count("\n") == 1
+
+
+def test_monitor_as_a_subprocess(tmp_path):
+    out = tmp_path / "o"
+    proc = subprocess.run(
+        [sys.executable, "-m", "perftest.cli", "monitor", str(DEMO / "plant.toml"), "--data",
+         str(FILES[0]), "--data", str(FILES[1]), "--every", "1h", "--out", str(out),
+         "--no-figures", "-q"],
+        capture_output=True, text=True, timeout=120,
+    )  # fmt: skip
+    assert proc.returncode == 0, proc.stderr
+    assert "5 of 1h" in proc.stdout  # 08:00 to 12:00, plus the aligned stamp 12:00
+    assert json.loads((out / "monitor.json").read_text())["windows"]["total"] == 5
+
+
+def test_trend_figure_artists(direct):
+    table = direct.copy()
+    table.loc[2, "passed"] = False  # one global-test failure to mark
+    table.loc[5, ["first_law_efficiency", "u_first_law_efficiency"]] = np.nan  # no result
+    fig = trend_figure(table, title="demo")
+    ax, axc, axs = fig.axes
+    assert "[%]" in ax.get_ylabel() and "[%]" in axc.get_ylabel()
+    assert "mid-time" in axs.get_xlabel()
+    labels = ax.get_legend_handles_labels()[1]
+    assert "global test failed" in labels and any(lab.startswith("U95 band") for lab in labels)
+    # the band spans eta +- 2u (GUM coverage factor 2), in percent
+    band = ax.collections[0].get_paths()[0].vertices[:, 1]
+    eta = 100 * direct["first_law_efficiency"].to_numpy()
+    u = 100 * direct["u_first_law_efficiency"].to_numpy()
+    assert band.max() == pytest.approx(np.nanmax(np.delete(eta + 2 * u, 5)), rel=1e-12)
+    assert [t.get_text() for t in axs.get_yticklabels()] == ["FT-171"]
+    fig.canvas.draw()  # lays out without error
+
+
+def test_trend_figure_needs_results(direct):
+    with pytest.raises(perftest.InputError, match="lacks columns"):
+        trend_figure(direct.drop(columns=["carnot_efficiency"]))
