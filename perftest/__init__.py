@@ -26,6 +26,7 @@ _LAZY = {
     "load_plant": "perftest.plant",
     "Plant": "perftest.plant",
     "read_run": "perftest.importers",
+    "read_sql": "perftest.importers",
     "Run": "perftest.run",
     "Measurements": "perftest.run",
     "reconcile_linear": "perftest.balance",

@@ -113,9 +113,12 @@ def build_parser() -> argparse.ArgumentParser:
         "--data",
         metavar="RUN.csv",
         action="append",
-        required=True,
-        help="run file (repeat for several files)",
+        help="run file: .csv, .xlsx (book.xlsx#Sheet names a sheet) or .parquet "
+        "(repeat for several files)",
     )
+    from perftest.importers.sources import add_sql_arguments
+
+    add_sql_arguments(r)
     r.add_argument("--start", metavar="T", help="window start, e.g. '2026-05-14 10:00'")
     r.add_argument("--end", metavar="T", help="window end")
     r.add_argument(
@@ -272,9 +275,9 @@ def _run(args) -> int:
         plant = Path(args.plant)
         if not plant.is_file():
             raise PerftestError(f"{plant}: plant file not found.", file=plant)
-        for f in args.data:
-            if not Path(f).is_file():
-                raise PerftestError(f"{f}: run file not found.", file=f)
+        from perftest.importers.sources import sources_from_options
+
+        sources = sources_from_options(args.data, args.sql, args.query)
         if not any((args.out, args.json, args.html, args.markdown)):
             raise PerftestError(
                 "Nothing to write: give --out DIR, or --json/--html/--markdown FILE."
@@ -282,7 +285,7 @@ def _run(args) -> int:
         window = None if str(args.window).lower() in ("all", "none") else args.window
         outcome = run_pipeline(
             plant,
-            args.data,
+            sources,
             out_dir=args.out,
             json_path=args.json,
             html_path=args.html,

@@ -13,6 +13,7 @@ Errors in the data or the plant file are raised as :class:`PerftestError`.
 from __future__ import annotations
 
 import importlib.util
+import os
 import time
 import warnings
 from collections.abc import Callable, Sequence
@@ -134,6 +135,11 @@ def _available(module: str) -> bool:
         return False
 
 
+def _source(p):
+    """A run file's path as text, or a staged database source as it is."""
+    return str(p) if isinstance(p, str | os.PathLike) else p
+
+
 def run_pipeline(
     plant_path,
     data_paths: Sequence,
@@ -224,7 +230,7 @@ def run_pipeline(
     def _read():
         from perftest.importers import read_run
 
-        return read_run([str(p) for p in data_paths], out.plant)
+        return read_run([_source(p) for p in data_paths], out.plant)
 
     out.run = stage("read run", _read, out.plant)
 
@@ -295,7 +301,7 @@ def run_pipeline(
             timings=out.timings,
             notes=out.warnings,
             options=_options(),
-            paths=[str(p) for p in data_paths],
+            paths=[str(p) for p in data_paths if isinstance(p, str | os.PathLike)],
         )
         written = report.write_reports(
             data,

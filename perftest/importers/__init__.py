@@ -1,4 +1,5 @@
-"""Run-file importers: CSV logs into a :class:`~perftest.run.core.Run`.
+"""Run-file importers: CSV logs, Excel workbooks, Parquet files and database tables into a
+:class:`~perftest.run.core.Run`.
 
 See docs/run-files.md for the accepted files, the alignment rule and the masks.
 """
@@ -6,5 +7,6 @@ See docs/run-files.md for the accepted files, the alignment rule and the masks.
 from __future__ import annotations
 
 from perftest.importers.reader import read_parts, read_run
+from perftest.importers.sources import read_sql
 
-__all__ = ["read_run", "read_parts"]
+__all__ = ["read_run", "read_parts", "read_sql"]

@@ -61,11 +61,14 @@ class _FileData:
 # --- argument checks -----------------------------------------------------------------------
 
 
-def _as_paths(paths) -> list[Path]:
-    if isinstance(paths, str | os.PathLike):
-        return [Path(paths)]
+def _as_paths(paths) -> list:
+    """Paths, or staged sources (:class:`~perftest.importers.sources.StagedSource`)."""
+    from perftest.importers.sources import StagedSource
+
+    if isinstance(paths, str | os.PathLike | StagedSource):
+        paths = [paths]
     try:
-        out = [Path(p) for p in paths]
+        out = [p if isinstance(p, StagedSource) else Path(p) for p in paths]
     except TypeError:
         raise InputError(
             "The 'paths' parameter of read_run must be a file path or a list of paths. "

@@ -44,6 +44,9 @@ class RawSource:
         File size [byte] at import.
     crc32 : int
         zlib CRC-32 of the whole file at import.
+    origin : Origin or None
+        For a workbook, Parquet file or database: the source the file was staged from
+        (:mod:`perftest.importers.sources`); None for a CSV file.
     """
 
     layout: FileLayout
@@ -51,6 +54,7 @@ class RawSource:
     times: pd.DatetimeIndex
     size: int
     crc32: int
+    origin: object = None  # sources.Origin of a workbook, Parquet file or database
 
     def read(self) -> pd.DataFrame:
         """The columns as text (pandas ``str``; blank cells missing), indexed by ``times``.

@@ -17,6 +17,7 @@ The steps, in order (docs/run-files.md states the rules for users):
 
 from __future__ import annotations
 
+import dataclasses
 import os
 import warnings
 from collections import Counter
@@ -25,7 +26,7 @@ import numpy as np
 import pandas as pd
 import pyarrow as pa
 
-from perftest.errors import DataError, DataQualityWarning, InputError, UnitError
+from perftest.errors import DataError, DataQualityWarning, InputError, PerftestError, UnitError
 from perftest.importers.columns import (
     _MAX_LISTED,
     _as_paths,
@@ -427,13 +428,16 @@ def read_run(
     units=None,
     every=None,
     sentinels=None,
+    sheet=None,
 ):
-    """Read one or several run CSV files into a :class:`~perftest.run.core.Run` (SI inside).
+    """Read one or several run files into a :class:`~perftest.run.core.Run` (SI inside).
 
     Parameters
     ----------
     paths : str, Path or list of them
-        Run files (historian export, portable logger, ...).
+        Run files (historian export, portable logger, ...): CSV text, Excel workbooks
+        (``.xlsx``; ``book.xlsx#Sheet`` names a sheet) and Parquet files (``.parquet``),
+        told apart by their ending.
     plant : Plant, str or Path, optional
         Plant file (loaded or its path).  Its tags choose the columns, give units,
         calibrations, sentinels, the file a shared column comes from (``source``),
@@ -459,6 +463,9 @@ def read_run(
         (one file).
     sentinels : iterable of float or str, optional
         Extra cell values that mean "bad sample", for every column.
+    sheet : str, optional
+        Worksheet of the workbooks (default: the one named after ``#`` in the path,
+        else the first sheet).
 
     Returns
     -------
@@ -498,6 +505,7 @@ def read_run(
         units=units,
         every=every,
         sentinels=sentinels,
+        sheet=sheet,
     )
     for msg in parts.pop("warnings"):
         warnings.warn(DataQualityWarning(msg + ". See Run.log and Run.exclusions."), stacklevel=2)
@@ -516,8 +524,13 @@ def read_parts(
     units=None,
     every=None,
     sentinels=None,
+    sheet=None,
 ) -> dict:
     """The pieces :func:`read_run` builds its Run from (same parameters).
+
+    Workbooks, Parquet files and staged database rows are read as the text tables
+    :mod:`perftest.importers.sources` stages them as; every message, log line and
+    warning then names the source (sheet and row, record, result row), not the stage.
 
     Returns
     -------
@@ -525,6 +538,86 @@ def read_parts(
         ``data, raw, mask, exclusions, log, plant, units, quantities`` as the Run
         constructor takes them, plus ``warnings`` (messages not yet issued).
     """
+    from perftest.importers import sources
+
+    given = _as_paths(paths)
+    staged = []
+    plain = []
+    for p in given:
+        if isinstance(p, sources.StagedSource):
+            staged.append(p)
+            plain.append(p.path)
+        elif sources.is_staged_kind(p):
+            s = sources.stage_file(p, sheet=sheet)
+            staged.append(s)
+            plain.append(s.path)
+        else:
+            if sheet is not None and len(given) == 1:
+                raise InputError(
+                    f"The 'sheet' parameter of read_run applies to workbooks (.xlsx); "
+                    f"{p} is not one.",
+                    parameter="sheet",
+                )
+            plain.append(p)
+    if not staged:
+        return _read_parts(
+            plain,
+            plant,
+            time_column=time_column,
+            timezone=timezone,
+            sep=sep,
+            decimal=decimal,
+            units=units,
+            every=every,
+            sentinels=sentinels,
+        )
+    try:
+        parts = _read_parts(
+            plain,
+            plant,
+            time_column=time_column,
+            timezone=timezone,
+            sep=sep,
+            decimal=decimal,
+            units=units,
+            every=every,
+            sentinels=sentinels,
+        )
+    except PerftestError as exc:
+        raise sources.relabel(exc, staged) from None
+    by_path = {s.path: s for s in staged}
+    raw = parts["raw"]
+    for stem in list(raw):
+        src = raw.source(stem)
+        s = by_path.get(src.layout.path)
+        if s is not None:
+            raw._sources[stem] = dataclasses.replace(src, origin=s.origin)
+    notes = [
+        f"{s.path.stem}: read from {s.origin.label}"
+        + (f" (SHA-256 {s.origin.sha256[:16]}...)" if s.origin.path is not None else "")
+        + (f", query: {s.origin.query}" if s.origin.query else "")
+        + f"; its cells were staged as text and read as a CSV file ({s.origin.row_word} "
+        "numbers in messages are the source's)"
+        for s in staged
+    ]
+    parts["log"] = notes + [sources.relabel_text(x, staged) for x in parts["log"]]
+    parts["warnings"] = [sources.relabel_text(x, staged) for x in parts["warnings"]]
+    return parts
+
+
+def _read_parts(
+    paths,
+    plant=None,
+    *,
+    time_column=None,
+    timezone=None,
+    sep=None,
+    decimal=None,
+    units=None,
+    every=None,
+    sentinels=None,
+) -> dict:
+    """:func:`read_parts` on text files only."""
     if isinstance(plant, str | os.PathLike):
         from perftest.plant.file import load_plant
 

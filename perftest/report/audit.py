@@ -398,6 +398,26 @@ def _conversions(run) -> tuple:
     return tuple(out)
 
 
+def _origin_fingerprint(origin) -> InputFile:
+    """A workbook's or Parquet file's fingerprint, or a database query's (no password)."""
+    if origin.path is not None:
+        fp = file_fingerprint(origin.path)
+        note = fp.note
+        if not note and fp.sha256 != origin.sha256:
+            note = "changed since the import: this fingerprint is not of the imported bytes"
+        if origin.sheet is not None:
+            note = "; ".join(x for x in (f"sheet {origin.sheet!r}", note) if x)
+        return InputFile(fp.role, fp.name, fp.path, fp.size, fp.sha256, note)
+    return InputFile(
+        "run",
+        origin.label,
+        origin.url or "",
+        None,
+        origin.sha256,
+        f"query: {origin.query}; SHA-256 of the rows returned",
+    )
+
+
 def _files(plant, run, paths: Sequence) -> tuple:
     out = []
     plant_path = getattr(plant, "path", None)
@@ -408,6 +428,12 @@ def _files(plant, run, paths: Sequence) -> tuple:
     if raw is not None and hasattr(raw, "source"):
         for stem in raw:
             src = raw.source(stem)
+            origin = getattr(src, "origin", None)
+            if origin is not None:
+                out.append(_origin_fingerprint(origin))
+                if origin.path is not None:
+                    seen.add(str(Path(origin.path)))
+                continue
             out.append(file_fingerprint(src.layout.path, size=src.size, crc32=src.crc32))
             seen.add(str(Path(src.layout.path)))
     for p in paths:

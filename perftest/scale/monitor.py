@@ -208,8 +208,12 @@ def add_parser(sub, common) -> None:
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     m.add_argument("plant", metavar="PLANT.toml", help="plant description file")
-    m.add_argument("--data", metavar="RUN.csv", action="append", required=True,
-                   help="run file (repeat for several files read together)")  # fmt: skip
+    m.add_argument("--data", metavar="RUN.csv", action="append",
+                   help="run file: .csv, .xlsx or .parquet (repeat for several files read "
+                   "together)")  # fmt: skip
+    from perftest.importers.sources import add_sql_arguments
+
+    add_sql_arguments(m)
     m.add_argument("--every", metavar="LENGTH", default="15min",
                    help="window length (default 15min)")  # fmt: skip
     m.add_argument("--out", metavar="DIR", required=True, help="output folder")
@@ -230,16 +234,19 @@ def add_parser(sub, common) -> None:
 
 def run_command(args) -> int:
     """Carry out a parsed ``perftest monitor`` command; returns the exit status."""
-    for f in args.data:
-        if not Path(f).is_file():
-            raise PerftestError(f"{f}: run file not found.", file=f)
+    from perftest.importers.sources import sources_from_options
+
+    data = [
+        s if isinstance(s, str) else s.path
+        for s in sources_from_options(args.data, args.sql, args.query)
+    ]
     if args.workers is not None and args.workers < 1:
         raise PerftestError(f"--workers must be at least 1. Got {args.workers}.")
     if args.scheduler and args.engine != "dask":
         raise PerftestError("--scheduler is used with --engine dask only.")
     info = monitor(
         args.plant,
-        args.data,
+        data,
         args.out,
         every=args.every,
         engine=args.engine,

@@ -116,6 +116,18 @@ def _as_runs(run) -> list[tuple[object, object]]:
     return out
 
 
+def _staged(paths, read_kw: dict) -> tuple:
+    """Workbooks and Parquet files staged once as text tables, read a day at a time."""
+    from perftest.importers import sources
+
+    return tuple(
+        sources.stage_file(p, sheet=read_kw.get("sheet")).path
+        if sources.is_staged_kind(p)
+        else p
+        for p in paths
+    )
+
+
 def _sources(plant, runs, read_kw: dict) -> list[_Source]:
     from perftest.scale import files as scale_files
 
@@ -127,6 +139,8 @@ def _sources(plant, runs, read_kw: dict) -> list[_Source]:
                 _Source(label, number, _zone(r), idx.tz, idx[0], idx[-1], _interval(r), run=r)
             )
             continue
+        r = _staged(r, read_kw)
+        read_kw = {k: v for k, v in read_kw.items() if k != "sheet"}
         indexes = scale_files.index_files(r, plant, read_kw)
         first, last = scale_files.first_and_last(indexes)
         # the sampling interval from the first day as the importer aligns it
