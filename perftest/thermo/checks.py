@@ -7,6 +7,8 @@ The message helpers format a state for an error message in one way everywhere.
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 import pandas as pd
 
@@ -127,3 +129,26 @@ def check_quality(x, func, where):
             f"{prefix(where)}the quality 'x' of {func} must lie between 0 and 1. Got {x[i]!r}.",
             parameter="x",
         )
+
+
+def check_number(value, name, func, lo=-math.inf, hi=math.inf, what="a number"):
+    """Return `value` as a float in [lo, hi]; refuse NaN, bools and non-numbers.
+
+    The message reads "The '<name>' parameter of <func> must be <what>. Got <value>."
+    """
+    try:
+        x = float(value)
+    except (TypeError, ValueError):
+        x = math.nan
+    if isinstance(value, bool) or not (lo <= x <= hi):
+        raise InputError(
+            f"The {name!r} parameter of {func} must be {what}. Got {value!r}.", parameter=name
+        )
+    return x
+
+
+def check_fraction(value, name, func, hi=1.0):
+    """Return a mole (or mass) fraction in [0, hi] as a float."""
+    return check_number(
+        value, name, func, 0.0, hi, f"a mole fraction between 0 and {hi:g} (not percent)"
+    )
