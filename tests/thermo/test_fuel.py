@@ -10,8 +10,8 @@ import math
 import CoolProp.CoolProp as CP
 import pytest
 
-from perftest.thermo import fuel
 from perftest.errors import InputError
+from perftest.thermo import fuel
 from perftest.thermo.fuel import COMPONENTS, M_AIR, Z_AIR, Gas, vaporisation_enthalpy
 
 R = 8.3144621
