@@ -1,7 +1,8 @@
 """Combustion of a fuel with air: stoichiometry, excess air, flue gas, dew points.
 
 Pure numeric functions with named physical arguments, SI inside (fractions, K, Pa,
-kg/kg, mol/kg).  Every result is per kg of fuel *as fired*.
+kg/kg, mol/kg), floats in and out (one operating point).  Every result is per kg of
+fuel *as fired*.
 
 Fuels
 -----

@@ -31,7 +31,12 @@ The losses [J per kg fuel, divided by :math:`H`]:
 * unburned CO, :math:`n_{CO} H_{CO}`, with :math:`H_{CO}` = 282.98 kJ/mol (ISO 6976
   Table 3, :data:`perftest.thermo.fuel.COMPONENTS`);
 * radiation and convection from the casing, blowdown and other losses: given
-  fractions (from the test code's curve or a separate estimate).
+  fractions (from the test code's curve or a separate estimate).  "Other" is where
+  losses this module does not compute go: unburned carbon in the ash and the ash's
+  sensible heat (solid fuels), NOx formation, atomising steam.
+
+All functions take and return floats (one operating point); the reconciliation
+evaluates them point by point.
 
 With a constant :math:`\\ell` the two bases are consistent exactly:
 :math:`(1 - \\eta_{HHV}) H_{HHV} = (1 - \\eta_{LHV}) H_{LHV} + \\ell (m_{w,H} + m_{w,f})`
@@ -41,8 +46,10 @@ defined from the HHV.
 References
 ----------
 .. [1] The structure (losses by origin, referred to the entering-air temperature) is
-   the common practice of boiler test codes and handbooks, e.g. Steam: Its Generation
-   and Use (Babcock & Wilcox), the chapter on boiler efficiency (from memory).
+   the common practice of boiler test codes, e.g. EN 12952-15:2003, Water-tube boilers
+   and auxiliary installations, Part 15: Acceptance tests, and ASME PTC 4, Fired
+   Steam Generators (from memory); this module is a simplified form of it, not either
+   code's procedure.
 .. [2] ISO 6976:2016, Table 3 (CO calorific value) and Table 3 footnote (enthalpy of
    vaporisation of water at 25 °C, 44.016 kJ/mol; from memory).
 """
@@ -66,6 +73,7 @@ from perftest.thermo.combustion import (
 )
 from perftest.thermo.fuel import COMPONENTS, L_WATER
 from perftest.thermo.ideal_gas import MOLAR_MASSES, check_temperature, mixture_enthalpy_change
+from perftest.thermo.if97 import P_TRIPLE
 
 __all__ = [
     "BoilerLosses",
@@ -279,7 +287,8 @@ class BoilerLosses:
     flue_gas : FlueGas
         Per kg of fuel.
     water_dew_point : [K]
-        Of the flue gas at the given pressure.
+        Of the flue gas at the given pressure; NaN when the water partial pressure is
+        below the triple point (no dew above 0 °C).
     """
 
     dry_flue_gas: float
@@ -413,6 +422,9 @@ def boiler_losses(
     basis = _basis(heating_value_basis, func)
     H = _hv(heating_value, func)
     Tg, Ta = _temps(flue_gas_temperature, air_temperature, func)
+    p = check_number(
+        pressure, "pressure", func, 1e3, 1e7, "an absolute pressure in Pa (1 kPa-10 MPa)"
+    )
     given = {
         "radiation_loss": check_fraction(radiation_loss, "radiation_loss", func, hi=0.5),
         "blowdown_loss": check_fraction(blowdown_loss, "blowdown_loss", func, hi=0.5),
@@ -434,7 +446,8 @@ def boiler_losses(
         carbon_monoxide=carbon_monoxide,
         basis=flue_gas_basis,
     )
-    dew = water_dew_point(fg.wet["H2O"], pressure) if fg.wet["H2O"] > 0 else math.nan
+    pw = fg.wet["H2O"] * p
+    dew = water_dew_point(fg.wet["H2O"], p) if pw >= P_TRIPLE else math.nan
     if Tg < dew:
         warnings.warn(
             f"The flue-gas temperature {Tg:.2f} K is below the water dew point "

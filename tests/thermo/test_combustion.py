@@ -24,8 +24,8 @@ from perftest.thermo.ideal_gas import (
 
 METHANE = {"methane": 1.0}
 PROPANE = {"propane": 1.0}
-#: A light fuel oil by ultimate analysis (mass fractions): the classic textbook example
-#: composition C 86 %, H 13 %, S 1 % (invented for this test in that shape).
+#: A fuel oil by ultimate analysis (mass fractions), the round composition C 86 %,
+#: H 13 %, S 1 % typical of textbook examples (values chosen for this test).
 OIL = UltimateAnalysis(carbon=0.86, hydrogen=0.13, sulfur=0.01)
 #: A bituminous-like coal as fired, invented, with moisture and ash.
 COAL = {"C": 0.62, "H": 0.042, "O": 0.075, "N": 0.012, "S": 0.011, "moisture": 0.09, "ash": 0.15}
@@ -504,6 +504,10 @@ def test_bad_input_names_the_parameter(call, match):
 def test_frost_is_not_dew():
     with pytest.raises(PropertyRangeError, match="triple point"):
         cb.water_dew_point(0.001, 101325.0)
+    # a fuel without hydrogen burnt in nearly dry air has no dew point above 0 °C; the
+    # losses are still computed
+    losses = _losses("lhv", 10.1e6, fuel={"carbon_monoxide": 1.0}, air_humidity_ratio=1e-5)
+    assert math.isnan(losses.water_dew_point) and 0.0 < losses.efficiency < 1.0
 
 
 def test_molar_masses_follow_from_atomic_weights():
