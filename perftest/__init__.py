@@ -37,6 +37,7 @@ _LAZY = {
     "reconcile": "perftest.balance.plant",
     "get_fluid": "perftest.thermo",
     "Gas": "perftest.thermo",
+    "stoichiometric_air": "perftest.thermo.combustion",
     "evaluate": "perftest.evaluation",
     "reconcile_many": "perftest.scale",
     "plan": "perftest.planning",

@@ -333,12 +333,12 @@ def _h_ideal(coolprop_name: str, T: float) -> float:
 
 @functools.lru_cache(maxsize=64)
 def _h_liquid_water(T: float) -> float:
-    # IAPWS-IF97 region 1 through CoolProp's compiled core alone (perftest.thermo.properties
+    # IAPWS-IF97 region 1 through CoolProp's compiled core alone (perftest.thermo.coolprop_core
     # loads it without the package start-up, which would load every HEOS fluid).
     # IF97 rather than IAPWS-95: CoolProp's HEOS water refuses 0 °C at 1 atm (below its
     # melting line by 3 mK); for liquid enthalpy differences between 0 and 25 °C the two
     # formulations agree to far better than 0.1 J/mol.
-    from perftest.thermo.properties import _coolprop
+    from perftest.thermo.coolprop_core import _coolprop
 
     CP = _coolprop()
     st = CP.AbstractState("IF97", "Water")

@@ -10,8 +10,8 @@ import math
 import CoolProp.CoolProp as CP
 import pytest
 
-from perftest.thermo import fuel
 from perftest.errors import InputError
+from perftest.thermo import fuel
 from perftest.thermo.fuel import COMPONENTS, M_AIR, Z_AIR, Gas, vaporisation_enthalpy
 
 R = 8.3144621
@@ -196,7 +196,7 @@ def test_stored_ideal_gas_enthalpies_against_coolprop(fluid):
 # The heating value at a combustion temperature other than 25 °C must not start
 # CoolProp's Helmholtz-energy (HEOS) fluid library: that costs seconds of CPU.  Observed
 # in a fresh interpreter: every use of CoolProp's core by perftest goes through
-# perftest.thermo.properties._coolprop(), replaced here by a proxy that records each attribute
+# perftest.thermo.coolprop_core._coolprop(), replaced here by a proxy that records each attribute
 # taken and each AbstractState backend; and the package ``CoolProp`` (whose __init__.py
 # requests the fluid list, which loads the library) must not have been imported.
 #: The fuel of the bundled demo plant (sample_data/brackenfold).
@@ -211,9 +211,9 @@ DEMO_GAS = {
 
 _NO_HEOS_SCRIPT = r"""
 import json, sys
-from perftest.thermo import properties
+from perftest.thermo import coolprop_core
 
-core = properties._coolprop()
+core = coolprop_core._coolprop()
 seen = {"backends": [], "names": []}
 
 class Proxy:
@@ -227,7 +227,7 @@ class Proxy:
             return make
         return value
 
-properties._CORE = Proxy()
+coolprop_core._CORE = Proxy()
 from perftest.thermo.fuel import Gas
 DEMO_GAS = DEMO_GAS_DICT
 PREAMBLE

@@ -1,0 +1,155 @@
+"""States from pressure and enthalpy or entropy: (p, h) and (p, s) inputs.
+
+For ``"water"`` (IAPWS-IF97) CoolProp returns the temperature of the backward
+equations, consistent with the forward equations to 25 mK; Newton steps on the
+forward equation refine it so that h(p, T(p, h)) reproduces h to 1e-9 relative.
+Other fluids use CoolProp's iterative HEOS solver as it is.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from perftest.errors import PropertyRangeError
+from perftest.thermo.backend import fast, loop
+from perftest.thermo.checks import Args, fmt_state, more, prefix, range_hint
+from perftest.thermo.if97 import if97_tsat
+from perftest.thermo.saturation import sat_side_values, tsat_or_nan
+from perftest.thermo.single_phase import pT_quiet
+from perftest.thermo.states import State, make_state
+
+
+def solve_T(fluid, p, target, key, where):
+    """T, quality and side for (p, h) or (p, s) inputs (flat arrays).
+
+    Returns ``T, x, two_phase, side`` with side +1 vapour/gas, -1 liquid, 0 above
+    the critical pressure.
+    """
+    CP = fluid._CP
+    pair = CP.HmassP_INPUTS if key == "h" else CP.PSmass_INPUTS
+    n = p.size
+    valid = ~np.isnan(p) & ~np.isnan(target)
+    if fluid.is_if97 and key == "h":
+        res, ok = fast(fluid, pair, target, p, ["T", "x"])
+        err = None
+    elif fluid.is_if97:
+        res, ok, err = loop(fluid, pair, p, target, ["T", "x"])
+    else:
+        a, b = (target, p) if key == "h" else (p, target)
+        res, ok, err = loop(fluid, pair, a, b, ["T", "x"])
+    failed = valid & ~ok
+    if failed.any():
+        i = int(np.flatnonzero(failed)[0])
+        state = fmt_state(p[i], h=target[i]) if key == "h" else fmt_state(p[i], s=target[i])
+        detail = f" (CoolProp: {err})" if err else ""
+        raise PropertyRangeError(
+            f"{prefix(where)}{state} is outside the range of {fluid.formulation} for "
+            f"{fluid.name}{range_hint(fluid)}.{detail}" + more(failed)
+        )
+    # a NaN input is a gap: its state is NaN, whatever the backend made of it
+    T = np.where(valid, res["T"], np.nan)
+    x = np.where(valid, res["x"], np.nan)
+    two = (x >= 0) & (x <= 1) & (p < fluid.p_critical)
+    side = np.zeros(n)
+    if not fluid.is_if97:
+        tsat = tsat_or_nan(fluid, p)
+        side = np.where(p < fluid.p_critical, np.where(T < tsat, -1.0, 1.0), 0.0)
+        side[two] = 0.0
+        return T, np.where(two, x, np.nan), two, side
+    # IF97: CoolProp's (p, h) and (p, s) use the backward equations alone, whose
+    # temperature may be off by up to 25 mK (region 1) or 10 mK (region 2), IF97 Table
+    # 3; Newton steps on the forward equation make h(p, T) reproduce the input exactly.
+    sub = (p < fluid.p_critical) & ~two & valid
+    tsat = np.full(n, np.nan)
+    tsat[sub] = if97_tsat(p[sub])
+    side[sub] = np.where(T[sub] < tsat[sub], -1.0, 1.0)
+    # Near the line the backward T may sit on the wrong side: decide by the
+    # saturated values there.
+    close = sub & (np.abs(T - tsat) < 0.1)
+    if close.any():
+        f, g = sat_side_values(fluid, p[close], key)
+        tc = target[close]
+        side[close] = np.where(tc <= f, -1.0, np.where(tc >= g, 1.0, side[close]))
+    single = valid & ~two
+    if single.any():
+        idx = np.flatnonzero(single)
+        Ti = T[idx].copy()
+        pi, ti, si = p[idx], target[idx], side[idx]
+        phase_of = {-1.0: "liquid", 1.0: "vapour", 0.0: "supercritical"}
+        for _ in range(3):
+            val = np.empty(idx.size)
+            cp = np.empty(idx.size)
+            for sv in (-1.0, 0.0, 1.0):
+                m = si == sv
+                if not m.any():
+                    continue
+                ph = phase_of[sv] if sv != 0.0 else None
+                r = pT_quiet(fluid, pi[m], Ti[m], ph, [key, "cp"])
+                val[m], cp[m] = r[key], r["cp"]
+            slope = cp if key == "h" else cp / Ti
+            step = (val - ti) / slope
+            # keep the iterate on its side of the line (and never on it)
+            Tn = Ti - step
+            ts = tsat[idx]
+            Tn = np.where(si < 0, np.minimum(Tn, ts - 1e-6), Tn)
+            Tn = np.where(si > 0, np.maximum(Tn, ts + 1e-6), Tn)
+            ok_step = np.isfinite(Tn)
+            Ti = np.where(ok_step, Tn, Ti)
+            if np.all(np.abs(step[ok_step]) < 1e-9 * Ti[ok_step]):
+                break
+        T = T.copy()
+        T[idx] = Ti
+    return T, np.where(two, x, np.nan), two, side
+
+
+def state_from(fluid, p, target, key, where):
+    """T, quality and the flat property arrays for (p, h) or (p, s) inputs."""
+    T, x, two, side = solve_T(fluid, p, target, key, where)
+    n = p.size
+    out = {k: np.full(n, np.nan) for k in ("h", "s", "cp", "rho", "dhdp")}
+    out[key] = target.copy()
+    other = "s" if key == "h" else "h"
+    single = ~two & ~np.isnan(T)
+    if single.any():
+        phase_of = {-1.0: "liquid", 1.0: "vapour", 0.0: None}
+        for sv in (-1.0, 0.0, 1.0):
+            m = single & (side == sv)
+            if not m.any():
+                continue
+            r = pT_quiet(fluid, p[m], T[m], phase_of[sv], [other, "cp", "rho", "dhdp"])
+            for k in (other, "cp", "rho", "dhdp"):
+                out[k][m] = r[k]
+    if two.any():
+        r, _, _ = loop(fluid, fluid._CP.PQ_INPUTS, p[two], x[two], [other, "rho"])
+        out[other][two] = r[other]
+        out["rho"][two] = r["rho"]
+    return T, x, out
+
+
+def state_ph(fluid, p, h, *, where=None) -> State:
+    """Work of :meth:`Fluid.state_ph <perftest.thermo.fluid.Fluid.state_ph>` for `fluid`."""
+    args = Args("state_ph", p=p, h=h)
+    pp, hh = args.flat
+    T, x, out = state_from(fluid, pp, hh, "h", where)
+    return make_state(args, pp, T, out, x)
+
+
+def state_ps(fluid, p, s, *, where=None) -> State:
+    """Work of :meth:`Fluid.state_ps <perftest.thermo.fluid.Fluid.state_ps>` for `fluid`."""
+    args = Args("state_ps", p=p, s=s)
+    pp, ss = args.flat
+    T, x, out = state_from(fluid, pp, ss, "s", where)
+    return make_state(args, pp, T, out, x)
+
+
+def T_ph(fluid, p, h, *, where=None):
+    """Work of :meth:`Fluid.T_ph <perftest.thermo.fluid.Fluid.T_ph>` for `fluid`."""
+    args = Args("T_ph", p=p, h=h)
+    pp, hh = args.flat
+    T, _, _, _ = solve_T(fluid, pp, hh, "h", where)
+    return args.out(T)
+
+
+def s_ph(fluid, p, h, *, where=None):
+    """Work of :meth:`Fluid.s_ph <perftest.thermo.fluid.Fluid.s_ph>` for `fluid`."""
+    return state_ph(fluid, p, h, where=where).s

@@ -1,0 +1,167 @@
+"""The saturation line and the wet (two-phase) states of a pure fluid.
+
+For ``"water"`` the saturation line is the IAPWS-IF97 region-4 pair of equations
+(:mod:`perftest.thermo.if97`); other fluids use CoolProp's ``PQ``/``QT`` updates.
+Wet states are the saturated values weighted by the vapour quality.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from perftest.errors import PropertyRangeError
+from perftest.thermo.backend import fast, loop
+from perftest.thermo.checks import Args, check_quality, fmt_state, more, prefix
+from perftest.thermo.if97 import if97_psat, if97_tsat
+from perftest.thermo.states import State
+
+
+def tsat_or_nan(fluid, p):
+    """Saturation temperature where triple <= p < critical, NaN elsewhere."""
+    p = np.asarray(p, dtype=float)
+    inside = (p >= fluid.p_triple) & (p < fluid.p_critical)
+    out = np.full(p.shape, np.nan)
+    if fluid._pseudo_pure or not inside.any():
+        # pseudo-pure air has dew and bubble lines, not one saturation line; it is
+        # used far above them in plant work, so no ambiguity check is made.
+        return out
+    if fluid.is_if97:
+        with np.errstate(invalid="ignore"):
+            out[inside] = if97_tsat(p[inside])
+    else:
+        res, ok, _ = loop(fluid, fluid._CP.PQ_INPUTS, p[inside], np.zeros(inside.sum()), ["T"])
+        out[inside] = res["T"]
+    return out
+
+
+def sat_side_values(fluid, p, key):
+    """Saturated-liquid and -vapour values of h or s at p (flat arrays, p < pc)."""
+    CP = fluid._CP
+    if fluid.is_if97:
+        # Evaluate just inside each side and step to Tsat along the isobar (the
+        # IF97 fast path rejects states exactly on the line); the 1 mK step leaves
+        # an error below cp * 1e-3 K * 1e-3 relative, i.e. far below 1e-3 J/kg.
+        ts = if97_tsat(p)
+        d = 1e-3
+        lo, _ = fast(fluid, CP.PT_INPUTS, p, ts - d, [key, "cp"])
+        hi, _ = fast(fluid, CP.PT_INPUTS, p, ts + d, [key, "cp"])
+        if key == "h":
+            return lo["h"] + lo["cp"] * d, hi["h"] - hi["cp"] * d
+        return lo["s"] + lo["cp"] * np.log(ts / (ts - d)), hi["s"] - hi["cp"] * np.log(
+            (ts + d) / ts
+        )
+    f, _, _ = loop(fluid, CP.PQ_INPUTS, p, np.zeros(p.size), [key])
+    g, _, _ = loop(fluid, CP.PQ_INPUTS, p, np.ones(p.size), [key])
+    return f[key], g[key]
+
+
+def saturation_T(fluid, p, *, where=None):
+    """Work of :meth:`Fluid.saturation_T <perftest.thermo.fluid.Fluid.saturation_T>` for `fluid`."""
+    args = Args("saturation_T", p=p)
+    (pp,) = args.flat
+    T = tsat_or_nan(fluid, pp)
+    bad = np.isnan(T) & ~np.isnan(pp)
+    if bad.any():
+        i = int(np.flatnonzero(bad)[0])
+        raise PropertyRangeError(
+            f"{prefix(where)}p = {pp[i] / 1e6:.6g} MPa has no saturation temperature "
+            f"for {fluid.name}: the saturation line runs from {fluid.p_triple:.6g} Pa to "
+            f"the critical pressure {fluid.p_critical / 1e6:.6g} MPa."
+        )
+    return args.out(T)
+
+
+def saturation_p(fluid, T, *, where=None):
+    """Work of :meth:`Fluid.saturation_p <perftest.thermo.fluid.Fluid.saturation_p>` for `fluid`."""
+    args = Args("saturation_p", T=T)
+    (TT,) = args.flat
+    inside = (TT >= fluid.T_min) & (TT <= fluid.T_critical)
+    out = np.full(TT.shape, np.nan)
+    if fluid.is_if97:
+        out[inside] = if97_psat(TT[inside])
+    elif inside.any() and not fluid._pseudo_pure:
+        res, ok, _ = loop(fluid, fluid._CP.QT_INPUTS, np.zeros(inside.sum()), TT[inside], ["p"])
+        out[inside] = res["p"]
+    bad = np.isnan(out) & ~np.isnan(TT)
+    if bad.any():
+        i = int(np.flatnonzero(bad)[0])
+        raise PropertyRangeError(
+            f"{prefix(where)}T = {TT[i]:.2f} K has no saturation pressure for "
+            f"{fluid.name}: the saturation line runs from {fluid.T_min:.2f} K to the "
+            f"critical temperature {fluid.T_critical:.3f} K."
+        )
+    return args.out(out)
+
+
+def saturated_or_wet(fluid, pair, a, b, pp_or_none, func, where, label):
+    """Evaluate saturated or wet states; a state off the saturation line raises."""
+    res, ok, err = loop(fluid, pair, a, b, ["T", "p", "h", "s", "rho"])
+    valid = ~np.isnan(a) & ~np.isnan(b)
+    failed = valid & ~ok
+    if failed.any():
+        i = int(np.flatnonzero(failed)[0])
+        detail = f" (CoolProp: {err})" if err else ""
+        raise PropertyRangeError(
+            f"{prefix(where)}{label(i)} is not a saturated or wet state of {fluid.name}; "
+            f"the saturation line ends at the critical point "
+            f"({fluid.p_critical / 1e6:.6g} MPa, {fluid.T_critical:.3f} K).{detail}" + more(failed)
+        )
+    return res
+
+
+def state_px(fluid, p, x, *, where=None) -> State:
+    """Work of :meth:`Fluid.state_px <perftest.thermo.fluid.Fluid.state_px>` for `fluid`."""
+    args = Args("state_px", p=p, x=x)
+    pp, xx = args.flat
+    check_quality(xx, "state_px", where)
+    res = saturated_or_wet(
+        fluid,
+        fluid._CP.PQ_INPUTS,
+        pp,
+        xx,
+        pp,
+        "state_px",
+        where,
+        lambda i: fmt_state(pp[i], x=xx[i]),
+    )
+    nan = np.full(pp.size, np.nan)
+    return State(
+        p=args.out(pp),
+        T=args.out(res["T"]),
+        h=args.out(res["h"]),
+        s=args.out(res["s"]),
+        cp=args.out(nan),
+        rho=args.out(res["rho"]),
+        x=args.out(xx),
+        dh_dT_p=args.out(nan),
+        dh_dp_T=args.out(nan),
+    )
+
+
+def state_Tx(fluid, T, x, *, where=None) -> State:
+    """Work of :meth:`Fluid.state_Tx <perftest.thermo.fluid.Fluid.state_Tx>` for `fluid`."""
+    args = Args("state_Tx", T=T, x=x)
+    TT, xx = args.flat
+    check_quality(xx, "state_Tx", where)
+    res = saturated_or_wet(
+        fluid,
+        fluid._CP.QT_INPUTS,
+        xx,
+        TT,
+        None,
+        "state_Tx",
+        where,
+        lambda i: f"T = {TT[i]:.2f} K, x = {xx[i]:.4g}",
+    )
+    nan = np.full(TT.size, np.nan)
+    return State(
+        p=args.out(res["p"]),
+        T=args.out(TT),
+        h=args.out(res["h"]),
+        s=args.out(res["s"]),
+        cp=args.out(nan),
+        rho=args.out(res["rho"]),
+        x=args.out(xx),
+        dh_dT_p=args.out(nan),
+        dh_dp_T=args.out(nan),
+    )
