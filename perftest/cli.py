@@ -86,8 +86,8 @@ def build_parser() -> argparse.ArgumentParser:
         parents=[common],
         help="run the bundled demo scenario end to end",
         description="Run a bundled demo: by default an invented 36 MW gas-fired steam unit "
-        "(sample_data/brackenfold); --scenario names another. Writes summary.json, report.md, report.html and "
-        "figures/*.png into the output folder.",
+        "(sample_data/brackenfold); --scenario names another. Writes summary.json, "
+        "report.md, report.html and figures/*.png into the output folder.",
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     d.add_argument(

@@ -229,15 +229,16 @@ def _pg(stream):
 
 # tag -> (file, logged unit, reading from a balance, noise std [unit], noise time [s],
 #         stated uncertainty (95 %), extra plant-file keys, description)
+# fmt: off
 INSTRUMENTS = {
     "TT-301": ("testlog", "degC", _t("chw_return"), 0.015, 60,
-               {"value": 0.05, "kind": "absolute"}, {"shared_calibration": "chw-rtd-lot-7"},
+               {"value": 0.05, "kind": "absolute"}, {"shared_calibration": "chw-rtd-lot-2026-06"},
                "Chilled water entering the evaporator (test RTD)"),
     "TT-302A": ("bms", "degC", _t("chw_leaving"), 0.05, 90,
                 {"value": 0.3, "kind": "absolute"}, {},
                 "Chilled water leaving, evaporator nozzle (chiller's own sensor)"),
     "TT-302B": ("testlog", "degC", _t("chw_supply"), 0.015, 60,
-                {"value": 0.05, "kind": "absolute"}, {"shared_calibration": "chw-rtd-lot-7"},
+                {"value": 0.05, "kind": "absolute"}, {"shared_calibration": "chw-rtd-lot-2026-06"},
                 "Chilled water supply header (test RTD)"),
     "FT-301": ("bms", "m3/h", lambda b: b["streams"]["chw_return"]["m"] * 3600.0
                / CHW_METER_DENSITY, 0.6, 60,
@@ -246,10 +247,10 @@ INSTRUMENTS = {
                                                      "unit": "kg/m3"}},
                "Chilled water flow (magnetic meter in the return line)"),
     "TT-311": ("testlog", "degC", _t("cw_in"), 0.02, 120,
-               {"value": 0.05, "kind": "absolute"}, {"shared_calibration": "cw-rtd-lot-7"},
+               {"value": 0.05, "kind": "absolute"}, {"shared_calibration": "cw-rtd-lot-2026-06"},
                "Condenser water entering (test RTD)"),
     "TT-312": ("testlog", "degC", _t("cw_out"), 0.02, 60,
-               {"value": 0.05, "kind": "absolute"}, {"shared_calibration": "cw-rtd-lot-7"},
+               {"value": 0.05, "kind": "absolute"}, {"shared_calibration": "cw-rtd-lot-2026-06"},
                "Condenser water leaving (test RTD)"),
     "FT-311": ("testlog", "kg/s", lambda b: b["streams"]["cw_in"]["m"], 0.25, 60,
                {"value": 1.5, "kind": "percent_of_reading"}, {},
@@ -288,6 +289,7 @@ INSTRUMENTS = {
     "PT-390": ("bms", "hPa", lambda b: BAROMETER / 100.0, 0.1, 900,
                {"value": 1.0, "kind": "absolute"}, {}, "Barometric pressure"),
 }
+# fmt: on
 _DECIMALS = {"degC": 3, "m3/h": 2, "kg/s": 3, "barg": 4, "kW": 2, "hPa": 1}
 _INTERVAL = {"bms": 60.0, "testlog": 10.0}
 SYSTEMATIC_SHARE = 0.3  # fixed error: this many stated standard uncertainties (random sign)
@@ -345,12 +347,21 @@ def make_logs(points, rng):
         n = int((END - START).total_seconds() / dt)
         frames[where] = pd.DataFrame(index=START + pd.to_timedelta(np.arange(n) * dt, unit="s"))
     span_s = (END - START).total_seconds()
+    lot_offsets: dict = {}
     for tag, (where, _unit, reads, sigma, tau, _u, _extra, _desc) in INSTRUMENTS.items():
         idx = frames[where].index
         dt = _INTERVAL[where]
         true = true_profile(points, idx, reads)
         u_std = _u95(tag, reads(points[0]["balance"])) / 1.96
-        offset = SYSTEMATIC_SHARE * u_std * rng.standard_normal()
+        # Tags of one calibration lot share their fixed error, as plant.toml says.
+        lot = INSTRUMENTS[tag][6].get("shared_calibration")
+        if lot is None:
+            share = SYSTEMATIC_SHARE * rng.standard_normal()
+        else:
+            if lot not in lot_offsets:
+                lot_offsets[lot] = SYSTEMATIC_SHARE * rng.standard_normal()
+            share = lot_offsets[lot]
+        offset = share * u_std
         drift = DRIFT_SHARE * u_std * rng.standard_normal()  # over the whole test
         frac = (idx - START).total_seconds().to_numpy() / span_s - 0.5
         frames[where][tag] = true + offset + drift * frac + _ar1(rng, len(idx), dt, tau, sigma)
@@ -373,8 +384,9 @@ def write_logs(frames: dict, out: Path) -> list[dict]:
             d = _DECIMALS[INSTRUMENTS[tag][1]]
             what = f"{frames[where].loc[ts, tag] + float(what[5:]):.{d}f}"
         text[where].loc[ts, tag] = what
-        planted.append({"file": f"{where}.csv", "time": when, "tag": tag, "written": what,
-                        "reason": why})
+        planted.append(
+            {"file": f"{where}.csv", "time": when, "tag": tag, "written": what, "reason": why}
+        )
     for where, t in text.items():
         lines = ["Timestamp," + ",".join(t.columns)]
         lines.append("units," + ",".join(INSTRUMENTS[c][1] for c in t.columns))
@@ -604,14 +616,20 @@ def main(out: Path = HERE) -> dict:
     out.mkdir(parents=True, exist_ok=True)
     points = []
     for label, start, end, cooling, cw_in, eta, ea, ca in POINTS:
-        points.append({
-            "label": label,
-            "start": pd.Timestamp(start),
-            "end": pd.Timestamp(end),
-            "balance": solve_point(cooling, cw_in, eta, ea, ca),
-            "design": {"cw_in_temperature_degC": cw_in, "compressor_efficiency": eta,
-                       "evaporator_approach_K": ea, "condenser_approach_K": ca},
-        })
+        points.append(
+            {
+                "label": label,
+                "start": pd.Timestamp(start),
+                "end": pd.Timestamp(end),
+                "balance": solve_point(cooling, cw_in, eta, ea, ca),
+                "design": {
+                    "cw_in_temperature_degC": cw_in,
+                    "compressor_efficiency": eta,
+                    "evaporator_approach_K": ea,
+                    "condenser_approach_K": ca,
+                },
+            }
+        )
     rng = np.random.default_rng(SEED)
     frames, errors = make_logs(points, rng)
     planted = write_logs(frames, out)
@@ -623,8 +641,7 @@ def main(out: Path = HERE) -> dict:
         "corrected_cooling_capacity": float(round(full["corrected_cooling_capacity"] * 0.97 / 1e3)),
         "corrected_cop": float(round(full["corrected_cop"] * 0.99, 2)),
     }
-    (out / "plant.toml").write_text(plant_toml(guarantees, points[0]["balance"]),
-                                    encoding="utf-8")
+    (out / "plant.toml").write_text(plant_toml(guarantees, points[0]["balance"]), encoding="utf-8")
     truth = {
         "description": "True values of the invented Ostrenby chiller CH-2 test (SI units).",
         "seed": SEED,
@@ -654,16 +671,20 @@ def main(out: Path = HERE) -> dict:
             for p in points
         ],
         "instruments": {
-            tag: {"file": f"{INSTRUMENTS[tag][0]}.csv", "unit": INSTRUMENTS[tag][1],
-                  "systematic_error": errors[tag]["offset"],
-                  "drift_over_test": errors[tag]["drift_over_test"]}
+            tag: {
+                "file": f"{INSTRUMENTS[tag][0]}.csv",
+                "unit": INSTRUMENTS[tag][1],
+                "systematic_error": errors[tag]["offset"],
+                "drift_over_test": errors[tag]["drift_over_test"],
+            }
             for tag in INSTRUMENTS
         },
         "bad_samples": planted,
         "guarantees": guarantees,
     }
-    (out / "truth.json").write_text(json.dumps(_json_safe(truth), indent=2) + "\n",
-                                    encoding="utf-8")
+    (out / "truth.json").write_text(
+        json.dumps(_json_safe(truth), indent=2) + "\n", encoding="utf-8"
+    )
     return truth
 
 

@@ -111,8 +111,13 @@ _WATER = CP.AbstractState("IF97", "Water")
 def _st(inputs, a, b) -> dict:
     _WATER.update(inputs, a, b)
     q = _WATER.Q()
-    return {"p": _WATER.p(), "T": _WATER.T(), "h": _WATER.hmass(), "s": _WATER.smass(),
-            "x": q if 0.0 <= q <= 1.0 else None}
+    return {
+        "p": _WATER.p(),
+        "T": _WATER.T(),
+        "h": _WATER.hmass(),
+        "s": _WATER.smass(),
+        "x": q if 0.0 <= q <= 1.0 else None,
+    }
 
 
 def pT(p, T):
@@ -157,8 +162,9 @@ def solve_heat_balance() -> dict:
     m_mu = EXPORT_FLOW - m_ret
     # Tank energy balance: m h_tank = (m - m_exp - m_da) h_cond + m_ret h_ret
     #                                  + m_mu h_mu + m_da h_da
-    m_da = (m * tank["h"] - (m - EXPORT_FLOW) * cond["h"] - m_ret * ret["h"]
-            - m_mu * mu["h"]) / (da["h"] - cond["h"])
+    m_da = (m * tank["h"] - (m - EXPORT_FLOW) * cond["h"] - m_ret * ret["h"] - m_mu * mu["h"]) / (
+        da["h"] - cond["h"]
+    )
     m_ext = EXPORT_FLOW + m_da
     m_exh = m - m_ext
     shaft = m * ms["h"] - m_ext * ext["h"] - m_exh * exh["h"]
@@ -231,9 +237,14 @@ def solve_heat_balance() -> dict:
             "condenser.heat": q_cond,
             "feed_pump.power": pump,
         },
-        "fuel": {"mass_flow": m_fuel, "lhv": fuel["lhv"], "chemical_exergy": fuel["exergy"],
-                 "exergy_ratio": fuel["exergy"] / fuel["lhv"],
-                 "molar_mass": fuel["molar_mass"], "composition": FUEL_COMPOSITION},
+        "fuel": {
+            "mass_flow": m_fuel,
+            "lhv": fuel["lhv"],
+            "chemical_exergy": fuel["exergy"],
+            "exergy_ratio": fuel["exergy"] / fuel["lhv"],
+            "molar_mass": fuel["molar_mass"],
+            "composition": FUEL_COMPOSITION,
+        },
         "results": results,
         "dead_state": {"temperature": t0, "pressure": p0},
     }
@@ -265,6 +276,7 @@ def _spn(v):
 
 
 # tag -> (file, unit, reading, noise std [unit], noise time [s], stated U95, extra, text)
+# fmt: off
 INSTRUMENTS = {
     "PT-401": ("dcs", "barg", _pg("main_steam"), 0.06, 120, _spn(0.25), {"span": [0.0, 100.0]},
                "Main steam pressure at the turbine stop valve"),
@@ -316,9 +328,9 @@ INSTRUMENTS = {
     "FT-501": ("dcs", "t/h", _th("cw_in"), 18.0, 120, _rdg(2.0), {},
                "Cooling water flow (clamp-on ultrasonic)"),
     "TT-501": ("testlog", "degC", _t("cw_in"), 0.02, 60, _abs(0.1),
-               {"shared_calibration": "cw-rtd-lot-wh"}, "Cooling water inlet (test RTD)"),
+               {"shared_calibration": "cw-rtd-lot-2026-08"}, "Cooling water inlet (test RTD)"),
     "TT-502": ("testlog", "degC", _t("cw_out"), 0.03, 60, _abs(0.1),
-               {"shared_calibration": "cw-rtd-lot-wh"}, "Cooling water outlet (test RTD)"),
+               {"shared_calibration": "cw-rtd-lot-2026-08"}, "Cooling water outlet (test RTD)"),
     "JT-401A": ("dcs", "MW", lambda b: b["results"]["gross_power"] / 1e6, 0.015, 60, _rdg(0.3),
                 {}, "Generator output, station wattmeter"),
     "JT-401B": ("testlog", "kW", lambda b: b["results"]["gross_power"] / 1e3, 12.0, 30,
@@ -333,8 +345,8 @@ INSTRUMENTS = {
     "PT-690": ("dcs", "hPa", lambda b: b["dead_state"]["pressure"] / 100.0, 0.1, 900, _abs(1.0),
                {}, "Barometric pressure"),
 }
-_DECIMALS = {"barg": 3, "degC": 2, "t/h": 3, "kPa(a)": 3, "MW": 4, "kW": 1, "kg/h": 1,
-             "hPa": 1}
+# fmt: on
+_DECIMALS = {"barg": 3, "degC": 2, "t/h": 3, "kPa(a)": 3, "MW": 4, "kW": 1, "kg/h": 1, "hPa": 1}
 _INTERVAL = {"dcs": 60.0, "testlog": 10.0}
 SYSTEMATIC_SHARE = 0.3
 DRIFT_SHARE = 0.2
@@ -374,6 +386,7 @@ def make_logs(balance, rng):
         n = int((END - START).total_seconds() / dt)
         frames[where] = pd.DataFrame(index=START + pd.to_timedelta(np.arange(n) * dt, unit="s"))
     span_s = (END - START).total_seconds()
+    lot_offsets: dict = {}
     settle_s = (STEADY - START).total_seconds()
     for tag, (where, _unit, reads, sigma, tau, *_rest) in INSTRUMENTS.items():
         idx = frames[where].index
@@ -382,7 +395,15 @@ def make_logs(balance, rng):
         if tag in _LOAD_TAGS:  # 2 % below the test load at the start, settled by 07:00
             true = true * (1.0 - 0.02 * np.clip(1.0 - secs / settle_s, 0.0, None))
         u_std = _u95(tag, reads(balance)) / 1.96
-        offset = SYSTEMATIC_SHARE * u_std * rng.standard_normal()
+        # Tags of one calibration lot share their fixed error, as plant.toml says.
+        lot = INSTRUMENTS[tag][6].get("shared_calibration")
+        if lot is None:
+            share = SYSTEMATIC_SHARE * rng.standard_normal()
+        else:
+            if lot not in lot_offsets:
+                lot_offsets[lot] = SYSTEMATIC_SHARE * rng.standard_normal()
+            share = lot_offsets[lot]
+        offset = share * u_std
         drift = DRIFT_SHARE * u_std * rng.standard_normal()
         noise = _ar1(rng, len(idx), _INTERVAL[where], tau, sigma)
         frames[where][tag] = true + offset + drift * (secs / span_s - 0.5) + noise
@@ -404,8 +425,9 @@ def write_logs(frames, out):
             d = _DECIMALS[INSTRUMENTS[tag][1]]
             what = f"{frames[where].loc[ts, tag] + float(what[5:]):.{d}f}"
         text[where].loc[ts, tag] = what
-        planted.append({"file": f"{where}.csv", "time": when, "tag": tag, "written": what,
-                        "reason": why})
+        planted.append(
+            {"file": f"{where}.csv", "time": when, "tag": tag, "written": what, "reason": why}
+        )
     for where, t in text.items():
         lines = ["Timestamp," + ",".join(t.columns)]
         lines.append("units," + ",".join(INSTRUMENTS[c][1] for c in t.columns))
@@ -459,8 +481,13 @@ def plant_toml(guarantees: dict, balance: dict) -> str:
         "",
     ]
     for tag, (where, unit, _r, _s, _tau, u, extra, desc) in INSTRUMENTS.items():
-        out += [f'[tags."{tag}"]', f"description = {_toml(desc)}", f"unit = {_toml(unit)}",
-                f"source = {_toml(where)}", f"uncertainty = {_toml(dict(u, level=0.95))}"]
+        out += [
+            f'[tags."{tag}"]',
+            f"description = {_toml(desc)}",
+            f"unit = {_toml(unit)}",
+            f"source = {_toml(where)}",
+            f"uncertainty = {_toml(dict(u, level=0.95))}",
+        ]
         for key in ("span", "shared_calibration", "stability"):
             if key in extra:
                 out.append(f"{key} = {_toml(extra[key])}")
@@ -473,29 +500,62 @@ def plant_toml(guarantees: dict, balance: dict) -> str:
         "",
         "# ---- water/steam cycle",
     ]
-    out += _water("main_steam", phase="vapour", mass_flow="FT-401", pressure="PT-401",
-                  temperature="TT-401")
-    out += _water("extraction", phase="vapour", pressure="PT-411", temperature="TT-411",
-                  description="controlled extraction into the process-steam header")
-    out += _water("process_steam", phase="vapour", mass_flow="FT-421", pressure="PT-421",
-                  temperature="TT-421", description="exported to the mill")
-    out += _water("tank_steam_supply", phase="vapour",
-                  description="header steam to the reducing valve of the feedwater tank")
+    out += _water(
+        "main_steam", phase="vapour", mass_flow="FT-401", pressure="PT-401", temperature="TT-401"
+    )
+    out += _water(
+        "extraction",
+        phase="vapour",
+        pressure="PT-411",
+        temperature="TT-411",
+        description="controlled extraction into the process-steam header",
+    )
+    out += _water(
+        "process_steam",
+        phase="vapour",
+        mass_flow="FT-421",
+        pressure="PT-421",
+        temperature="TT-421",
+        description="exported to the mill",
+    )
+    out += _water(
+        "tank_steam_supply",
+        phase="vapour",
+        description="header steam to the reducing valve of the feedwater tank",
+    )
     out += _water("tank_steam", phase="vapour", pressure="PT-431", temperature="TT-431")
     out += _water("exhaust", phase="wet", pressure="PT-441")
-    out += _water("condensate", phase="liquid", mass_flow="FT-451",
-                  pressure=_bar(HOTWELL_P), temperature="TT-451")
-    out += _water("process_return", phase="liquid", mass_flow="FT-461",
-                  pressure=_bar(RETURN_P), temperature="TT-461",
-                  description="condensate returned from the mill")
-    out += _water("makeup", phase="liquid", mass_flow="FT-471", pressure=_bar(MAKEUP_P),
-                  temperature="TT-471", description="demineralised make-up water")
+    out += _water(
+        "condensate",
+        phase="liquid",
+        mass_flow="FT-451",
+        pressure=_bar(HOTWELL_P),
+        temperature="TT-451",
+    )
+    out += _water(
+        "process_return",
+        phase="liquid",
+        mass_flow="FT-461",
+        pressure=_bar(RETURN_P),
+        temperature="TT-461",
+        description="condensate returned from the mill",
+    )
+    out += _water(
+        "makeup",
+        phase="liquid",
+        mass_flow="FT-471",
+        pressure=_bar(MAKEUP_P),
+        temperature="TT-471",
+        description="demineralised make-up water",
+    )
     out += _water("tank_outlet", phase="liquid", pressure="PT-481", temperature="TT-481")
-    out += _water("feedwater", phase="liquid", mass_flow="FT-491", pressure="PT-491",
-                  temperature="TT-491")
+    out += _water(
+        "feedwater", phase="liquid", mass_flow="FT-491", pressure="PT-491", temperature="TT-491"
+    )
     out += ["# ---- condenser cooling water"]
-    out += _water("cw_in", phase="liquid", mass_flow="FT-501", pressure=_bar(CW_IN_P),
-                  temperature="TT-501")
+    out += _water(
+        "cw_in", phase="liquid", mass_flow="FT-501", pressure=_bar(CW_IN_P), temperature="TT-501"
+    )
     out += _water("cw_out", phase="liquid", pressure=_bar(CW_OUT_P), temperature="TT-502")
     curve = _toml({"x": CURVE_X, "y": NET_POWER_CURVE, "x_unit": "degC"})
     out += f"""\
@@ -651,8 +711,7 @@ def main(out: Path = HERE) -> dict:
             "carnot_efficiency": "1 - T_sink / T_source",
             "cycle_efficiency": "gross_power / boiler.heat (heat absorbed by the water)",
             "second_law_efficiency": "cycle_efficiency / carnot_efficiency",
-            "heat_export": "m_export h_export - m_return h_return - "
-            "(m_export - m_return) h_makeup",
+            "heat_export": "m_export h_export - m_return h_return - (m_export - m_return) h_makeup",
             "heat_export_exergy": "the same with specific flow exergies "
             "(h - h0) - T0 (s - s0), dead state liquid water at T0, p0",
             "exergetic_efficiency": "(net_power + heat_export_exergy) / fuel_exergy",
@@ -666,21 +725,30 @@ def main(out: Path = HERE) -> dict:
         "units": balance["units"],
         "fuel": balance["fuel"],
         "dead_state": balance["dead_state"],
-        "design": {"boiler_efficiency": BOILER_EFFICIENCY, "eta_hp": ETA_HP, "eta_lp": ETA_LP,
-                   "eta_pump": ETA_PUMP, "generator_loss_fraction": GENERATOR_LOSS,
-                   "return_fraction": RETURN_FRACTION},
+        "design": {
+            "boiler_efficiency": BOILER_EFFICIENCY,
+            "eta_hp": ETA_HP,
+            "eta_lp": ETA_LP,
+            "eta_pump": ETA_PUMP,
+            "generator_loss_fraction": GENERATOR_LOSS,
+            "return_fraction": RETURN_FRACTION,
+        },
         "readings": {tag: INSTRUMENTS[tag][2](balance) for tag in INSTRUMENTS},
         "instruments": {
-            tag: {"file": f"{INSTRUMENTS[tag][0]}.csv", "unit": INSTRUMENTS[tag][1],
-                  "systematic_error": errors[tag]["offset"],
-                  "drift_over_test": errors[tag]["drift_over_test"]}
+            tag: {
+                "file": f"{INSTRUMENTS[tag][0]}.csv",
+                "unit": INSTRUMENTS[tag][1],
+                "systematic_error": errors[tag]["offset"],
+                "drift_over_test": errors[tag]["drift_over_test"],
+            }
             for tag in INSTRUMENTS
         },
         "bad_samples": planted,
         "guarantees": guarantees,
     }
-    (out / "truth.json").write_text(json.dumps(_json_safe(truth), indent=2) + "\n",
-                                    encoding="utf-8")
+    (out / "truth.json").write_text(
+        json.dumps(_json_safe(truth), indent=2) + "\n", encoding="utf-8"
+    )
     return truth
 
 
