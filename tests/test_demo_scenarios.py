@@ -113,7 +113,9 @@ def test_chiller_truth_closes_every_balance(point):
         else:  # wet: T = Tsat(p)
             assert abs(_r("T", "P", st["p"], "Q", 0.0) - st["T"]) < 1e-9, sid
     q_evap = u["evaporator.heat"]
-    assert _close(s["chw_return"]["m"] * (s["chw_return"]["h"] - s["chw_leaving"]["h"]), q_evap, q_evap)
+    assert _close(
+        s["chw_return"]["m"] * (s["chw_return"]["h"] - s["chw_leaving"]["h"]), q_evap, q_evap
+    )
     m_r = s["suction"]["m"]
     assert _close(m_r * (s["suction"]["h"] - s["evaporator_in"]["h"]), q_evap, q_evap)
     assert _close(s["evaporator_in"]["h"], s["liquid"]["h"], s["liquid"]["h"])  # valve
@@ -565,3 +567,64 @@ def test_demo_scenario_runs_end_to_end(name, tmp_path):
     names = CHILLER_RESULTS if name == "ostrenby" else CHP_RESULTS
     assert set(names) <= set(summary["results"])
     assert np.isfinite([summary["results"][n]["U95"] for n in names]).all()
+
+
+# --------------------------------------------------------------------------- docs
+#: [performance] keys of each kind (DESIGN.md, "Plant kinds")
+KIND_KEYS = {
+    "power": {
+        "gross_power",
+        "auxiliary_power",
+        "heat_input",
+        "source_temperature",
+        "sink_temperature",
+        "cycle_heat",
+        "basis",
+    },
+    "refrigeration": {
+        "power_input",
+        "cooling",
+        "cold_temperature",
+        "hot_temperature",
+        "heat_rejected",
+    },
+    "heat_pump": {"power_input", "heating", "cold_temperature", "hot_temperature"},
+}
+KIND_KEYS["chp"] = KIND_KEYS["power"] | {"heat_export", "heat_return", "makeup"}
+
+
+def _doc_examples() -> dict:
+    text = (Path(__file__).resolve().parents[1] / "docs" / "plant-file.md").read_text("utf-8")
+    section = text.split("## Plant kinds: one complete plant file each", 1)[1]
+    out = {}
+    for part in section.split("### `kind = ")[1:]:
+        kind = part.split('"')[1]
+        out[kind] = part.split("```toml\n", 1)[1].split("```", 1)[0]
+    return out
+
+
+def test_docs_have_one_example_per_kind():
+    assert set(_doc_examples()) == {"power", "chp", "refrigeration", "heat_pump"}
+
+
+@pytest.mark.parametrize("kind", ["power", "chp", "refrigeration", "heat_pump"])
+def test_docs_example_plant_file_loads(kind, tmp_path):
+    from perftest.plant.equations import build_model
+
+    path = tmp_path / f"{kind}.toml"
+    path.write_text(_doc_examples()[kind], encoding="utf-8")
+    plant = perftest.load_plant(path)
+    model = build_model(plant)  # streams and units form their balances
+    assert len(model.rows) > 0
+    perf = plant.sections["performance"]
+    assert perf["kind"] == kind
+    assert set(perf) - {"kind"} <= KIND_KEYS[kind]
+    for ref in perf.values():  # every reference names a tag or a model variable
+        if ref != kind and ref != "fuel":
+            for r in [ref] if isinstance(ref, str) else ref:
+                assert (
+                    r in plant.tags
+                    or r in plant.groups
+                    or r in model.variables
+                    or (r in plant.sections["streams"])
+                ), r
