@@ -511,6 +511,17 @@ def test_scenario_files_are_bundled(name):
     assert _plant_table(folder)["performance"]["kind"] == sc.kind
 
 
+@pytest.mark.parametrize("name", ["ostrenby", "wrenhollow"])
+def test_demo_measurements_need_no_instrument_dropped(name):
+    plant, m = demo.demo_measurements(name)
+    sc = demo.get_scenario(name)
+    if sc.start is not None:
+        assert m.start == pd.Timestamp(sc.start, tz="UTC")
+    rec = perftest.reconcile(plant, m, eliminate=True)
+    # clean logs: serial elimination must find no gross error to remove
+    assert rec.eliminated == () and rec.global_test["passed"]
+
+
 def test_unknown_scenario_is_refused_with_the_names():
     with pytest.raises(InputError, match="brackenfold, ostrenby, wrenhollow. Got 'steam'"):
         demo.run_demo("unused", scenario="steam")
