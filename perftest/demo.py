@@ -2,8 +2,15 @@
 
 :func:`run_pipeline` runs every stage (load plant, read run files, choose the
 window, screen outliers, average, reconcile with serial elimination, evaluate,
-write reports), timing each one.  :func:`run_demo` runs it on the invented
-Brackenfold unit 1 test in ``sample_data/brackenfold`` (see its README).
+write reports), timing each one.  :func:`run_demo` runs it on one of the bundled
+scenarios (:data:`SCENARIOS`), each an invented plant with a deterministic
+generator, true values and a README in ``sample_data/<name>``:
+
+* ``brackenfold`` (the default): a 36 MW gas-fired condensing steam unit, kind power;
+* ``ostrenby``: a 1.1 MW water-cooled R134a chiller tested at 100, 75 and 50 % load,
+  kind refrigeration (the demo evaluates the full-load hour);
+* ``wrenhollow``: a 15 MW extraction-condensing CHP unit exporting process steam
+  with part of the condensate returned, kind chp.
 
 A stage whose module is not part of this installation is skipped and named in
 ``Outcome.missing``; the stages after it that need its output are skipped too.
@@ -20,12 +27,22 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from perftest.errors import PerftestError
+from perftest.errors import InputError, PerftestError
 
-__all__ = ["Outcome", "data_dir", "run_pipeline", "run_demo", "DEMO_FILES", "STAGES"]
-
-#: Data files of the demo scenario, relative to :func:`data_dir`.
-DEMO_FILES = ("historian.csv", "logger.csv")
+__all__ = [
+    "Outcome",
+    "Scenario",
+    "SCENARIOS",
+    "DEFAULT_SCENARIO",
+    "data_dir",
+    "demo_measurements",
+    "run_pipeline",
+    "run_demo",
+    "get_scenario",
+    "scenario_help",
+    "DEMO_FILES",
+    "STAGES",
+]
 
 #: Pipeline stages in order, with the module each needs.
 STAGES = {
@@ -47,6 +64,95 @@ DEFAULT_WINDOW = "2h"
 # sample in the window (the screen tests each sample at alpha/n against a running
 # median).  1 % keeps false rejections rare over the demo's 40-odd tags.
 DEFAULT_OUTLIER_ALPHA = 0.01
+
+
+@dataclass(frozen=True)
+class Scenario:
+    """One bundled demo scenario.
+
+    Attributes
+    ----------
+    name : str
+        Folder name under ``sample_data/`` and the ``--scenario`` value.
+    title : str
+        One line for ``perftest demo --help``.
+    kind : str
+        ``[performance] kind`` of its plant file.
+    files : tuple of str
+        Run files, relative to the scenario folder.
+    window : str or None
+        Length of the steadiest window the demo averages, or None when the demo
+        averages the stated ``start``..``end``.
+    start, end : str or None
+        Stated window (naive times in the plant's zone).
+    """
+
+    name: str
+    title: str
+    kind: str
+    files: tuple
+    window: str | None = DEFAULT_WINDOW
+    start: str | None = None
+    end: str | None = None
+
+
+#: The bundled scenarios, by name.
+SCENARIOS = {
+    "brackenfold": Scenario(
+        "brackenfold",
+        "36 MW gas-fired condensing steam unit",
+        "power",
+        ("historian.csv", "logger.csv"),
+    ),
+    # A part-load test: the steadiest hour of the run could be any of its three
+    # load points, so the demo states the full-load hour (sample_data/ostrenby).
+    "ostrenby": Scenario(
+        "ostrenby",
+        "1.1 MW water-cooled R134a chiller, full-load hour of a test at three loads",
+        "refrigeration",
+        ("bms.csv", "testlog.csv"),
+        window=None,
+        start="2026-07-09 08:30:00",
+        end="2026-07-09 09:30:00",
+    ),
+    "wrenhollow": Scenario(
+        "wrenhollow",
+        "15 MW CHP unit exporting process steam, condensate partly returned",
+        "chp",
+        ("dcs.csv", "testlog.csv"),
+    ),
+}
+
+#: The scenario ``perftest demo`` runs when none is named.
+DEFAULT_SCENARIO = "brackenfold"
+
+#: Data files of the default scenario, relative to :func:`data_dir`.
+DEMO_FILES = SCENARIOS[DEFAULT_SCENARIO].files
+
+
+def get_scenario(name: str = DEFAULT_SCENARIO) -> Scenario:
+    """The bundled scenario called ``name``.
+
+    Raises
+    ------
+    InputError
+        If there is no scenario of that name (the message lists them).
+    """
+    if name not in SCENARIOS:
+        raise InputError(
+            f"The 'scenario' parameter of perftest demo must be one of "
+            f"{', '.join(SCENARIOS)}. Got {name!r}.",
+            parameter="scenario",
+        )
+    return SCENARIOS[name]
+
+
+def scenario_help() -> str:
+    """One line per scenario, for the command's help."""
+    return "; ".join(
+        f"{s.name}{' (default)' if s.name == DEFAULT_SCENARIO else ''}: {s.title}, kind {s.kind}"
+        for s in SCENARIOS.values()
+    )
 
 
 @dataclass
@@ -81,17 +187,20 @@ class Outcome:
     warnings: list = field(default_factory=list)
 
 
-def data_dir() -> Path:
-    """Folder of the demo scenario (``sample_data/brackenfold`` in the repository).
+def data_dir(name: str = DEFAULT_SCENARIO) -> Path:
+    """Folder of a demo scenario (``sample_data/<name>`` in the repository).
 
     Raises
     ------
+    InputError
+        If there is no scenario of that name.
     PerftestError
         If the folder is not there (perftest installed without its sample data).
     """
     import perftest
 
-    path = Path(perftest.__file__).resolve().parents[1] / "sample_data" / "brackenfold"
+    name = get_scenario(name).name
+    path = Path(perftest.__file__).resolve().parents[1] / "sample_data" / name
     if not (path / "plant.toml").is_file():
         raise PerftestError(
             f"The demo data were not found at {path}. The demo needs a source checkout of "
@@ -100,12 +209,18 @@ def data_dir() -> Path:
     return path
 
 
-def demo_measurements():
-    """The demo plant and its averaged measurements, as ``perftest demo`` makes them.
+def demo_measurements(name: str = DEFAULT_SCENARIO):
+    """A demo plant and its averaged measurements, as ``perftest demo`` makes them.
 
-    The steadiest :data:`DEFAULT_WINDOW` of the demo run, screened for outliers at
+    The scenario's window (the steadiest :attr:`Scenario.window`, or its stated
+    start and end) of the demo run, screened for outliers at
     :data:`DEFAULT_OUTLIER_ALPHA` and averaged; the demo's expected data-quality
     warnings are silenced.
+
+    Parameters
+    ----------
+    name : str
+        Scenario name (:data:`SCENARIOS`).
 
     Returns
     -------
@@ -115,16 +230,16 @@ def demo_measurements():
 
     import perftest
 
-    folder = data_dir()
+    sc = get_scenario(name)
+    folder = data_dir(name)
     plant = perftest.load_plant(folder / "plant.toml")
     with _warnings.catch_warnings():
         _warnings.simplefilter("ignore")
-        run = perftest.read_run([folder / "historian.csv", folder / "logger.csv"], plant)
-        m = (
-            run.steadiest_window(DEFAULT_WINDOW)
-            .screen_outliers(alpha=DEFAULT_OUTLIER_ALPHA)
-            .average()
+        run = perftest.read_run([folder / f for f in sc.files], plant)
+        chosen = (
+            run.window(sc.start, sc.end) if sc.window is None else run.steadiest_window(sc.window)
         )
+        m = chosen.screen_outliers(alpha=DEFAULT_OUTLIER_ALPHA).average()
     return plant, m
 
 
@@ -330,26 +445,43 @@ def run_pipeline(
     return out
 
 
-def run_demo(out_dir="perftest-demo", *, progress=None, figures: bool = True) -> Outcome:
-    """Run the bundled Brackenfold unit 1 demo end to end.
+def run_demo(
+    out_dir="perftest-demo",
+    *,
+    scenario: str | None = None,
+    progress=None,
+    figures: bool = True,
+) -> Outcome:
+    """Run a bundled demo scenario end to end.
 
     Parameters
     ----------
     out_dir : path
         Where ``summary.json``, ``report.md``, ``report.html`` and ``figures/`` go.
+    scenario : str, optional
+        Name of the scenario (:data:`SCENARIOS`); default :data:`DEFAULT_SCENARIO`,
+        the Brackenfold steam unit.
     progress : callable, optional
         As for :func:`run_pipeline`.
 
     Returns
     -------
     Outcome
+
+    Raises
+    ------
+    InputError
+        If ``scenario`` names no bundled scenario.
     """
-    folder = data_dir()
+    sc = get_scenario(DEFAULT_SCENARIO if scenario is None else scenario)
+    folder = data_dir(sc.name)
     return run_pipeline(
         folder / "plant.toml",
-        [folder / f for f in DEMO_FILES],
+        [folder / f for f in sc.files],
         out_dir=out_dir,
-        window=DEFAULT_WINDOW,
+        start=sc.start,
+        end=sc.end,
+        window=sc.window,
         eliminate=True,
         figures=figures,
         progress=progress,
