@@ -6,7 +6,6 @@ See docs/run-files.md for the accepted files, the alignment rule and the masks.
 
 from __future__ import annotations
 
-from perftest.importers.reader import read_parts, read_run
-from perftest.importers.sources import read_sql
+from perftest.importers.reader import read_parts, read_run, read_sql
 
 __all__ = ["read_run", "read_parts", "read_sql"]

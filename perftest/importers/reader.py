@@ -27,6 +27,7 @@ import pandas as pd
 import pyarrow as pa
 
 from perftest.errors import DataError, DataQualityWarning, InputError, PerftestError, UnitError
+from perftest.importers import sources
 from perftest.importers.columns import (
     _MAX_LISTED,
     _as_paths,
@@ -56,7 +57,7 @@ from perftest.importers.csvfile import (
 from perftest.importers.raw import RawSource, RawTables
 from perftest.importers.timebase import align, bin_index, parse_times
 
-__all__ = ["read_run", "read_parts"]
+__all__ = ["read_run", "read_parts", "read_sql"]
 
 # --- per-file processing -------------------------------------------------------------------
 
@@ -538,8 +539,6 @@ def read_parts(
         ``data, raw, mask, exclusions, log, plant, units, quantities`` as the Run
         constructor takes them, plus ``warnings`` (messages not yet issued).
     """
-    from perftest.importers import sources
-
     given = _as_paths(paths)
     staged = []
     plain = []
@@ -856,3 +855,62 @@ def _combine(files: list[_FileData], step, excl: _Exclusions, log: list[str]):
     data = pd.DataFrame(values, index=index, columns=cols, copy=False)
     mask = pd.DataFrame(mask, index=index, columns=cols, copy=False)
     return data, mask
+
+
+def read_sql(source, query: str, plant=None, **kwargs):
+    """Read a Run from a database table or query (staged as in :mod:`perftest.importers.sources`).
+
+    Parameters
+    ----------
+    source : str, sqlalchemy Engine or Connection
+        An SQLAlchemy URL such as ``"sqlite:///historian.db"`` or
+        ``"postgresql+psycopg://user@host/plantdb"``, or an open engine or connection.
+    query : str or dict of str
+        A SELECT yielding ``time, tag, value[, quality]`` rows (long layout) or ``time``
+        plus one column per tag (wide layout; detected from the column names). A dict
+        ``{name: query}`` reads several sources (say, a historian and a logger at other
+        rates) and aligns them as :func:`perftest.read_run` aligns several files; each
+        name plays the part of a file's stem.
+    plant : Plant, str or Path, optional
+        As for :func:`perftest.read_run`.
+    **kwargs
+        Other keywords of :func:`perftest.read_run` (``timezone``, ``units``, ``every``,
+        ``sentinels``, ``time_column``).
+
+    Returns
+    -------
+    Run
+        As :func:`perftest.read_run`; ``Run.raw["database"]`` holds the rows as staged
+        text, and the audit record names the URL (password hidden) and the query.
+
+    Raises
+    ------
+    DataError
+        Unreachable database, failing query, no rows, a missing column, or a tag the
+        plant file names but the result lacks; no message shows the password.
+
+    Examples
+    --------
+    >>> run = perftest.read_sql(  # doctest: +SKIP
+    ...     "sqlite:///historian.db",
+    ...     "SELECT time, tag, value, quality FROM samples "
+    ...     "WHERE time >= '2026-05-14 09:00' AND time < '2026-05-14 13:00'",
+    ...     plant,
+    ... )
+    """
+    kwargs = dict(kwargs)
+    time_column = kwargs.pop("time_column", None)
+    if isinstance(query, dict):
+        if not query:
+            raise InputError(
+                "The 'query' parameter of read_sql must be a query or a non-empty dict of "
+                "them. Got an empty dict.",
+                parameter="query",
+            )
+        staged = [
+            sources.stage_query(source, q, time_column=time_column, name=str(k))
+            for k, q in query.items()
+        ]
+    else:
+        staged = sources.stage_query(source, query, time_column=time_column)
+    return read_run(staged, plant, **kwargs)

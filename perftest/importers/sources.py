@@ -46,8 +46,8 @@ __all__ = [
     "Origin",
     "StagedSource",
     "is_staged_kind",
-    "read_sql",
     "safe_url",
+    "sources_from_options",
     "stage_file",
     "stage_query",
 ]
@@ -703,63 +703,3 @@ def relabel_text(text: str, staged: list[StagedSource]) -> str:
     """A log line or warning as said of the sources."""
     exc = relabel(PerftestError(text), staged)
     return str(exc)
-
-
-def read_sql(source, query: str, plant=None, **kwargs):
-    """Read a Run from a database table or query (see :mod:`perftest.importers.sources`).
-
-    Parameters
-    ----------
-    source : str, sqlalchemy Engine or Connection
-        An SQLAlchemy URL such as ``"sqlite:///historian.db"`` or
-        ``"postgresql+psycopg://user@host/plantdb"``, or an open engine or connection.
-    query : str or dict of str
-        A SELECT yielding ``time, tag, value[, quality]`` rows (long layout) or ``time``
-        plus one column per tag (wide layout; detected from the column names). A dict
-        ``{name: query}`` reads several sources (say, a historian and a logger at other
-        rates) and aligns them as :func:`perftest.read_run` aligns several files; each
-        name plays the part of a file's stem.
-    plant : Plant, str or Path, optional
-        As for :func:`perftest.read_run`.
-    **kwargs
-        Other keywords of :func:`perftest.read_run` (``timezone``, ``units``, ``every``,
-        ``sentinels``, ``time_column``).
-
-    Returns
-    -------
-    Run
-        As :func:`perftest.read_run`; ``Run.raw["database"]`` holds the rows as staged
-        text, and the audit record names the URL (password hidden) and the query.
-
-    Raises
-    ------
-    DataError
-        Unreachable database, failing query, no rows, a missing column, or a tag the
-        plant file names but the result lacks; no message shows the password.
-
-    Examples
-    --------
-    >>> run = perftest.read_sql(  # doctest: +SKIP
-    ...     "sqlite:///historian.db",
-    ...     "SELECT time, tag, value, quality FROM samples "
-    ...     "WHERE time >= '2026-05-14 09:00' AND time < '2026-05-14 13:00'",
-    ...     plant,
-    ... )
-    """
-    from perftest.importers.reader import read_run
-
-    kwargs = dict(kwargs)
-    time_column = kwargs.pop("time_column", None)
-    if isinstance(query, dict):
-        if not query:
-            raise InputError(
-                "The 'query' parameter of read_sql must be a query or a non-empty dict of "
-                "them. Got an empty dict.",
-                parameter="query",
-            )
-        staged = [
-            stage_query(source, q, time_column=time_column, name=str(k)) for k, q in query.items()
-        ]
-    else:
-        staged = stage_query(source, query, time_column=time_column)
-    return read_run(staged, plant, **kwargs)
