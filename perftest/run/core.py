@@ -402,7 +402,17 @@ class Run:
                 f"The '{name}' parameter of Run.{func} must be a time. Got NaT.", parameter=name
             )
         if ts.tz is None:
-            ts = ts.tz_localize(self._default_tz())
+            try:
+                ts = ts.tz_localize(self._default_tz(), ambiguous="raise", nonexistent="raise")
+            except Exception as exc:  # pytz/pandas NonExistentTimeError, AmbiguousTimeError
+                twice = "Ambiguous" in type(exc).__name__
+                raise InputError(
+                    f"The '{name}' parameter of Run.{func} is {t!r}, a local time that "
+                    f"{'occurs twice' if twice else 'does not exist'} in time zone "
+                    f"{self._default_tz()} (a clock change). Give it with its UTC offset, "
+                    f"e.g. '{ts.isoformat()}+01:00'.",
+                    parameter=name,
+                ) from None
         return ts.tz_convert(self.data.index.tz)
 
     # ----------------------------------------------------------------- windows
