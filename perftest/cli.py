@@ -416,7 +416,6 @@ def _window_options(args) -> tuple:
         return start, end, None  # not a time: Run.window names the parameter
 
 
-
 def main(argv=None) -> int:
     """Entry point of the ``perftest`` console script; returns the exit status."""
     import os
