@@ -83,6 +83,7 @@ def _cluster(workers: int):
         raise PerftestError(
             'perftest monitor --engine dask needs Dask: pip install "perftest[scale]".'
         ) from None
+    import os
     import signal
     import threading
 
@@ -92,13 +93,23 @@ def _cluster(workers: int):
     # in a child process): the terminal sends SIGINT to the whole process group, and
     # each worker would otherwise print its own traceback.  This process alone
     # handles it and shuts the cluster down.
+    # Their log is quiet too (the setting reaches the worker processes through the
+    # environment they start with): a user's Ctrl-C tears the scheduler down under
+    # running workers, and each would log the lost connection with a traceback.  A
+    # worker's failure still reaches this process and the window table.
     main = threading.current_thread() is threading.main_thread()
     old = signal.signal(signal.SIGINT, signal.SIG_IGN) if main else None
+    key = "DASK_LOGGING__DISTRIBUTED"
+    env = os.environ.get(key)
+    if env is None:
+        os.environ[key] = "critical"
     try:
         cluster = local_cluster(workers)
     finally:
         if main:
             signal.signal(signal.SIGINT, old)
+        if env is None:
+            os.environ.pop(key, None)
     return cluster, Client(cluster)
 
 
@@ -273,7 +284,7 @@ def add_parser(sub, common, *, duration=str) -> None:
     )
     m.add_argument("plant", metavar="PLANT.toml", help="plant description file")
     m.add_argument("--data", metavar="RUN.csv", action="append", required=True,
-                   help="run file (repeat for several files read together)")  # fmt: skip
+                   help="run file (required; repeat for several files read together)")  # fmt: skip
     m.add_argument("--every", metavar="LENGTH", default="15min", type=duration,
                    help="window length, e.g. 15min or 900 (seconds) (default 15min)")  # fmt: skip
     m.add_argument("--out", metavar="DIR", required=True,
