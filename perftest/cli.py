@@ -73,10 +73,12 @@ def duration(text: str) -> str:
     import pandas as pd
 
     raw = str(text).strip()
-    if re.fullmatch(r"[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?", raw):
-        raw = f"{raw}s"  # a bare number: seconds, never nanoseconds
     try:
-        seconds = pd.Timedelta(raw).total_seconds()
+        if re.fullmatch(r"[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?", raw):
+            seconds = float(raw)  # a bare number: seconds, never nanoseconds
+            raw = f"{seconds}s"
+        else:
+            seconds = pd.Timedelta(raw).total_seconds()
     except (TypeError, ValueError, OverflowError):
         raise argparse.ArgumentTypeError(
             f"must be a duration such as '2h', '30min' or '7200' (seconds). Got {text!r}."
@@ -154,7 +156,7 @@ def build_parser() -> argparse.ArgumentParser:
         metavar="RUN.csv",
         action="append",
         required=True,
-        help="run file (repeat for several files)",
+        help="run file (required; repeat for several files)",
     )
     r.add_argument(
         "--start",
