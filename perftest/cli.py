@@ -58,6 +58,44 @@ def _probability(text: str) -> float:
     return value
 
 
+# Durations on the command line: a bare number is seconds, as in the plant file.
+# The bounds refuse what cannot be meant: below a millisecond no plant log samples,
+# and no test or monitoring job spans more than ten years.
+_MIN_DURATION = 1e-3  # [s]
+_MAX_DURATION = 10 * 366 * 86400.0  # [s]
+
+
+def duration(text: str) -> str:
+    """argparse type: a duration such as '2h', '30min', '90s' or a bare number of
+    seconds ('7200'); returned as text pandas reads ('7200s')."""
+    import re
+
+    import pandas as pd
+
+    raw = str(text).strip()
+    try:
+        if re.fullmatch(r"[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?", raw):
+            seconds = float(raw)  # a bare number: seconds, never nanoseconds
+            raw = f"{seconds}s"
+        else:
+            seconds = pd.Timedelta(raw).total_seconds()
+    except (TypeError, ValueError, OverflowError):
+        raise argparse.ArgumentTypeError(
+            f"must be a duration such as '2h', '30min' or '7200' (seconds). Got {text!r}."
+        ) from None
+    if not _MIN_DURATION <= seconds <= _MAX_DURATION:
+        raise argparse.ArgumentTypeError(
+            f"must be a duration between 1 ms and 10 years (a bare number is seconds). "
+            f"Got {text!r} = {seconds:g} s."
+        )
+    return raw
+
+
+def _window_length(text: str) -> str:
+    """argparse type of --window: a duration, or 'all' for the whole run."""
+    return "all" if str(text).strip().lower() in ("all", "none") else duration(text)
+
+
 def build_parser() -> argparse.ArgumentParser:
     """The argument parser of the ``perftest`` command."""
     from perftest import __version__
@@ -76,9 +114,13 @@ def build_parser() -> argparse.ArgumentParser:
     sub = p.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
 
     common = _Parser(add_help=False)
-    common.add_argument("-q", "--quiet", action="store_true", help="no progress lines on stderr")
     common.add_argument(
-        "--no-figures", action="store_true", help="skip the figures (faster; reports without plots)"
+        "-q", "--quiet", action="store_true", help="no progress lines on stderr (default: shown)"
+    )
+    common.add_argument(
+        "--no-figures",
+        action="store_true",
+        help="skip the figures (faster; reports without plots; default: drawn)",
     )
 
     d = sub.add_parser(
@@ -121,20 +163,31 @@ def build_parser() -> argparse.ArgumentParser:
         "--data",
         metavar="RUN.csv",
         action="append",
-        help="run file: .csv, .xlsx (book.xlsx#Sheet names a sheet) or .parquet "
-        "(repeat for several files)",
+        help="run file: .csv, .xlsx (book.xlsx#Sheet names a sheet) or .parquet (repeat for "
+        "several files; or --sql with --query; required unless --sql is given)",
     )
     from perftest.importers.sources import add_sql_arguments
 
     add_sql_arguments(r)
-    r.add_argument("--start", metavar="T", help="window start, e.g. '2026-05-14 10:00'")
-    r.add_argument("--end", metavar="T", help="window end")
+    r.add_argument(
+        "--start",
+        metavar="T",
+        help="window start, e.g. '2026-05-14 10:00' (in the plant's time zone unless it "
+        "carries an offset; default: search the steadiest window)",
+    )
+    r.add_argument(
+        "--end",
+        metavar="T",
+        help="window end (default: --start plus --window when --window is given, else "
+        "the end of the run)",
+    )
     r.add_argument(
         "--window",
         metavar="LENGTH",
-        default="2h",
-        help="length of the steadiest window to search when --start/--end are "
-        "not given (default 2h); 'all' averages the whole run",
+        type=_window_length,
+        help="window length, e.g. 2h, 30min or 7200 (seconds): with --start (or --end) "
+        "the window from there; alone, the steadiest window of that length "
+        "(default 2h); 'all' averages the whole run",
     )
     r.add_argument(
         "--outlier-alpha",
@@ -146,14 +199,21 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument(
         "--keep-all",
         action="store_true",
-        help="do not drop suspect instruments (no serial elimination)",
+        help="do not drop suspect instruments (default: serial elimination drops them)",
     )
     r.add_argument(
-        "--out", metavar="DIR", help="write summary.json, report.md, report.html and figures/ here"
+        "--out",
+        metavar="DIR",
+        help="write summary.json, report.md, report.html and figures/ here (default: "
+        "none; with no output option the summary is printed only)",
     )
-    r.add_argument("--json", metavar="FILE", help="write the summary JSON here")
-    r.add_argument("--html", metavar="FILE", help="write the HTML report here")
-    r.add_argument("--markdown", metavar="FILE", help="write the Markdown report here")
+    r.add_argument("--json", metavar="FILE", help="write the summary JSON here (default: none)")
+    r.add_argument("--html", metavar="FILE", help="write the HTML report here (default: none)")
+    r.add_argument(
+        "--markdown",
+        metavar="FILE",
+        help="write the Markdown report here, figures in figures/ beside it (default: none)",
+    )
 
     pl = sub.add_parser(
         "plan",
@@ -166,8 +226,20 @@ def build_parser() -> argparse.ArgumentParser:
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     pl.add_argument("plant", metavar="PLANT.toml", help="plant description file")
-    pl.add_argument("--duration", metavar="T", help="planned test duration, e.g. 2h")
-    pl.add_argument("--interval", metavar="T", help="sampling interval of every tag, e.g. 1min")
+    pl.add_argument(
+        "--duration",
+        metavar="T",
+        type=duration,
+        help="planned test duration, e.g. 2h or 7200 (seconds) (default: the plant "
+        "file's [design] duration)",
+    )
+    pl.add_argument(
+        "--interval",
+        metavar="T",
+        type=duration,
+        help="sampling interval of every tag, e.g. 1min or 60 (seconds) (default: the "
+        "plant file's [design] interval)",
+    )
     pl.add_argument(
         "--upgrade-factor",
         metavar="F",
@@ -175,13 +247,17 @@ def build_parser() -> argparse.ArgumentParser:
         default=0.5,
         help="what-if: one instrument's systematic uncertainty times F (default 0.5)",
     )
-    pl.add_argument("--no-what-if", action="store_true", help="skip the what-if table (faster)")
-    pl.add_argument("--json", metavar="FILE", help="write the plan as JSON here")
-    pl.add_argument("--markdown", metavar="FILE", help="write the plan as Markdown here")
+    pl.add_argument(
+        "--no-what-if", action="store_true", help="skip the what-if table (faster; default: shown)"
+    )
+    pl.add_argument("--json", metavar="FILE", help="write the plan as JSON here (default: none)")
+    pl.add_argument(
+        "--markdown", metavar="FILE", help="write the plan as Markdown here (default: none)"
+    )
 
     from perftest.scale.monitor import add_parser as _add_monitor
 
-    _add_monitor(sub, common)
+    _add_monitor(sub, common, duration=duration)
     return p
 
 
@@ -288,11 +364,14 @@ def _run(args) -> int:
         from perftest.importers.sources import sources_from_options
 
         sources = sources_from_options(args.data, args.sql, args.query)
-        if not any((args.out, args.json, args.html, args.markdown)):
-            raise PerftestError(
-                "Nothing to write: give --out DIR, or --json/--html/--markdown FILE."
-            )
-        window = None if str(args.window).lower() in ("all", "none") else args.window
+        from perftest.report.output import check_outputs, report_paths
+
+        check_outputs(
+            report_paths(args.out, json_path=args.json, markdown_path=args.markdown,
+                         html_path=args.html),
+            {"--data": [Path(f) for f in args.data or ()], "plant file": [plant]},
+        )  # fmt: skip
+        start, end, window = _window_options(args)
         outcome = run_pipeline(
             plant,
             sources,
@@ -300,8 +379,8 @@ def _run(args) -> int:
             json_path=args.json,
             html_path=args.html,
             markdown_path=args.markdown,
-            start=args.start,
-            end=args.end,
+            start=start,
+            end=end,
             window=window,
             eliminate=not args.keep_all,
             outlier_alpha=args.outlier_alpha,
@@ -309,7 +388,47 @@ def _run(args) -> int:
             progress=progress,
         )
     _summary(outcome)
+    failure = getattr(outcome, "failure", None)
+    if failure:
+        # the stages before the failure were written; the failure is the one error line
+        wrote = [str(p) for k, p in outcome.written.items() if k != "figures" and p]
+        kept = f" Written with the stages computed before it: {', '.join(wrote)}." if wrote else ""
+        raise PerftestError(f"{failure}{kept}")
     return 0
+
+
+def _window_options(args) -> tuple:
+    """(start, end, steadiest-window length) of ``perftest report``.
+
+    ``--window`` with ``--start`` (or ``--end``) means that window from there; with
+    both ``--start`` and ``--end`` it would be a second, conflicting length.
+    """
+    import pandas as pd
+
+    start, end, length = args.start, args.end, args.window
+    if length is None:
+        return start, end, ("2h" if start is None and end is None else None)
+    if length == "all":
+        if start is not None or end is not None:
+            raise PerftestError(
+                "--window all averages the whole run; it cannot be combined with --start "
+                "or --end. Leave out one or the other."
+            )
+        return None, None, None
+    if start is None and end is None:
+        return None, None, length
+    if start is not None and end is not None:
+        raise PerftestError(
+            f"--start {start}, --end {end} and --window {length} state the window twice. "
+            "Give --start with --end, or --start (or --end) with --window."
+        )
+    step = pd.Timedelta(length)
+    try:
+        if start is not None:
+            return start, str(pd.Timestamp(start) + step), None
+        return str(pd.Timestamp(end) - step), end, None
+    except (TypeError, ValueError):
+        return start, end, None  # not a time: Run.window names the parameter
 
 
 def main(argv=None) -> int:

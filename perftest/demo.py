@@ -170,6 +170,9 @@ class Outcome:
         Seconds per stage.
     missing : list of str
         Stages not run, with the reason.
+    failure : str
+        The error of a stage that failed after the earlier ones succeeded (the
+        reports then hold what was computed); empty when none did.
     warnings : list of str
         Warnings issued by the stages (``"<stage>: <message>"``).
     """
@@ -185,6 +188,7 @@ class Outcome:
     timings: dict = field(default_factory=dict)
     missing: list = field(default_factory=list)
     warnings: list = field(default_factory=list)
+    failure: str = ""
 
 
 def data_dir(name: str = DEFAULT_SCENARIO) -> Path:
@@ -381,7 +385,15 @@ def run_pipeline(
 
         return evaluate(out.plant, out.reconciliation)
 
-    out.performance = stage("evaluate", _evaluate, out.reconciliation)
+    try:
+        out.performance = stage("evaluate", _evaluate, out.reconciliation)
+    except PerftestError as exc:
+        # The stages before it stand: the reports are written with them, and the
+        # failure is named in the reports and raised again by the caller.
+        out.failure = f"evaluate failed: {' '.join(str(exc).split())}"
+        out.missing.append(out.failure)
+        if progress:
+            progress("evaluate", "warning", 0.0, out.failure)
 
     def _options() -> dict:
         import inspect

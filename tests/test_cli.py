@@ -57,13 +57,42 @@ def test_unknown_option_is_one_line_exit_2(capsys):
     _one_error_line(capsys.readouterr().err)
 
 
-def test_nothing_to_write_is_an_error(tmp_path, capsys):
-    plant = tmp_path / "p.toml"
-    plant.write_text("", encoding="utf-8")
-    run = tmp_path / "r.csv"
-    run.write_text("t,a\n", encoding="utf-8")
-    assert main(["report", str(plant), "--data", str(run)]) == 2
-    assert "Nothing to write" in _one_error_line(capsys.readouterr().err)
+def test_report_without_an_output_prints_the_summary(tmp_path, capsys, monkeypatch):
+    monkeypatch.chdir(tmp_path)
+    code = main(
+        ["report", str(DATA / "plant.toml"), "--data", str(DATA / "historian.csv"), "--data",
+         str(DATA / "logger.csv"), "--start", "2026-05-14 10:00", "--end", "2026-05-14 12:00",
+         "--no-figures", "-q"]
+    )  # fmt: skip
+    captured = capsys.readouterr()
+    assert code == 0, captured.err
+    assert captured.err == ""
+    for label in ("global test", "net power", "efficiency (net)", "heat rate", "guarantee"):
+        assert label in captured.out
+    assert "wrote" not in captured.out
+    assert list(tmp_path.iterdir()) == []  # printed only, nothing written
+
+
+def _options(parser):
+    import argparse
+
+    for action in parser._actions:
+        if isinstance(action, argparse._SubParsersAction):
+            for name, sub in action.choices.items():
+                yield from ((name, a) for a in sub._actions)
+
+
+def test_every_option_says_what_it_does_and_its_default():
+    from perftest.cli import build_parser
+
+    missing = []
+    for command, action in _options(build_parser()):
+        if not action.option_strings or "-h" in action.option_strings:
+            continue
+        text = action.help or ""
+        if "default" not in text and "required" not in text:
+            missing.append(f"{command} {action.option_strings[-1]}: {text!r}")
+    assert missing == []
 
 
 @pytest.mark.parametrize(
@@ -195,12 +224,15 @@ def test_plan_command_writes_json_and_markdown(tmp_path, capsys):
 @pytest.mark.parametrize(
     ("args", "needle"),
     [
-        (["--duration", "soon"], "'duration' parameter of plan"),
+        (["--duration", "soon"], "argument --duration: must be a duration such as '2h'"),
         (["--upgrade-factor", "-2"], "'upgrade_factor' parameter of plan"),
     ],
 )
 def test_plan_bad_arguments_are_one_line_exit_2(capsys, args, needle):
-    code = main(["plan", str(DATA / "plant.toml"), "--no-what-if", *args])
+    try:
+        code = main(["plan", str(DATA / "plant.toml"), "--no-what-if", *args])
+    except SystemExit as exc:  # argparse's own refusals
+        code = exc.code
     assert code == 2
     assert needle in _one_error_line(capsys.readouterr().err)
 

@@ -11,7 +11,7 @@ import numpy as np
 import pandas as pd
 import scipy.sparse as sp
 
-from perftest.errors import InputError, ReconciliationWarning
+from perftest.errors import ConvergenceError, InputError, ReconciliationWarning
 from perftest.plant import states as thermo
 from perftest.plant.equations import PlantModel, build_model
 from perftest.plant.guess import initial_guess
@@ -537,7 +537,57 @@ def _solve(model: PlantModel, extra: tuple, measurements, y0):
     }
     y_scale = np.array([typical.get(model.quantities[v], 1.0) for v in model.unmeasured])
     y_scale = np.maximum(np.abs(y0), y_scale) if y0.size else y_scale
-    return reconcile_nonlinear(residual, x, cov, y0=y0, jacobian=jacobian, y_scale=y_scale), tags
+    _check_cov(cov, tags, measurements)
+    try:
+        result = reconcile_nonlinear(residual, x, cov, y0=y0, jacobian=jacobian, y_scale=y_scale)
+    except ConvergenceError as exc:
+        # The engine's message speaks of its own options (max_iter, y0); say what a
+        # user of a plant file can change.
+        raise ConvergenceError(
+            f"The balances of the plant model did not close: the reconciliation stopped "
+            f"after {exc.iterations} iterations with a constraint residual norm of "
+            f"{exc.residual_norm:.3g}. Check the measured values against the tags' units "
+            "and the streams' phases in the plant file, average a steadier window, or "
+            "drop a suspect instrument; from Python, reconcile(..., start=...) gives "
+            "starting values.",
+            residual_norm=exc.residual_norm,
+            iterate=exc.iterate,
+            iterations=exc.iterations,
+        ) from None
+    return result, tags
+
+
+def _check_cov(cov, tags, measurements) -> None:
+    """Refuse a singular covariance of the solver's tags, naming the tags and why."""
+    try:
+        np.linalg.cholesky(cov)
+        return
+    except np.linalg.LinAlgError:
+        pass
+    w, v = np.linalg.eigh(cov)
+    # the tags of the (near) null direction, largest share first
+    weight = np.abs(v[:, 0])
+    names = [tags[i] for i in np.argsort(-weight) if weight[i] > 0.1][:5]
+    u_r = np.asarray(getattr(measurements, "u_random", np.full(len(tags), np.nan)), float)
+    n_s = getattr(measurements, "n_samples", None)
+    idx = [measurements.index(t) for t in names]
+    no_random = [t for t, i in zip(names, idx, strict=True) if not u_r[i] > 0]
+    if no_random:
+        counts = sorted({int(n_s[i]) for i in idx}) if n_s is not None else []
+        few = f" ({', '.join(map(str, counts))} sample(s) each)" if counts else ""
+        why = (
+            f"tags {', '.join(no_random)} have no random scatter in the window{few} and "
+            "share fully correlated systematic uncertainties. The window is too short or "
+            "the tags are constant (a frozen signal): average a window of several samples "
+            "per tag, or check those tags"
+        )
+    else:
+        why = f"tags {', '.join(names)} are (nearly) perfectly correlated"
+    raise InputError(
+        f"The measurements' covariance is singular (smallest eigenvalue {w[0]:.3g}): {why}.",
+        parameter="measurements",
+        tag=names[0] if names else None,
+    )
 
 
 def _warm_solve(model: PlantModel, extra: tuple, measurements, x0, start):

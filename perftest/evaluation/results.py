@@ -555,6 +555,8 @@ def evaluate(
         guarantees_from_plant,
     )
 
+    if not (hasattr(reconciliation, "value") and hasattr(reconciliation, "covariance")):
+        raise InputError(f"The 'reconciliation' parameter of evaluate must be the result of perftest.reconcile(plant, measurements). Got {type(reconciliation).__name__}.", parameter="reconciliation")  # fmt: skip  # noqa: E501
     if not 0.0 < level < 1.0:
         raise InputError(
             f"The 'level' parameter of evaluate must lie between 0 and 1. Got {level!r}.",
@@ -1005,7 +1007,15 @@ def _exergy_analysis(rec, fuel_exergy: float, net_power: float, aux_power: float
             exergy_out=net_power,
             rtol=1e-3,  # reconciled balances close to the solver tolerance (~1e-6)
         )
-        if not closure.closed:
+        unknown = [str(u) for u, d in zip(frame["unit"], frame["destroyed"], strict=True)
+                   if not math.isfinite(d)]  # fmt: skip
+        if unknown:
+            notes.append(
+                "Plant exergy balance not checked: the exergy destroyed in "
+                f"{', '.join(unknown)} is unknown (their streams are not observable: no "
+                "measurement fixes them). Add a measurement on that loop to close it."
+            )
+        elif not closure.closed:
             notes.append(
                 f"Plant exergy balance does not close: imbalance "
                 f"{closure.relative_imbalance * 100:.2f} % of the fuel exergy."

@@ -67,6 +67,19 @@ def _as_paths(paths) -> list:
 
     if isinstance(paths, str | os.PathLike | StagedSource):
         paths = [paths]
+    if isinstance(paths, pd.DataFrame | pd.Series) or hasattr(paths, "read"):
+        what = "an open file" if hasattr(paths, "read") else f"a {type(paths).__name__}"
+        hint = (
+            f" (this one's path is {paths.name!r}: pass that)"
+            if isinstance(getattr(paths, "name", None), str)
+            else ""
+        )
+        raise InputError(
+            "The 'paths' parameter of read_run must be a file path or a list of paths; it "
+            f"reads the files itself (units rows, time zones, raw text). Got {what}{hint}. "
+            "For a table already in memory in SI units, use perftest.Run.from_frame(df, plant).",
+            parameter="paths",
+        )
     try:
         out = [p if isinstance(p, StagedSource) else Path(p) for p in paths]
     except TypeError:
@@ -348,6 +361,16 @@ def _plan(files: list[_FileData], plant, units: dict, log: list[str]) -> None:
                         column=spec.column,
                     )
                 hits = named
+            timed = [fd for fd in files if spec.column in fd.time_cols]
+            if not hits and timed:
+                raise DataError(
+                    f"Tag {tid!r} of the plant file: its column {spec.column!r} is the time "
+                    f"column of {timed[0].layout.name}, not a measurement. Correct "
+                    f"[tags.{tid}] column.",
+                    file=timed[0].layout.path,
+                    tag=tid,
+                    column=spec.column,
+                )
             if not hits:
                 raise DataError(
                     f"Tag {tid!r} of the plant file: no column {spec.column!r} in "

@@ -43,6 +43,7 @@ from perftest.importers.columns import (
     _time_columns,
 )
 from perftest.importers.csvfile import (
+    TEXT_SHARE_WARNING,
     TextPiece,
     classify_numbers,
     classify_text,
@@ -126,6 +127,7 @@ class _Collector:
         self.values = np.empty((est, len(fd.jobs)), order="F")
         self.blank: list[list[np.ndarray]] = [[] for _ in fd.jobs]
         self.pieces: list[list[TextPiece]] = [[] for _ in fd.jobs]
+        self.grouped: dict[int, int] = {}  # job -> cells read with thousands separators
         self.flags: dict[str, list] = {
             fd.quality[j.header]: [] for j in fd.jobs if j.header in fd.quality
         }
@@ -159,6 +161,7 @@ class _Collector:
                     self.blank[j].append(r0 + np.flatnonzero(col.is_null().to_numpy()))
             else:
                 c = classify_text(col, decimal, *self.sets[j])
+                self.grouped[j] = self.grouped.get(j, 0) + c.grouped
                 values[r0 : r0 + k, j] = c.values
                 self.pieces[j].append(TextPiece.of(r0, c))
         if not numeric:
@@ -754,8 +757,23 @@ def _read_parts(
         for j, job in enumerate(fd.jobs):
             if j not in fd.done:
                 _convert(fd, j, job, plant, baro, excl, stats, line_of)
+            if fd.collector.grouped.get(j):
+                log.append(
+                    f"{fd.layout.name}, column {job.header!r}: {fd.collector.grouped[j]} "
+                    "cell(s) with thousands separators read as numbers"
+                )
+            n_text, n_all = stats["text"].get(job.tag, 0), stats["samples"].get(job.tag, 0)
             if fd.mask[:, j].all():
                 msg = f"{fd.layout.name}: tag {job.tag!r} has no valid sample"
+                log.append(msg)
+                pending_warnings.append(msg)
+            elif n_all and n_text > TEXT_SHARE_WARNING * n_all:
+                msg = (
+                    f"{fd.layout.name}, column {job.header!r}: tag {job.tag!r} lost {n_text} of "
+                    f"{n_all} samples ({100 * n_text / n_all:.0f} %, more than "
+                    f"{100 * TEXT_SHARE_WARNING:g} %) to text cells that are not numbers; see "
+                    "the run's exclusions for the cells, and fix the export or pass sep=/decimal="
+                )
                 log.append(msg)
                 pending_warnings.append(msg)
         fd.values = fd.values[: fd.mask.shape[0]]  # the kept rows

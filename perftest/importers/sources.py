@@ -629,14 +629,14 @@ def add_sql_arguments(parser) -> None:
         "--sql",
         metavar="URL",
         help="read the run from a database: an SQLAlchemy URL such as "
-        "sqlite:///historian.db (with --query; instead of or beside --data)",
+        "sqlite:///historian.db (with --query; instead of or beside --data; default: none)",
     )
     parser.add_argument(
         "--query",
         metavar="[NAME=]SELECT",
         action="append",
         help="query yielding time, tag, value[, quality] rows or time plus one column per "
-        "tag (repeat for several sources, each NAME=SELECT ...)",
+        "tag (repeat for several sources, each NAME=SELECT ...; required with --sql)",
     )
 
 

@@ -93,9 +93,10 @@ def write_reports(
         pngs = {stem: figure_png(fig) for stem, fig in figs.items()}
         if markdown_path:
             fig_dir = Path(markdown_path).parent / "figures"
-            fig_dir.mkdir(parents=True, exist_ok=True)
+            from perftest.report.output import write_atomic
+
             for stem, png in pngs.items():
-                (fig_dir / f"{stem}.png").write_bytes(png)
+                write_atomic(fig_dir / f"{stem}.png", png)
                 written["figures"][stem] = fig_dir / f"{stem}.png"
         for fig in figs.values():
             plt.close(fig)

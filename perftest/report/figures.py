@@ -472,7 +472,8 @@ def save_figures(figures: dict, directory, dpi: int = PNG_DPI) -> dict:
     directory.mkdir(parents=True, exist_ok=True)
     paths = {}
     for stem, fig in figures.items():
-        path = directory / f"{stem}.png"
-        path.write_bytes(figure_png(fig, dpi))
+        from perftest.report.output import write_atomic
+
+        path = write_atomic(directory / f"{stem}.png", figure_png(fig, dpi))
         paths[stem] = path
     return paths

@@ -100,7 +100,6 @@ def render_html(data: ReportData, *, figures: dict | None = None) -> str:
 
 def write_html(data: ReportData, path, *, figures: dict | None = None) -> Path:
     """Write :func:`render_html` to ``path``."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    path.write_text(render_html(data, figures=figures), encoding="utf-8")
-    return path
+    from perftest.report.output import write_atomic
+
+    return write_atomic(path, render_html(data, figures=figures))

@@ -82,7 +82,6 @@ def render_markdown(data: ReportData, *, figures=(), figure_dir: str = "figures"
 
 def write_markdown(data: ReportData, path, *, figures=(), figure_dir="figures") -> Path:
     """Write :func:`render_markdown` to ``path``."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    path.write_text(render_markdown(data, figures=figures, figure_dir=figure_dir), encoding="utf-8")
-    return path
+    from perftest.report.output import write_atomic
+
+    return write_atomic(path, render_markdown(data, figures=figures, figure_dir=figure_dir))

@@ -261,6 +261,9 @@ def run_plan_command(args, out=None) -> int:
     path = Path(args.plant)
     if not path.is_file():
         raise PerftestError(f"{path}: plant file not found.", file=path)
+    from perftest.report.output import check_outputs, write_atomic
+
+    check_outputs({"--json": args.json, "--markdown": args.markdown}, {"plant file": [path]})
     plant = load_plant(path)
     tp = plan(
         plant,
@@ -273,11 +276,6 @@ def run_plan_command(args, out=None) -> int:
     write(plan_text(tp, plant.name))
     for target, text in ((args.json, plan_json), (args.markdown, plan_markdown)):
         if target:
-            try:
-                Path(target).write_text(text(tp, plant.name), encoding="utf-8")
-            except OSError as exc:
-                raise PerftestError(
-                    f"{target}: cannot write: {exc.strerror}.", file=target
-                ) from None
+            write_atomic(target, text(tp, plant.name))
             write(f"  wrote             {target}\n")
     return 0

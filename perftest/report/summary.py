@@ -184,7 +184,6 @@ def dumps(summary: dict) -> str:
 
 def write_summary(data: ReportData, path) -> Path:
     """Write :func:`summary_json` to ``path``; returns the path."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    path.write_text(dumps(summary_json(data)), encoding="utf-8")
-    return path
+    from perftest.report.output import write_atomic
+
+    return write_atomic(path, dumps(summary_json(data)))

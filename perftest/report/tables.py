@@ -427,5 +427,6 @@ def write_csv(df: pd.DataFrame, path) -> Path:
             out[c] = out[c].map(spreadsheet_safe)
     if out.index.dtype == object or pd.api.types.is_string_dtype(out.index):
         out.index = out.index.map(spreadsheet_safe)
-    out.to_csv(path, encoding="utf-8")
-    return path
+    from perftest.report.output import write_atomic
+
+    return write_atomic(path, out.to_csv())

@@ -402,7 +402,23 @@ class Run:
                 f"The '{name}' parameter of Run.{func} must be a time. Got NaT.", parameter=name
             )
         if ts.tz is None:
-            ts = ts.tz_localize(self._default_tz())
+            try:
+                ts = ts.tz_localize(self._default_tz(), ambiguous="raise", nonexistent="raise")
+            except Exception as exc:  # pytz/pandas NonExistentTimeError, AmbiguousTimeError
+                tz = self._default_tz()
+                offsets = [
+                    (ts + pd.Timedelta(hours=h)).tz_localize(tz).strftime("%z")
+                    for h in (-6, 6)
+                ]
+                offsets = [f"{o[:3]}:{o[3:]}" for o in offsets]
+                twice = "nonexistent" not in str(exc)
+                raise InputError(
+                    f"The '{name}' parameter of Run.{func} is {t!r}, a local time that "
+                    f"{'occurs twice' if twice else 'does not exist'} in time zone {tz} "
+                    f"(a clock change). Give it with its UTC offset, e.g. "
+                    f"'{ts.isoformat()}{offsets[0]}' or '{ts.isoformat()}{offsets[1]}'.",
+                    parameter=name,
+                ) from None
         return ts.tz_convert(self.data.index.tz)
 
     # ----------------------------------------------------------------- windows

@@ -26,6 +26,8 @@ from pathlib import Path
 import pandas as pd
 
 from perftest.errors import PerftestError
+from perftest.report.output import check_outputs
+from perftest.scale.store import StoreLock
 
 __all__ = ["monitor", "summary", "add_parser", "run_command"]
 
@@ -81,9 +83,33 @@ def _cluster(workers: int):
         raise PerftestError(
             'perftest monitor --engine dask needs Dask: pip install "perftest[scale]".'
         ) from None
+    import os
+    import signal
+    import threading
+
     from perftest.scale.many import local_cluster
 
-    cluster = local_cluster(workers)
+    # The worker processes start with Ctrl-C ignored (an ignored signal stays ignored
+    # in a child process): the terminal sends SIGINT to the whole process group, and
+    # each worker would otherwise print its own traceback.  This process alone
+    # handles it and shuts the cluster down.
+    # Their log is quiet too (the setting reaches the worker processes through the
+    # environment they start with): a user's Ctrl-C tears the scheduler down under
+    # running workers, and each would log the lost connection with a traceback.  A
+    # worker's failure still reaches this process and the window table.
+    main = threading.current_thread() is threading.main_thread()
+    old = signal.signal(signal.SIGINT, signal.SIG_IGN) if main else None
+    key = "DASK_LOGGING__DISTRIBUTED"
+    env = os.environ.get(key)
+    if env is None:
+        os.environ[key] = "critical"
+    try:
+        cluster = local_cluster(workers)
+    finally:
+        if main:
+            signal.signal(signal.SIGINT, old)
+        if env is None:
+            os.environ.pop(key, None)
     return cluster, Client(cluster)
 
 
@@ -130,23 +156,50 @@ def monitor(
     dict
         The summary written to ``monitor.json``, with ``"written"`` paths.
     """
-    import os
-
     from perftest.plant.file import load_plant
-    from perftest.scale.many import reconcile_many
 
     plant_path = Path(plant)
     if not plant_path.is_file():
         raise PerftestError(f"{plant_path}: plant file not found.", file=plant_path)
-    plant_obj = load_plant(plant_path)
     out = Path(out)
-    out.mkdir(parents=True, exist_ok=True)
+    targets = output_paths(out)
+    check_outputs(
+        {f"--out ({p.name})": p for k, p in targets.items() if k != "windows"},
+        {"--data": [Path(d) for d in data], "plant file": [plant_path]},
+        folders={"--out (windows.parquet)": targets["windows"]},
+    )
+    plant_obj = load_plant(plant_path)
+    with StoreLock(out, job="perftest monitor"):
+        return _monitor_locked(plant_obj, data, out, targets, every=every, engine=engine,
+                               scheduler=scheduler, workers=workers, results=results,
+                               eliminate=eliminate, stability=stability, resume=resume,
+                               progress=progress, figure=figure)  # fmt: skip
+
+
+def output_paths(out) -> dict:
+    """The files ``perftest monitor`` writes into ``out``, by kind."""
+    out = Path(out)
+    return {
+        "windows": out / "windows.parquet",
+        "csv": out / "windows.csv",
+        "summary": out / "monitor.json",
+        "figure": out / "trend.png",
+    }
+
+
+def _monitor_locked(plant_obj, data, out, targets, *, every, engine, scheduler, workers,
+                    results, eliminate, stability, resume, progress, figure) -> dict:  # fmt: skip
+    import os
+
+    from perftest.report.output import write_atomic
+    from perftest.scale.many import reconcile_many
+
     kw = dict(
         every=every,
         results=results,
         eliminate=eliminate,
         stability=stability,
-        store=out / "windows.parquet",
+        store=targets["windows"],
         resume=resume,
         progress=progress,
     )
@@ -158,11 +211,10 @@ def monitor(
         table = reconcile_many(plant_obj, list(data), engine=engine, scheduler=scheduler, **kw)
     finally:
         if client is not None:
-            client.close()
-            cluster.close()
-    written = {"windows": str(out / "windows.parquet")}
-    table.to_csv(out / "windows.csv", index=False)
-    written["csv"] = str(out / "windows.csv")
+            _quiet_close(client, cluster)
+    parts = sorted(targets["windows"].glob("*.parquet"))
+    written = {"windows": f"{targets['windows']} ({len(parts)} part file(s))"}
+    written["csv"] = str(write_atomic(targets["csv"], table.to_csv(index=False)))
     info = summary(table)
     if figure and "first_law_efficiency" in table.columns:
         from perftest.report.figures import figure_png
@@ -170,8 +222,7 @@ def monitor(
 
         fig = trend_figure(table, title=f"{plant_obj.name}: results by window",
                            tz=plant_obj.site.timezone or "UTC")  # fmt: skip
-        (out / "trend.png").write_bytes(figure_png(fig))
-        written["figure"] = str(out / "trend.png")
+        written["figure"] = str(write_atomic(targets["figure"], figure_png(fig)))
     info["plant"] = plant_obj.name
     info["every"] = str(every)
     info["engine"] = engine
@@ -179,9 +230,28 @@ def monitor(
         "Screening results of many windows. They support, and do not replace, the "
         "applicable test code, local regulations and licensed engineers' judgement."
     )
+    written["summary"] = str(targets["summary"])
     info["written"] = written
-    (out / "monitor.json").write_text(json.dumps(_clean(info), indent=2) + "\n")
+    write_atomic(targets["summary"], json.dumps(_clean(info), indent=2) + "\n")
     return info
+
+
+def _quiet_close(client, cluster) -> None:
+    """Close the job's own Dask client and cluster.  After a Ctrl-C the workers are
+    torn down mid-task; their shutdown chatter (tracebacks of cancelled tasks and
+    closed comms) is silenced so that the command ends on its one line."""
+    import logging
+
+    names = ("distributed", "tornado", "asyncio")
+    levels = {n: logging.getLogger(n).level for n in names}
+    try:
+        for n in names:
+            logging.getLogger(n).setLevel(logging.CRITICAL + 1)
+        client.close()
+        cluster.close()
+    finally:
+        for n, level in levels.items():
+            logging.getLogger(n).setLevel(level)
 
 
 def _clean(obj):
@@ -192,8 +262,12 @@ def _clean(obj):
     return obj
 
 
-def add_parser(sub, common) -> None:
-    """Register ``perftest monitor`` on the subcommands of the ``perftest`` parser."""
+def add_parser(sub, common, *, duration=str) -> None:
+    """Register ``perftest monitor`` on the subcommands of the ``perftest`` parser.
+
+    ``duration`` is the argparse type of ``--every`` (the command line's duration
+    reader: a bare number is seconds).
+    """
     import argparse
 
     m = sub.add_parser(
@@ -202,7 +276,8 @@ def add_parser(sub, common) -> None:
         help="reconcile every window of long logs (trend, drifting instruments)",
         description="Cut run files into windows, reconcile and evaluate each, and write "
         "DIR/windows.parquet (resumable), DIR/windows.csv, DIR/monitor.json and "
-        "DIR/trend.png. Run files are read a day at a time.",
+        "DIR/trend.png. Run files are read a day at a time. The command exits with "
+        "status 2 when no window gave a result.",
         epilog="example:\n  perftest monitor plant.toml --data historian.csv --every 15min "
         "--out trend --engine dask --workers 2",
         formatter_class=argparse.RawDescriptionHelpFormatter,
@@ -210,24 +285,29 @@ def add_parser(sub, common) -> None:
     m.add_argument("plant", metavar="PLANT.toml", help="plant description file")
     m.add_argument("--data", metavar="RUN.csv", action="append",
                    help="run file: .csv, .xlsx or .parquet (repeat for several files read "
-                   "together)")  # fmt: skip
+                   "together; required unless --sql is given)")  # fmt: skip
     from perftest.importers.sources import add_sql_arguments
 
     add_sql_arguments(m)
-    m.add_argument("--every", metavar="LENGTH", default="15min",
-                   help="window length (default 15min)")  # fmt: skip
-    m.add_argument("--out", metavar="DIR", required=True, help="output folder")
-    m.add_argument("--engine", choices=("local", "dask"), default="local")
+    m.add_argument("--every", metavar="LENGTH", default="15min", type=duration,
+                   help="window length, e.g. 15min or 900 (seconds) (default 15min)")  # fmt: skip
+    m.add_argument("--out", metavar="DIR", required=True,
+                   help="output folder (required; locked while the job runs)")  # fmt: skip
+    m.add_argument("--engine", choices=("local", "dask"), default="local",
+                   help="'local': one process; 'dask': worker processes, a local cluster "
+                   "or --scheduler (default local)")  # fmt: skip
     m.add_argument("--scheduler", metavar="ADDR",
-                   help="address of a running Dask scheduler (tcp://host:port)")  # fmt: skip
+                   help="address of a running Dask scheduler, tcp://host:port (default: "
+                   "start a local cluster)")  # fmt: skip
     m.add_argument("--workers", metavar="N", type=int,
                    help="worker processes of the local Dask cluster (default: cores)")  # fmt: skip
     m.add_argument("--results", metavar="NAME", action="append",
                    help="result per window (repeat; default the key results)")  # fmt: skip
     m.add_argument("--keep-all", action="store_true",
-                   help="do not drop suspect instruments (no serial elimination)")  # fmt: skip
+                   help="do not drop suspect instruments (default: serial elimination "
+                   "drops them)")  # fmt: skip
     m.add_argument("--no-stability", action="store_true",
-                   help="do not judge the stability of each window")  # fmt: skip
+                   help="do not judge the stability of each window (default: judged)")  # fmt: skip
     m.add_argument("--resume", action=argparse.BooleanOptionalAction, default=True,
                    help="reuse windows already in DIR (default: yes)")  # fmt: skip
 
@@ -271,4 +351,12 @@ def run_command(args) -> int:
         w(f"  suspect tags      {top}\n")
     for path in info["written"].values():
         w(f"  wrote             {path}\n")
+    if n["ok"] + n["unstable"] == 0 and n["total"] > 0:
+        reasons = info.get("failure_reasons") or {}
+        why = f" (most often: {next(iter(reasons))})" if reasons else ""
+        raise PerftestError(
+            f"{args.out}: no window of the run gave a result: {n['failed']} failed and "
+            f"{n['skipped']} skipped of {n['total']}{why}. See the 'reason' column of "
+            f"{info['written'].get('csv', 'windows.csv')}."
+        )
     return 0

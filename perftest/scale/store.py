@@ -9,6 +9,12 @@ input or options changed gets a new key and is computed again.  Files of keys th
 the finished job no longer uses are removed at the end, so that the folder is then
 one Parquet dataset of exactly the job's rows (``pandas.read_parquet(folder)``).
 
+:class:`StoreLock` keeps a second job off an output folder while one works in it:
+an operating-system lock on a file in the folder (``fcntl.flock`` on POSIX,
+``msvcrt.locking`` on Windows), so a job that dies releases it with its process and
+no stale lock is ever left behind; the file names the holder (process id, host,
+start time) for the message of the job that is refused.
+
 :class:`Progress` writes one throttled line to stderr: windows done, rate,
 estimated time left and the count of failed windows.
 """
@@ -18,15 +24,16 @@ from __future__ import annotations
 import hashlib
 import json
 import os
+import socket
 import sys
 import time
 from pathlib import Path
 
 import pandas as pd
 
-from perftest.errors import InputError
+from perftest.errors import InputError, PerftestError
 
-__all__ = ["WindowStore", "Progress", "fingerprint"]
+__all__ = ["WindowStore", "StoreLock", "Progress", "fingerprint"]
 
 _PREFIX = "part-"
 
@@ -86,8 +93,18 @@ class WindowStore:
 
     def read(self, key: str) -> pd.DataFrame:
         path = self._existing[key[:20]]
+        try:
+            frame = pd.read_parquet(path)
+        except Exception as exc:  # pyarrow raises its own classes for a damaged file
+            detail = " ".join(str(exc).split())[:200]
+            raise PerftestError(
+                f"{path}: this part file of the window store cannot be read ({detail}). "
+                "Delete it to compute its windows again, or rerun with --no-resume "
+                "(resume=False).",
+                file=path,
+            ) from None
         self.used[key[:20]] = path
-        return pd.read_parquet(path)
+        return frame
 
     def write(self, run_number: int, start: pd.Timestamp, key: str, frame: pd.DataFrame) -> None:
         """Write one chunk's rows (atomically: a killed job leaves no half file)."""
@@ -108,6 +125,113 @@ class WindowStore:
                 p.unlink()
                 gone.append(p)
         return gone
+
+
+class StoreLock:
+    """An exclusive lock on an output folder, held for the length of a job.
+
+    Parameters
+    ----------
+    folder : str or Path
+        The folder (created when missing).  The lock file ``.perftest.lock`` in it
+        is left in place after the job: removing it would let two later jobs lock
+        two different files.
+    job : str, default "perftest"
+        What holds the lock, for the message of a job that is refused.
+
+    Raises
+    ------
+    PerftestError
+        On :meth:`acquire` (or entering the ``with`` block) when another process
+        holds the lock; the message names its process id, host and start time.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> with StoreLock(tempfile.mkdtemp()) as lock:
+    ...     lock.held
+    True
+    """
+
+    NAME = ".perftest.lock"
+
+    def __init__(self, folder, job: str = "perftest"):
+        self.folder = Path(folder)
+        self.path = self.folder / self.NAME
+        self.job = job
+        self._fh = None
+
+    @property
+    def held(self) -> bool:
+        return self._fh is not None
+
+    def acquire(self) -> StoreLock:
+        self.folder.mkdir(parents=True, exist_ok=True)
+        fh = open(self.path, "a+b")  # noqa: SIM115 - kept open while the lock is held
+        try:
+            _lock(fh)
+        except OSError:
+            fh.seek(0)
+            holder = fh.read().decode("utf-8", "replace").strip() or "another process"
+            fh.close()
+            raise PerftestError(
+                f"{self.folder}: the folder is in use by {holder} (lock file {self.path}). "
+                "Wait for that job to finish, or give another output folder.",
+                file=self.folder,
+            ) from None
+        stamp = time.strftime("%Y-%m-%d %H:%M:%S %Z")
+        fh.seek(0)
+        fh.truncate()
+        fh.write(
+            f"{self.job} (process {os.getpid()} on host {socket.gethostname()}, "
+            f"started {stamp})".encode()
+        )
+        fh.flush()
+        self._fh = fh
+        return self
+
+    def release(self) -> None:
+        if self._fh is None:
+            return
+        try:
+            self._fh.seek(0)
+            self._fh.truncate()
+            self._fh.flush()
+            _unlock(self._fh)
+        finally:
+            self._fh.close()
+            self._fh = None
+
+    def __enter__(self) -> StoreLock:
+        return self.acquire()
+
+    def __exit__(self, *exc) -> None:
+        self.release()
+
+
+def _lock(fh) -> None:
+    """Lock an open file without waiting; OSError when another process holds it."""
+    try:
+        import fcntl
+    except ImportError:  # Windows
+        import msvcrt
+
+        fh.seek(0)
+        msvcrt.locking(fh.fileno(), msvcrt.LK_NBLCK, 1)
+        return
+    fcntl.flock(fh.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+
+
+def _unlock(fh) -> None:
+    try:
+        import fcntl
+    except ImportError:  # Windows
+        import msvcrt
+
+        fh.seek(0)
+        msvcrt.locking(fh.fileno(), msvcrt.LK_UNLCK, 1)
+        return
+    fcntl.flock(fh.fileno(), fcntl.LOCK_UN)
 
 
 class Progress:

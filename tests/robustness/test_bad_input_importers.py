@@ -329,3 +329,91 @@ def test_unnamed_last_column_is_logged_not_silently_dropped(tmp_path):
     run = read_run(path)
     assert list(run.data.columns) == ["TT-1"]
     assert any("column 3) has no name in the header and was not read" in s for s in run.log)
+
+
+# --- issue 17: tables instead of paths, thousands separators, wide headers, text cells
+
+
+@pytest.mark.parametrize("kind", ["dataframe", "open-file"])
+def test_table_or_open_file_instead_of_paths(tmp_path, kind):
+    import pandas as pd
+
+    path = write_bytes(tmp_path, "run.csv", GOOD)
+    if kind == "dataframe":
+        with pytest.raises(InputError, match=r"'paths' parameter of read_run.*Got a DataFrame"
+                           r".*perftest\.Run\.from_frame"):  # fmt: skip
+            read_run(pd.read_csv(path))
+    else:
+        with open(path, encoding="utf-8") as fh:
+            with pytest.raises(InputError, match=r"Got an open file \(this one's path is "
+                               + re.escape(repr(str(path)))):  # fmt: skip
+                read_run(fh)
+
+
+# 1000.4 t/h etc.: the flow column of a log whose export groups thousands.  Values in
+# t/h; 1 t/h = 1/3.6 kg/s exactly (definition of the tonne and the hour).
+THOUSANDS = [
+    pytest.param(
+        b"time,TT-1,PT-1,FT-1\n2031-05-04 10:00:00,150.1,10.02,999.5\n"
+        b'2031-05-04 10:01:00,150.3,10.01,"1,000.4"\n'
+        b'2031-05-04 10:02:00,150.2,10.03,"1,000"\n',
+        [999.5, 1000.4, 1000.0],
+        id="comma-groups-decimal-point",
+    ),
+    pytest.param(
+        b"time;TT-1;PT-1;FT-1\n2031-05-04 10:00:00;150,1;10,02;999,5\n"
+        b"2031-05-04 10:01:00;150,3;10,01;1.000,4\n"
+        b"2031-05-04 10:02:00;150,2;10,03;1.001,5\n",
+        [999.5, 1000.4, 1001.5],
+        id="point-groups-decimal-comma",
+    ),
+]
+
+
+@pytest.mark.parametrize("content, flows", THOUSANDS)
+def test_thousands_separators_are_accepted(tmp_path, content, flows):
+    run = read_run(write_bytes(tmp_path, "run.csv", content),
+                   write_text(tmp_path, "plant.toml", PLANT))  # fmt: skip
+    assert not run.mask["FT-1"].any()
+    # exact decimal inputs, one division: a few ulp
+    np.testing.assert_allclose(run.data["FT-1"], np.array(flows) / 3.6, rtol=1e-14)
+    assert any("thousands separators read as numbers" in line for line in run.log)
+
+
+def test_lone_comma_groups_are_masked_when_the_convention_is_unclear(tmp_path):
+    # "1,500" alone could be 1.5 with a decimal comma: not read, masked and recorded
+    content = GOOD.replace(b",49.9\n", b',"1,500"\n')
+    run = read_run(write_bytes(tmp_path, "run.csv", content),
+                   write_text(tmp_path, "plant.toml", PLANT))  # fmt: skip
+    assert bool(run.mask["FT-1"].iloc[2])
+    assert "1,500" in str(run.exclusions["reason"].iloc[0])
+
+
+def test_header_wider_than_64kB_is_accepted(tmp_path):
+    extra = [f"SPARE-COLUMN-WITH-A-LONG-NAME-{i:05d}" for i in range(3000)]  # ~110 kB
+    head = ",".join(["time", "TT-1", "PT-1", "FT-1", *extra]) + "\n"
+    assert len(head) > 1 << 16
+    rows = "".join(f"2031-05-04 10:0{i}:00,150.{i},10.02,50.1," + ",".join(["1"] * 3000) + "\n"
+                   for i in range(4))  # fmt: skip
+    run = read_run(write_text(tmp_path, "run.csv", head + rows),
+                   write_text(tmp_path, "plant.toml", PLANT))  # fmt: skip
+    assert len(run.data) == 4
+    # 150.3 degC in K (273.15 K offset exact, SI Brochure 2.3.1)
+    assert run.data["TT-1"].iloc[3] == pytest.approx(423.45, abs=1e-9)
+
+
+def test_tag_losing_samples_to_text_cells_is_logged(tmp_path):
+    from perftest.errors import DataQualityWarning
+
+    rows = ["time,TT-1,PT-1,FT-1"] + [
+        f"2031-05-04 10:{i:02d}:00,150.1,10.02,{'50,1' if i % 3 == 0 else '50.1'}"
+        for i in range(60)
+    ]
+    # unquoted "50,1" in a comma file splits the row: quote it as an export would
+    rows = [r.replace("50,1", '"50,1"') for r in rows]
+    with pytest.warns(DataQualityWarning, match=r"run\.csv, column 'FT-1': tag 'FT-1' lost "
+                      r"20 of 60 samples \(33 %, more than 1 %\) to text cells"):  # fmt: skip
+        run = read_run(write_text(tmp_path, "run.csv", "\n".join(rows) + "\n"),
+                       write_text(tmp_path, "plant.toml", PLANT))  # fmt: skip
+    assert int(run.mask["FT-1"].sum()) == 20
+    assert any("lost 20 of 60 samples" in line for line in run.log)

@@ -241,3 +241,52 @@ def test_plant_reconcile_wrong_types(demo_measurements):
         perftest.reconcile(plant, "measurements")
     with pytest.raises(InputError, match="'plant' parameter of reconcile"):
         perftest.reconcile("plant.toml", m)
+
+
+# --- issue 17: messages a user can act on ---------------------------------------------
+
+
+@pytest.mark.parametrize("rec", [None, "reconciliation", 3.0], ids=["none", "text", "number"])
+def test_evaluate_without_a_reconciliation(demo_measurements, rec):
+    from perftest.evaluation.results import evaluate
+
+    plant, _ = demo_measurements
+    with pytest.raises(InputError, match=r"'reconciliation' parameter of evaluate must be the "
+                       r"result of perftest\.reconcile\(plant, measurements\)\. Got "):  # fmt: skip
+        evaluate(plant, rec)
+
+
+def test_singular_covariance_names_the_tags(demo_measurements):
+    # one sample per tag: no random part, and the two cooling-water RTDs share a
+    # calibration lot (fully correlated systematic parts): the covariance is singular
+    plant, m = demo_measurements
+    from dataclasses import replace
+
+    ur = np.zeros(len(m.tags))
+    us = np.array(m.u_systematic, dtype=float)
+    i, j = m.index("TT-181"), m.index("TT-182")
+    cov = np.diag(us**2)
+    cov[i, j] = cov[j, i] = us[i] * us[j]
+    single = replace(m, cov=cov, u_random=ur, n_samples=np.ones(len(m.tags), dtype=int))
+    with pytest.raises(InputError, match=r"covariance is singular.*tags TT-18[12], TT-18[12] "
+                       r"have no random scatter.*window is too short"):  # fmt: skip
+        perftest.reconcile(plant, single)
+
+
+def test_exergy_balance_of_an_unmeasured_loop_is_logged(demo_measurements):
+    # without the cooling-water flow and outlet temperature the condenser's coolant
+    # side is not observable: the note must say so, not "imbalance nan %"
+    from perftest.evaluation.results import evaluate
+
+    plant, m = demo_measurements
+    keep = [t for t in m.tags if t not in ("FT-181", "TT-182")]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        perf = evaluate(plant, perftest.reconcile(plant, m.subset(keep)))
+    notes = [n for n in perf.notes if "exergy balance" in n]
+    assert notes == [
+        "Plant exergy balance not checked: the exergy destroyed in condenser is unknown "
+        "(their streams are not observable: no measurement fixes them). Add a measurement "
+        "on that loop to close it."
+    ]
+    assert not any("nan" in n for n in perf.notes)

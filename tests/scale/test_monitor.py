@@ -87,7 +87,7 @@ def test_monitor_resumes(demo_out, capsys):
     ("extra", "match"),
     [
         (["--data", "missing.csv"], "missing.csv: run file not found"),
-        (["--every", "fortnightly"], "'every' parameter"),
+        (["--every", "fortnightly"], "argument --every: must be a duration such as '2h'"),
         (["--workers", "0"], "--workers must be at least 1"),
         (["--scheduler", "tcp://127.0.0.1:1"], "--scheduler is used with --engine dask"),
     ],
@@ -95,7 +95,11 @@ def test_monitor_resumes(demo_out, capsys):
 def test_monitor_bad_input_one_line(tmp_path, capsys, extra, match):
     argv = ["monitor", str(DEMO / "plant.toml"), "--data", str(FILES[0]), "--data",
             str(FILES[1]), "--out", str(tmp_path / "o"), "-q", *extra]  # fmt: skip
-    assert main(argv) == 2
+    try:
+        code = main(argv)
+    except SystemExit as exc:  # argparse's own refusals
+        code = exc.code
+    assert code == 2
     err = capsys.readouterr().err
     assert err.startswith("perftest: error:") and match in err
     assert err.count("\n") == 1
@@ -112,6 +116,14 @@ def test_monitor_as_a_subprocess(tmp_path):
     assert proc.returncode == 0, proc.stderr
     assert "5 of 1h" in proc.stdout  # 08:00 to 12:00, plus the aligned stamp 12:00
     assert json.loads((out / "monitor.json").read_text())["windows"]["total"] == 5
+    # every file it wrote is listed (the store folder with its count of part files)
+    wrote = [ln.split("wrote", 1)[1].strip() for ln in proc.stdout.splitlines() if "wrote" in ln]
+    outputs = sorted(p for p in out.iterdir() if not p.name.startswith("."))
+    assert [str(p) for p in outputs if p.suffix != ".parquet"] == sorted(
+        w for w in wrote if "windows.parquet" not in w
+    )
+    parts = len(list((out / "windows.parquet").glob("part-*.parquet")))
+    assert f"{out / 'windows.parquet'} ({parts} part file(s))" in wrote
 
 
 def test_trend_figure_artists(direct):

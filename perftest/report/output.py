@@ -1,0 +1,183 @@
+"""Writing output files without losing anything.
+
+Two rules keep a user's files safe:
+
+* **No output on an input, no two outputs on one path.**  :func:`check_outputs`
+  compares the resolved paths (symbolic links followed) and, for files that
+  exist, their device and inode (hard links), and raises a
+  :class:`~perftest.errors.PerftestError` naming both options before any work is
+  done.
+* **A failed write leaves the previous file as it was.**  :func:`write_atomic`
+  writes to a temporary file in the target's folder and renames it over the
+  target (``os.replace``, atomic on POSIX and Windows on one file system).  When
+  the write fails (disk full, file-size limit, no permission) the temporary file
+  is removed, the old output is untouched and the error names the file.
+"""
+
+from __future__ import annotations
+
+import os
+import tempfile
+from collections.abc import Iterable, Mapping
+from pathlib import Path
+
+from perftest.errors import PerftestError
+
+__all__ = ["write_atomic", "check_outputs", "same_file", "report_paths"]
+
+
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
+def write_atomic(path, content, *, encoding: str = "utf-8") -> Path:
+    """Write ``content`` to ``path`` through a temporary file and a rename.
+
+    Parameters
+    ----------
+    path : str or Path
+        The output file; its folder is created when missing.
+    content : str or bytes
+        Text (encoded with ``encoding``) or bytes.
+    encoding : str, default "utf-8"
+
+    Returns
+    -------
+    Path
+        ``path``.
+
+    Raises
+    ------
+    PerftestError
+        When the file cannot be written; the message names it and says that the
+        previous version, if any, was kept.
+    """
+    path = Path(path)
+    data = content.encode(encoding) if isinstance(content, str) else bytes(content)
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise PerftestError(
+            f"{path}: cannot create its folder {path.parent}: {exc.strerror or exc}.", file=path
+        ) from None
+    tmp = None
+    try:
+        fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(data)
+            fh.flush()
+            os.fsync(fh.fileno())
+        # mkstemp makes the file private (0600); an output gets the usual mode.
+        os.chmod(tmp, 0o666 & ~_umask())
+        os.replace(tmp, path)
+    except OSError as exc:
+        if tmp is not None:
+            try:
+                os.unlink(tmp)
+            except OSError:
+                pass
+        kept = " The previous file was left as it was." if path.exists() else ""
+        raise PerftestError(
+            f"{path}: cannot write: {exc.strerror or exc}.{kept}", file=path
+        ) from None
+    return path
+
+
+def same_file(a, b) -> bool:
+    """True when ``a`` and ``b`` name one file: equal resolved paths (symbolic
+    links followed) or, for existing files, the same device and inode (hard links)."""
+    pa, pb = Path(a), Path(b)
+    try:
+        if pa.resolve() == pb.resolve():
+            return True
+    except OSError:  # a symlink loop: compare as written
+        if os.path.abspath(pa) == os.path.abspath(pb):
+            return True
+    try:
+        return pa.exists() and pb.exists() and os.path.samefile(pa, pb)
+    except OSError:
+        return False
+
+
+def _inside(path: Path, folder: Path) -> bool:
+    try:
+        path.resolve().relative_to(folder.resolve())
+        return True
+    except (ValueError, OSError):
+        return False
+
+
+def check_outputs(
+    outputs: Mapping[str, object],
+    inputs: Mapping[str, Iterable] | None = None,
+    *,
+    folders: Mapping[str, object] | None = None,
+) -> None:
+    """Refuse outputs that would overwrite an input or each other.
+
+    Parameters
+    ----------
+    outputs : mapping label -> path
+        Files to be written, labelled as the user named them (e.g. ``"--json"``).
+        None values are skipped.
+    inputs : mapping label -> iterable of paths, optional
+        Files read by the job (e.g. ``{"--data": [...], "plant file": [...]}``).
+    folders : mapping label -> path, optional
+        Output folders the job owns whole (a window store, ``figures/``): an input
+        inside one is refused too, and so is a folder that is a file.
+
+    Raises
+    ------
+    PerftestError
+        Naming the two options and the path.
+    """
+    outs = [(label, Path(p)) for label, p in outputs.items() if p is not None]
+    ins = [(label, Path(p)) for label, paths in (inputs or {}).items() for p in paths]
+    for o_label, o_path in outs:
+        for i_label, i_path in ins:
+            if same_file(o_path, i_path):
+                raise PerftestError(
+                    f"{o_path}: the output {o_label} is the input {i_label} {i_path}; writing "
+                    "it would destroy the input. Choose another output file.",
+                    file=o_path,
+                )
+    for k, (a_label, a_path) in enumerate(outs):
+        for b_label, b_path in outs[k + 1 :]:
+            if same_file(a_path, b_path):
+                raise PerftestError(
+                    f"{a_path}: the outputs {a_label} and {b_label} are one file; one would "
+                    "overwrite the other. Give each its own file.",
+                    file=a_path,
+                )
+    for f_label, folder in (folders or {}).items():
+        if folder is None:
+            continue
+        folder = Path(folder)
+        if folder.exists() and not folder.is_dir():
+            raise PerftestError(
+                f"{folder}: the output folder {f_label} is a file. Give a folder.", file=folder
+            )
+        for i_label, i_path in ins:
+            if _inside(i_path, folder):
+                raise PerftestError(
+                    f"{i_path}: the input {i_label} lies in the output folder {folder} "
+                    f"({f_label}), which the job rewrites. Move the input or choose another "
+                    "output folder.",
+                    file=i_path,
+                )
+
+
+def report_paths(out_dir=None, *, json_path=None, markdown_path=None, html_path=None) -> dict:
+    """The files ``perftest report`` writes, labelled by option, as
+    :func:`perftest.report.write_reports` chooses them (an explicit file overrides
+    the one ``out_dir`` would hold)."""
+    paths = {"--json": json_path, "--markdown": markdown_path, "--html": html_path}
+    if out_dir is not None:
+        out_dir = Path(out_dir)
+        for label, name in (("--json", "summary.json"), ("--markdown", "report.md"),
+                            ("--html", "report.html")):  # fmt: skip
+            if paths[label] is None:
+                paths[f"--out ({name})"] = out_dir / name
+    return {k: v for k, v in paths.items() if v is not None}
