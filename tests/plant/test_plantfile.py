@@ -598,7 +598,7 @@ w = 3
 def test_scanner_finds_every_key_tomllib_finds(text):
     import tomllib
 
-    from perftest.plant.file import _scan_lines
+    from perftest.plant.scanner import scan_lines as _scan_lines
 
     lines = _scan_lines(text)
     data = tomllib.loads(text)
