@@ -4,7 +4,9 @@
 and hands the tables to :mod:`perftest.plant.loader`.  The work is split by
 concept:
 
-* :mod:`perftest.plant.schema`: which sections and keys a plant file may hold;
+* :mod:`perftest.plant.schema`: which sections and keys a plant file may hold,
+  checked by :mod:`perftest.plant.checks` and rendered into docs/plant-file.md by
+  :mod:`perftest.plant.keydocs`;
 * :mod:`perftest.plant.scanner`: the line of every key, for messages;
 * :mod:`perftest.plant.values`: numbers and values with units read into SI;
 * :mod:`perftest.plant.records`: :class:`Plant`, :class:`TagSpec`,
@@ -31,6 +33,7 @@ from perftest.plant.records import (
     TagSpec,
     UncertaintySpec,
 )
+from perftest.plant.scanner import MAX_NESTING, nesting_problem
 from perftest.plant.schema import KNOWN_SECTIONS
 
 __all__ = [
@@ -97,8 +100,24 @@ def load_plant(path) -> Plant:
             "the plant description there (see docs/plant-file.md) or give the right file.",
             file=path,
         )
+    problem = nesting_problem(text)
+    if problem is not None:
+        line, what = problem
+        raise PlantFileError(
+            f"{path.name}, line {line}: {what}; a plant file needs a few levels at most "
+            f"(limit {MAX_NESTING}). Check the brackets and dots on that line.",
+            file=path,
+            line=line,
+        )
     try:
         data = tomllib.loads(text)
+    except RecursionError:
+        # the check above should make this unreachable; never let it escape as such
+        raise PlantFileError(
+            f"{path.name}: arrays or tables nested too deeply to read. A plant file needs "
+            "a few levels at most; check the brackets.",
+            file=path,
+        ) from None
     except tomllib.TOMLDecodeError as exc:
         m = re.search(r"\(at line (\d+), column (\d+)\)", str(exc))
         line = int(m.group(1)) if m else None

@@ -26,6 +26,7 @@ from pathlib import Path
 
 from perftest import units as _units
 from perftest.errors import PlantFileError, UnitError
+from perftest.plant.checks import check_against_schema
 from perftest.plant.records import (
     _STANDARD_ATMOSPHERE,
     DEFAULT_STABILITY,
@@ -36,19 +37,14 @@ from perftest.plant.records import (
     TagSpec,
     UncertaintySpec,
 )
+from perftest.plant.scanner import line_of as _line_of
 from perftest.plant.scanner import located_error as _make_error
 from perftest.plant.scanner import scan_lines as _scan_lines
 from perftest.plant.schema import (
     _ARRAY_SECTIONS,
-    _GROUP_KEYS,
-    _LIMIT_KEYS,
     _LIMIT_KINDS,
     _RAW_SECTIONS,
-    _SITE_KEYS,
-    _TAG_KEYS,
-    _UNCERTAINTY_KEYS,
     _UNCERTAINTY_KINDS,
-    KNOWN_SECTIONS,
 )
 from perftest.plant.values import is_number as _is_number
 from perftest.plant.values import read_quantity as _read_quantity
@@ -96,17 +92,6 @@ class _Loader:
             raise self.error(f"must be a table. Got {_type_name(value)}.", *keys)
         return value
 
-    def check_keys(self, table: dict, known, *keys, what: str) -> None:
-        for k in table:
-            if k not in known:
-                near = difflib.get_close_matches(k, known, n=1, cutoff=0.6)
-                hint = f" Did you mean {near[0]!r}?" if near else ""
-                raise self.error(
-                    f"unknown key {k!r} in {what}.{hint} Known keys: {', '.join(known)}.",
-                    *keys,
-                    k,
-                )
-
     def text_value(self, value, *keys) -> str:
         if not isinstance(value, str):
             raise self.error(f"must be a text. Got {_type_name(value)}.", *keys)
@@ -127,15 +112,8 @@ class _Loader:
     # -- sections ------------------------------------------------------------
 
     def load(self) -> Plant:
-        for k in self.data:
-            if k not in KNOWN_SECTIONS:
-                near = difflib.get_close_matches(k, KNOWN_SECTIONS, n=1, cutoff=0.6)
-                hint = f" Did you mean {near[0]!r}?" if near else ""
-                raise self.error(
-                    f"unknown top-level table {k!r}.{hint} "
-                    f"Known tables: {', '.join(KNOWN_SECTIONS)}.",
-                    k,
-                )
+        # every key of every section against the one schema, before anything is built
+        check_against_schema(self.data, self.error, lambda *keys: _line_of(self.lines, keys))
         site_raw = self.table(self.data.get("site", {}), "site")
         tags_raw = self.table(self.data.get("tags", {}), "tags")
         tags = {tid: self.tag(tid, t) for tid, t in tags_raw.items()}
@@ -178,7 +156,6 @@ class _Loader:
         )
 
     def site(self, raw: dict, tags: dict) -> SiteSettings:
-        self.check_keys(raw, _SITE_KEYS, "site", what="[site]")
         name = self.text_value(raw.get("name", self.path.stem), "site", "name")
         tz = self.text_value(raw.get("timezone", "UTC"), "site", "timezone")
         try:
@@ -257,7 +234,6 @@ class _Loader:
     def tag(self, tid: str, raw) -> TagSpec:
         k0 = ("tags", tid)
         raw = self.table(raw, *k0)
-        self.check_keys(raw, _TAG_KEYS, *k0, what=f"tag {tid!r}")
         unit = None
         if "unit" in raw:
             unit = self.text_value(raw["unit"], *k0, "unit")
@@ -394,7 +370,6 @@ class _Loader:
 
     def uncertainty(self, raw, *keys) -> UncertaintySpec:
         raw = self.table(raw, *keys)
-        self.check_keys(raw, _UNCERTAINTY_KEYS, *keys, what="an uncertainty")
         if "value" not in raw:
             raise self.error("the 'value' is missing.", *keys)
         value = self.number(raw["value"], *keys, "value", nonnegative=True)
@@ -431,7 +406,6 @@ class _Loader:
 
     def limit(self, raw, quantity, unit, *keys) -> StabilityLimit:
         raw = self.table(raw, *keys)
-        self.check_keys(raw, _LIMIT_KEYS, *keys, what="a permissible variation")
         if "value" not in raw:
             raise self.error("the 'value' is missing.", *keys)
         value = self.number(raw["value"], *keys, "value", positive=True)
@@ -470,7 +444,6 @@ class _Loader:
     def group(self, gid: str, raw, tags: dict) -> GroupSpec:
         k0 = ("groups", gid)
         raw = self.table(raw, *k0)
-        self.check_keys(raw, _GROUP_KEYS, *k0, what=f"group {gid!r}")
         if gid in tags:
             raise self.error(f"group id {gid!r} is also a tag id; give the group its own id.", *k0)
         members = raw.get("tags")

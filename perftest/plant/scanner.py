@@ -21,7 +21,7 @@ from pathlib import Path
 
 from perftest.errors import PlantFileError
 
-__all__ = ["scan_lines", "line_of", "dotted_key", "located_error"]
+__all__ = ["scan_lines", "line_of", "dotted_key", "located_error", "nesting_problem", "MAX_NESTING"]
 
 _BARE = re.compile(r"[A-Za-z0-9_-]+")
 
@@ -246,3 +246,70 @@ def located_error(path: Path, lines: dict, message: str, keys) -> PlantFileError
         where += f", key {dotted!r}"
     tag = keys[1] if len(keys) > 1 and keys[0] == "tags" else None
     return PlantFileError(f"{where}: {message}", file=path, line=line, key=dotted, tag=tag)
+
+
+#: Deepest nesting a plant file may use: arrays and inline tables inside each other,
+#: and parts of one dotted key.  The deepest in the documented format is 4 (a
+#: correction surface's rows); 32 leaves room and keeps the parser, whose work grows
+#: with the depth (recursion for brackets, the square of the length for dotted keys),
+#: from being turned against the reader.
+MAX_NESTING = 32
+
+_NEST_TOKEN = re.compile(r"\"\"\"|'''|[\"'#\[\]{}.=,\n]")
+_BASIC_STRING_END = re.compile(r'(?:[^"\\\n]|\\.)*"')
+
+
+def nesting_problem(text: str, limit: int = MAX_NESTING) -> tuple[int, str] | None:
+    """Line and description of nesting deeper than ``limit``, or None.
+
+    One pass over the text, outside strings and comments: brackets ``[`` and ``{``
+    count one level each; the dots of one dotted key (``a.b.c``) count one level per
+    part.  Runs before the TOML parser; text it cannot follow (an unclosed string) is
+    left for the parser to report.
+    """
+    depth = dots = 0
+    pos = 0
+    n = len(text)
+    while pos < n:
+        m = _NEST_TOKEN.search(text, pos)
+        if m is None:
+            return None
+        tok, start = m.group(), m.start()
+        pos = m.end()
+        if tok in ('"""', "'''"):
+            end = text.find(tok, pos)
+            while tok == '"""' and end > 0 and _escaped(text, end):
+                end = text.find(tok, end + 1)
+            if end < 0:
+                return None
+            pos = end + 3
+        elif tok == '"':
+            s = _BASIC_STRING_END.match(text, pos)
+            if s is None:
+                return None
+            pos = s.end()
+        elif tok == "'":
+            end = text.find("'", pos)
+            if end < 0:
+                return None
+            pos = end + 1
+        elif tok == "#":
+            end = text.find("\n", pos)
+            pos = n if end < 0 else end
+        elif tok in "[{":
+            depth += 1
+            dots = 0
+            if depth > limit:
+                line = text.count("\n", 0, start) + 1
+                return line, f"arrays or inline tables nested more than {limit} levels deep"
+        elif tok in "]}":
+            depth = max(depth - 1, 0)
+            dots = 0
+        elif tok == ".":
+            dots += 1
+            if dots >= limit:
+                line = text.count("\n", 0, start) + 1
+                return line, f"a dotted key of more than {limit} parts"
+        else:  # = , newline: a new key or value begins
+            dots = 0
+    return None

@@ -41,6 +41,7 @@ def read_quantity(
     ``path`` and ``lines`` (from :func:`~perftest.plant.scanner.scan_lines`) and the
     key path ``keys`` locate the messages; see :meth:`Plant.read_quantity`.
     """
+
     def err(msg, *k):
         return _make_error(path, lines, msg, keys + k)
 

@@ -279,7 +279,7 @@ MUTATIONS = [
         'kind = "multiplicative"',
         'kind = "magic"',
         PlantFileError,
-        r"key 'corrections\[0\]'.*'kind'.*'magic'",
+        r"line \d+, key 'corrections\[0\]\.kind'.*'magic'",
         id="correction-kind",
     ),
     # --- TOML syntax
