@@ -1,7 +1,8 @@
 """Build a :class:`~perftest.plant.records.Plant` from the parsed TOML of a plant file.
 
-The loader validates the sections it owns (``site``, ``tags``, ``groups``,
-``stability``) into records and keeps the others (``streams``, ``units``, ``fuel``,
+The loader first checks every key of the file against the schema
+(:func:`perftest.plant.checks.check_against_schema`), then validates the sections it
+owns (``site``, ``tags``, ``groups``, ``stability``) into records and keeps the others (``streams``, ``units``, ``fuel``,
 ``performance``, ``corrections``, ``guarantees``, ``reference``, ``acceptance``,
 ``design``) as raw tables in :attr:`Plant.sections` for the modules that own them.
 

@@ -131,7 +131,7 @@ _LIMIT = Table(
     (
         Key("value", "± permissible deviation from the window mean", ("number",), required=True),
         Key("kind", "`percent` of the mean or `absolute`", choices=("percent", "absolute"),
-            default="percent"),
+            default='`"percent"`'),
         Key("unit", "unit of an `absolute` value (default: the tag's unit)"),
     ),
 )  # fmt: skip
@@ -303,7 +303,7 @@ FUEL = Table(
             (
                 Key("value", "the number", ("number",), required=True),
                 Key("kind", "`percent` of the heating value or `absolute`",
-                    choices=("percent", "absolute"), default="percent"),
+                    choices=("percent", "absolute"), default='`"percent"`'),
                 Key("level", 'coverage, or `"standard"`', ("number", "text"), default="0.95"),
                 Key("unit", "unit of an `absolute` value", default="MJ/kg"),
             ),
@@ -328,6 +328,7 @@ PLANT_KINDS = ("power", "chp", "refrigeration", "heat_pump", "boiler")
 _HEAT_ENGINE = ("power", "chp")
 _FLUE = ("power", "chp", "boiler")
 _REFS = ("text", "array")  # a reference, or a list of references (a sum)
+_REFS_LABEL = "reference or array of references (a sum)"
 _LOSS = ("text", "number", "table")
 _LOSS_FIELDS = Table(
     "a loss",
@@ -343,37 +344,39 @@ PERFORMANCE = Table(
     (
         Key("kind", "what the plant does: " + ", ".join(f"`{k}`" for k in PLANT_KINDS),
             choices=PLANT_KINDS, default='`"power"`'),
-        Key("gross_power", "generator output", _REFS, required=True, only=_HEAT_ENGINE),
+        Key("gross_power", "generator output", _REFS, label=_REFS_LABEL, required=True,
+            only=_HEAT_ENGINE),
         Key("auxiliary_power", "plant auxiliary consumption (net = gross − auxiliary)", _REFS,
-            default="0", only=_HEAT_ENGINE),
+            label=_REFS_LABEL, default="0", only=_HEAT_ENGINE),
         Key("heat_input", '`"fuel"` (fuel flow × heating value of `[fuel]`) or a variable',
-            _REFS, required=True, only=_HEAT_ENGINE),
+            _REFS, label=_REFS_LABEL, required=True, only=_HEAT_ENGINE),
         Key("basis", "heating-value basis of `heat_input` and the efficiencies that use it",
             choices=("lhv", "hhv"), default='`"lhv"`', only=_FLUE),
         Key("source_temperature", "heat-source temperature for the Carnot bound (e.g. "
-            '`"main_steam.temperature"`)', required=True, only=_HEAT_ENGINE),
+            '`"main_steam.temperature"`)', label="reference", required=True, only=_HEAT_ENGINE),
         Key("sink_temperature", 'heat-sink temperature (e.g. `"cw_in.temperature"`)',
-            required=True, only=_HEAT_ENGINE),
-        Key("cycle_heat", "heat absorbed by the working fluid", _REFS,
+            label="reference", required=True, only=_HEAT_ENGINE),
+        Key("cycle_heat", "heat absorbed by the working fluid", _REFS, label=_REFS_LABEL,
             default="the model's boiler/heater units", only=_HEAT_ENGINE),
-        Key("heat_export", "streams leaving with useful heat", _REFS, required=True,
-            only=("chp",)),
-        Key("heat_return", "streams coming back", _REFS, only=("chp",)),
-        Key("makeup", "stream whose enthalpy values the water not returned", only=("chp",)),
+        Key("heat_export", "streams leaving with useful heat", _REFS, label=_REFS_LABEL,
+            required=True, only=("chp",)),
+        Key("heat_return", "streams coming back", _REFS, label=_REFS_LABEL, only=("chp",)),
+        Key("makeup", "stream whose enthalpy values the water not returned",
+            label="stream id", only=("chp",)),
         Key("power_input", "electrical (or shaft) power driving the machine", _REFS,
-            required=True, only=("refrigeration", "heat_pump")),
-        Key("cooling", "heat drawn from the cold side", _REFS, required=True,
+            label=_REFS_LABEL, required=True, only=("refrigeration", "heat_pump")),
+        Key("cooling", "heat drawn from the cold side", _REFS, label=_REFS_LABEL, required=True,
             only=("refrigeration",)),
-        Key("heating", "heat delivered on the hot side", _REFS, required=True,
+        Key("heating", "heat delivered on the hot side", _REFS, label=_REFS_LABEL, required=True,
             only=("heat_pump",)),
-        Key("cold_temperature", "cold-side temperature for the Carnot COP", required=True,
-            only=("refrigeration", "heat_pump")),
-        Key("hot_temperature", "hot-side temperature for the Carnot COP", required=True,
-            only=("refrigeration", "heat_pump")),
+        Key("cold_temperature", "cold-side temperature for the Carnot COP", label="reference",
+            required=True, only=("refrigeration", "heat_pump")),
+        Key("hot_temperature", "hot-side temperature for the Carnot COP", label="reference",
+            required=True, only=("refrigeration", "heat_pump")),
         Key("heat_rejected", "heat rejected on the hot side (a check of the energy balance)",
-            _REFS, only=("refrigeration",)),
+            _REFS, label=_REFS_LABEL, only=("refrigeration",)),
         Key("useful_heat", "heat taken up by the water/steam (direct method; fuel from "
-            "`[fuel]`)", _REFS, required=True, only=("boiler",)),
+            "`[fuel]`)", _REFS, label=_REFS_LABEL, required=True, only=("boiler",)),
         Key("flue_gas_o2", "oxygen in the flue gas (tag, or `{ value, unit }`)", _TAG_OR_VALUE,
             _VALUE_UNIT, only=_FLUE),
         Key("flue_gas_co2", "carbon dioxide in the flue gas", _TAG_OR_VALUE, _VALUE_UNIT,
@@ -569,11 +572,6 @@ KEY_TABLES: dict = {
     "design.tags": DESIGN_TAG.fields,
 }
 
-# The loader's own key lists, from the tables above.
-_SITE_KEYS = tuple(k.name for k in SITE.keys)
-_TAG_KEYS = tuple(k.name for k in TAG.keys)
-_UNCERTAINTY_KEYS = tuple(k.name for k in _UNCERTAINTY.keys)
+# The loader's choices, from the tables above.
 _UNCERTAINTY_KINDS = _UNCERTAINTY.key("kind").choices
-_GROUP_KEYS = tuple(k.name for k in GROUP.keys)
-_LIMIT_KEYS = tuple(k.name for k in _LIMIT.keys)
 _LIMIT_KINDS = _LIMIT.key("kind").choices

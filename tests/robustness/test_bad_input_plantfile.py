@@ -13,11 +13,11 @@ from __future__ import annotations
 
 import pytest
 
-from perftest.evaluation.corrections import curves_from_plant, guarantees_from_plant
 from perftest.errors import PerftestError, PlantFileError
+from perftest.evaluation.corrections import curves_from_plant, guarantees_from_plant
+from perftest.evaluation.results import _fuel_basis, _performance_table
 from perftest.plant import build_model
 from perftest.plant.file import load_plant
-from perftest.evaluation.results import _fuel_basis, _performance_table
 
 from .conftest import DEMO, PLANT
 
