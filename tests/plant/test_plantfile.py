@@ -667,10 +667,9 @@ def test_key_of_another_kind_names_where_it_belongs(tmp_path, kind, key, owners)
     text = _performance(kind, keys)
     with pytest.raises(PlantFileError) as info:
         load_plant(write(tmp_path, text))
-    assert str(info.value) == (
+    assert str(info.value).startswith(
         f"plant.toml, line {line_of(text, f'{key} = ')}, key 'performance.{key}': "
         f"'{key}' is not a key of kind = \"{kind}\"; it belongs to {owners}."
-        + str(info.value).split(f"it belongs to {owners}.", 1)[1]
     )
     assert info.value.key == f"performance.{key}"
 
