@@ -1,7 +1,9 @@
 """The plant description: the plant file and the plant model built from it.
 
-:mod:`~perftest.plant.file` reads and checks the plant TOML (tags, groups, site,
-streams, units, performance, fuel, corrections, guarantees) into a :class:`Plant`;
+:mod:`~perftest.plant.file` reads the plant TOML and :mod:`~perftest.plant.loader`
+checks it into a :class:`Plant` (:mod:`~perftest.plant.records`), against the sections
+and keys of :mod:`~perftest.plant.schema`, with the line of each key found by
+:mod:`~perftest.plant.scanner`;
 :mod:`~perftest.plant.spec` reads the ``[streams]`` and ``[units]`` tables,
 :mod:`~perftest.plant.equations` turns them into variables and balance equations
 (:class:`PlantModel`: scaled residuals and a sparse analytic Jacobian),

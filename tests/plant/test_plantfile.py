@@ -598,7 +598,7 @@ w = 3
 def test_scanner_finds_every_key_tomllib_finds(text):
     import tomllib
 
-    from perftest.plant.file import _scan_lines
+    from perftest.plant.scanner import scan_lines as _scan_lines
 
     lines = _scan_lines(text)
     data = tomllib.loads(text)
@@ -610,3 +610,239 @@ def test_scanner_finds_every_key_tomllib_finds(text):
         assert lines[("items", 1, "v")] == line_of(text, "v = 2")
         assert lines[("items", 1, "extra", "w")] == line_of(text, "w = 3")
         assert lines[("arr", 1, "y", 1)] == line_of(text, "arr =")
+
+
+# --------------------------------------------------------------------------- the schema
+
+DOCS = Path(__file__).resolve().parents[2] / "docs" / "plant-file.md"
+
+# One plant per kind with every key the schema gives that kind: each must load.
+# References are plain texts here; what they name is checked when results are computed.
+KIND_KEYS = {
+    "power": dict(gross_power='"JT-1"', auxiliary_power='["JT-2", "JT-3"]', heat_input='"fuel"',
+                  basis='"HHV"', source_temperature='"TT-1"', sink_temperature='"TT-2"',
+                  cycle_heat='"boiler.heat"', flue_gas_o2='"AT-O2"',
+                  flue_gas_oxygen_basis='"wet"', radiation_loss="0.005"),
+    "chp": dict(gross_power='"JT-1"', heat_input='"fuel"', source_temperature='"TT-1"',
+                sink_temperature='"TT-2"', heat_export='["hot_out"]', heat_return='"back"',
+                makeup='"makeup"', flue_gas_temperature='"TT-FG"'),
+    "refrigeration": dict(power_input='"JT-1"', cooling='"chiller.heat"',
+                          cold_temperature='"TT-1"', hot_temperature='"TT-2"',
+                          heat_rejected='"condenser.heat"'),
+    "heat_pump": dict(power_input='"JT-1"', heating='"hp.heat"', cold_temperature='"TT-1"',
+                      hot_temperature='"TT-2"'),
+    "boiler": dict(useful_heat='"boiler.heat"', basis='"lhv"', flue_gas_o2='"AT-O2"',
+                   flue_gas_co2='{ value = 9.5, unit = "%" }', flue_gas_oxygen_basis='"dry"',
+                   flue_gas_co='"AT-CO"', flue_gas_temperature='"TT-FG"',
+                   air_temperature='"TT-AIR"', air_relative_humidity='"RH-AIR"',
+                   radiation_loss='{ value = 0.4, kind = "percent" }',
+                   other_losses='{ value = 0.2, unit = "MW" }'),
+}  # fmt: skip
+
+
+def _performance(kind: str, keys: dict) -> str:
+    body = "".join(f"{k} = {v}\n" for k, v in keys.items())
+    return BASE + f'\n[performance]\nkind = "{kind}"\n' + body
+
+
+@pytest.mark.parametrize("kind", sorted(KIND_KEYS))
+def test_every_kind_loads_with_its_keys(tmp_path, kind):
+    plant = load_plant(write(tmp_path, _performance(kind, KIND_KEYS[kind])))
+    assert set(plant.sections["performance"]) == {"kind", *KIND_KEYS[kind]}
+
+
+@pytest.mark.parametrize(
+    "kind, key, owners",
+    [
+        ("power", "cooling", "refrigeration"),
+        ("refrigeration", "gross_power", "power, chp"),
+        ("heat_pump", "heat_rejected", "refrigeration"),
+        ("boiler", "sink_temperature", "power, chp"),
+        ("chp", "useful_heat", "boiler"),
+        ("refrigeration", "flue_gas_o2", "power, chp, boiler"),
+    ],
+)
+def test_key_of_another_kind_names_where_it_belongs(tmp_path, kind, key, owners):
+    keys = dict(KIND_KEYS[kind], **{key: '"X-1"'})
+    text = _performance(kind, keys)
+    with pytest.raises(PlantFileError) as info:
+        load_plant(write(tmp_path, text))
+    assert str(info.value).startswith(
+        f"plant.toml, line {line_of(text, f'{key} = ')}, key 'performance.{key}': "
+        f"'{key}' is not a key of kind = \"{kind}\"; it belongs to {owners}."
+    )
+    assert info.value.key == f"performance.{key}"
+
+
+def test_default_kind_is_power(tmp_path):
+    text = BASE + '\n[performance]\ngross_power = "JT-1"\nheating = "hp.heat"\n'
+    with pytest.raises(PlantFileError, match=r"'heating' is not a key of kind = \"power\""):
+        load_plant(write(tmp_path, text))
+
+
+def test_misspelt_key_is_refused_with_a_suggestion(tmp_path):
+    text = _performance("power", dict(gross_power='"JT-1"', auxiliary_pwer='"JT-2"'))
+    with pytest.raises(PlantFileError) as info:
+        load_plant(write(tmp_path, text))
+    err = info.value
+    assert err.line == line_of(text, "auxiliary_pwer")
+    assert Path(err.file).name == "plant.toml"
+    assert "unknown key 'auxiliary_pwer' in [performance]. Did you mean 'auxiliary_power'?" in (
+        str(err)
+    )
+    # the known keys listed are those of the kind, not of every kind
+    assert "cooling" not in str(err) and "sink_temperature" in str(err)
+
+
+@pytest.mark.parametrize(
+    "snippet, key, fragment",
+    [
+        ('[fuel]\nmass_flow = "FT-1"\nlhv = { value = 50, unit = "MJ/kg", u = 1 }\n',
+         "fuel.lhv.u", "unknown key 'u' in a value with its unit"),
+        ('[fuel]\nmass_flow = "FT-1"\ncomposition = { methane = "lots" }\n',
+         "fuel.composition.methane", "must be a number. Got a text"),
+        ('[[corrections]]\nresult = "net_power"\nvariable = "TT-1"\nreference = 15\n'
+         'surface = { x = [1, 2], y = [1, 2], values = [[1, 1], [1, 1]], z_unit = "K" }\n',
+         "corrections[0].surface.z_unit", "Did you mean 'y_unit'"),
+        ('[[corrections]]\nresult = "net_power"\nvariable = "TT-1"\nreference = 15\n'
+         "curve = { x = [1, 2], y = [1, \"one\"] }\n",
+         "corrections[0].curve.y[1]", "must be a finite number. Got a text"),
+        ('[[guarantees]]\nquantity = "corrected_net_power"\nvalue = 1\ndirection = "at_least"\n'
+         "margin = 1\n", "guarantees[0].margin", "unknown key 'margin'"),
+        ('[acceptance]\nrules = "plain"\n', "acceptance.rules", "Did you mean 'rule'"),
+        ('[design]\nduraton = "2h"\n', "design.duraton", "Did you mean 'duration'"),
+        ('[design.tags]\nTT-1 = { value = 1, scater = 0.1 }\n', "design.tags.TT-1.scater",
+         "unknown key 'scater' in design tag 'TT-1'. Did you mean 'scatter'"),
+        ('[streams.s]\nfluid = "water"\nmass_flw = "FT-1"\n', "streams.s.mass_flw",
+         "unknown key 'mass_flw' in stream 's'. Did you mean 'mass_flow'"),
+        ('[units.t]\ntype = "turbine"\nshaft = "g"\n', "units.t.shaft",
+         "'shaft' is not a key of type = \"turbine\"; it belongs to generator"),
+        ('[units.t]\ntype = "no_such_type"\noutlet = "s"\n', "units.t.outlet",
+         "Did you mean 'outlets'"),
+        ('[reference]\ntemperature = 15\n', "reference.temperature", "takes no keys"),
+    ],
+)  # fmt: skip
+def test_unknown_keys_in_every_section(tmp_path, snippet, key, fragment):
+    text = BASE + "\n" + snippet
+    with pytest.raises(PlantFileError) as info:
+        load_plant(write(tmp_path, text))
+    assert info.value.key == key
+    assert fragment in str(info.value)
+    assert info.value.line is not None
+
+
+def test_basis_is_read_without_regard_to_case(tmp_path):
+    # evaluate() reads the basis with .lower(); the schema must not refuse what it reads
+    text = _performance("power", dict(gross_power='"JT-1"', basis='"LHV"'))
+    assert load_plant(write(tmp_path, text)).sections["performance"]["basis"] == "LHV"
+
+
+CORRECTION = """
+[[corrections]]
+result = "net_power"
+variable = "TT-1"
+reference = { value = 15.0, unit = "degC" }
+kind = "KIND"
+polynomial = [0.0, 0.001]
+"""
+
+
+def test_correction_given_twice_is_refused_naming_both_lines(tmp_path):
+    text = BASE + CORRECTION.replace("KIND", "multiplicative") * 2
+    with pytest.raises(PlantFileError) as info:
+        load_plant(write(tmp_path, text))
+    lines = [i for i, s in enumerate(text.splitlines(), start=1) if s == 'variable = "TT-1"']
+    assert info.value.line == lines[1]
+    assert info.value.key == "corrections[1].variable"
+    assert f"corrections[0] at line {lines[0]} already does" in str(info.value)
+
+
+def test_surface_sharing_a_variable_with_a_curve_is_refused(tmp_path):
+    surface = (
+        '\n[[corrections]]\nresult = "net_power"\nvariable = "RH-1"\nreference = 0.6\n'
+        'second_variable = "TT-1"\nsecond_reference = 15\n'
+        "surface = { x = [0, 1], y = [0, 30], values = [[1, 1], [1, 1]] }\n"
+    )
+    text = BASE + CORRECTION.replace("KIND", "multiplicative") + surface
+    with pytest.raises(PlantFileError, match=r"corrections\[1\]\.second_variable.*'TT-1'"):
+        load_plant(write(tmp_path, text))
+
+
+def test_additive_and_multiplicative_of_one_variable_are_two_terms(tmp_path):
+    # measured = prod f_i * R + sum g_j: one term of each form is allowed
+    text = BASE + CORRECTION.replace("KIND", "multiplicative")
+    text += CORRECTION.replace("KIND", "additive")
+    assert len(load_plant(write(tmp_path, text)).sections["corrections"]) == 2
+
+
+def test_docs_key_tables_are_rendered_from_the_schema():
+    from perftest.plant.keydocs import marked_tables, render_docs
+    from perftest.plant.schema import KEY_TABLES
+
+    text = DOCS.read_text(encoding="utf-8")
+    assert sorted(marked_tables(text)) == sorted(KEY_TABLES)
+    # fails when a key is added to the schema but not to the page, or the reverse:
+    # regenerate with `python -m perftest.plant.keydocs docs/plant-file.md`
+    assert render_docs(text) == text
+
+
+def test_docs_check_can_fail():
+    from perftest.plant.keydocs import render_docs
+
+    text = DOCS.read_text(encoding="utf-8")
+    row = next(s for s in text.splitlines() if s.startswith("| `auxiliary_power` |"))
+    stale = text.replace(row + "\n", "", 1)
+    assert render_docs(stale) != stale
+    assert render_docs(stale) == text
+
+
+def test_schema_unit_and_stream_keys_are_those_of_the_model():
+    # the model (perftest.plant.spec) reads streams and units; the schema must name
+    # exactly the keys it reads, per unit type
+    from perftest.plant import spec
+    from perftest.plant.schema import STREAM, UNIT
+
+    assert {k.name for k in STREAM.keys} == set(spec._STREAM_KEYS)
+    for utype in spec.UNIT_TYPES:
+        rule = spec._UNIT_TABLE[utype]
+        model = {"type", "description", *rule["ports"], *rule["variables"], *rule.get("extra", ())}
+        schema = {k.name for k in UNIT.keys if not k.only or utype in k.only}
+        assert schema == model, utype
+
+
+@pytest.mark.parametrize(
+    "text",
+    [
+        'name = "' + "[" * 100 + '"\n',  # brackets inside a string
+        "# " + "." * 100 + "\n",  # dots in a comment
+        "x = [" + ", ".join(["1.5"] * 200) + "]\n",  # many floats on one line
+        'x = """\n' + "{" * 100 + '\n"""\n',  # a multi-line string
+        "a.b.c = { d.e = [[1.5, 2.5], [3.5]] }\n",
+    ],
+)
+def test_nesting_check_ignores_strings_comments_and_numbers(text):
+    import tomllib
+
+    from perftest.plant.scanner import nesting_problem
+
+    tomllib.loads(text)  # the cases are valid TOML
+    assert nesting_problem(text) is None
+
+
+@pytest.mark.parametrize(
+    "text, line",
+    [
+        ("a = 1\nb = " + "[" * 33 + "]" * 33 + "\n", 2),
+        ("a = 1\n\n" + ".".join(["k"] * 33) + " = 1\n", 3),
+        ("a = 1\nb = " + "{c = " * 33 + "1" + "}" * 33 + "\n", 2),
+    ],
+)
+def test_nesting_check_finds_the_line(text, line):
+    from perftest.plant.scanner import nesting_problem
+
+    assert nesting_problem(text)[0] == line
+    # one level less is accepted
+    for deep, less in (("[", "["), ("]", "]"), ("{c = ", "{c = "), ("}", "}")):
+        text = text.replace(deep * 33, less * 32)
+    text = text.replace(".".join(["k"] * 33), ".".join(["k"] * 32))
+    assert nesting_problem(text) is None

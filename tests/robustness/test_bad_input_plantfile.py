@@ -13,11 +13,11 @@ from __future__ import annotations
 
 import pytest
 
-from perftest.evaluation.corrections import curves_from_plant, guarantees_from_plant
 from perftest.errors import PerftestError, PlantFileError
+from perftest.evaluation.corrections import curves_from_plant, guarantees_from_plant
+from perftest.evaluation.results import _fuel_basis, _performance_table
 from perftest.plant import build_model
 from perftest.plant.file import load_plant
-from perftest.evaluation.results import _fuel_basis, _performance_table
 
 from .conftest import DEMO, PLANT
 
@@ -279,8 +279,93 @@ MUTATIONS = [
         'kind = "multiplicative"',
         'kind = "magic"',
         PlantFileError,
-        r"key 'corrections\[0\]'.*'kind'.*'magic'",
+        r"line \d+, key 'corrections\[0\]\.kind'.*'magic'",
         id="correction-kind",
+    ),
+    # --- keys against the schema (perftest.plant.schema): before, these were ignored
+    pytest.param(
+        'auxiliary_power = "JT-102"',
+        'auxiliary_pwer = "JT-102"',
+        PlantFileError,
+        r"line \d+, key 'performance\.auxiliary_pwer': unknown key 'auxiliary_pwer' in "
+        r"\[performance\]\. Did you mean 'auxiliary_power'\?",
+        id="performance-misspelt-key",
+    ),
+    pytest.param(
+        'auxiliary_power = "JT-102"',
+        'auxiliary_power = "JT-102"\ncooling = "JT-102"',
+        PlantFileError,
+        r"key 'performance\.cooling': 'cooling' is not a key of kind = \"power\"; it belongs "
+        r"to refrigeration",
+        id="performance-key-of-another-kind",
+    ),
+    pytest.param(
+        'auxiliary_power = "JT-102"',
+        'auxiliary_power = "JT-102"\nkind = "steam"',
+        PlantFileError,
+        r"key 'performance\.kind': 'kind' must be one of 'power', 'chp', 'refrigeration'",
+        id="performance-unknown-kind",
+    ),
+    pytest.param(
+        'auxiliary_power = "JT-102"',
+        "auxiliary_power = 0",
+        PlantFileError,
+        r"key 'performance\.auxiliary_power': must be a text or an array\. Got int 0",
+        id="performance-number-for-a-reference",
+    ),
+    pytest.param(
+        "combustion_reference_temperature = {",
+        "combustion_temperature = {",
+        PlantFileError,
+        r"key 'fuel\.combustion_temperature'.*Did you mean 'combustion_reference_temperature'",
+        id="fuel-misspelt-key",
+    ),
+    pytest.param(
+        'uncertainty = { value = 0.3, kind = "percent", level = 0.95 }',
+        'uncertainty = { value = 0.3, kind = "percent", levl = 0.95 }',
+        PlantFileError,
+        r"key 'fuel\.uncertainty\.levl'.*Did you mean 'level'",
+        id="fuel-uncertainty-misspelt-key",
+    ),
+    pytest.param(
+        'mass_flow = "FT-201"',
+        'mass_flow = "FT-201"\nexergy_ratio = "1.04"',
+        PlantFileError,
+        r"key 'fuel\.exergy_ratio': must be a number\. Got a text",
+        id="fuel-text-for-a-number",
+    ),
+    pytest.param(
+        'result = "net_power"\nvariable = "cw_in.temperature"\nreference = { value = 15.0, '
+        'unit = "degC" }\nkind = "multiplicative"',
+        'result = "net_power"\nvariable = "cw_in.temperature"\nreference = { value = 15.0, '
+        'unit = "degC" }\nknid = "multiplicative"',
+        PlantFileError,
+        r"key 'corrections\[0\]\.knid'.*\(corrections\[0\]\)\. Did you mean 'kind'",
+        id="correction-misspelt-key",
+    ),
+    pytest.param(
+        '0.98, 0.966], x_unit = "degC" }',
+        '0.98, 0.966], x_units = "degC" }',
+        PlantFileError,
+        r"key 'corrections\[0\]\.curve\.x_units'.*Did you mean 'x_unit'",
+        id="correction-curve-misspelt-key",
+    ),
+    pytest.param(
+        "# ---- contract guarantees",
+        '[[corrections]]\nresult = "net_power"\nvariable = "cw_in.temperature"\n'
+        'reference = { value = 15.0, unit = "degC" }\npolynomial = [1.0, -0.002]\n\n'
+        "# ---- contract guarantees",
+        PlantFileError,
+        r"key 'corrections\[2\]\.variable': corrects 'net_power' for 'cw_in\.temperature' a "
+        r"second time \(multiplicative\): corrections\[0\] at line \d+ already does",
+        id="correction-given-twice",
+    ),
+    pytest.param(
+        "[acceptance]",
+        '[reference]\nambient_temperature = { value = 15.0, unit = "degC" }\n\n[acceptance]',
+        PlantFileError,
+        r"key 'reference\.ambient_temperature': \[reference\] takes no keys",
+        id="reference-table-with-a-key",
     ),
     # --- TOML syntax
     pytest.param(
@@ -346,6 +431,26 @@ BAD_BYTES = [
         PlantFileError,
         r"not valid TOML",
         id="tag-defined-twice",
+    ),
+    # nesting thousands of levels deep: a message, not a RecursionError or a hang.
+    # PLANT has 13 lines; then a blank line (14), [fuel] or the header (15), lhv (16).
+    pytest.param(
+        PLANT.encode() + b"\n[fuel]\nlhv = " + b"[" * 5000 + b"]" * 5000 + b"\n",
+        PlantFileError,
+        r"plant\.toml, line 16: arrays or inline tables nested more than 32 levels deep",
+        id="arrays-nested-5000-deep",
+    ),
+    pytest.param(
+        PLANT.encode() + b"\n[fuel]\nlhv = " + b"{a = " * 5000 + b"1" + b"}" * 5000 + b"\n",
+        PlantFileError,
+        r"plant\.toml, line 16: arrays or inline tables nested more than 32 levels deep",
+        id="inline-tables-nested-5000-deep",
+    ),
+    pytest.param(
+        PLANT.encode() + b"\n[site." + b".".join([b"a"] * 20000) + b"]\nx = 1\n",
+        PlantFileError,
+        r"plant\.toml, line 15: a dotted key of more than 32 parts",
+        id="table-header-20000-parts",
     ),
     pytest.param(
         PLANT.encode().replace(b'unit = "t/h"', b'unit = "t/h"\nuncertainty = 1.0'),
