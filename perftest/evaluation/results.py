@@ -40,7 +40,7 @@ import numpy as np
 import pandas as pd
 
 from perftest.errors import InputError, PerftestError
-from perftest.evaluation import performance as perf
+from perftest.evaluation import kinds
 from perftest.evaluation.exergy_account import _exergy_analysis
 from perftest.evaluation.fuel_basis import (  # noqa: F401 - re-exported
     DEFAULT_FUEL_EXERGY_RATIO,
@@ -48,6 +48,7 @@ from perftest.evaluation.fuel_basis import (  # noqa: F401 - re-exported
     _metering_conditions,
     fuel_exergy_ratio,
 )
+from perftest.evaluation.kinds import DESCRIPTIONS, RESULT_UNITS  # noqa: F401 - re-exported
 from perftest.evaluation.plant_keys import (  # noqa: F401 - re-exported
     _check_name,
     _performance_table,
@@ -55,44 +56,6 @@ from perftest.evaluation.plant_keys import (  # noqa: F401 - re-exported
 )
 
 __all__ = ["Performance", "evaluate", "RESULT_UNITS", "fuel_exergy_ratio"]
-
-#: SI unit of every result name (summary.json "unit").
-RESULT_UNITS = {
-    "gross_power": "W",
-    "auxiliary_power": "W",
-    "net_power": "W",
-    "heat_input": "W",
-    "fuel_exergy": "W",
-    "first_law_efficiency": "1",
-    "gross_efficiency": "1",
-    "heat_rate": "J/J",
-    "gross_heat_rate": "J/J",
-    "source_temperature": "K",
-    "sink_temperature": "K",
-    "carnot_efficiency": "1",
-    "curzon_ahlborn_efficiency": "1",
-    "second_law_efficiency": "1",
-    "exergetic_efficiency": "1",
-}
-
-#: Short descriptions shown in reports.
-DESCRIPTIONS = {
-    "gross_power": "Generator output",
-    "auxiliary_power": "Auxiliary power",
-    "net_power": "Net power (gross - auxiliary)",
-    "heat_input": "Fuel heat input",
-    "fuel_exergy": "Fuel exergy input",
-    "first_law_efficiency": "First-law efficiency (net)",
-    "gross_efficiency": "First-law efficiency (gross)",
-    "heat_rate": "Net heat rate",
-    "gross_heat_rate": "Gross heat rate",
-    "source_temperature": "Heat-source temperature",
-    "sink_temperature": "Heat-sink temperature",
-    "carnot_efficiency": "Carnot efficiency (bound)",
-    "curzon_ahlborn_efficiency": "Curzon-Ahlborn efficiency",
-    "second_law_efficiency": "Second-law efficiency (first-law / Carnot)",
-    "exergetic_efficiency": "Exergetic efficiency (net power / fuel exergy)",
-}
 
 # Number of Monte Carlo trials of the check: 20 000 trials resolve a standard
 # uncertainty to about 0.5 % (relative standard error 1/sqrt(2M)), plenty for a
@@ -110,8 +73,11 @@ class Performance:
     Attributes
     ----------
     results : pandas.DataFrame
-        Index: result name.  Columns ``value, u, U95, unit, k, dof, description``
-        [SI]; ``U95`` is the expanded uncertainty at ``level``.
+        Index: result name.  Columns ``value, u, U95, unit, k, dof, description,
+        basis`` [SI]; ``U95`` is the expanded uncertainty at ``level``, ``k`` its
+        coverage factor from Student's t at the Welch-Satterthwaite effective
+        degrees of freedom ``dof``; ``basis`` is ``"lhv"`` or ``"hhv"`` for the
+        results that use the fuel's heating value, else empty.
     budgets : dict[str, pandas.DataFrame]
         Per result: uncertainty budget indexed by input, columns ``estimate, u,
         sensitivity, u_contribution, share`` (shares sum to one).
@@ -267,39 +233,43 @@ def evaluate(
         )
     rec = reconciliation
     table = _performance_table(plant)
-    notes: list[str] = []
+    needs = kinds.gather(plant, table, rec)
+    notes: list[str] = list(needs.notes)
 
     # ---- inputs taken from the reconciliation (joint covariance)
-    refs = {
-        "gross_power": table["gross_power"],
-        "source_temperature": table["source_temperature"],
-        "sink_temperature": table["sink_temperature"],
-    }
-    if isinstance(table.get("auxiliary_power"), str):
-        refs["auxiliary_power"] = table["auxiliary_power"]
+    refs: dict = {}  # input name -> role (the first role that uses it)
+    for role, ns in needs.refs.items():
+        for n in ns:
+            _check_name(rec, n, f"performance.{role}", plant)
+            refs.setdefault(n, role)
     fuel = None
-    if table["heat_input"] == "fuel":
+    if table.get("heat_input") == "fuel":
         fuel = _fuel_basis(plant, table)
         notes += fuel.pop("notes")
-        refs["fuel_flow"] = fuel["flow"]
-    else:
-        refs["heat_input"] = table["heat_input"]
+        _check_name(rec, fuel["flow"], f"fuel.{fuel['per']}_flow", plant)
+        refs.setdefault(fuel["flow"], "fuel_flow")
+        fuel["flow_name"] = fuel["flow"]
+        fuel["hv_name"] = f"fuel.{fuel['basis']}"
+    for n in needs.names():
+        if n not in refs:
+            _check_name(rec, n, "performance", plant)
+            refs[n] = "stream state"
     curves = curves_from_plant(plant)
     for c in curves:
         for var in c.variables:
-            refs.setdefault(f"condition:{var}", var)
-    for role, name in refs.items():
-        _check_name(rec, name, f"performance.{role}" if ":" not in role else "corrections", plant)
+            if var not in refs:
+                _check_name(rec, var, "corrections", plant)
+                refs[var] = f"condition:{var}"
 
-    rec_names = list(dict.fromkeys(refs.values()))
+    rec_names = list(refs)
     x_rec = np.array([rec.value(n) for n in rec_names], dtype=float)
     cov_rec = np.asarray(rec.covariance(rec_names), dtype=float)
     names = list(rec_names)
     x = list(x_rec)
     blocks = [cov_rec]
-    roles = {n: [r for r, v in refs.items() if v == n][0] for n in rec_names}
+    roles = dict(refs)
     if fuel is not None:
-        hv_name = f"fuel.{fuel['basis']}"
+        hv_name = fuel["hv_name"]
         names.append(hv_name)
         x.append(fuel["hv"])
         blocks.append(np.array([[fuel["u_hv"] ** 2]]))
@@ -318,69 +288,20 @@ def evaluate(
     corrected_of: dict = {}
     for c in curves:
         corrected_of.setdefault(c.result, []).append(c)
-    base_outputs = [
-        "gross_power",
-        "auxiliary_power",
-        "net_power",
-        "heat_input",
-        "fuel_exergy",
-        "first_law_efficiency",
-        "gross_efficiency",
-        "heat_rate",
-        "gross_heat_rate",
-        "source_temperature",
-        "sink_temperature",
-        "carnot_efficiency",
-        "curzon_ahlborn_efficiency",
-        "second_law_efficiency",
-        "exergetic_efficiency",
-    ]
-    if fuel is None:
-        base_outputs.remove("fuel_exergy")
-        base_outputs.remove("exergetic_efficiency")
+    base_outputs = kinds.output_names(needs, fuel is not None)
     for result in corrected_of:
         if result not in base_outputs:
             raise _plant_error(
                 plant,
-                f"[[corrections]] result = {result!r} is not a result perftest computes "
-                f"({', '.join(base_outputs)}).",
+                f"[[corrections]] result = {result!r} is not a result of this plant "
+                f"(kind = {needs.kind!r}: {', '.join(base_outputs)}).",
                 "corrections",
             )
     outputs = base_outputs + [f"corrected_{r}" for r in corrected_of]
 
     def model(v):
         """Results from inputs; ``v`` is (n_in,) or (n_in, N) (rows = inputs)."""
-        g = v[pos[refs["gross_power"]]]
-        a = v[pos[refs["auxiliary_power"]]] if "auxiliary_power" in refs else 0.0 * g
-        net = g - a
-        if fuel is not None:
-            q = v[pos[refs["fuel_flow"]]] * v[pos[hv_name]]
-            # fuel["ratio"] is the fuel exergy per unit of the stated heating value
-            ex = q * fuel["ratio"]
-        else:
-            q = v[pos[refs["heat_input"]]]
-        ts = v[pos[refs["source_temperature"]]]
-        tk = v[pos[refs["sink_temperature"]]]
-        eta = net / q
-        carnot = 1.0 - tk / ts
-        out = {
-            "gross_power": g,
-            "auxiliary_power": a,
-            "net_power": net,
-            "heat_input": q,
-            "first_law_efficiency": eta,
-            "gross_efficiency": g / q,
-            "heat_rate": q / net,
-            "gross_heat_rate": q / g,
-            "source_temperature": ts,
-            "sink_temperature": tk,
-            "carnot_efficiency": carnot,
-            "curzon_ahlborn_efficiency": 1.0 - np.sqrt(tk / ts),
-            "second_law_efficiency": eta / carnot,
-        }
-        if fuel is not None:
-            out["fuel_exergy"] = ex
-            out["exergetic_efficiency"] = net / ex
+        out = kinds.outputs(needs, lambda n: v[pos[n]], fuel)
         conditions = {var: v[pos[var]] for c in curves for var in c.variables}
         for result, cs in corrected_of.items():
             out[f"corrected_{result}"] = apply_corrections(out[result], cs, conditions)
@@ -389,11 +310,24 @@ def evaluate(
     # Check the arithmetic against the one-function-per-relation module: the values
     # must agree with perftest.evaluation.performance at the estimate.
     y0 = model(x)
-    _cross_check(dict(zip(outputs, y0, strict=True)))
+    kinds.cross_check(needs.kind, dict(zip(outputs, y0, strict=True)), needs.T0)
 
+    # Degrees of freedom of each input: a measured tag (or a model variable it
+    # measures) carries its averaged measurement's dof; the rest count as infinite.
+    # Welch-Satterthwaite over these inputs then gives each result's effective dof
+    # and its coverage factor from Student's t (GUM G.4).
+    dof_in = np.array([_input_dof(rec, n) for n in names], dtype=float)
     prop = unc.propagate(
-        model, x, cov, names=names, output_names=outputs, level=level, vectorized=True
+        model,
+        x,
+        cov,
+        names=names,
+        output_names=outputs,
+        level=level,
+        vectorized=True,
+        dof=dof_in,
     )
+    basis = fuel["basis"] if fuel is not None else ""
     results = pd.DataFrame(
         {
             "value": prop.value,
@@ -403,6 +337,10 @@ def evaluate(
             "k": prop.k,
             "dof": prop.dof,
             "description": [_describe(o) for o in outputs],
+            "basis": [
+                basis if o.removeprefix("corrected_") in kinds.HEATING_VALUE_RESULTS else ""
+                for o in outputs
+            ],
         },
         index=pd.Index(outputs, name="name"),
     )
@@ -556,26 +494,16 @@ def _describe(name: str) -> str:
     return DESCRIPTIONS.get(name, name)
 
 
-def _cross_check(v: dict) -> None:
-    """The closed-form arithmetic above must match perftest.evaluation.performance exactly."""
-    pairs = [
-        (v["first_law_efficiency"], perf.first_law_efficiency(v["net_power"], v["heat_input"])),
-        (v["heat_rate"], perf.heat_rate(v["heat_input"], v["net_power"])),
-        (
-            v["carnot_efficiency"],
-            perf.carnot_efficiency(v["source_temperature"], v["sink_temperature"]),
-        ),
-        (
-            v["curzon_ahlborn_efficiency"],
-            perf.curzon_ahlborn_efficiency(v["source_temperature"], v["sink_temperature"]),
-        ),
-        (
-            v["second_law_efficiency"],
-            perf.second_law_efficiency(v["first_law_efficiency"], v["carnot_efficiency"]),
-        ),
-    ]
-    for a, b in pairs:
-        if not math.isclose(float(a), float(b), rel_tol=1e-12):
-            raise PerftestError(  # pragma: no cover - an internal inconsistency
-                f"Internal check failed: {float(a)!r} != {float(b)!r}."
-            )
+def _input_dof(rec, name: str) -> float:
+    """Degrees of freedom of an input: its measurement's, else infinite."""
+    meas = getattr(rec, "measurements", None)
+    tags = tuple(getattr(meas, "tags", ()))
+    tag = name
+    if name not in tags:
+        model = getattr(rec, "model", None)
+        src = getattr(model, "sources", {}).get(name) if model is not None else None
+        tag = getattr(src, "tag", None) if getattr(src, "kind", None) == "measured" else None
+    if tag is None or tag not in tags:
+        return math.inf
+    d = float(np.asarray(meas.dof, dtype=float)[tags.index(tag)])
+    return d if d > 0 else math.inf
