@@ -12,9 +12,35 @@ from perftest.errors import PerftestError
 from perftest.evaluation import performance as perf
 
 
-def _exergy_analysis(rec, fuel_exergy: float, net_power: float, aux_power: float):
-    """Exergy balance of every unit, Gouy-Stodola check and plant closure."""
+def _exergy_analysis(
+    rec,
+    fuel_exergy: float,
+    net_power: float,
+    aux_power: float,
+    *,
+    supplied: float | None = None,
+    products: tuple = (),
+    product_label: str = "heat export",
+    coolant_is_product: str = "",
+):
+    """Exergy balance of every unit, Gouy-Stodola check and plant closure.
+
+    Every stream that crosses the plant boundary (one that no unit feeds or no unit
+    takes) is counted: condenser coolant as a loss ("cooling water"), the streams
+    named in ``products`` (CHP export, return and make-up; a chiller's chilled
+    water) as the product ``product_label``, any other as a loss ("other streams crossing the
+    boundary", signed).  ``supplied`` is the exergy supplied [W] (default the fuel
+    exergy; the power input of a chiller or heat pump, with ``net_power`` 0 and
+    ``aux_power`` the power input).  ``coolant_is_product`` names the product that
+    the condenser coolant carries (a heat pump's heating water).
+
+    Returns
+    -------
+    frame, losses, closure, notes, products
+        ``products`` maps a product name to its exergy [W] besides the net power.
+    """
     notes: list[str] = []
+    supplied = fuel_exergy if supplied is None else supplied
     model = getattr(rec, "model", None)
     spec = getattr(model, "spec", None)
     cols = [
@@ -30,7 +56,7 @@ def _exergy_analysis(rec, fuel_exergy: float, net_power: float, aux_power: float
         "share",
     ]
     if spec is None:
-        return pd.DataFrame(columns=cols), {}, None, notes
+        return pd.DataFrame(columns=cols), {}, None, notes, {}
     T0 = float(rec.dead_state[0])
 
     def var(name: str) -> float:
@@ -121,29 +147,59 @@ def _exergy_analysis(rec, fuel_exergy: float, net_power: float, aux_power: float
             )
         )
     frame = pd.DataFrame(rows, columns=[*cols[:-1], "heat"])
-    frame["share"] = frame["destroyed"] / fuel_exergy if math.isfinite(fuel_exergy) else np.nan
+    frame["share"] = frame["destroyed"] / supplied if math.isfinite(supplied) else np.nan
     frame = frame[[*cols, "heat"]]
 
+    # Streams crossing the boundary besides the condenser coolant.
+    fed = {s for u in spec.units.values() for s in u.outlets}
+    taken = {s for u in spec.units.values() for s in u.inlets}
+    coolant = {
+        s
+        for u in spec.units.values()
+        if u.type == "condenser"
+        for key in ("coolant_inlet", "coolant_outlet")
+        for s in u.ports.get(key, ())
+    }
+    product_streams = set(products)
+    product = other = 0.0
+    for sid in spec.streams:
+        if sid in coolant or (sid in fed and sid in taken):
+            continue
+        e = var(f"{sid}.exergy_flow")
+        sign = 1.0 if sid in fed else -1.0  # leaves the plant (+) or enters it (-)
+        if sid in product_streams:
+            product += sign * e
+        else:
+            other += sign * e
+
     losses = {}
+    out_products = {}
+    if products:
+        out_products[product_label] = product
     if coolant_loss:
-        losses["cooling water"] = coolant_loss
+        if coolant_is_product:
+            out_products[coolant_is_product] = coolant_loss
+        else:
+            losses["cooling water"] = coolant_loss
         # The condenser's destroyed column counts the coolant's exergy gain as an
-        # output; it leaves the plant, so it is a loss of the plant.
+        # output; it leaves the plant, so it is a loss (or a heat pump's product).
+    if other:
+        losses["other streams crossing the boundary"] = other
     other_aux = aux_power - work_in_model
     if math.isfinite(other_aux):
         losses["auxiliaries outside the model"] = other_aux
     closure = None
-    if math.isfinite(fuel_exergy) and fuel_exergy > 0:
+    if math.isfinite(supplied) and supplied > 0:
         closure = perf.gouy_stodola_closure(
             frame["destroyed"].to_numpy(float),
             list(losses.values()),
-            exergy_in=fuel_exergy,
-            exergy_out=net_power,
+            exergy_in=supplied,
+            exergy_out=net_power + sum(out_products.values()),
             rtol=1e-3,  # reconciled balances close to the solver tolerance (~1e-6)
         )
         if not closure.closed:
             notes.append(
                 f"Plant exergy balance does not close: imbalance "
-                f"{closure.relative_imbalance * 100:.2f} % of the fuel exergy."
+                f"{closure.relative_imbalance * 100:.2f} % of the exergy supplied."
             )
-    return frame, losses, closure, notes
+    return frame, losses, closure, notes, out_products

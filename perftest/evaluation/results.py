@@ -98,7 +98,11 @@ class Performance:
         Plant exergy balance: fuel exergy = net power + destroyed + lost.
     exergy_losses : dict[str, float]
         Exergy lost across the plant boundary [W] (cooling water, auxiliaries
-        outside the model).
+        outside the model, other streams crossing the boundary).
+    exergy_products : dict[str, float]
+        Exergy products besides net power [W]: ``"heat export"`` (CHP),
+        ``"cooling"`` (chiller: the chilled water's exergy gain), ``"heating"``
+        (heat pump: the heated water's exergy gain).
     inputs : pandas.DataFrame
         Index: input name.  Columns ``value, u, role`` [SI].
     monte_carlo : pandas.DataFrame or None
@@ -126,6 +130,7 @@ class Performance:
     level: float
     dead_state: tuple
     notes: tuple = field(default=())
+    exergy_products: dict = field(default_factory=dict)
 
     def value(self, name: str) -> float:
         """Value of one result [SI]."""
@@ -344,11 +349,20 @@ def evaluate(
         },
         index=pd.Index(outputs, name="name"),
     )
+    if needs.kind == "refrigeration" and "heat_rejected" in needs.refs:
+        results, cov_out_extra = _with_heat_balance(rec, needs, results, notes, level)
+    else:
+        cov_out_extra = None
     budget_tables = {}
     for o in outputs if detail else ():
         b = prop.budget_for(o)[["estimate", "u", "sensitivity", "u_contribution", "share"]]
         budget_tables[o] = b.copy()
     cov_out = pd.DataFrame(prop.cov, index=outputs, columns=outputs)
+    if cov_out_extra is not None:
+        # The raw closure is kept apart from the reconciled results (no correlation
+        # with them is claimed).
+        cov_out = cov_out.reindex(index=results.index, columns=results.index, fill_value=0.0)
+        cov_out.loc["heat_balance_closure", "heat_balance_closure"] = cov_out_extra
 
     # ---- Monte Carlo check of the linearisation
     mc_frame = None
@@ -450,13 +464,10 @@ def evaluate(
     )
 
     # ---- exergy per unit
-    fuel_ex = float(results.loc["fuel_exergy", "value"]) if fuel is not None else math.nan
+    products: dict = {}
     if detail:
-        exergy, losses, closure, ex_notes = _exergy_analysis(
-            rec,
-            fuel_ex,
-            float(results.loc["net_power", "value"]),
-            float(results.loc["auxiliary_power", "value"]),
+        exergy, losses, closure, ex_notes, products = _exergy_analysis(
+            rec, **_exergy_terms(needs, results, fuel, rec)
         )
         notes += ex_notes
     else:
@@ -480,6 +491,7 @@ def evaluate(
         level=float(level),
         dead_state=tuple(float(v) for v in rec.dead_state),
         notes=tuple(notes),
+        exergy_products=products,
     )
 
 
@@ -495,15 +507,105 @@ def _describe(name: str) -> str:
 
 
 def _input_dof(rec, name: str) -> float:
-    """Degrees of freedom of an input: its measurement's, else infinite."""
+    """Degrees of freedom of an input of the propagation.
+
+    A measured tag, or a model variable a tag measures, carries its averaged
+    measurement's dof.  A fixed value counts as exact (infinite).  An unmeasured or
+    derived variable (a unit's heat, a stream's entropy) is a combination of the
+    measurements; it gets the smallest dof among them, a lower bound: the
+    Welch-Satterthwaite formula never gives fewer than the smallest dof of its
+    inputs (GUM G.4.1), so the coverage factor errs on the safe side.
+    """
     meas = getattr(rec, "measurements", None)
     tags = tuple(getattr(meas, "tags", ()))
-    tag = name
-    if name not in tags:
-        model = getattr(rec, "model", None)
-        src = getattr(model, "sources", {}).get(name) if model is not None else None
-        tag = getattr(src, "tag", None) if getattr(src, "kind", None) == "measured" else None
-    if tag is None or tag not in tags:
+    if not tags:
         return math.inf
-    d = float(np.asarray(meas.dof, dtype=float)[tags.index(tag)])
-    return d if d > 0 else math.inf
+    dof = np.asarray(meas.dof, dtype=float)
+    if name in tags:
+        d = float(dof[tags.index(name)])
+        return d if d > 0 else math.inf
+    model = getattr(rec, "model", None)
+    sources = getattr(model, "sources", {}) if model is not None else {}
+    src = sources.get(name)
+    kind = getattr(src, "kind", None)
+    if kind == "fixed":
+        return math.inf
+    if kind == "measured" and getattr(src, "tag", None) in tags:
+        d = float(dof[tags.index(src.tag)])
+        return d if d > 0 else math.inf
+    if name.startswith("fuel."):
+        return math.inf  # the stated heating-value uncertainty (type B)
+    finite = dof[np.isfinite(dof) & (dof > 0)]
+    return float(finite.min()) if finite.size else math.inf
+
+
+def _with_heat_balance(rec, needs, results: pd.DataFrame, notes: list, level: float):
+    """Append the raw-measurement heat-balance closure of a chiller to ``results``."""
+    from perftest.evaluation.heat_balance import raw_heat_balance
+
+    try:
+        hb = raw_heat_balance(
+            rec,
+            {k: needs.refs[k] for k in ("cooling", "power_input", "heat_rejected")},
+            level=level,
+        )
+    except PerftestError as exc:
+        notes.append(f"Heat-balance closure of the raw measurements not computed: {exc}")
+        return results, None
+    if hb is None:
+        return results, None
+    notes += hb["notes"]
+    row = pd.DataFrame(
+        {
+            "value": [hb["value"]],
+            "u": [hb["u"]],
+            "U95": [hb["U95"]],
+            "unit": ["1"],
+            "k": [hb["U95"] / hb["u"] if hb["u"] > 0 else math.nan],
+            "dof": [hb["dof"]],
+            "description": [_describe("heat_balance_closure")],
+            "basis": [""],
+        },
+        index=pd.Index(["heat_balance_closure"], name="name"),
+    )
+    t = hb["terms"]
+    notes.append(
+        "Heat balance of the raw measurements: cooling "
+        f"{t['cooling'] / 1e3:.1f} kW + power {t['power_input'] / 1e3:.1f} kW - heat rejected "
+        f"{t['heat_rejected'] / 1e3:.1f} kW = {hb['value'] * 100:+.2f} % of the heat rejected "
+        f"(U95 {hb['U95'] * 100:.2f} %)."
+    )
+    return pd.concat([results, row]), hb["u"] ** 2
+
+
+def _exergy_terms(needs, results: pd.DataFrame, fuel, rec) -> dict:
+    """Arguments of the exergy account for the plant's kind."""
+
+    def val(name):
+        return float(results.loc[name, "value"]) if name in results.index else math.nan
+
+    if needs.kind in ("power", "chp"):
+        terms = dict(
+            fuel_exergy=val("fuel_exergy") if fuel is not None else math.nan,
+            net_power=val("net_power"),
+            aux_power=val("auxiliary_power"),
+        )
+        if needs.kind == "chp":
+            terms["products"] = tuple(s for k in needs.export for s in needs.export[k])
+        return terms
+    p = val("power_input")
+    terms = dict(fuel_exergy=math.nan, net_power=0.0, aux_power=p, supplied=p)
+    spec = rec.model.spec if getattr(rec, "model", None) is not None else None
+    if needs.kind == "refrigeration" and spec is not None:
+        coolant = {
+            s
+            for u in spec.units.values()
+            if u.type == "condenser"
+            for key in ("coolant_inlet", "coolant_outlet")
+            for s in u.ports.get(key, ())
+        }
+        terms["products"] = tuple(s for s in spec.streams if s not in coolant)
+        terms["product_label"] = "cooling"
+    else:
+        terms["coolant_is_product"] = "heating"
+    return terms
