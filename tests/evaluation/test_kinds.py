@@ -402,3 +402,180 @@ def test_mean_temperature_of_heat_addition_against_its_definition(chp):
     )
     assert r["carnot_gap_heat_transfer"] > 0 and r["carnot_gap_irreversibility"] > 0
     assert r["heat_rejection_mean_temperature"] < r["heat_addition_mean_temperature"]
+
+
+# --------------------------------------------------------------------------- heat pump
+
+
+def heat_pump_truth(power=250e3):
+    """Operating point of heat_pump_r134a.toml: source water 10 -> 6 degC (evaporating
+    at 3 degC, 5 K superheat), heating water 40 -> 45 degC (condensing at 47 degC,
+    3 K subcooling), 60 kg/s of source water."""
+    R = "R134a"
+    p1 = CP.PropsSI("P", "T", C + 3.0, "Q", 1, R)
+    p2 = CP.PropsSI("P", "T", C + 47.0, "Q", 0, R)
+    T1, T3 = C + 8.0, C + 44.0
+    h1, h3 = _h(R, p1, T1), _h(R, p2, T3)
+    m_w, Tr, Ts = 60.0, C + 10.0, C + 6.0
+    q_cold = m_w * (_h(W, 4.0e5, Tr) - _h(W, 3.5e5, Ts))
+    m_r = q_cold / (h1 - h3)
+    h2 = h1 + power / m_r
+    q_hot = m_r * (h2 - h3)
+    Tci, Tco = C + 40.0, C + 45.0
+    m_c = q_hot / (_h(W, 2.5e5, Tco) - _h(W, 3.0e5, Tci))
+    values = {
+        "PT-1": p1,
+        "TT-1": T1,
+        "PT-2": p2,
+        "TT-2": _T(R, p2, h2),
+        "TT-3": T3,
+        "FT-10": m_w,
+        "TT-10": Tr,
+        "TT-11": Ts,
+        "FT-20": m_c,
+        "TT-20": Tci,
+        "TT-21": Tco,
+        "JT-1": power,
+    }
+    return values, {"heating_capacity": q_hot, "power_input": power, "Tc": Ts, "Th": Tco}
+
+
+def test_heat_pump_results_against_truth_and_hand_calculation():
+    plant = load_plant(DATA / "heat_pump_r134a.toml")
+    values, truth = heat_pump_truth()
+    measured = dict(values, **{"JT-1": values["JT-1"] * 0.997})
+    rec = reconcile(plant, _measure(plant, measured))
+    perf = evaluate(plant, rec, monte_carlo=False)
+    r = perf.results
+    cop = truth["heating_capacity"] / truth["power_input"]
+    carnot = truth["Th"] / (truth["Th"] - truth["Tc"])
+    for name, true in (
+        ("heating_capacity", truth["heating_capacity"]),
+        ("cop", cop),
+        ("carnot_cop", carnot),
+        ("second_law_efficiency", cop / carnot),
+    ):
+        assert abs(r.loc[name, "value"] - true) <= r.loc[name, "U95"], name
+    v = rec.value
+    q = v("heating_return.mass_flow") * (
+        v("heating_supply.enthalpy") - v("heating_return.enthalpy")
+    )
+    tc, th, T0 = v("source_out.temperature"), v("heating_supply.temperature"), rec.dead_state[0]
+    expected = {
+        "heating_capacity": q,
+        "cop": q / v("JT-1"),
+        "carnot_cop": th / (th - tc),
+        "second_law_efficiency": q / v("JT-1") / (th / (th - tc)),
+        # exergy of heat Q delivered at T above T0: Q (1 - T0/T)
+        "heating_exergy": q * (1 - T0 / th),
+        "exergetic_efficiency": q * (1 - T0 / th) / v("JT-1"),
+    }
+    for name, value in expected.items():
+        # same reconciled numbers, only round-off apart
+        assert perf.value(name) == pytest.approx(value, rel=1e-6), name
+    assert "heat_balance_closure" not in r.index
+    # The heated water's exergy is the product of the exergy account, which closes.
+    assert perf.exergy_closure.closed
+    assert perf.exergy_products["heating"] > 0
+
+
+# --------------------------------------------------------------------------- textbook bounds
+
+
+def test_carnot_cop_textbook_examples(tmp_path):
+    # Reversible machines between stated temperatures, computed through evaluate().
+    # Cengel & Boles, Thermodynamics, Ch. 6, the worked example of a Carnot heat pump
+    # keeping a house at 21 degC with -5 degC outside: COP_HP,rev = 294/26 = 11.3
+    # (from memory).  The refrigerator uses the relation of the same section,
+    # COP_R,rev = T_L/(T_H - T_L), between -3 degC and 22 degC: 270/25 = 10.8.  A
+    # machine with half the reversible COP has a second-law efficiency of 0.5
+    # (eta_II = COP/COP_rev, Cengel & Boles Ch. 8; from memory).
+    for kind, load, tc, th, carnot in (
+        ("refrigeration", "cooling", 270.0, 295.0, 10.8),
+        ("heat_pump", "heating", 268.0, 294.0, 294.0 / 26.0),
+    ):
+        path = tmp_path / f"{kind}.toml"
+        path.write_text(
+            f"""
+[site]
+name = "Bench"
+[tags.JT]
+unit = "kW"
+[tags.QT]
+unit = "kW"
+[tags.TC]
+unit = "K"
+[tags.TH]
+unit = "K"
+[performance]
+kind = "{kind}"
+power_input = "JT"
+{load} = "QT"
+cold_temperature = "TC"
+hot_temperature = "TH"
+""",
+            encoding="utf-8",
+        )
+        from standin import StandIn
+
+        q = 100e3
+        values = {"JT": q / (carnot / 2), "QT": q, "TC": tc, "TH": th}
+        perf = evaluate(load_plant(path), StandIn(values, {k: 1e-3 for k in values}))
+        # exact arithmetic: only rounding of the printed examples (3 digits)
+        assert perf.value("carnot_cop") == pytest.approx(carnot, rel=1e-3), kind
+        assert perf.value("second_law_efficiency") == pytest.approx(0.5, rel=1e-9), kind
+        assert perf.value("cop") == pytest.approx(carnot / 2, rel=1e-9), kind
+
+
+def test_exergy_of_heat_against_textbook_relation():
+    from perftest.evaluation.performance import heat_exergy
+
+    # Exergy of heat Q at T: Q (1 - T0/T) (Cengel & Boles, Sect. 8-2, from memory):
+    # 100 kW at 600 K with T0 = 300 K carries 50 kW; drawn at 250 K (below T0) the
+    # heat carries Q (T0/T - 1) = 20 kW the other way.
+    assert heat_exergy(100e3, 600.0, 300.0) == pytest.approx(50e3, rel=1e-12)
+    assert -heat_exergy(100e3, 250.0, 300.0) == pytest.approx(20e3, rel=1e-12)
+
+
+# --------------------------------------------------------------------------- plant-file keys
+
+
+@pytest.mark.parametrize(
+    ("performance", "match"),
+    [
+        ('kind = "fridge"', "kind must be one of"),
+        (
+            'kind = "refrigeration"\npower_input = "JT"\ncooling = "QT"\ncold_temperature = "TC"',
+            "needs 'hot_temperature'",
+        ),
+        (
+            'kind = "heat_pump"\npower_input = "JT"\nheating = "QT"\ncold_temperature = "TC"\n'
+            'hot_temperature = "TH"\ngross_power = "JT"',
+            "'gross_power' does not belong",
+        ),
+        (
+            'kind = "refrigeration"\npower_input = 3\ncooling = "QT"\ncold_temperature = "TC"\n'
+            'hot_temperature = "TH"',
+            "'power_input' must be",
+        ),
+        (
+            'kind = "refrigeration"\npower_input = "JT"\ncooling = "QX"\ncold_temperature = "TC"\n'
+            'hot_temperature = "TH"',
+            "neither a tag",
+        ),
+    ],
+)
+def test_performance_keys_of_each_kind(tmp_path, performance, match):
+    from standin import StandIn
+
+    path = tmp_path / "plant.toml"
+    path.write_text(
+        '[site]\nname = "Bench"\n[tags.JT]\nunit = "kW"\n[tags.QT]\nunit = "kW"\n'
+        '[tags.TC]\nunit = "K"\n[tags.TH]\nunit = "K"\n[performance]\n' + performance + "\n",
+        encoding="utf-8",
+    )
+    values = {"JT": 1e5, "QT": 4e5, "TC": 280.0, "TH": 300.0}
+    with pytest.raises(PlantFileError, match=match) as info:
+        evaluate(load_plant(path), StandIn(values, {k: 1.0 for k in values}))
+    # the error names the plant file's line
+    assert "line" in str(info.value)
