@@ -54,6 +54,11 @@ from perftest.evaluation.plant_keys import (  # noqa: F401 - re-exported
     _performance_table,
     _plant_error,
 )
+from perftest.evaluation.unit_checks import (
+    check_correction_entries,
+    check_factor,
+    check_guarantee_units,
+)
 
 __all__ = ["Performance", "evaluate", "RESULT_UNITS", "fuel_exergy_ratio"]
 
@@ -259,6 +264,7 @@ def evaluate(
         if n not in refs:
             _check_name(rec, n, "performance", plant)
             refs[n] = "stream state"
+    check_correction_entries(plant)
     curves = curves_from_plant(plant)
     for c in curves:
         for var in c.variables:
@@ -388,10 +394,12 @@ def evaluate(
 
     # ---- corrections table
     corr_rows = []
-    for c in curves:
+    for ci, c in enumerate(curves):
         xc = [float(x[pos[var]]) for var in c.variables]
         refs_c = getattr(c, "references", (c.reference,))
         f = float(c(*xc))
+        if c.kind == "multiplicative":
+            check_factor(plant, ci, f, c.result)
         measured = float(y0[outputs.index(c.result)])
         # size of this correction alone: change of the result it makes [SI] and relative
         change = measured / f - measured if c.kind == "multiplicative" else -f
@@ -423,6 +431,7 @@ def evaluate(
 
     # ---- guarantees
     g_rows = []
+    check_guarantee_units(plant, results)
     for g in guarantees_from_plant(plant):
         if g.quantity not in results.index:
             raise _plant_error(

@@ -579,3 +579,130 @@ def test_performance_keys_of_each_kind(tmp_path, performance, match):
         evaluate(load_plant(path), StandIn(values, {k: 1.0 for k in values}))
     # the error names the plant file's line
     assert "line" in str(info.value)
+
+
+# --------------------------------------------------------------------------- guarantees
+
+
+_BENCH = """
+[site]
+name = "Bench"
+[tags.JT]
+unit = "kW"
+[tags.QT]
+unit = "kW"
+[tags.TC]
+unit = "K"
+[tags.TH]
+unit = "K"
+[performance]
+kind = "refrigeration"
+power_input = "JT"
+cooling = "QT"
+cold_temperature = "TC"
+hot_temperature = "TH"
+"""
+_BENCH_VALUES = {"JT": 100e3, "QT": 500e3, "TC": 280.0, "TH": 303.0}
+
+
+def _bench(tmp_path, extra):
+    from standin import StandIn
+
+    path = tmp_path / "plant.toml"
+    path.write_text(_BENCH + extra, encoding="utf-8")
+    u = {"JT": 500.0, "QT": 5e3, "TC": 0.05, "TH": 0.05}
+    return evaluate(load_plant(path), StandIn(_BENCH_VALUES, u), monte_carlo=False)
+
+
+_CORR = """
+[[corrections]]
+result = "{result}"
+variable = "TH"
+reference = {{ value = 303.0, unit = "K" }}
+kind = "multiplicative"
+curve = {{ x = [293.0, 303.0, 313.0], y = [{y0}, 1.0, 0.9], x_unit = "K" }}
+"""
+
+
+@pytest.mark.parametrize(
+    ("unit", "value"), [("kW/kW", 4.8), ("1", 4.8), ("MW", 0.49), ("kW", 490.0)]
+)
+def test_guarantee_of_any_result_with_a_fitting_unit(tmp_path, unit, value):
+    quantity = "corrected_cop" if unit in ("kW/kW", "1") else "corrected_cooling_capacity"
+    result = quantity.removeprefix("corrected_")
+    perf = _bench(
+        tmp_path,
+        _CORR.format(result=result, y0=1.1)
+        + f'[[guarantees]]\nquantity = "{quantity}"\nvalue = {value}\nunit = "{unit}"\n'
+        'direction = "at_least"\n',
+    )
+    g = perf.guarantees.iloc[0]
+    # at the reference condition the factor is 1: COP 5.0 and 500 kW, both above
+    # the guaranteed values by more than their U95 (about 1 %)
+    assert g["verdict"] == "met"
+    assert perf.value(quantity) == pytest.approx(perf.value(result), rel=1e-12)
+
+
+@pytest.mark.parametrize(
+    ("guarantee", "match"),
+    [
+        ('quantity = "cop"\nvalue = 4.8\nunit = "MW"', "does not fit 'cop'"),
+        ('quantity = "cooling_capacity"\nvalue = 4.8\nunit = "kW/kW"', "does not fit"),
+        (
+            'quantity = "cop"\nvalue = 4.8\nrule = "tolerance"\n'
+            'tolerance = { value = 1.0, unit = "degC" }',
+            "tolerance unit 'degC' does not fit",
+        ),
+    ],
+)
+def test_guarantee_unit_must_fit_the_result(tmp_path, guarantee, match):
+    with pytest.raises(PlantFileError, match=match) as info:
+        _bench(tmp_path, f'[[guarantees]]\n{guarantee}\ndirection = "at_least"\n')
+    assert "line" in str(info.value)
+
+
+def test_heat_rate_guarantee_in_mw_is_refused(tmp_path):
+    # issue case: a heat rate guaranteed "in MW" was accepted and changed the verdict
+    from standin import StandIn
+
+    path = tmp_path / "plant.toml"
+    path.write_text(
+        """
+[site]
+name = "Bench"
+[tags.JT]
+unit = "MW"
+[tags.QT]
+unit = "MW"
+[tags.TS]
+unit = "K"
+[tags.TK]
+unit = "K"
+[performance]
+gross_power = "JT"
+heat_input = "QT"
+source_temperature = "TS"
+sink_temperature = "TK"
+[[guarantees]]
+quantity = "heat_rate"
+value = 9.5
+unit = "MW"
+direction = "at_most"
+""",
+        encoding="utf-8",
+    )
+    values = {"JT": 30e6, "QT": 80e6, "TS": 800.0, "TK": 300.0}
+    with pytest.raises(PlantFileError, match="heat_rate"):
+        evaluate(load_plant(path), StandIn(values, {k: 1e-3 * v for k, v in values.items()}))
+
+
+def test_multiplicative_curve_reaching_zero_is_refused(tmp_path):
+    with pytest.raises(PlantFileError, match="must be positive") as info:
+        _bench(tmp_path, _CORR.format(result="cop", y0=0.0))
+    assert "line" in str(info.value)
+
+
+def test_correction_given_twice_is_refused(tmp_path):
+    twice = _CORR.format(result="cop", y0=1.1) * 2
+    with pytest.raises(PlantFileError, match="twice"):
+        _bench(tmp_path, twice)
