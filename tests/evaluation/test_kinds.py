@@ -706,3 +706,28 @@ def test_correction_given_twice_is_refused(tmp_path):
     twice = _CORR.format(result="cop", y0=1.1) * 2
     with pytest.raises(PlantFileError, match="twice"):
         _bench(tmp_path, twice)
+
+
+# --------------------------------------------------------------------------- plan
+
+
+@pytest.mark.parametrize(
+    ("name", "headline"),
+    [
+        ("chiller_r134a.toml", ("cooling_capacity", "cop", "carnot_cop")),
+        ("chp_steam_export.toml", ("heat_export", "fuel_utilisation", "power_to_heat_ratio")),
+    ],
+)
+def test_plan_works_for_every_kind(name, headline):
+    from perftest.planning.prediction import plan
+
+    tp = plan(DATA / name, what_if=False)
+    res = tp.results
+    for h in headline:
+        assert h in res.index, h
+        # reconciliation cannot make a result less certain than the raw calculation
+        # (it adds information); 1e-9 allows for round-off
+        assert res.loc[h, "U95_with"] <= res.loc[h, "U95_without"] * (1 + 1e-9), h
+        assert res.loc[h, "U95_with"] > 0, h
+    allowed = res.dropna(subset=["U95_allowed"])
+    assert len(allowed) == 1 and allowed["within_allowed"].iloc[0] in (True, False)
