@@ -731,3 +731,46 @@ def test_plan_works_for_every_kind(name, headline):
         assert res.loc[h, "U95_with"] > 0, h
     allowed = res.dropna(subset=["U95_allowed"])
     assert len(allowed) == 1 and allowed["within_allowed"].iloc[0] in (True, False)
+
+
+# --------------------------------------------------------------------------- monitor
+
+
+def test_monitor_trends_the_chiller_headline_results(tmp_path):
+    import json
+
+    import pandas as pd
+
+    from perftest.scale.monitor import monitor
+
+    values, truth = chiller_truth()
+    rng = np.random.default_rng(3)
+    times = pd.date_range("2031-07-01 10:00", periods=60, freq="1min")
+    # Small sample scatter about the design point (well inside the instruments'
+    # uncertainties): every window must reconcile and give the truth within U95.
+    scale = {"PT": 0.0005, "TT": 0.0, "FT": 0.002, "JT": 0.002}
+    cols = {}
+    for tag, v in values.items():
+        rel = scale[tag[:2]]
+        x = v * (1 + rel * rng.standard_normal(times.size))
+        if tag.startswith("TT"):
+            x = v - C + 0.01 * rng.standard_normal(times.size)  # degC, as logged
+        elif tag.startswith("PT"):
+            x = x / 1e5  # bar
+        elif tag.startswith("JT"):
+            x = x / 1e3  # kW
+        cols[tag] = x
+    frame = pd.DataFrame(cols, index=pd.Index(times, name="time"))
+    path = tmp_path / "chiller.csv"
+    frame.to_csv(path, float_format="%.6f")
+    info = monitor(
+        DATA / "chiller_r134a.toml", [path], tmp_path / "out", every="30min", figure=False
+    )
+    assert info["windows"]["ok"] == 2
+    table = pd.read_csv(tmp_path / "out" / "windows.csv")
+    for name in ("cooling_capacity", "power_input", "cop", "carnot_cop", "second_law_efficiency"):
+        assert name in table.columns and f"u_{name}" in table.columns, name
+    cop = truth["cooling_capacity"] / truth["power_input"]
+    # 2 u is about U95 (large dof)
+    assert (abs(table["cop"] - cop) <= 2.0 * table["u_cop"]).all()
+    json.loads((tmp_path / "out" / "monitor.json").read_text())
