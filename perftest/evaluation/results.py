@@ -362,7 +362,12 @@ def evaluate(
     budget_tables = {}
     for o in outputs if detail else ():
         b = prop.budget_for(o)[["estimate", "u", "sensitivity", "u_contribution", "share"]]
-        budget_tables[o] = b.copy()
+        # Stream states enter only the results that use them (mean temperatures,
+        # heat export); elsewhere their rows would be zeros.
+        unused = [
+            n for n in b.index if roles.get(n) == "stream state" and b.loc[n, "sensitivity"] == 0
+        ]
+        budget_tables[o] = b.drop(index=unused).copy()
     cov_out = pd.DataFrame(prop.cov, index=outputs, columns=outputs)
     if cov_out_extra is not None:
         # The raw closure is kept apart from the reconciled results (no correlation

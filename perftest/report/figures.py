@@ -318,13 +318,18 @@ def exergy_figure(data: ReportData):
     energy = [("net power", net, _OK), ("auxiliaries", aux, "#5dade2")]
     if q_cond > 0:
         energy.append(("condenser heat", q_cond, "#85c1e9"))
+    if "heat_export" in res.index:  # CHP: the exported heat is a product, not a loss
+        energy.append(("heat export", res.loc["heat_export", "value"] * mw, "#f5b041"))
     energy.append(("boiler and other losses", max(q_in - sum(v for _, v, _ in energy), 0.0), _GREY))
     palette = ["#c0392b", "#e67e22", "#d35400", "#a93226", "#cd6155", "#f0b27a", "#922b21"]
     destroyed = [
         (f"destroyed: {u}", float(d) * mw, palette[i % len(palette)])
         for i, (u, d) in enumerate(zip(e["unit"], e["destroyed"], strict=True))
     ]
-    exergy = [("net power", net, _OK)] + destroyed
+    exergy = [("net power", net, _OK)]
+    if "heat_export_exergy" in res.index:
+        exergy.append(("heat export", res.loc["heat_export_exergy", "value"] * mw, "#f5b041"))
+    exergy += destroyed
     greys = ["#bdc3c7", "#d7dbdd", "#a6acaf", "#e5e8e8"]
     for i, (k, v) in enumerate(data.exergy_losses.items()):
         exergy.append((f"lost: {k}", float(v) * mw, greys[i % len(greys)]))
