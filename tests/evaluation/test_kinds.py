@@ -774,3 +774,33 @@ def test_monitor_trends_the_chiller_headline_results(tmp_path):
     # 2 u is about U95 (large dof)
     assert (abs(table["cop"] - cop) <= 2.0 * table["u_cop"]).all()
     json.loads((tmp_path / "out" / "monitor.json").read_text())
+
+
+def test_monte_carlo_check_agrees_for_chp_results(chp):
+    plant, rec, _, _ = chp
+    perf = evaluate(plant, rec, monte_carlo=True)
+    mc = perf.monte_carlo
+    # 20 000 trials estimate u to about 0.5 % (1/sqrt(2M)); the results are smooth
+    # over a few u of their inputs, so linear and Monte Carlo agree within 3 %.
+    for name in ("heat_export", "fuel_utilisation", "exergetic_efficiency", "cycle_efficiency"):
+        assert mc.loc[name, "ratio"] == pytest.approx(1.0, abs=0.03), name
+
+
+def test_hhv_basis_is_stated_on_every_heating_value_result(tmp_path):
+    text = (DATA / "chp_steam_export.toml").read_text(encoding="utf-8")
+    text = text.replace(
+        'lhv = { value = 47.0, unit = "MJ/kg" }', 'hhv = { value = 52.0, unit = "MJ/kg" }'
+    )
+    text = text.replace('makeup = "makeup"\n', 'makeup = "makeup"\nbasis = "hhv"\n', 1)
+    path = tmp_path / "chp_hhv.toml"
+    path.write_text(text, encoding="utf-8")
+    plant = load_plant(path)
+    values, _ = chp_truth()
+    rec = reconcile(plant, _measure(plant, values))
+    perf = evaluate(plant, rec, monte_carlo=False)
+    r = perf.results
+    for name in ("heat_input", "first_law_efficiency", "heat_rate", "fuel_utilisation"):
+        assert r.loc[name, "basis"] == "hhv", name
+    # heat input on the stated HHV: fuel flow x 52 MJ/kg (exact arithmetic)
+    assert perf.value("heat_input") == pytest.approx(rec.value("FT-F") * 52e6, rel=1e-12)
+    assert r.loc["cycle_efficiency", "basis"] == ""
