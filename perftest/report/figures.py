@@ -253,11 +253,22 @@ def efficiency_figure(data: ReportData):
     ]
     if not all(n in res.index for n, _ in names):
         return None
+    # The second-law efficiency compares the cycle (gross power / heat absorbed) with
+    # Carnot; the bound at the mean temperatures of heat addition and rejection shows
+    # how much of the gap the temperature spread of heat transfer explains.
+    extra = [
+        (1, "cycle_efficiency", "cycle\n(gross / heat absorbed)", "#1f618d"),
+        (3, "mean_temperature_carnot_efficiency", "Carnot at mean\ntemperatures", "#5d6d7e"),
+    ]
+    colors = [_OK, _GREY, "#34495e"]
+    for at, n, label, color in extra:
+        if n in res.index:
+            names.insert(at, (n, label))
+            colors.insert(at, color)
     vals = np.array([res.loc[n, "value"] for n, _ in names]) * 100.0
     errs = np.array([res.loc[n, "U95"] for n, _ in names]) * 100.0
-    fig, ax = _figure(size=(7.5, 4.5))
+    fig, ax = _figure(size=(7.5 + 1.2 * (len(names) - 3), 4.5))
     x = np.arange(len(names))
-    colors = [_OK, _GREY, "#34495e"]
     ax.bar(
         x,
         vals,
@@ -274,11 +285,16 @@ def efficiency_figure(data: ReportData):
     ax.set_ylabel("efficiency [%]")
     ax.set_ylim(0, max(vals + errs) * 1.18)
     if "second_law_efficiency" in res.index:
+        i_ref = (
+            [n for n, _ in names].index("cycle_efficiency")
+            if "cycle_efficiency" in res.index
+            else 0
+        )
         r = res.loc["second_law_efficiency"]
         ax.annotate(
             f"second-law efficiency\n{r['value'] * 100:.1f} % (U95 {r['U95'] * 100:.1f} %)",
-            xy=(0, vals[0] + errs[0]),
-            xytext=(0.5, vals[2] * 0.9),
+            xy=(i_ref, vals[i_ref] + errs[i_ref]),
+            xytext=(i_ref + 0.5, vals[-1] * 0.9),
             fontsize=9,
             ha="center",
             arrowprops={"arrowstyle": "->", "color": _GREY},
