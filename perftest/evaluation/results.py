@@ -347,7 +347,15 @@ def evaluate(
             "unit": [_unit_of(o) for o in outputs],
             "k": prop.k,
             "dof": prop.dof,
-            "description": [_describe(o) for o in outputs],
+            "description": [
+                _describe(o)
+                + (
+                    f" ({basis.upper()})"
+                    if basis and o.removeprefix("corrected_") in kinds.HEATING_VALUE_RESULTS
+                    else ""
+                )
+                for o in outputs
+            ],
             "basis": [
                 basis if o.removeprefix("corrected_") in kinds.HEATING_VALUE_RESULTS else ""
                 for o in outputs
