@@ -736,23 +736,19 @@ def test_plan_works_for_every_kind(name, headline):
 # --------------------------------------------------------------------------- monitor
 
 
-def test_monitor_trends_the_chiller_headline_results(tmp_path):
-    import json
-
+def _chiller_csv(path, minutes=60):
+    """A run file of the chiller around its design point, in the logged units."""
     import pandas as pd
 
-    from perftest.scale.monitor import monitor
-
-    values, truth = chiller_truth()
+    values, _ = chiller_truth()
     rng = np.random.default_rng(3)
-    times = pd.date_range("2031-07-01 10:00", periods=60, freq="1min")
+    times = pd.date_range("2031-07-01 10:00", periods=minutes, freq="1min")
     # Small sample scatter about the design point (well inside the instruments'
     # uncertainties): every window must reconcile and give the truth within U95.
     scale = {"PT": 0.0005, "TT": 0.0, "FT": 0.002, "JT": 0.002}
     cols = {}
     for tag, v in values.items():
-        rel = scale[tag[:2]]
-        x = v * (1 + rel * rng.standard_normal(times.size))
+        x = v * (1 + scale[tag[:2]] * rng.standard_normal(times.size))
         if tag.startswith("TT"):
             x = v - C + 0.01 * rng.standard_normal(times.size)  # degC, as logged
         elif tag.startswith("PT"):
@@ -760,9 +756,19 @@ def test_monitor_trends_the_chiller_headline_results(tmp_path):
         elif tag.startswith("JT"):
             x = x / 1e3  # kW
         cols[tag] = x
-    frame = pd.DataFrame(cols, index=pd.Index(times, name="time"))
-    path = tmp_path / "chiller.csv"
-    frame.to_csv(path, float_format="%.6f")
+    pd.DataFrame(cols, index=pd.Index(times, name="time")).to_csv(path, float_format="%.6f")
+    return path
+
+
+def test_monitor_trends_the_chiller_headline_results(tmp_path):
+    import json
+
+    import pandas as pd
+
+    from perftest.scale.monitor import monitor
+
+    _, truth = chiller_truth()
+    path = _chiller_csv(tmp_path / "chiller.csv")
     info = monitor(
         DATA / "chiller_r134a.toml", [path], tmp_path / "out", every="30min", figure=False
     )
@@ -804,3 +810,21 @@ def test_hhv_basis_is_stated_on_every_heating_value_result(tmp_path):
     # heat input on the stated HHV: fuel flow x 52 MJ/kg (exact arithmetic)
     assert perf.value("heat_input") == pytest.approx(rec.value("FT-F") * 52e6, rel=1e-12)
     assert r.loc["cycle_efficiency", "basis"] == ""
+
+
+def test_report_command_writes_the_chiller_results(tmp_path, capsys):
+    import json
+
+    from perftest.cli import main
+
+    data = _chiller_csv(tmp_path / "chiller.csv", minutes=150)
+    out = tmp_path / "summary.json"
+    rc = main(["report", str(DATA / "chiller_r134a.toml"), "--data", str(data), "--json", str(out)])
+    assert rc in (0, None)
+    results = json.loads(out.read_text())["results"]
+    _, truth = chiller_truth()
+    cop = truth["cooling_capacity"] / truth["power_input"]
+    assert abs(results["cop"]["value"] - cop) <= results["cop"]["U95"]
+    for name in ("cooling_capacity", "carnot_cop", "second_law_efficiency", "heat_balance_closure"):
+        assert set(results[name]) >= {"value", "u", "U95", "unit", "k", "dof"}, name
+    assert "COP" in capsys.readouterr().out
