@@ -317,6 +317,13 @@ def _summary(outcome, out=None) -> None:
             ("efficiency (net)", "first_law_efficiency", "%", 100.0, 0.0),
             ("heat rate", "heat_rate", "kJ/kWh", 3600.0, 0.0),
             ("Carnot bound", "carnot_efficiency", "%", 100.0, 0.0),
+            ("heat export", "heat_export", "MW", 1e-6, 0.0),
+            ("fuel utilisation", "fuel_utilisation", "%", 100.0, 0.0),
+            ("cooling capacity", "cooling_capacity", "kW", 1e-3, 0.0),
+            ("heating capacity", "heating_capacity", "kW", 1e-3, 0.0),
+            ("power input", "power_input", "kW", 1e-3, 0.0),
+            ("COP", "cop", "kW/kW", 1.0, 0.0),
+            ("Carnot COP", "carnot_cop", "kW/kW", 1.0, 0.0),
             ("second-law eff.", "second_law_efficiency", "%", 100.0, 0.0),
         ]
         for label, name, unit, scale, off in rows:

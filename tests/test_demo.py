@@ -83,6 +83,8 @@ def test_biased_feedwater_flow_is_found(outcome, truth):
         "sink_temperature",
         "carnot_efficiency",
         "curzon_ahlborn_efficiency",
+        "cycle_heat",
+        "cycle_efficiency",
         "second_law_efficiency",
         "corrected_net_power",
         "corrected_heat_rate",

@@ -98,8 +98,12 @@ def test_results_arithmetic(truth):
     assert r["carnot_efficiency"] == pytest.approx(
         1 - r["sink_temperature"] / r["source_temperature"], rel=1e-12
     )
+    # heat engine: cycle efficiency (gross power / heat absorbed) against Carnot
+    assert r["cycle_efficiency"] == pytest.approx(
+        r["gross_power"] / truth["units"]["boiler.heat"], rel=1e-12
+    )
     assert r["second_law_efficiency"] == pytest.approx(
-        r["first_law_efficiency"] / r["carnot_efficiency"], rel=1e-12
+        r["cycle_efficiency"] / r["carnot_efficiency"], rel=1e-12
     )
     # Plausibility against trade figures (common practice, no source): a small
     # single-heater condensing unit runs at 28-36 % net efficiency, a gas boiler at

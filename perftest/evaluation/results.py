@@ -34,88 +34,33 @@ References
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping
 from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
 
-from perftest.evaluation import performance as perf
-from perftest.errors import InputError, PerftestError, PlantFileError
+from perftest.errors import InputError, PerftestError
+from perftest.evaluation import kinds
+from perftest.evaluation.exergy_account import _exergy_analysis
+from perftest.evaluation.fuel_basis import (  # noqa: F401 - re-exported
+    DEFAULT_FUEL_EXERGY_RATIO,
+    _fuel_basis,
+    _metering_conditions,
+    fuel_exergy_ratio,
+)
+from perftest.evaluation.kinds import DESCRIPTIONS, RESULT_UNITS  # noqa: F401 - re-exported
+from perftest.evaluation.plant_keys import (  # noqa: F401 - re-exported
+    _check_name,
+    _performance_table,
+    _plant_error,
+)
+from perftest.evaluation.unit_checks import (
+    check_correction_entries,
+    check_factor,
+    check_guarantee_units,
+)
 
 __all__ = ["Performance", "evaluate", "RESULT_UNITS", "fuel_exergy_ratio"]
-
-#: SI unit of every result name (summary.json "unit").
-RESULT_UNITS = {
-    "gross_power": "W",
-    "auxiliary_power": "W",
-    "net_power": "W",
-    "heat_input": "W",
-    "fuel_exergy": "W",
-    "first_law_efficiency": "1",
-    "gross_efficiency": "1",
-    "heat_rate": "J/J",
-    "gross_heat_rate": "J/J",
-    "source_temperature": "K",
-    "sink_temperature": "K",
-    "carnot_efficiency": "1",
-    "curzon_ahlborn_efficiency": "1",
-    "second_law_efficiency": "1",
-    "exergetic_efficiency": "1",
-}
-
-#: Short descriptions shown in reports.
-DESCRIPTIONS = {
-    "gross_power": "Generator output",
-    "auxiliary_power": "Auxiliary power",
-    "net_power": "Net power (gross - auxiliary)",
-    "heat_input": "Fuel heat input",
-    "fuel_exergy": "Fuel exergy input",
-    "first_law_efficiency": "First-law efficiency (net)",
-    "gross_efficiency": "First-law efficiency (gross)",
-    "heat_rate": "Net heat rate",
-    "gross_heat_rate": "Gross heat rate",
-    "source_temperature": "Heat-source temperature",
-    "sink_temperature": "Heat-sink temperature",
-    "carnot_efficiency": "Carnot efficiency (bound)",
-    "curzon_ahlborn_efficiency": "Curzon-Ahlborn efficiency",
-    "second_law_efficiency": "Second-law efficiency (first-law / Carnot)",
-    "exergetic_efficiency": "Exergetic efficiency (net power / fuel exergy)",
-}
-
-# Standard chemical exergy [kJ/mol] of fuel-gas components in the reference
-# environment of [3] (Table I; values from memory).  Used for the fuel exergy when
-# the plant file gives a composition.
-_CHEMICAL_EXERGY = {
-    "methane": 831.65,
-    "ethane": 1495.84,
-    "propane": 2154.0,
-    "n-butane": 2805.8,
-    "isobutane": 2801.8,
-    "n-pentane": 3463.3,
-    "isopentane": 3461.3,
-    "n-hexane": 4118.5,
-    "hydrogen": 236.09,
-    "carbon_monoxide": 275.10,
-    "hydrogen_sulfide": 812.0,
-    "nitrogen": 0.72,
-    "oxygen": 3.97,
-    "carbon_dioxide": 19.87,
-    "water": 9.5,
-    "argon": 11.69,
-    "helium": 30.37,
-}
-#: Ratio of chemical exergy to net calorific value for natural gas when the
-#: composition is not known ([4] Sect. 2.5 gives about 1.04 for gaseous
-#: hydrocarbon fuels; from memory).
-DEFAULT_FUEL_EXERGY_RATIO = 1.04
-_R = 8.314462618  # J/(mol K), CODATA 2018
-_T0_CHEMICAL = 298.15  # K, reference temperature of the chemical exergy table
-
-# Stated heating-value uncertainty when the plant file gives none: 0.3 % at 95 %,
-# the usual size for a calorific value computed from a laboratory gas analysis
-# (common practice, no source).  The report names the assumption.
-_DEFAULT_HV_U95 = 0.003
 
 # Number of Monte Carlo trials of the check: 20 000 trials resolve a standard
 # uncertainty to about 0.5 % (relative standard error 1/sqrt(2M)), plenty for a
@@ -133,8 +78,11 @@ class Performance:
     Attributes
     ----------
     results : pandas.DataFrame
-        Index: result name.  Columns ``value, u, U95, unit, k, dof, description``
-        [SI]; ``U95`` is the expanded uncertainty at ``level``.
+        Index: result name.  Columns ``value, u, U95, unit, k, dof, description,
+        basis`` [SI]; ``U95`` is the expanded uncertainty at ``level``, ``k`` its
+        coverage factor from Student's t at the Welch-Satterthwaite effective
+        degrees of freedom ``dof``; ``basis`` is ``"lhv"`` or ``"hhv"`` for the
+        results that use the fuel's heating value, else empty.
     budgets : dict[str, pandas.DataFrame]
         Per result: uncertainty budget indexed by input, columns ``estimate, u,
         sensitivity, u_contribution, share`` (shares sum to one).
@@ -155,7 +103,11 @@ class Performance:
         Plant exergy balance: fuel exergy = net power + destroyed + lost.
     exergy_losses : dict[str, float]
         Exergy lost across the plant boundary [W] (cooling water, auxiliaries
-        outside the model).
+        outside the model, other streams crossing the boundary).
+    exergy_products : dict[str, float]
+        Exergy products besides net power [W]: ``"heat export"`` (CHP),
+        ``"cooling"`` (chiller: the chilled water's exergy gain), ``"heating"``
+        (heat pump: the heated water's exergy gain).
     inputs : pandas.DataFrame
         Index: input name.  Columns ``value, u, role`` [SI].
     monte_carlo : pandas.DataFrame or None
@@ -183,6 +135,7 @@ class Performance:
     level: float
     dead_state: tuple
     notes: tuple = field(default=())
+    exergy_products: dict = field(default_factory=dict)
 
     def value(self, name: str) -> float:
         """Value of one result [SI]."""
@@ -213,278 +166,6 @@ class Performance:
         cov = self.cov.loc[names, names].to_numpy()
         nums = correlated_values(self.results["value"].to_numpy(float), cov, tags=names)
         return dict(zip(names, nums, strict=True))
-
-
-# --------------------------------------------------------------------------- helpers
-
-
-def _performance_table(plant) -> dict:
-    table = plant.sections.get("performance")
-    if not isinstance(table, Mapping) or not table:
-        raise PlantFileError(
-            f"{plant.path}: the plant file has no [performance] table; evaluate needs at "
-            "least gross_power, heat_input, source_temperature and sink_temperature.",
-            file=plant.path,
-            key="performance",
-        )
-    kind = table.get("kind", "power")
-    if kind != "power":
-        raise _plant_error(
-            plant,
-            f"[performance] kind = {kind!r} is not evaluated by this version of perftest "
-            '(only "power"); compute COP results with perftest.evaluation.performance.',
-            "performance",
-            "kind",
-        )
-    for key in ("gross_power", "heat_input", "source_temperature", "sink_temperature"):
-        if not isinstance(table.get(key), str):
-            raise _plant_error(
-                plant,
-                f"[performance] needs '{key}' = a tag, group or model variable "
-                f'(e.g. "main_steam.temperature").',
-                "performance",
-                key,
-            )
-    return dict(table)
-
-
-def _plant_error(plant, message: str, *keys) -> PerftestError:
-    err = getattr(plant, "error", None)
-    if callable(err):
-        return err(message, *keys)
-    return PlantFileError(message, key=".".join(keys))
-
-
-def _metering_conditions(plant, fuel: Mapping) -> tuple[float, float]:
-    """Metering temperature [K] and pressure [Pa] of a fuel ``volume_flow`` tag.
-
-    ``[fuel] reference_conditions = { temperature = {value, unit}, pressure = {value,
-    unit} }``; default 15 degC and 101.325 kPa (the ISO 13443 standard reference
-    conditions, from memory).
-    """
-    ref = fuel.get("reference_conditions", {})
-    if not isinstance(ref, Mapping):
-        raise _plant_error(
-            plant,
-            "[fuel] reference_conditions must be a table "
-            "{ temperature = { value, unit }, pressure = { value, unit } }.",
-            "fuel",
-            "reference_conditions",
-        )
-    unknown = sorted(set(ref) - {"temperature", "pressure"})
-    if unknown:
-        raise _plant_error(
-            plant,
-            f"[fuel] reference_conditions: unknown key(s) {unknown}; "
-            "use 'temperature' and 'pressure'.",
-            "fuel",
-            "reference_conditions",
-        )
-    t = 288.15
-    p = 101325.0
-    if "temperature" in ref:
-        t = float(
-            plant.read_quantity(
-                ref["temperature"], "temperature", "fuel", "reference_conditions", "temperature"
-            )
-        )
-    if "pressure" in ref:
-        p = float(
-            plant.read_quantity(
-                ref["pressure"], "pressure", "fuel", "reference_conditions", "pressure"
-            )
-        )
-    return t, p
-
-
-def _fuel_basis(plant, perf_table: dict) -> dict:
-    """Heating value [J/kg or J/m3], its standard uncertainty, the flow reference and
-    the fuel-exergy ratio."""
-    fuel = plant.sections.get("fuel")
-    if not isinstance(fuel, Mapping):
-        raise _plant_error(
-            plant,
-            '[performance] heat_input = "fuel" needs a [fuel] table with mass_flow and '
-            "either lhv/hhv or composition.",
-            "performance",
-            "heat_input",
-        )
-    basis = str(perf_table.get("basis", "lhv")).lower()
-    if basis not in ("lhv", "hhv"):
-        raise _plant_error(
-            plant,
-            f'[performance] basis must be "lhv" or "hhv". Got {basis!r}.',
-            "performance",
-            "basis",
-        )
-    if "mass_flow" in fuel:
-        flow, per = fuel["mass_flow"], "mass"
-    elif "volume_flow" in fuel:
-        flow, per = fuel["volume_flow"], "volume"
-    else:
-        raise _plant_error(
-            plant, "[fuel] needs 'mass_flow' (or 'volume_flow') = the fuel flow tag.", "fuel"
-        )
-    notes = []
-    ratio = None
-    if basis in fuel:
-        unit = "MJ/kg" if per == "mass" else "MJ/m3"
-        q = "specific_energy"
-        raw = fuel[basis]
-        if per == "volume" and isinstance(raw, Mapping):
-            raise _plant_error(
-                plant,
-                "[fuel] a stated heating value with volume_flow must be in J/m3; "
-                "write a bare number [J/m3] or use mass_flow.",
-                "fuel",
-                basis,
-            )
-        hv = float(plant.read_quantity(raw, q, "fuel", basis, default_unit=unit))
-    elif "composition" in fuel:
-        try:
-            from perftest.thermo.fuel import Gas
-        except ImportError:  # pragma: no cover - perftest.thermo.fuel ships with perftest
-            raise PerftestError(
-                "A heating value from [fuel] composition needs perftest.thermo.fuel, which is "
-                "not available in this installation; state lhv = { value, unit } instead."
-            ) from None
-        comp = fuel["composition"]
-        try:
-            gas = Gas(comp)
-        except PerftestError as exc:  # name the plant file key, not only the component
-            raise _plant_error(plant, f"[fuel] composition: {exc}", "fuel", "composition") from None
-        t_comb = 288.15
-        if "combustion_reference_temperature" in fuel:
-            t_comb = float(
-                plant.read_quantity(
-                    fuel["combustion_reference_temperature"],
-                    "temperature",
-                    "fuel",
-                    "combustion_reference_temperature",
-                )
-            )
-        kw = {"combustion_temperature": t_comb}
-        getter = gas.inferior_calorific_value if basis == "lhv" else gas.superior_calorific_value
-        if per == "mass":
-            hv = float(getter("mass", **kw))
-        else:
-            t_met, p_met = _metering_conditions(plant, fuel)
-            hv = float(
-                getter("volumetric", metering_temperature=t_met, metering_pressure=p_met, **kw)
-            )
-        lhv_mass = float(gas.inferior_calorific_value("mass", **kw))
-        ratio = fuel_exergy_ratio(comp, lhv_mass, gas.molar_mass)
-        if basis == "hhv":
-            # exergy per unit of the stated (superior) heating value
-            ratio *= lhv_mass / float(gas.superior_calorific_value("mass", **kw))
-    else:
-        raise _plant_error(
-            plant, f"[fuel] needs '{basis}' = {{ value, unit }} or 'composition'.", "fuel"
-        )
-    u_spec = fuel.get("uncertainty")
-    if u_spec is None:
-        u_rel = _DEFAULT_HV_U95 / 1.96
-        notes.append(
-            f"Fuel {basis.upper()}: no uncertainty stated in [fuel]; "
-            f"{_DEFAULT_HV_U95 * 100:.1f} % at 95 % assumed (common practice for a "
-            "laboratory gas analysis)."
-        )
-    else:
-        if not isinstance(u_spec, Mapping) or "value" not in u_spec:
-            raise _plant_error(
-                plant,
-                '[fuel] uncertainty must be { value = 0.3, kind = "percent", level = 0.95 }.',
-                "fuel",
-                "uncertainty",
-            )
-        level = u_spec.get("level", 0.95)
-        from perftest.run.stats import coverage_factor
-
-        k = 1.0 if level == "standard" else float(coverage_factor(math.inf, float(level)))
-        if u_spec.get("kind", "percent") == "percent":
-            u_rel = float(u_spec["value"]) / 100.0 / k
-        else:
-            u_rel = (
-                float(
-                    plant.read_quantity(
-                        {"value": u_spec["value"], "unit": u_spec.get("unit", "MJ/kg")},
-                        "specific_energy",
-                        "fuel",
-                        "uncertainty",
-                    )
-                )
-                / k
-                / hv
-            )
-    if "exergy_ratio" in fuel:
-        ratio = float(fuel["exergy_ratio"])
-    if ratio is None:
-        ratio = DEFAULT_FUEL_EXERGY_RATIO
-        notes.append(f"Fuel exergy taken as {ratio} x LHV (gaseous hydrocarbon fuel, Kotas 1985).")
-        if basis == "hhv":
-            # LHV/HHV of about 0.90 for natural gas (common practice, no source)
-            ratio *= 0.90
-            notes.append("Fuel exergy from the HHV assumes LHV/HHV = 0.90 (natural gas).")
-    return dict(flow=flow, per=per, hv=hv, u_hv=u_rel * hv, basis=basis, ratio=ratio, notes=notes)
-
-
-def fuel_exergy_ratio(composition: Mapping, lhv_mass: float, molar_mass: float) -> float:
-    """Ratio of a gas's chemical exergy to its net calorific value.
-
-    Parameters
-    ----------
-    composition : mapping of str to float
-        Mole fractions (component names as in :mod:`perftest.thermo.fuel`).
-    lhv_mass : float [J/kg]
-        Net calorific value on a mass basis.
-    molar_mass : float [kg/mol]
-
-    Returns
-    -------
-    float [-]
-        :data:`DEFAULT_FUEL_EXERGY_RATIO` when a component is not in the table.
-
-    Notes
-    -----
-    Chemical exergy of an ideal-gas mixture ([3] Sect. 2):
-
-    .. math:: e^{ch} = \\sum_i x_i e^{ch}_i + R T_0 \\sum_i x_i \\ln x_i
-
-    Examples
-    --------
-    >>> round(fuel_exergy_ratio({"methane": 1.0}, 50.03e6, 16.04246e-3), 3)
-    1.036
-    """
-    total = 0.0
-    mixing = 0.0
-    for name, x in composition.items():
-        key = str(name).strip().lower().replace(" ", "_")
-        key = {"co2": "carbon_dioxide", "n2": "nitrogen", "ch4": "methane"}.get(key, key)
-        if key not in _CHEMICAL_EXERGY:
-            return DEFAULT_FUEL_EXERGY_RATIO
-        total += float(x) * _CHEMICAL_EXERGY[key] * 1e3
-        if x > 0:
-            mixing += float(x) * math.log(float(x))
-    e_molar = total + _R * _T0_CHEMICAL * mixing
-    return e_molar / molar_mass / lhv_mass
-
-
-def _check_name(rec, name: str, key: str, plant) -> None:
-    try:
-        v = rec.value(name)
-    except PerftestError:
-        raise _plant_error(
-            plant,
-            f"[{key.split('.')[0]}] '{key.split('.', 1)[-1]}' = {name!r} is neither a tag, "
-            "a group nor a variable of the plant model.",
-            *key.split("."),
-        ) from None
-    if not math.isfinite(v):
-        raise PerftestError(
-            f"'{name}' (plant file key {key}) is not determined by the measurements and "
-            "balances (not observable); measure it or fix its value.",
-            key=key,
-        )
 
 
 # --------------------------------------------------------------------------- evaluate
@@ -556,7 +237,11 @@ def evaluate(
     )
 
     if not (hasattr(reconciliation, "value") and hasattr(reconciliation, "covariance")):
-        raise InputError(f"The 'reconciliation' parameter of evaluate must be the result of perftest.reconcile(plant, measurements). Got {type(reconciliation).__name__}.", parameter="reconciliation")  # fmt: skip  # noqa: E501
+        raise InputError(
+            "The 'reconciliation' parameter of evaluate must be the result of "
+            f"perftest.reconcile(plant, measurements). Got {type(reconciliation).__name__}.",
+            parameter="reconciliation",
+        )
     if not 0.0 < level < 1.0:
         raise InputError(
             f"The 'level' parameter of evaluate must lie between 0 and 1. Got {level!r}.",
@@ -564,39 +249,44 @@ def evaluate(
         )
     rec = reconciliation
     table = _performance_table(plant)
-    notes: list[str] = []
+    needs = kinds.gather(plant, table, rec)
+    notes: list[str] = list(needs.notes)
 
     # ---- inputs taken from the reconciliation (joint covariance)
-    refs = {
-        "gross_power": table["gross_power"],
-        "source_temperature": table["source_temperature"],
-        "sink_temperature": table["sink_temperature"],
-    }
-    if isinstance(table.get("auxiliary_power"), str):
-        refs["auxiliary_power"] = table["auxiliary_power"]
+    refs: dict = {}  # input name -> role (the first role that uses it)
+    for role, ns in needs.refs.items():
+        for n in ns:
+            _check_name(rec, n, f"performance.{role}", plant)
+            refs.setdefault(n, role)
     fuel = None
-    if table["heat_input"] == "fuel":
+    if table.get("heat_input") == "fuel":
         fuel = _fuel_basis(plant, table)
         notes += fuel.pop("notes")
-        refs["fuel_flow"] = fuel["flow"]
-    else:
-        refs["heat_input"] = table["heat_input"]
+        _check_name(rec, fuel["flow"], f"fuel.{fuel['per']}_flow", plant)
+        refs.setdefault(fuel["flow"], "fuel_flow")
+        fuel["flow_name"] = fuel["flow"]
+        fuel["hv_name"] = f"fuel.{fuel['basis']}"
+    for n in needs.names():
+        if n not in refs:
+            _check_name(rec, n, "performance", plant)
+            refs[n] = "stream state"
+    check_correction_entries(plant)
     curves = curves_from_plant(plant)
     for c in curves:
         for var in c.variables:
-            refs.setdefault(f"condition:{var}", var)
-    for role, name in refs.items():
-        _check_name(rec, name, f"performance.{role}" if ":" not in role else "corrections", plant)
+            if var not in refs:
+                _check_name(rec, var, "corrections", plant)
+                refs[var] = f"condition:{var}"
 
-    rec_names = list(dict.fromkeys(refs.values()))
+    rec_names = list(refs)
     x_rec = np.array([rec.value(n) for n in rec_names], dtype=float)
     cov_rec = np.asarray(rec.covariance(rec_names), dtype=float)
     names = list(rec_names)
     x = list(x_rec)
     blocks = [cov_rec]
-    roles = {n: [r for r, v in refs.items() if v == n][0] for n in rec_names}
+    roles = dict(refs)
     if fuel is not None:
-        hv_name = f"fuel.{fuel['basis']}"
+        hv_name = fuel["hv_name"]
         names.append(hv_name)
         x.append(fuel["hv"])
         blocks.append(np.array([[fuel["u_hv"] ** 2]]))
@@ -615,69 +305,20 @@ def evaluate(
     corrected_of: dict = {}
     for c in curves:
         corrected_of.setdefault(c.result, []).append(c)
-    base_outputs = [
-        "gross_power",
-        "auxiliary_power",
-        "net_power",
-        "heat_input",
-        "fuel_exergy",
-        "first_law_efficiency",
-        "gross_efficiency",
-        "heat_rate",
-        "gross_heat_rate",
-        "source_temperature",
-        "sink_temperature",
-        "carnot_efficiency",
-        "curzon_ahlborn_efficiency",
-        "second_law_efficiency",
-        "exergetic_efficiency",
-    ]
-    if fuel is None:
-        base_outputs.remove("fuel_exergy")
-        base_outputs.remove("exergetic_efficiency")
+    base_outputs = kinds.output_names(needs, fuel is not None)
     for result in corrected_of:
         if result not in base_outputs:
             raise _plant_error(
                 plant,
-                f"[[corrections]] result = {result!r} is not a result perftest computes "
-                f"({', '.join(base_outputs)}).",
+                f"[[corrections]] result = {result!r} is not a result of this plant "
+                f"(kind = {needs.kind!r}: {', '.join(base_outputs)}).",
                 "corrections",
             )
     outputs = base_outputs + [f"corrected_{r}" for r in corrected_of]
 
     def model(v):
         """Results from inputs; ``v`` is (n_in,) or (n_in, N) (rows = inputs)."""
-        g = v[pos[refs["gross_power"]]]
-        a = v[pos[refs["auxiliary_power"]]] if "auxiliary_power" in refs else 0.0 * g
-        net = g - a
-        if fuel is not None:
-            q = v[pos[refs["fuel_flow"]]] * v[pos[hv_name]]
-            # fuel["ratio"] is the fuel exergy per unit of the stated heating value
-            ex = q * fuel["ratio"]
-        else:
-            q = v[pos[refs["heat_input"]]]
-        ts = v[pos[refs["source_temperature"]]]
-        tk = v[pos[refs["sink_temperature"]]]
-        eta = net / q
-        carnot = 1.0 - tk / ts
-        out = {
-            "gross_power": g,
-            "auxiliary_power": a,
-            "net_power": net,
-            "heat_input": q,
-            "first_law_efficiency": eta,
-            "gross_efficiency": g / q,
-            "heat_rate": q / net,
-            "gross_heat_rate": q / g,
-            "source_temperature": ts,
-            "sink_temperature": tk,
-            "carnot_efficiency": carnot,
-            "curzon_ahlborn_efficiency": 1.0 - np.sqrt(tk / ts),
-            "second_law_efficiency": eta / carnot,
-        }
-        if fuel is not None:
-            out["fuel_exergy"] = ex
-            out["exergetic_efficiency"] = net / ex
+        out = kinds.outputs(needs, lambda n: v[pos[n]], fuel)
         conditions = {var: v[pos[var]] for c in curves for var in c.variables}
         for result, cs in corrected_of.items():
             out[f"corrected_{result}"] = apply_corrections(out[result], cs, conditions)
@@ -686,11 +327,24 @@ def evaluate(
     # Check the arithmetic against the one-function-per-relation module: the values
     # must agree with perftest.evaluation.performance at the estimate.
     y0 = model(x)
-    _cross_check(dict(zip(outputs, y0, strict=True)))
+    kinds.cross_check(needs.kind, dict(zip(outputs, y0, strict=True)), needs.T0)
 
+    # Degrees of freedom of each input: a measured tag (or a model variable it
+    # measures) carries its averaged measurement's dof; the rest count as infinite.
+    # Welch-Satterthwaite over these inputs then gives each result's effective dof
+    # and its coverage factor from Student's t (GUM G.4).
+    dof_in = np.array([_input_dof(rec, n) for n in names], dtype=float)
     prop = unc.propagate(
-        model, x, cov, names=names, output_names=outputs, level=level, vectorized=True
+        model,
+        x,
+        cov,
+        names=names,
+        output_names=outputs,
+        level=level,
+        vectorized=True,
+        dof=dof_in,
     )
+    basis = fuel["basis"] if fuel is not None else ""
     results = pd.DataFrame(
         {
             "value": prop.value,
@@ -699,15 +353,41 @@ def evaluate(
             "unit": [_unit_of(o) for o in outputs],
             "k": prop.k,
             "dof": prop.dof,
-            "description": [_describe(o) for o in outputs],
+            "description": [
+                _describe(o)
+                + (
+                    f" ({basis.upper()})"
+                    if basis and o.removeprefix("corrected_") in kinds.HEATING_VALUE_RESULTS
+                    else ""
+                )
+                for o in outputs
+            ],
+            "basis": [
+                basis if o.removeprefix("corrected_") in kinds.HEATING_VALUE_RESULTS else ""
+                for o in outputs
+            ],
         },
         index=pd.Index(outputs, name="name"),
     )
+    if needs.kind == "refrigeration" and "heat_rejected" in needs.refs:
+        results, cov_out_extra = _with_heat_balance(rec, needs, results, notes, level)
+    else:
+        cov_out_extra = None
     budget_tables = {}
     for o in outputs if detail else ():
         b = prop.budget_for(o)[["estimate", "u", "sensitivity", "u_contribution", "share"]]
-        budget_tables[o] = b.copy()
+        # Stream states enter only the results that use them (mean temperatures,
+        # heat export); elsewhere their rows would be zeros.
+        unused = [
+            n for n in b.index if roles.get(n) == "stream state" and b.loc[n, "sensitivity"] == 0
+        ]
+        budget_tables[o] = b.drop(index=unused).copy()
     cov_out = pd.DataFrame(prop.cov, index=outputs, columns=outputs)
+    if cov_out_extra is not None:
+        # The raw closure is kept apart from the reconciled results (no correlation
+        # with them is claimed).
+        cov_out = cov_out.reindex(index=results.index, columns=results.index, fill_value=0.0)
+        cov_out.loc["heat_balance_closure", "heat_balance_closure"] = cov_out_extra
 
     # ---- Monte Carlo check of the linearisation
     mc_frame = None
@@ -733,10 +413,12 @@ def evaluate(
 
     # ---- corrections table
     corr_rows = []
-    for c in curves:
+    for ci, c in enumerate(curves):
         xc = [float(x[pos[var]]) for var in c.variables]
         refs_c = getattr(c, "references", (c.reference,))
         f = float(c(*xc))
+        if c.kind == "multiplicative":
+            check_factor(plant, ci, f, c.result)
         measured = float(y0[outputs.index(c.result)])
         # size of this correction alone: change of the result it makes [SI] and relative
         change = measured / f - measured if c.kind == "multiplicative" else -f
@@ -768,6 +450,7 @@ def evaluate(
 
     # ---- guarantees
     g_rows = []
+    check_guarantee_units(plant, results)
     for g in guarantees_from_plant(plant):
         if g.quantity not in results.index:
             raise _plant_error(
@@ -809,13 +492,10 @@ def evaluate(
     )
 
     # ---- exergy per unit
-    fuel_ex = float(results.loc["fuel_exergy", "value"]) if fuel is not None else math.nan
+    products: dict = {}
     if detail:
-        exergy, losses, closure, ex_notes = _exergy_analysis(
-            rec,
-            fuel_ex,
-            float(results.loc["net_power", "value"]),
-            float(results.loc["auxiliary_power", "value"]),
+        exergy, losses, closure, ex_notes, products = _exergy_analysis(
+            rec, **_exergy_terms(needs, results, fuel, rec)
         )
         notes += ex_notes
     else:
@@ -839,6 +519,7 @@ def evaluate(
         level=float(level),
         dead_state=tuple(float(v) for v in rec.dead_state),
         notes=tuple(notes),
+        exergy_products=products,
     )
 
 
@@ -853,171 +534,106 @@ def _describe(name: str) -> str:
     return DESCRIPTIONS.get(name, name)
 
 
-def _cross_check(v: dict) -> None:
-    """The closed-form arithmetic above must match perftest.evaluation.performance exactly."""
-    pairs = [
-        (v["first_law_efficiency"], perf.first_law_efficiency(v["net_power"], v["heat_input"])),
-        (v["heat_rate"], perf.heat_rate(v["heat_input"], v["net_power"])),
-        (
-            v["carnot_efficiency"],
-            perf.carnot_efficiency(v["source_temperature"], v["sink_temperature"]),
-        ),
-        (
-            v["curzon_ahlborn_efficiency"],
-            perf.curzon_ahlborn_efficiency(v["source_temperature"], v["sink_temperature"]),
-        ),
-        (
-            v["second_law_efficiency"],
-            perf.second_law_efficiency(v["first_law_efficiency"], v["carnot_efficiency"]),
-        ),
-    ]
-    for a, b in pairs:
-        if not math.isclose(float(a), float(b), rel_tol=1e-12):
-            raise PerftestError(  # pragma: no cover - an internal inconsistency
-                f"Internal check failed: {float(a)!r} != {float(b)!r}."
-            )
+def _input_dof(rec, name: str) -> float:
+    """Degrees of freedom of an input of the propagation.
 
-
-def _exergy_analysis(rec, fuel_exergy: float, net_power: float, aux_power: float):
-    """Exergy balance of every unit, Gouy-Stodola check and plant closure."""
-    notes: list[str] = []
+    A measured tag, or a model variable a tag measures, carries its averaged
+    measurement's dof.  A fixed value counts as exact (infinite).  An unmeasured or
+    derived variable (a unit's heat, a stream's entropy) is a combination of the
+    measurements; it gets the smallest dof among them, a lower bound: the
+    Welch-Satterthwaite formula never gives fewer than the smallest dof of its
+    inputs (GUM G.4.1), so the coverage factor errs on the safe side.
+    """
+    meas = getattr(rec, "measurements", None)
+    tags = tuple(getattr(meas, "tags", ()))
+    if not tags:
+        return math.inf
+    dof = np.asarray(meas.dof, dtype=float)
+    if name in tags:
+        d = float(dof[tags.index(name)])
+        return d if d > 0 else math.inf
     model = getattr(rec, "model", None)
-    spec = getattr(model, "spec", None)
-    cols = [
-        "unit",
-        "type",
-        "exergy_in",
-        "exergy_out",
-        "work_in",
-        "work_out",
-        "destroyed",
-        "u_destroyed",
-        "gouy_stodola",
-        "share",
-    ]
-    if spec is None:
-        return pd.DataFrame(columns=cols), {}, None, notes
-    T0 = float(rec.dead_state[0])
+    sources = getattr(model, "sources", {}) if model is not None else {}
+    src = sources.get(name)
+    kind = getattr(src, "kind", None)
+    if kind == "fixed":
+        return math.inf
+    if kind == "measured" and getattr(src, "tag", None) in tags:
+        d = float(dof[tags.index(src.tag)])
+        return d if d > 0 else math.inf
+    if name.startswith("fuel."):
+        return math.inf  # the stated heating-value uncertainty (type B)
+    finite = dof[np.isfinite(dof) & (dof > 0)]
+    return float(finite.min()) if finite.size else math.inf
 
-    def var(name: str) -> float:
-        try:
-            v = rec.value(name)
-        except PerftestError:
-            return 0.0
-        return float(v) if math.isfinite(v) else math.nan
 
-    def has(name: str) -> bool:
-        try:
-            rec.value(name)
-            return True
-        except PerftestError:
-            return False
+def _with_heat_balance(rec, needs, results: pd.DataFrame, notes: list, level: float):
+    """Append the raw-measurement heat-balance closure of a chiller to ``results``."""
+    from perftest.evaluation.heat_balance import raw_heat_balance
 
-    rows = []
-    coolant_loss = 0.0
-    work_in_model = 0.0
-    for uid, unit in spec.units.items():
-        ins, outs = list(unit.inlets), list(unit.outlets)
-        terms: dict = {}
-        for s in ins:
-            terms[f"{s}.exergy_flow"] = terms.get(f"{s}.exergy_flow", 0.0) + 1.0
-        for s in outs:
-            terms[f"{s}.exergy_flow"] = terms.get(f"{s}.exergy_flow", 0.0) - 1.0
-        e_in = sum(var(f"{s}.exergy_flow") for s in ins)
-        e_out = sum(var(f"{s}.exergy_flow") for s in outs)
-        w_in = w_out = 0.0
-        gs = math.nan
-        t = unit.type
-        if t in ("turbine",):
-            w_out = var(f"{uid}.power")
-            terms[f"{uid}.power"] = -1.0
-        elif t in ("pump",):
-            w_in = var(f"{uid}.power")
-            terms[f"{uid}.power"] = 1.0
-            work_in_model += w_in
-        elif t == "generator":
-            w_in = sum(var(f"{tid}.power") for tid in unit.shaft)
-            w_out = var(f"{uid}.power")
-            for tid in unit.shaft:
-                terms[f"{tid}.power"] = 1.0
-            terms[f"{uid}.power"] = -1.0
-            # Losses leave as heat at about ambient temperature: all destroyed.
-            gs = w_in - w_out
-        elif t == "boiler":
-            # Fuel exergy in; what is not absorbed by the water is destroyed in
-            # combustion and heat transfer or lost with the flue gas.
-            w_in = fuel_exergy
-        if t == "condenser" and unit.ports.get("coolant_outlet"):
-            ci, co = unit.ports["coolant_inlet"][0], unit.ports["coolant_outlet"][0]
-            coolant_loss += var(f"{co}.exergy_flow") - var(f"{ci}.exergy_flow")
-        destroyed = e_in + w_in - e_out - w_out
-        if t not in ("boiler", "generator"):
-            # Gouy-Stodola: T0 * entropy generation of the adiabatic unit.
-            s_gen = sum(var(f"{s}.mass_flow") * var(f"{s}.entropy") for s in outs) - sum(
-                var(f"{s}.mass_flow") * var(f"{s}.entropy") for s in ins
-            )
-            q_loss = var(f"{uid}.heat_loss") if has(f"{uid}.heat_loss") else 0.0
-            gs = T0 * s_gen + (q_loss if math.isfinite(q_loss) else 0.0)
-        heat = math.nan
-        if t == "condenser" and unit.ports.get("coolant_outlet"):
-            heat = var(f"{co}.mass_flow") * (var(f"{co}.enthalpy") - var(f"{ci}.enthalpy"))
-        elif t in ("condenser", "boiler") and has(f"{uid}.heat"):
-            heat = var(f"{uid}.heat")
-        u_d = math.nan
-        if t != "boiler":
-            try:
-                names = list(terms)
-                a = np.array([terms[n] for n in names])
-                c = np.asarray(rec.covariance(names), dtype=float)
-                u_d = float(np.sqrt(max(a @ c @ a, 0.0)))
-            except PerftestError:
-                pass
-        rows.append(
-            dict(
-                unit=uid,
-                type=unit.declared_type,
-                exergy_in=e_in,
-                exergy_out=e_out,
-                work_in=w_in,
-                work_out=w_out,
-                destroyed=destroyed,
-                u_destroyed=u_d,
-                gouy_stodola=gs,
-                heat=heat,
-            )
+    try:
+        hb = raw_heat_balance(
+            rec,
+            {k: needs.refs[k] for k in ("cooling", "power_input", "heat_rejected")},
+            level=level,
         )
-    frame = pd.DataFrame(rows, columns=[*cols[:-1], "heat"])
-    frame["share"] = frame["destroyed"] / fuel_exergy if math.isfinite(fuel_exergy) else np.nan
-    frame = frame[[*cols, "heat"]]
+    except PerftestError as exc:
+        notes.append(f"Heat-balance closure of the raw measurements not computed: {exc}")
+        return results, None
+    if hb is None:
+        return results, None
+    notes += hb["notes"]
+    row = pd.DataFrame(
+        {
+            "value": [hb["value"]],
+            "u": [hb["u"]],
+            "U95": [hb["U95"]],
+            "unit": ["1"],
+            "k": [hb["U95"] / hb["u"] if hb["u"] > 0 else math.nan],
+            "dof": [hb["dof"]],
+            "description": [_describe("heat_balance_closure")],
+            "basis": [""],
+        },
+        index=pd.Index(["heat_balance_closure"], name="name"),
+    )
+    t = hb["terms"]
+    notes.append(
+        "Heat balance of the raw measurements: cooling "
+        f"{t['cooling'] / 1e3:.1f} kW + power {t['power_input'] / 1e3:.1f} kW - heat rejected "
+        f"{t['heat_rejected'] / 1e3:.1f} kW = {hb['value'] * 100:+.2f} % of the heat rejected "
+        f"(U95 {hb['U95'] * 100:.2f} %)."
+    )
+    return pd.concat([results, row]), hb["u"] ** 2
 
-    losses = {}
-    if coolant_loss:
-        losses["cooling water"] = coolant_loss
-        # The condenser's destroyed column counts the coolant's exergy gain as an
-        # output; it leaves the plant, so it is a loss of the plant.
-    other_aux = aux_power - work_in_model
-    if math.isfinite(other_aux):
-        losses["auxiliaries outside the model"] = other_aux
-    closure = None
-    if math.isfinite(fuel_exergy) and fuel_exergy > 0:
-        closure = perf.gouy_stodola_closure(
-            frame["destroyed"].to_numpy(float),
-            list(losses.values()),
-            exergy_in=fuel_exergy,
-            exergy_out=net_power,
-            rtol=1e-3,  # reconciled balances close to the solver tolerance (~1e-6)
+
+def _exergy_terms(needs, results: pd.DataFrame, fuel, rec) -> dict:
+    """Arguments of the exergy account for the plant's kind."""
+
+    def val(name):
+        return float(results.loc[name, "value"]) if name in results.index else math.nan
+
+    if needs.kind in ("power", "chp"):
+        terms = dict(
+            fuel_exergy=val("fuel_exergy") if fuel is not None else math.nan,
+            net_power=val("net_power"),
+            aux_power=val("auxiliary_power"),
         )
-        unknown = [str(u) for u, d in zip(frame["unit"], frame["destroyed"], strict=True)
-                   if not math.isfinite(d)]  # fmt: skip
-        if unknown:
-            notes.append(
-                "Plant exergy balance not checked: the exergy destroyed in "
-                f"{', '.join(unknown)} is unknown (their streams are not observable: no "
-                "measurement fixes them). Add a measurement on that loop to close it."
-            )
-        elif not closure.closed:
-            notes.append(
-                f"Plant exergy balance does not close: imbalance "
-                f"{closure.relative_imbalance * 100:.2f} % of the fuel exergy."
-            )
-    return frame, losses, closure, notes
+        if needs.kind == "chp":
+            terms["products"] = tuple(s for k in needs.export for s in needs.export[k])
+        return terms
+    p = val("power_input")
+    terms = dict(fuel_exergy=math.nan, net_power=0.0, aux_power=p, supplied=p)
+    spec = rec.model.spec if getattr(rec, "model", None) is not None else None
+    if needs.kind == "refrigeration" and spec is not None:
+        coolant = {
+            s
+            for u in spec.units.values()
+            if u.type == "condenser"
+            for key in ("coolant_inlet", "coolant_outlet")
+            for s in u.ports.get(key, ())
+        }
+        terms["products"] = tuple(s for s in spec.streams if s not in coolant)
+        terms["product_label"] = "cooling"
+    else:
+        terms["coolant_is_product"] = "heating"
+    return terms

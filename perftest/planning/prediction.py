@@ -57,7 +57,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from perftest.errors import InputError
+from perftest.errors import InputError, PerftestError
 from perftest.planning.design import (
     DesignPoint,
     _build,
@@ -76,7 +76,8 @@ __all__ = [
     "effective_samples",
 ]
 
-#: Results predicted besides every ``corrected_*`` result.
+#: Results predicted besides every ``corrected_*`` result and the headline results
+#: of the plant's kind (:data:`perftest.evaluation.plant_keys.KEY_RESULTS`).
 PLAN_RESULTS = (
     "gross_power",
     "net_power",
@@ -104,7 +105,9 @@ class _AsMeasured:
     def __init__(self, rec, m, gains: dict, direct: dict):
         self._rec, self._m, self._gains, self._direct = rec, m, gains, direct
         self.dead_state = rec.dead_state
-        self.model = None
+        # The model's layout (which units are boilers, condensers) decides which
+        # results a kind has; values still come from value() and covariance().
+        self.model = rec.model
 
     def value(self, name):
         if name in self._direct:
@@ -116,6 +119,9 @@ class _AsMeasured:
             g = np.zeros(len(self._m.tags))
             g[self._m.index(self._direct[name])] = 1.0
             return g
+        if name not in self._gains:
+            # only the results' inputs have gains; the exergy account skips the rest
+            raise PerftestError(f"No planned gain for {name!r}.")
         return self._gains[name]
 
     def covariance(self, names):
@@ -370,7 +376,10 @@ def plan(
             "reconciled design point. Check the design values."
         )
     perf = _evaluate(plant, rec, level)
-    outputs = [o for o in PLAN_RESULTS if o in perf.results.index]
+    from perftest.evaluation.plant_keys import key_results, performance_kind
+
+    wanted = dict.fromkeys((*PLAN_RESULTS, *key_results(performance_kind(plant))))
+    outputs = [o for o in wanted if o in perf.results.index]
     outputs += [o for o in perf.results.index if o.startswith("corrected_")]
     inputs = perf.inputs
     hv_names = [n for n in inputs.index if inputs.loc[n, "role"] == "heating_value"]

@@ -253,11 +253,22 @@ def efficiency_figure(data: ReportData):
     ]
     if not all(n in res.index for n, _ in names):
         return None
+    # The second-law efficiency compares the cycle (gross power / heat absorbed) with
+    # Carnot; the bound at the mean temperatures of heat addition and rejection shows
+    # how much of the gap the temperature spread of heat transfer explains.
+    extra = [
+        (1, "cycle_efficiency", "cycle\n(gross / heat absorbed)", "#1f618d"),
+        (3, "mean_temperature_carnot_efficiency", "Carnot at mean\ntemperatures", "#5d6d7e"),
+    ]
+    colors = [_OK, _GREY, "#34495e"]
+    for at, n, label, color in extra:
+        if n in res.index:
+            names.insert(at, (n, label))
+            colors.insert(at, color)
     vals = np.array([res.loc[n, "value"] for n, _ in names]) * 100.0
     errs = np.array([res.loc[n, "U95"] for n, _ in names]) * 100.0
-    fig, ax = _figure(size=(7.5, 4.5))
+    fig, ax = _figure(size=(7.5 + 1.2 * (len(names) - 3), 4.5))
     x = np.arange(len(names))
-    colors = [_OK, _GREY, "#34495e"]
     ax.bar(
         x,
         vals,
@@ -274,11 +285,16 @@ def efficiency_figure(data: ReportData):
     ax.set_ylabel("efficiency [%]")
     ax.set_ylim(0, max(vals + errs) * 1.18)
     if "second_law_efficiency" in res.index:
+        i_ref = (
+            [n for n, _ in names].index("cycle_efficiency")
+            if "cycle_efficiency" in res.index
+            else 0
+        )
         r = res.loc["second_law_efficiency"]
         ax.annotate(
             f"second-law efficiency\n{r['value'] * 100:.1f} % (U95 {r['U95'] * 100:.1f} %)",
-            xy=(0, vals[0] + errs[0]),
-            xytext=(0.5, vals[2] * 0.9),
+            xy=(i_ref, vals[i_ref] + errs[i_ref]),
+            xytext=(i_ref + 0.5, vals[-1] * 0.9),
             fontsize=9,
             ha="center",
             arrowprops={"arrowstyle": "->", "color": _GREY},
@@ -318,13 +334,18 @@ def exergy_figure(data: ReportData):
     energy = [("net power", net, _OK), ("auxiliaries", aux, "#5dade2")]
     if q_cond > 0:
         energy.append(("condenser heat", q_cond, "#85c1e9"))
+    if "heat_export" in res.index:  # CHP: the exported heat is a product, not a loss
+        energy.append(("heat export", res.loc["heat_export", "value"] * mw, "#f5b041"))
     energy.append(("boiler and other losses", max(q_in - sum(v for _, v, _ in energy), 0.0), _GREY))
     palette = ["#c0392b", "#e67e22", "#d35400", "#a93226", "#cd6155", "#f0b27a", "#922b21"]
     destroyed = [
         (f"destroyed: {u}", float(d) * mw, palette[i % len(palette)])
         for i, (u, d) in enumerate(zip(e["unit"], e["destroyed"], strict=True))
     ]
-    exergy = [("net power", net, _OK)] + destroyed
+    exergy = [("net power", net, _OK)]
+    if "heat_export_exergy" in res.index:
+        exergy.append(("heat export", res.loc["heat_export_exergy", "value"] * mw, "#f5b041"))
+    exergy += destroyed
     greys = ["#bdc3c7", "#d7dbdd", "#a6acaf", "#e5e8e8"]
     for i, (k, v) in enumerate(data.exergy_losses.items()):
         exergy.append((f"lost: {k}", float(v) * mw, greys[i % len(greys)]))

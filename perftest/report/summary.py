@@ -123,6 +123,11 @@ def summary_json(data: ReportData) -> dict:
             "U95": finite_or_none(r["U95"]),
             "unit": str(r["unit"]),
         }
+        for extra in ("k", "dof"):
+            if extra in r.index:
+                results[str(name)][extra] = finite_or_none(r[extra])
+        if "basis" in r.index and isinstance(r["basis"], str) and r["basis"]:
+            results[str(name)]["basis"] = r["basis"]
     for name in CONTRACT_RESULTS:
         results.setdefault(name, {"value": None, "u": None, "U95": None, "unit": ""})
 

@@ -57,8 +57,9 @@ __all__ = ["reconcile_many", "local_cluster", "ENGINES", "KEY_RESULTS", "TABLE_C
 #: Engines that :func:`reconcile_many` accepts.
 ENGINES = ("local", "dask")
 
-#: Results reported per window when ``results=True`` (with every ``corrected_*``
-#: result the plant defines).
+#: Results reported per window when ``results=True`` for a power plant (with every
+#: ``corrected_*`` result the plant defines); other kinds report their headline
+#: results (:data:`perftest.evaluation.plant_keys.KEY_RESULTS`).
 KEY_RESULTS = (
     "net_power",
     "heat_input",
@@ -293,6 +294,14 @@ def _check_results(results) -> tuple | None:
     return tuple(names)
 
 
+def _headline(plant) -> tuple:
+    """Headline results of the plant's kind (power: :data:`KEY_RESULTS`)."""
+    from perftest.evaluation.plant_keys import key_results, performance_kind
+
+    kind = performance_kind(plant)
+    return KEY_RESULTS if kind == "power" else key_results(kind)
+
+
 # --------------------------------------------------------------------------- windows
 
 
@@ -401,7 +410,7 @@ def _compute_row(plant, run, spec, options, start=None):
             # not to a trend table (the results are the same either way).
             perf = evaluate(plant, rec, monte_carlo=False, detail=False)
             names = options.results or (
-                *KEY_RESULTS,
+                *_headline(plant),
                 *(n for n in perf.results.index if str(n).startswith("corrected_")),
             )
             for name in names:
@@ -661,7 +670,8 @@ def reconcile_many(
     results : bool or list of str, default True
         Also evaluate the performance results (:func:`perftest.evaluate`, linear
         propagation) and report ``<name>`` and ``u_<name>`` [SI]: with True the
-        :data:`KEY_RESULTS` and every ``corrected_*`` result (when the plant file
+        headline results of the plant's kind (:data:`KEY_RESULTS` for a power plant)
+        and every ``corrected_*`` result (when the plant file
         has a ``[performance]`` table; without one, True reconciles only), or the
         names given.
     eliminate : bool, default False

@@ -197,7 +197,10 @@ def solve_heat_balance() -> dict:
             "sink_temperature": CW_IN_T,
             "carnot_efficiency": carnot,
             "curzon_ahlborn_efficiency": 1.0 - math.sqrt(CW_IN_T / MAIN_STEAM_T),
-            "second_law_efficiency": eta_net / carnot,
+            "cycle_heat": q_boiler,
+            "cycle_efficiency": GROSS_POWER / q_boiler,
+            # the cycle against a reversible engine between the same source and sink
+            "second_law_efficiency": GROSS_POWER / q_boiler / carnot,
         },
         "dead_state": {"temperature": AMBIENT_T, "pressure": BAROMETER},
     }
