@@ -16,6 +16,8 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from perftest.display import unit_label
+
 __all__ = ["ReportData", "collect", "CAUTION"]
 
 #: Printed at the top of every report (see README "Cautions").
@@ -87,6 +89,17 @@ class ReportData:
     audit : dict
         :meth:`perftest.report.audit.AuditRecord.to_dict` of the evaluation (empty when
         built by hand).
+    quantities : dict[str, str]
+        Glossary quantity per tag or group.
+    densities : dict[str, float]
+        [kg/m3] per tag logged as a volume flow of a mass-flow quantity.
+    inputs : DataFrame
+        ``Performance.inputs`` (SI; index = input name; ``value, u, role``).
+    meta : dict[str, str]
+        The test's particulars for the report's header, in order (plant, site,
+        date, window, samples, what the plant file says of the test).
+    permissible : dict[str, float]
+        [SI, as an interval] permissible variation per trended tag (stability band).
     """
 
     title: str = "perftest report"
@@ -117,6 +130,11 @@ class ReportData:
     critical_z: float = 1.959963984540054
     version: str = ""
     audit: dict = field(default_factory=dict)
+    quantities: dict = field(default_factory=dict)
+    densities: dict = field(default_factory=dict)
+    inputs: pd.DataFrame = field(default_factory=pd.DataFrame)
+    meta: dict = field(default_factory=dict)
+    permissible: dict = field(default_factory=dict)
 
 
 def _frame(obj, attr: str | None = None) -> pd.DataFrame:
@@ -148,6 +166,117 @@ def _display_units(plant) -> dict:
         if first in units:
             units[gid] = units[first]
     return units
+
+
+def _tag_facts(plant) -> tuple[dict, dict]:
+    """Glossary quantity and density [kg/m3] per tag (groups take their first member's)."""
+    quantities: dict = {}
+    densities: dict = {}
+    if plant is None:
+        return quantities, densities
+    for tid, spec in plant.tags.items():
+        quantities[tid] = getattr(spec, "quantity", "") or ""
+        if getattr(spec, "density", None) is not None:
+            densities[tid] = float(spec.density)
+    for gid, group in getattr(plant, "groups", {}).items():
+        first = group.tags[0] if group.tags else None
+        if first in quantities:
+            quantities[gid] = quantities[first]
+        if first in densities:
+            densities[gid] = densities[first]
+    return quantities, densities
+
+
+def _duration_text(start, end) -> str:
+    try:
+        d = pd.Timestamp(end) - pd.Timestamp(start)
+    except (TypeError, ValueError):
+        return ""
+    minutes = int(round(d.total_seconds() / 60.0))
+    h, m = divmod(minutes, 60)
+    return f"{h} h {m:02d} min" if h else f"{m} min"
+
+
+def _meta(plant, window: dict, measurements, performance, reconciliation, paths) -> dict:
+    """The header of the report: what was tested, when, and on what terms."""
+    meta: dict = {}
+    if plant is not None:
+        meta["Plant"] = str(getattr(plant, "name", "") or "")
+        path = getattr(plant, "path", None)
+        if path:
+            meta["Plant file"] = str(getattr(path, "name", path))
+        site = getattr(plant, "site", None)
+        tz = getattr(site, "timezone", None)
+        if tz:
+            meta["Time zone"] = str(tz)
+    start, end = window.get("start"), window.get("end")
+    if start:
+        meta["Test date"] = str(pd.Timestamp(start).date())
+        meta["Window"] = (
+            f"{pd.Timestamp(start):%Y-%m-%d %H:%M} to {pd.Timestamp(end):%Y-%m-%d %H:%M}"
+            f" ({_duration_text(start, end)})"
+        )
+    if window.get("how"):
+        meta["Window chosen"] = str(window["how"])
+    if measurements is not None and len(getattr(measurements, "n_samples", ())):
+        n = np.asarray(measurements.n_samples)
+        meta["Samples per tag"] = (
+            f"{int(n.min())} to {int(n.max())}" if n.min() != n.max() else f"{int(n.min())}"
+        ) + f" ({len(n)} tags or groups averaged)"
+    if plant is not None:
+        sections = getattr(plant, "sections", {}) or {}
+        perf = sections.get("performance") or {}
+        if perf.get("kind"):
+            meta["Plant kind"] = str(perf["kind"])
+        basis = perf.get("basis")
+        if basis:
+            meta["Heating-value basis"] = str(basis).upper()
+        acc = sections.get("acceptance") or {}
+        if acc.get("rule"):
+            meta["Verdict rule (plant file)"] = str(acc["rule"])
+        design = sections.get("design") or {}
+        if design.get("duration") or design.get("interval"):
+            meta["Planned test (plant file)"] = ", ".join(
+                x
+                for x in (
+                    f"duration {design['duration']}" if design.get("duration") else "",
+                    f"logging every {design['interval']}" if design.get("interval") else "",
+                )
+                if x
+            )
+        guarantees = sections.get("guarantees") or []
+        if guarantees:
+            meta["Guarantees (plant file)"] = "; ".join(
+                f"{g.get('quantity')} {str(g.get('direction', '')).replace('_', ' ')} "
+                f"{g.get('value')} {unit_label(g.get('unit', ''))}".strip()
+                for g in guarantees
+                if isinstance(g, dict)
+            )
+        refs = sections.get("corrections") or []
+        ref_txt = []
+        for c in refs:
+            if isinstance(c, dict) and isinstance(c.get("reference"), dict):
+                r = c["reference"]
+                unit = unit_label(r.get("unit", ""))
+                txt = f"{c.get('variable')} = {r.get('value')} {unit}".strip()
+                if txt not in ref_txt:
+                    ref_txt.append(txt)
+        if ref_txt:
+            meta["Reference conditions (plant file)"] = "; ".join(ref_txt)
+    if reconciliation is not None:
+        T0, p0 = getattr(reconciliation, "dead_state", (None, None))
+        if T0 is not None:
+            meta["Dead state"] = (
+                f"{float(T0) - 273.15:.1f} °C, {float(p0) / 1e5:.3f} bar"
+                + (
+                    f" ({reconciliation.dead_state_source})"
+                    if getattr(reconciliation, "dead_state_source", "")
+                    else ""
+                )
+            )
+    if paths:
+        meta["Run files"] = ", ".join(str(p) for p in paths)
+    return meta
 
 
 def _atmospheric(plant, measurements) -> float | None:
@@ -284,7 +413,7 @@ def collect(
                 chi2=e.chi2,
                 dof=e.dof,
                 p_value=e.p_value,
-                indistinguishable_from=", ".join(getattr(e, "tied_with", ())),
+                tied_with=", ".join(getattr(e, "tied_with", ())),
             )
             for e in getattr(reconciliation, "eliminated", ())
         ]
@@ -312,6 +441,16 @@ def collect(
     audit = build_audit(
         plant, run, window_run, reconciliation, paths=paths, options=options
     ).to_dict()
+
+    quantities, densities = _tag_facts(plant)
+    run_paths = [
+        f["name"] for f in audit.get("input_files", ()) if f.get("role") == "run" and f.get("name")
+    ]
+    permissible: dict = {}
+    if not stability.empty and "permissible" in stability.columns:
+        for tag in trends.columns:
+            if tag in stability.index:
+                permissible[tag] = float(stability.loc[tag, "permissible"])
 
     return ReportData(
         title=title,
@@ -342,6 +481,11 @@ def collect(
         critical_z=float(NormalDist().inv_cdf(1.0 - alpha / 2.0)),
         version=__version__,
         audit=audit,
+        quantities=quantities,
+        densities=densities,
+        inputs=performance.inputs.copy() if performance is not None else _EMPTY.copy(),
+        meta=_meta(plant, window, measurements, performance, reconciliation, run_paths),
+        permissible=permissible,
     )
 
 
