@@ -98,8 +98,6 @@ class ReportData:
     meta : dict[str, str]
         The test's particulars for the report's header, in order (plant, site,
         date, window, samples, what the plant file says of the test).
-    permissible : dict[str, float]
-        [SI, as an interval] permissible variation per trended tag (stability band).
     """
 
     title: str = "perftest report"
@@ -134,7 +132,6 @@ class ReportData:
     densities: dict = field(default_factory=dict)
     inputs: pd.DataFrame = field(default_factory=pd.DataFrame)
     meta: dict = field(default_factory=dict)
-    permissible: dict = field(default_factory=dict)
 
 
 def _frame(obj, attr: str | None = None) -> pd.DataFrame:
@@ -352,8 +349,9 @@ def collect(
     notes : sequence of str
         Extra notes for the report.
     trend_tags : sequence of str, optional
-        Tags for the stability figure (default: a power, a flow, a temperature and
-        a pressure tag).
+        Tags for the stability figure (default: every tag whose stability was
+        judged in the window; without a window, a power, a flow, a temperature and a
+        pressure tag).
     options : mapping, optional
         Options of the evaluation, recorded in the audit record.
     paths : sequence of path
@@ -390,7 +388,13 @@ def collect(
 
     trends = _EMPTY.copy()
     if run is not None:
-        tags = list(trend_tags) if trend_tags else _trend_tags(plant, run)
+        if trend_tags:
+            tags = list(trend_tags)
+        elif not stability.empty:
+            # every tag whose stability was judged, so the figure shows each band
+            tags = [t for t in stability.index if t in run.data.columns]
+        else:
+            tags = _trend_tags(plant, run)
         tags = [t for t in tags if t in run.data.columns]
         trends = run.data[tags].copy()
 
@@ -446,12 +450,6 @@ def collect(
     run_paths = [
         f["name"] for f in audit.get("input_files", ()) if f.get("role") == "run" and f.get("name")
     ]
-    permissible: dict = {}
-    if not stability.empty and "permissible" in stability.columns:
-        for tag in trends.columns:
-            if tag in stability.index:
-                permissible[tag] = float(stability.loc[tag, "permissible"])
-
     return ReportData(
         title=title,
         window=window,
@@ -485,7 +483,6 @@ def collect(
         densities=densities,
         inputs=performance.inputs.copy() if performance is not None else _EMPTY.copy(),
         meta=_meta(plant, window, measurements, performance, reconciliation, run_paths),
-        permissible=permissible,
     )
 
 

@@ -267,13 +267,19 @@ def sections(data: ReportData, *, figures=()) -> list:
 
     # ---- window, stability, exclusions
     b.append(Block("h2", "Test window and stability"))
-    if "stability" in figs:
+    pages = sorted(
+        (f for f in figs if f == "stability" or f.startswith("stability_")),
+        key=lambda f: 1 if f == "stability" else int(f.rsplit("_", 1)[1]),
+    )
+    for i, stem in enumerate(pages, 1):
+        more = f" (page {i} of {len(pages)})" if len(pages) > 1 else ""
         b.append(
             Block(
                 "figure",
                 "Trends over the whole run; the averaged window is shaded and the "
-                "permissible variation about the window mean is drawn as a band.",
-                figure="stability",
+                "permissible variation about the window mean is drawn as a band (a tag "
+                f"outside it is not steady){more}.",
+                figure=stem,
             )
         )
     st = T.stability_table(data)
@@ -560,7 +566,9 @@ def sections(data: ReportData, *, figures=()) -> list:
         if "budget" in figs:
             b.append(
                 Block(
-                    "figure", "Share of the variance of the first-law efficiency.", figure="budget"
+                    "figure",
+                    f"Share of the variance of the {names[0].replace('_', ' ')}.",
+                    figure="budget",
                 )
             )
         for name in names:
