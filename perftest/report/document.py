@@ -155,17 +155,9 @@ def guarantee_lines(data: ReportData) -> list:
         sign = _DIRECTION.get(r["direction"], r["direction"])
         out.append(
             f"Guarantee {r['quantity']}: {v} ± {U} {unit} (U95) against {sign} "
-            f"{_plain(r['guaranteed'])} {unit}: {r['verdict']} (rule {r['rule']})"
+            f"{D.fmt_plain(r['guaranteed'])} {unit}: {r['verdict']} (rule {r['rule']})"
         )
     return out
-
-
-def _plain(v) -> str:
-    """A stated number as written: no trailing zeros, no e-notation."""
-    text = D.fmt_number(v, 8)
-    if "." in text:
-        text = text.rstrip("0").rstrip(".")
-    return text
 
 
 def _describe(data: ReportData, name: str) -> str:

@@ -157,15 +157,7 @@ def measurements_table(data: ReportData) -> pd.DataFrame:
 
 def _k95(dof) -> float:
     """Coverage factor for 95 % from the Student t distribution (GUM G.3)."""
-    try:
-        nu = float(dof)
-    except (TypeError, ValueError):
-        return 1.959963984540054
-    if not math.isfinite(nu) or nu > 1e6:
-        return 1.959963984540054
-    from scipy.stats import t as student
-
-    return float(student.ppf(0.975, nu))
+    return D.k95(dof)
 
 
 def stability_table(data: ReportData) -> pd.DataFrame:

@@ -29,6 +29,7 @@ __all__ = [
     "CSS",
     "fmt_number",
     "fmt_dof",
+    "fmt_plain",
     "fmt_uncertain",
     "unit_label",
     "engineering_unit",
@@ -39,6 +40,10 @@ __all__ = [
     "text_table",
     "html_block",
     "is_number_text",
+    "decimals_for",
+    "fmt_fixed",
+    "k95",
+    "NO_UNIT",
 ]
 
 #: One colour per thing, shared by the report figures, the report's HTML and the
@@ -142,6 +147,18 @@ def fmt_number(value, digits: int = 4) -> str:
     return text.replace("-", "−")
 
 
+def fmt_plain(value) -> str:
+    """A stated number (a guarantee, a reference) as written: no trailing zeros.
+
+    >>> fmt_plain(33.0), fmt_plain(11462.0), fmt_plain(0.125)
+    ('33', '11462', '0.125')
+    """
+    text = fmt_number(value, 8)
+    if "." in text:
+        text = text.rstrip("0").rstrip(".")
+    return text
+
+
 def fmt_dof(dof) -> str:
     """Degrees of freedom as a reader wants them: ``"∞"`` or ``">1000"`` past 1000.
 
@@ -160,6 +177,22 @@ def fmt_dof(dof) -> str:
     if f > 1000:
         return ">1000"
     return f"{f:.0f}" if f >= 10 else f"{f:.1f}"
+
+
+def k95(dof) -> float:
+    """Coverage factor for about 95 % from the Student t distribution (GUM G.3).
+
+    1.96 (the normal value) for infinite or more than a million degrees of freedom.
+    """
+    try:
+        nu = float(dof)
+    except (TypeError, ValueError):
+        return 1.959963984540054
+    if not math.isfinite(nu) or nu > 1e6 or nu <= 0:
+        return 1.959963984540054
+    from scipy.stats import t as student
+
+    return float(student.ppf(0.975, nu))
 
 
 def decimals_for(U) -> int | None:
