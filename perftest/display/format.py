@@ -438,7 +438,7 @@ CSS = f"""
 .perftest-repr table {{ border-collapse: collapse; }}
 .perftest-repr th {{ background: {COLOURS["heading"]}; text-align: left;
   padding: 2px 6px; border-bottom: 1px solid {COLOURS["grid"]}; }}
-.perftest-repr td {{ padding: 1px 6px; border-bottom: 1px solid #f2f3f4; }}
+.perftest-repr td {{ padding: 1px 6px; border-bottom: 1px solid #f2f3f4; white-space: nowrap; }}
 .perftest-repr td.num {{ text-align: right; font-variant-numeric: tabular-nums; }}
 .perftest-repr td.txt {{ text-align: left; }}
 .perftest-repr tr.flag td {{ background: {COLOURS["flag_background"]};
