@@ -147,13 +147,13 @@ def fmt_number(value, digits: int = 4) -> str:
     return text.replace("-", "−")
 
 
-def fmt_plain(value) -> str:
+def fmt_plain(value, digits: int = 8) -> str:
     """A stated number (a guarantee, a reference) as written: no trailing zeros.
 
     >>> fmt_plain(33.0), fmt_plain(11462.0), fmt_plain(0.125)
     ('33', '11462', '0.125')
     """
-    text = fmt_number(value, 8)
+    text = fmt_number(value, digits)
     if "." in text:
         text = text.rstrip("0").rstrip(".")
     return text
@@ -163,8 +163,8 @@ def fmt_dof(dof) -> str:
     """Degrees of freedom as a reader wants them: ``"∞"`` or ``">1000"`` past 1000.
 
     Past 1000 degrees of freedom the Student t factor for 95 % differs from the
-    normal 1.96 by less than 0.1 % (t(0.975, 1000) = 1.962), so the exact number
-    says nothing more.
+    normal 1.96 by at most 0.12 % (t(0.975, 1000) = 1.962), below the two digits a
+    U95 is stated with, so the exact number says nothing more.
     """
     try:
         f = float(dof)
@@ -336,6 +336,11 @@ def convert(
         engineering or SI unit of the quantity, or to the SI values with no label).
     """
     arr = np.asarray(values, dtype=float)
+    if not quantity and unit:
+        try:
+            quantity = _units.parse_unit(unit).quantity
+        except PerftestError:
+            quantity = None
     tries = []
     if unit:
         tries.append(unit)
@@ -345,17 +350,17 @@ def convert(
     for u in tries:
         try:
             spec = _units.parse_unit(u)
-            if quantity and spec.quantity != quantity and not spec.needs_density:
-                if not _units.compatible(spec.quantity, quantity):
-                    continue
-            if spec.needs_density and density is None:
+            # a density is needed (and allowed) only to show a mass flow in a volume unit
+            rho = density if (spec.needs_density and quantity != spec.quantity) else None
+            if spec.needs_density and quantity != spec.quantity and density is None:
                 continue
             out = _units.from_si(
                 arr,
                 u,
                 atmospheric_pressure=None if difference else atmospheric_pressure,
-                density=density if spec.needs_density else None,
+                density=rho,
                 difference=difference,
+                quantity=quantity or None,
             )
             return np.asarray(out, dtype=float), u
         except PerftestError:
@@ -480,11 +485,10 @@ def html_table(header, rows, *, flags=None, limit: int | None = 30) -> str:
     body = []
     for flag, r in zip(flags, shown, strict=False):
         cells = "".join(
-            f'<td class="{"num" if is_number_text(str(c)) else "txt"}">'
-            f"{_html.escape(str(c))}</td>"
+            f'<td class="{"num" if is_number_text(str(c)) else "txt"}">{_html.escape(str(c))}</td>'
             for c in r
         )
-        body.append(f'<tr{" class=flag" if flag else ""}>{cells}</tr>')
+        body.append(f"<tr{' class=flag' if flag else ''}>{cells}</tr>")
     more = ""
     if limit is not None and len(rows) > limit:
         more = (

@@ -152,7 +152,7 @@ def record_text(rec) -> str:
         si_unit = _si(rec.quantity) if rec.quantity else ""
     except Exception:  # unknown quantity: show no SI unit rather than fail
         si_unit = ""
-    inside = f"; {fmt_number(si, 6)} {si_unit} inside" if si_unit and si_unit != unit else ""
+    inside = f"; {fmt_plain(si, 6)} {si_unit} inside" if si_unit and si_unit != unit else ""
     return (
         f"MeasurementRecord({rec.tag!r}, {rec.quantity or 'quantity?'}: {v} ± {Ut} "
         f"{_label(unit)} (U95{inside}), dof {fmt_dof(rec.dof)}, {rec.n_samples} samples, "
@@ -210,18 +210,21 @@ def _window_text(start, end) -> str:
 
 def _measurement_rows(m, units="logged"):
     f = measurements_frame(m, units)
-    rows, header = [], [
-        "tag",
-        "quantity",
-        "mean",
-        "U95",
-        "unit",
-        "u random",
-        "u systematic",
-        "degrees of freedom",
-        "samples",
-        "excluded",
-    ]
+    rows, header = (
+        [],
+        [
+            "tag",
+            "quantity",
+            "mean",
+            "U95",
+            "unit",
+            "u random",
+            "u systematic",
+            "degrees of freedom",
+            "samples",
+            "excluded",
+        ],
+    )
     flags = []
     for r in f.to_dict("records"):
         U = k95(r["dof"]) * r["u"]
@@ -554,11 +557,7 @@ class WindowTable(pd.DataFrame):
         return lines
 
     def _result_columns(self) -> list:
-        return [
-            c
-            for c in self.columns
-            if f"u_{c}" in self.columns and not str(c).startswith("u_")
-        ]
+        return [c for c in self.columns if f"u_{c}" in self.columns and not str(c).startswith("u_")]
 
     def _rows(self, limit: int):
         cols = self._result_columns()

@@ -263,13 +263,10 @@ def _meta(plant, window: dict, measurements, performance, reconciliation, paths)
     if reconciliation is not None:
         T0, p0 = getattr(reconciliation, "dead_state", (None, None))
         if T0 is not None:
-            meta["Dead state"] = (
-                f"{float(T0) - 273.15:.1f} °C, {float(p0) / 1e5:.3f} bar"
-                + (
-                    f" ({reconciliation.dead_state_source})"
-                    if getattr(reconciliation, "dead_state_source", "")
-                    else ""
-                )
+            meta["Dead state"] = f"{float(T0) - 273.15:.1f} °C, {float(p0) / 1e5:.3f} bar" + (
+                f" ({reconciliation.dead_state_source})"
+                if getattr(reconciliation, "dead_state_source", "")
+                else ""
             )
     if paths:
         meta["Run files"] = ", ".join(str(p) for p in paths)

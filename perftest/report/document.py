@@ -593,8 +593,7 @@ def sections(data: ReportData, *, figures=()) -> list:
             b.append(
                 Block(
                     "figure",
-                    "Energy and exergy of the fuel, and exergy destroyed per piece of "
-                    "equipment.",
+                    "Energy and exergy of the fuel, and exergy destroyed per piece of equipment.",
                     figure="flows",
                 )
             )

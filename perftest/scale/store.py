@@ -141,9 +141,7 @@ def _bar(total: int, notebook: bool, delay: float):
             from tqdm.std import tqdm
     except ImportError:
         return None
-    return tqdm(
-        total=total, unit="window", delay=delay, file=sys.stderr, dynamic_ncols=True
-    )
+    return tqdm(total=total, unit="window", delay=delay, file=sys.stderr, dynamic_ncols=True)
 
 
 class Progress:
