@@ -578,7 +578,7 @@ def sections(data: ReportData, *, figures=()) -> list:
                         ("estimate", "estimate", ("by", "u")),
                         ("u", "u", "u"),
                         ("unit", "unit", "text"),
-                        ("sensitivity", f"sensitivity [{ru} per unit]", "u"),
+                        ("sensitivity", f"sensitivity [{ru} per input unit]", "u"),
                         ("u_contribution", f"contribution [{ru}]", "u"),
                         ("share", "share of variance [%]", "pct"),
                     ],
