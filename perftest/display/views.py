@@ -76,7 +76,7 @@ def _densities(plant) -> dict:
 
 
 # --------------------------------------------------------------------------- plant
-def _uncertainty_text(u) -> str:
+def _uncertainty_text(u, unit: str = "") -> str:
     if u is None:
         return NO_UNIT
     kind = {
@@ -84,6 +84,8 @@ def _uncertainty_text(u) -> str:
         "percent_of_reading": "% of reading",
         "percent_of_span": "% of span",
     }.get(getattr(u, "kind", ""), getattr(u, "kind", ""))
+    if getattr(u, "kind", "") == "absolute":
+        kind = unit_label(unit)
     level = getattr(u, "level", "")
     lvl = f"{float(level) * 100:g} %" if isinstance(level, int | float) else str(level)
     return f"{fmt_number(u.value, 3)} {kind}".strip() + (f" ({lvl})" if lvl else "")
@@ -126,7 +128,7 @@ def plant_html(plant) -> str:
             tid,
             spec.quantity or "",
             unit_label(spec.unit),
-            _uncertainty_text(getattr(spec, "uncertainty", None)),
+            _uncertainty_text(getattr(spec, "uncertainty", None), spec.unit),
             getattr(spec, "description", "") or "",
         ]
         for tid, spec in tags.items()

@@ -273,7 +273,7 @@ def _meta(plant, window: dict, measurements, performance, reconciliation, paths)
     return meta
 
 
-def _atmospheric(plant, measurements) -> float | None:
+def _atmospheric(plant, measurements, window_run=None) -> float | None:
     if plant is None:
         return None
     site = plant.site
@@ -282,6 +282,9 @@ def _atmospheric(plant, measurements) -> float | None:
     tag = site.barometer_tag
     if tag and measurements is not None and tag in measurements.tags:
         return float(measurements.value[measurements.index(tag)])
+    if tag and window_run is not None and tag in window_run.data.columns:
+        mean = float(window_run.data[tag].mean())  # the barometer over the window
+        return mean if math.isfinite(mean) else None
     return None
 
 
@@ -451,7 +454,7 @@ def collect(
         title=title,
         window=window,
         units=_display_units(plant),
-        atmospheric_pressure=_atmospheric(plant, measurements),
+        atmospheric_pressure=_atmospheric(plant, measurements, window_run),
         measurements=_frame(measurements, "to_frame"),
         stability=stability,
         exclusions=exclusions,
