@@ -40,6 +40,7 @@ __all__ = [
     "text_table",
     "html_block",
     "is_number_text",
+    "numeric_columns",
     "decimals_for",
     "fmt_fixed",
     "k95",
@@ -453,6 +454,16 @@ CSS = f"""
 """
 
 
+def numeric_columns(rows, ncols: int) -> list:
+    """Per column: whether it holds numbers (dashes for missing values allowed)."""
+    out = []
+    for j in range(ncols):
+        cells = [str(r[j]) for r in rows if j < len(r)]
+        filled = [c for c in cells if c not in ("", NO_UNIT)]
+        out.append(bool(filled) and all(is_number_text(c) for c in filled))
+    return out
+
+
 def is_number_text(text: str) -> bool:
     """Whether a table cell holds a number (as formatted here), to right-align it."""
     t = text.replace("−", "-").replace("±", "").replace(">", "").replace(" ", "")
@@ -482,11 +493,12 @@ def html_table(header, rows, *, flags=None, limit: int | None = 30) -> str:
     flags = list(flags) if flags is not None else [False] * len(rows)
     shown = rows if limit is None else rows[:limit]
     head = "".join(f"<th>{_html.escape(str(h))}</th>" for h in header)
+    numeric = numeric_columns(rows, len(header))
     body = []
     for flag, r in zip(flags, shown, strict=False):
         cells = "".join(
-            f'<td class="{"num" if is_number_text(str(c)) else "txt"}">{_html.escape(str(c))}</td>'
-            for c in r
+            f'<td class="{"num" if numeric[j] else "txt"}">{_html.escape(str(c))}</td>'
+            for j, c in enumerate(r)
         )
         body.append(f"<tr{' class=flag' if flag else ''}>{cells}</tr>")
     more = ""

@@ -260,8 +260,8 @@ def audit_lines(audit: Mapping) -> list[str]:
     for k, e in enumerate(steps, 1):
         out.append(
             f"Dropped by serial elimination, step {k}: {e['tag']} (|z| = "
-            f"{fmt_number(abs(e['z']), 3)}; before the step chi2 = {fmt_number(e['chi2'], 4)}, "
-            f"dof = {e['dof']}, p = {fmt_number(e['p_value'], 3)})"
+            f"{fmt_number(abs(e['z']), 3)}; before the step χ² = {fmt_number(e['chi2'], 4)}, "
+            f"{e['dof']} degrees of freedom, p = {fmt_number(e['p_value'], 3)})"
             + (
                 "; tied with (the test cannot tell them apart) " + ", ".join(e["tied_with"])
                 if e.get("tied_with")

@@ -12,7 +12,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from perftest.display import COLOURS, is_number_text
+from perftest.display import COLOURS, numeric_columns
 from perftest.report.data import ReportData
 from perftest.report.document import sections
 
@@ -60,21 +60,22 @@ li {{ overflow-wrap: anywhere; }}
 """
 
 
-def _cell_class(text: str, col: int) -> str:
+def _cell_class(col: int, numeric: list) -> str:
     if col == 0:
         return ' class="id"'
-    return ' class="num"' if is_number_text(text) else ""
+    return ' class="num"' if numeric[col] else ""
 
 
 def html_table(df: pd.DataFrame, flags=None, *, css_class: str = "") -> str:
     """A DataFrame of strings as an HTML table; flagged rows get class ``flag``."""
     flags = list(flags or [False] * len(df))
     head = "".join(f"<th>{html.escape(str(c))}</th>" for c in df.columns)
+    numeric = numeric_columns([list(r) for r in df.itertuples(index=False)], len(df.columns))
     rows = []
     for flag, row in zip(flags, df.itertuples(index=False), strict=True):
         cls = ' class="flag"' if flag else ""
         cells = "".join(
-            f"<td{_cell_class(str(v), j)}>{html.escape(str(v))}</td>" for j, v in enumerate(row)
+            f"<td{_cell_class(j, numeric)}>{html.escape(str(v))}</td>" for j, v in enumerate(row)
         )
         rows.append(f"<tr{cls}>{cells}</tr>")
     cls_attr = f' class="{html.escape(css_class)}"' if css_class else ""

@@ -69,7 +69,7 @@ def structure(md: str) -> list:
     for i, line in enumerate(lines):
         if line.startswith("## "):
             out.append((line[3:], []))
-        elif line.startswith("| ") and i + 1 < len(lines) and lines[i + 1].startswith("|---"):
+        elif line.startswith("| ") and i + 1 < len(lines) and re.match(r"\|:?---", lines[i + 1]):
             out[-1][1].append([c.strip() for c in line.strip().strip("|").split(" | ")])
     return out
 
