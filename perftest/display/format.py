@@ -31,6 +31,7 @@ __all__ = [
     "fmt_dof",
     "fmt_plain",
     "fmt_uncertain",
+    "fmt_u",
     "unit_label",
     "engineering_unit",
     "result_unit",
@@ -225,6 +226,19 @@ def fmt_fixed(value, decimals: int | None, digits: int = 4) -> str:
     if text.startswith("-") and float(text) == 0:
         text = text[1:]
     return text.replace("-", "−")
+
+
+def fmt_u(value) -> str:
+    """An uncertainty alone: two significant digits, integer digits rounded too.
+
+    >>> fmt_u(0.01463), fmt_u(119.4), fmt_u(-0.0038)
+    ('0.015', '120', '−0.0038')
+    """
+    try:
+        f = float(value)
+    except (TypeError, ValueError):
+        return str(value)
+    return fmt_fixed(f, decimals_for(abs(f)), 2)
 
 
 def fmt_uncertain(value, U) -> tuple[str, str]:

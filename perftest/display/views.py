@@ -19,6 +19,7 @@ from perftest.display.format import (
     fmt_dof,
     fmt_number,
     fmt_plain,
+    fmt_u,
     fmt_uncertain,
     html_block,
     html_table,
@@ -238,8 +239,8 @@ def _measurement_rows(m, units="logged"):
                 v,
                 Ut,
                 _label(r["unit"]) or NO_UNIT,
-                fmt_number(r["u_random"], 2),
-                fmt_number(r["u_systematic"], 2),
+                fmt_u(r["u_random"]),
+                fmt_u(r["u_systematic"]),
                 fmt_dof(r["dof"]),
                 str(r["n_samples"]),
                 str(r["n_excluded"]),
@@ -486,7 +487,7 @@ def _plan_rows(plan):
                 Uo,
                 _label(unit) or NO_UNIT,
                 fmt_number(r.get("ratio", np.nan), 2),
-                fmt_number(allowed * s, 2) if allowed == allowed else NO_UNIT,
+                fmt_u(allowed * s) if allowed == allowed else NO_UNIT,
                 NO_UNIT if within is None or within != within else ("yes" if within else "no"),
             ]
         )

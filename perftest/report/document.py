@@ -71,8 +71,8 @@ def _cell(v, kind, row) -> str:
         return " & ".join(D.fmt_number(x) for x in v)
     if kind == "num":
         return D.fmt_number(v, 4)
-    if kind == "u":
-        return D.fmt_number(v, 2)
+    if kind == "u":  # two significant digits, integer digits rounded too (119 -> 120)
+        return D.fmt_u(v)
     if kind == "dof":
         return D.fmt_dof(v)
     if kind == "int":
