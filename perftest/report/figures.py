@@ -341,6 +341,8 @@ def budget_figure(data: ReportData, name: str | None = None, top: int = 8):
     title = name.replace("_", " ")
     if name in data.results.index:
         r = data.results.loc[name]
+        if isinstance(r.get("description"), str) and r["description"]:
+            title = r["description"][0].lower() + r["description"][1:]
         unit, scale, offset = result_display(name, r["unit"], r["value"])
         v, U = fmt_uncertain(r["value"] * scale + offset, r["U95"] * abs(scale))
         label = "" if unit == "1" else " " + unit_label(unit)
@@ -386,7 +388,9 @@ def efficiency_figure(data: ReportData):
     if "second_law_efficiency" in res.index:
         r = res.loc["second_law_efficiency"]
         ax.annotate(
-            f"second-law efficiency\n{r['value'] * 100:.1f} % (U95 {r['U95'] * 100:.1f} %)",
+            "second-law efficiency\n{} ± {} % (U95)".format(
+                *fmt_uncertain(r["value"] * 100, r["U95"] * 100)
+            ),
             xy=(0, vals[0] + errs[0]),
             xytext=(0.5, vals[2] * 0.9),
             fontsize=9,
