@@ -151,12 +151,13 @@ def guarantee_lines(data: ReportData) -> list:
     out = []
     for r in gt.to_dict("records"):
         v, U = D.fmt_uncertain(r["corrected_value"], r["U95"])
-        unit = _unit(r["unit"])
+        unit = "" if r["unit"] in ("1", "") else _unit(r["unit"])
         sign = _DIRECTION.get(r["direction"], r["direction"])
-        out.append(
+        text = (
             f"Guarantee {r['quantity']}: {v} ± {U} {unit} (U95) against {sign} "
             f"{D.fmt_plain(r['guaranteed'])} {unit}: {r['verdict']} (rule {r['rule']})"
         )
+        out.append(" ".join(text.split()).replace(" :", ":"))
     return out
 
 

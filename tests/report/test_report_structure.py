@@ -195,3 +195,42 @@ def test_figures_are_paged_with_bands(demo):
     pages = -(-n_tags // STABILITY_TAGS_PER_PAGE)
     stems = re.findall(r"figures/(stability(?:_\d+)?)\.png", demo.md)
     assert len(set(stems)) == pages
+
+
+def test_tables_generic_over_plant_kinds():
+    """Results of another plant kind (names from the contract's table of kinds) get
+    units by their SI unit and size, and a guaranteed COP reads as a plain number."""
+    names = {
+        "cooling_capacity": (2.4e6, 2.0e4, "W"),
+        "power_input": (6.0e5, 5.0e3, "W"),
+        "cop": (4.0, 0.05, "1"),
+        "carnot_cop": (9.1, 0.02, "1"),
+        "second_law_efficiency": (0.44, 0.006, "1"),
+        "corrected_cop": (4.1, 0.05, "1"),
+    }
+    res = pd.DataFrame(
+        {
+            "value": [v[0] for v in names.values()],
+            "u": [v[1] for v in names.values()],
+            "U95": [1.96 * v[1] for v in names.values()],
+            "unit": [v[2] for v in names.values()],
+            "description": list(names),
+        },
+        index=pd.Index(list(names), name="name"),
+    )
+    g = pd.DataFrame(
+        [dict(quantity="corrected_cop", corrected_value=4.1, U95=0.098, guaranteed=3.9,
+              direction="at_least", verdict="met", unit="", rule="guarded")]
+    )  # fmt: skip
+    data = ReportData(results=res, guarantees=g)
+    rt = T.results_table(data).set_index("name")
+    assert rt.loc["cooling_capacity", "unit"] == "MW"
+    assert rt.loc["power_input", "unit"] == "kW"  # below 1 MW: kW
+    assert rt.loc["power_input", "value"] == pytest.approx(600.0)
+    assert rt.loc["cop", "unit"] == "1" and rt.loc["cop", "value"] == pytest.approx(4.0)
+    assert rt.loc["second_law_efficiency", "unit"] == "%"
+    md = render_markdown(data)
+    line = next(x for x in md.splitlines() if x.startswith("- Guarantee corrected_cop"))
+    assert (
+        line == "- Guarantee corrected_cop: 4.100 ± 0.098 (U95) against ≥ 3.9: met (rule guarded)"
+    )
