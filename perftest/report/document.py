@@ -73,6 +73,8 @@ def _cell(v, kind, row) -> str:
         return D.fmt_number(v, 4)
     if kind == "u":  # two significant digits, integer digits rounded too (119 -> 120)
         return D.fmt_u(v)
+    if kind == "plain":  # a stated number (guarantee, reference) as written
+        return D.fmt_plain(v)
     if kind == "dof":
         return D.fmt_dof(v)
     if kind == "int":
@@ -251,7 +253,7 @@ def sections(data: ReportData, *, figures=()) -> list:
                     ("variable", "condition", "text"),
                     ("test", "during the test", ("by", "U95")),
                     ("U95", "U95", "u"),
-                    ("reference", "reference", "num"),
+                    ("reference", "reference", "plain"),
                     ("deviation", "test − reference", ("by", "U95")),
                     ("unit", "unit", "text"),
                 ],
@@ -511,7 +513,7 @@ def sections(data: ReportData, *, figures=()) -> list:
                         ("result", "result", "text"),
                         ("variable", "condition", "text"),
                         ("condition", "during the test", "num"),
-                        ("reference", "reference", "num"),
+                        ("reference", "reference", "plain"),
                         ("unit", "unit", "text"),
                         ("kind", "kind", "text"),
                         ("factor", "factor or offset", "num"),
@@ -666,7 +668,7 @@ def sections(data: ReportData, *, figures=()) -> list:
                     ("corrected_value", "corrected value", ("by", "U95")),
                     ("U95", "U95", "u"),
                     ("direction", "guarantee", "text"),
-                    ("guaranteed", "guaranteed value", "num"),
+                    ("guaranteed", "guaranteed value", "plain"),
                     ("unit", "unit", "text"),
                     ("verdict", "verdict", "text"),
                     ("rule", "rule", "text"),
