@@ -11,11 +11,15 @@ import importlib
 from perftest.errors import (  # noqa: F401 - re-exported through __all__
     ConvergenceError,
     DataError,
+    DataQualityWarning,
     InputError,
+    PerftestDeprecationWarning,
     PerftestError,
     PerftestWarning,
     PlantFileError,
     PropertyRangeError,
+    ReconciliationWarning,
+    StabilityWarning,
     UnitError,
 )
 
@@ -35,6 +39,12 @@ _LAZY = {
     "Reconciliation": "perftest.balance",
     "serial_elimination": "perftest.balance",
     "reconcile": "perftest.balance.plant",
+    # what reconcile() returns (perftest.Reconciliation is the balance engine's result)
+    "PlantReconciliation": "perftest.balance.plant",
+    "EliminatedTag": "perftest.balance.plant",
+    "MeasurementRecord": "perftest.run.measurements",
+    "Performance": "perftest.evaluation.results",
+    "WindowTable": "perftest.display.views",
     "get_fluid": "perftest.thermo",
     "Gas": "perftest.thermo",
     "stoichiometric_air": "perftest.thermo.combustion",
@@ -55,6 +65,10 @@ __all__ = sorted(
         "PropertyRangeError",
         "ConvergenceError",
         "PerftestWarning",
+        "DataQualityWarning",
+        "StabilityWarning",
+        "ReconciliationWarning",
+        "PerftestDeprecationWarning",
         *_LAZY,
     ]
 )

@@ -162,3 +162,28 @@ def test_window_table_covers_the_run(executed):
         assert status in ("ok", "skipped", "failed")
         if status == "skipped":
             assert n < 8  # fewer than half of a full window's 15 one-minute samples
+
+
+@pytest.mark.slow
+def test_objects_show_themselves(executed):
+    """Plant, measurements, reconciliation, performance, plan and windows table each
+    display as a compact HTML table with units (no e-notation), and the report's
+    figures show as images."""
+    import re
+
+    nb, _ = executed
+    views = []
+    images = 0
+    for cell in nb.cells:
+        for out in getattr(cell, "outputs", []):
+            data = out.get("data", {})
+            html = data.get("text/html", "")
+            if "perftest-repr" in html:
+                views.append(re.search(r'class="pt-title">([^<]*)<', html).group(1))
+                cells = re.findall(r"<td[^>]*>([^<]*)</td>", html)
+                assert not [c for c in cells if re.search(r"\d[eE][+-]?\d", c)], views[-1]
+            images += "image/png" in data
+    for title in ("Plant ", "Measurements:", "Plant reconciliation", "Performance:",
+                  "UncertaintyPlan:", "Windows table"):  # fmt: skip
+        assert any(v.startswith(title) for v in views), (title, views)
+    assert images >= 3  # stability page, reconciliation figure, the window trend

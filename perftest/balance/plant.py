@@ -296,8 +296,16 @@ class PlantReconciliation:
             "passed": bool(r.p_value >= self.alpha),
         }
 
-    def to_frame(self) -> pd.DataFrame:
+    def to_frame(self, units="si") -> pd.DataFrame:
         """One row per measured tag (every tag of the measurements).
+
+        Parameters
+        ----------
+        units : "si", "logged", "engineering" or mapping, default "si"
+            Units of the values, uncertainties and adjustments: SI (as used inside),
+            each tag's logged unit, bar/°C/t/h... by quantity, or a mapping of tag id
+            or quantity to a unit.  Other than "si", a ``unit`` column names the unit
+            of each row's numbers.
 
         Returns
         -------
@@ -352,7 +360,11 @@ class PlantReconciliation:
                     variables=", ".join(uses.get(tag, ())),
                 )
             )
-        return pd.DataFrame(rows)
+        if isinstance(units, str) and units == "si":
+            return pd.DataFrame(rows)
+        from perftest.display.views import reconciliation_frame
+
+        return reconciliation_frame(pd.DataFrame(rows), self, units)
 
     @cached_property
     def streams(self) -> pd.DataFrame:
@@ -453,6 +465,16 @@ class PlantReconciliation:
             out.append((uid, unit.declared_type, mass, energy, e_in + max(extra, 0.0)))
         cols = ["unit", "type", "mass_imbalance", "energy_imbalance", "energy_throughput"]
         return pd.DataFrame(out, columns=cols)
+
+    def __repr__(self) -> str:
+        from perftest.display.views import reconciliation_text
+
+        return reconciliation_text(self)
+
+    def _repr_html_(self) -> str:
+        from perftest.display.views import reconciliation_html
+
+        return reconciliation_html(self)
 
 
 def _weak(result) -> np.ndarray:

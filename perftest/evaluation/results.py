@@ -167,6 +167,25 @@ class Performance:
         nums = correlated_values(self.results["value"].to_numpy(float), cov, tags=names)
         return dict(zip(names, nums, strict=True))
 
+    def to_frame(self, units="engineering") -> pd.DataFrame:
+        """The results in engineering units (MW, %, kJ/kWh, °C), or as stored (``"si"``).
+
+        Columns ``value, u, U95, unit, description``, indexed by result name.
+        """
+        from perftest.display.views import performance_frame
+
+        return performance_frame(self, units)
+
+    def __repr__(self) -> str:
+        from perftest.display.views import performance_text
+
+        return performance_text(self)
+
+    def _repr_html_(self) -> str:
+        from perftest.display.views import performance_html
+
+        return performance_html(self)
+
 
 # --------------------------------------------------------------------------- evaluate
 

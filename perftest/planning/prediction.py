@@ -286,6 +286,16 @@ class UncertaintyPlan:
             "notes": list(self.notes),
         }
 
+    def __repr__(self) -> str:
+        from perftest.display.views import plan_text
+
+        return plan_text(self)
+
+    def _repr_html_(self) -> str:
+        from perftest.display.views import plan_html
+
+        return plan_html(self)
+
 
 def _variances(S_rows: np.ndarray, B: np.ndarray, hv: np.ndarray) -> np.ndarray:
     """Per result: contribution of each source (columns of B) and the heating value."""

@@ -422,3 +422,13 @@ class Plant:
     def tags_without_uncertainty(self) -> tuple[str, ...]:
         """Tag ids whose systematic uncertainty is not stated (taken as 0)."""
         return tuple(t for t, s in self.tags.items() if s.uncertainty is None)
+
+    def __repr__(self) -> str:
+        from perftest.display.views import plant_text
+
+        return plant_text(self)
+
+    def _repr_html_(self) -> str:
+        from perftest.display.views import plant_html
+
+        return plant_html(self)

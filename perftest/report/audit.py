@@ -30,6 +30,8 @@ from pathlib import Path
 
 import pandas as pd
 
+from perftest.display import fmt_number
+
 __all__ = [
     "AuditRecord",
     "MaskedSamples",
@@ -197,7 +199,7 @@ class AuditRecord:
                     "chi2": e.chi2,
                     "dof": e.dof,
                     "p_value": e.p_value,
-                    "indistinguishable_from": list(e.tied_with),
+                    "tied_with": list(e.tied_with),
                 }
                 for e in self.eliminated
             ],
@@ -257,11 +259,12 @@ def audit_lines(audit: Mapping) -> list[str]:
     steps = list(audit.get("eliminated", ()))
     for k, e in enumerate(steps, 1):
         out.append(
-            f"Dropped by serial elimination, step {k}: {e['tag']} (|z| = {abs(e['z']):.3g}; "
-            f"before the step chi2 = {e['chi2']:.4g}, dof = {e['dof']}, p = {e['p_value']:.3g})"
+            f"Dropped by serial elimination, step {k}: {e['tag']} (|z| = "
+            f"{fmt_number(abs(e['z']), 3)}; before the step χ² = {fmt_number(e['chi2'], 4)}, "
+            f"{e['dof']} degrees of freedom, p = {fmt_number(e['p_value'], 3)})"
             + (
-                "; indistinguishable by the test from " + ", ".join(e["indistinguishable_from"])
-                if e.get("indistinguishable_from")
+                "; tied with (the test cannot tell them apart) " + ", ".join(e["tied_with"])
+                if e.get("tied_with")
                 else ""
             )
         )

@@ -16,6 +16,8 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from perftest.display import unit_label
+
 __all__ = ["ReportData", "collect", "CAUTION"]
 
 #: Printed at the top of every report (see README "Cautions").
@@ -87,6 +89,15 @@ class ReportData:
     audit : dict
         :meth:`perftest.report.audit.AuditRecord.to_dict` of the evaluation (empty when
         built by hand).
+    quantities : dict[str, str]
+        Glossary quantity per tag or group.
+    densities : dict[str, float]
+        [kg/m3] per tag logged as a volume flow of a mass-flow quantity.
+    inputs : DataFrame
+        ``Performance.inputs`` (SI; index = input name; ``value, u, role``).
+    meta : dict[str, str]
+        The test's particulars for the report's header, in order (plant, site,
+        date, window, samples, what the plant file says of the test).
     """
 
     title: str = "perftest report"
@@ -117,6 +128,10 @@ class ReportData:
     critical_z: float = 1.959963984540054
     version: str = ""
     audit: dict = field(default_factory=dict)
+    quantities: dict = field(default_factory=dict)
+    densities: dict = field(default_factory=dict)
+    inputs: pd.DataFrame = field(default_factory=pd.DataFrame)
+    meta: dict = field(default_factory=dict)
 
 
 def _frame(obj, attr: str | None = None) -> pd.DataFrame:
@@ -150,7 +165,115 @@ def _display_units(plant) -> dict:
     return units
 
 
-def _atmospheric(plant, measurements) -> float | None:
+def _tag_facts(plant) -> tuple[dict, dict]:
+    """Glossary quantity and density [kg/m3] per tag (groups take their first member's)."""
+    quantities: dict = {}
+    densities: dict = {}
+    if plant is None:
+        return quantities, densities
+    for tid, spec in plant.tags.items():
+        quantities[tid] = getattr(spec, "quantity", "") or ""
+        if getattr(spec, "density", None) is not None:
+            densities[tid] = float(spec.density)
+    for gid, group in getattr(plant, "groups", {}).items():
+        first = group.tags[0] if group.tags else None
+        if first in quantities:
+            quantities[gid] = quantities[first]
+        if first in densities:
+            densities[gid] = densities[first]
+    return quantities, densities
+
+
+def _duration_text(start, end) -> str:
+    try:
+        d = pd.Timestamp(end) - pd.Timestamp(start)
+    except (TypeError, ValueError):
+        return ""
+    minutes = int(round(d.total_seconds() / 60.0))
+    h, m = divmod(minutes, 60)
+    return f"{h} h {m:02d} min" if h else f"{m} min"
+
+
+def _meta(plant, window: dict, measurements, performance, reconciliation, paths) -> dict:
+    """The header of the report: what was tested, when, and on what terms."""
+    meta: dict = {}
+    if plant is not None:
+        meta["Plant"] = str(getattr(plant, "name", "") or "")
+        path = getattr(plant, "path", None)
+        if path:
+            meta["Plant file"] = str(getattr(path, "name", path))
+        site = getattr(plant, "site", None)
+        tz = getattr(site, "timezone", None)
+        if tz:
+            meta["Time zone"] = str(tz)
+    start, end = window.get("start"), window.get("end")
+    if start:
+        meta["Test date"] = str(pd.Timestamp(start).date())
+        meta["Window"] = (
+            f"{pd.Timestamp(start):%Y-%m-%d %H:%M} to {pd.Timestamp(end):%Y-%m-%d %H:%M}"
+            f" ({_duration_text(start, end)})"
+        )
+    if window.get("how"):
+        meta["Window chosen"] = str(window["how"])
+    if measurements is not None and len(getattr(measurements, "n_samples", ())):
+        n = np.asarray(measurements.n_samples)
+        meta["Samples per tag"] = (
+            f"{int(n.min())} to {int(n.max())}" if n.min() != n.max() else f"{int(n.min())}"
+        ) + f" ({len(n)} tags or groups averaged)"
+    if plant is not None:
+        sections = getattr(plant, "sections", {}) or {}
+        perf = sections.get("performance") or {}
+        if perf.get("kind"):
+            meta["Plant kind"] = str(perf["kind"])
+        basis = perf.get("basis")
+        if basis:
+            meta["Heating-value basis"] = str(basis).upper()
+        acc = sections.get("acceptance") or {}
+        if acc.get("rule"):
+            meta["Verdict rule (plant file)"] = str(acc["rule"])
+        design = sections.get("design") or {}
+        if design.get("duration") or design.get("interval"):
+            meta["Planned test (plant file)"] = ", ".join(
+                x
+                for x in (
+                    f"duration {design['duration']}" if design.get("duration") else "",
+                    f"logging every {design['interval']}" if design.get("interval") else "",
+                )
+                if x
+            )
+        guarantees = sections.get("guarantees") or []
+        if guarantees:
+            meta["Guarantees (plant file)"] = "; ".join(
+                f"{g.get('quantity')} {str(g.get('direction', '')).replace('_', ' ')} "
+                f"{g.get('value')} {unit_label(g.get('unit', ''))}".strip()
+                for g in guarantees
+                if isinstance(g, dict)
+            )
+        refs = sections.get("corrections") or []
+        ref_txt = []
+        for c in refs:
+            if isinstance(c, dict) and isinstance(c.get("reference"), dict):
+                r = c["reference"]
+                unit = unit_label(r.get("unit", ""))
+                txt = f"{c.get('variable')} = {r.get('value')} {unit}".strip()
+                if txt not in ref_txt:
+                    ref_txt.append(txt)
+        if ref_txt:
+            meta["Reference conditions (plant file)"] = "; ".join(ref_txt)
+    if reconciliation is not None:
+        T0, p0 = getattr(reconciliation, "dead_state", (None, None))
+        if T0 is not None:
+            meta["Dead state"] = f"{float(T0) - 273.15:.1f} °C, {float(p0) / 1e5:.3f} bar" + (
+                f" ({reconciliation.dead_state_source})"
+                if getattr(reconciliation, "dead_state_source", "")
+                else ""
+            )
+    if paths:
+        meta["Run files"] = ", ".join(str(p) for p in paths)
+    return meta
+
+
+def _atmospheric(plant, measurements, window_run=None) -> float | None:
     if plant is None:
         return None
     site = plant.site
@@ -159,6 +282,9 @@ def _atmospheric(plant, measurements) -> float | None:
     tag = site.barometer_tag
     if tag and measurements is not None and tag in measurements.tags:
         return float(measurements.value[measurements.index(tag)])
+    if tag and window_run is not None and tag in window_run.data.columns:
+        mean = float(window_run.data[tag].mean())  # the barometer over the window
+        return mean if math.isfinite(mean) else None
     return None
 
 
@@ -223,8 +349,9 @@ def collect(
     notes : sequence of str
         Extra notes for the report.
     trend_tags : sequence of str, optional
-        Tags for the stability figure (default: a power, a flow, a temperature and
-        a pressure tag).
+        Tags for the stability figure (default: every tag whose stability was
+        judged in the window; without a window, a power, a flow, a temperature and a
+        pressure tag).
     options : mapping, optional
         Options of the evaluation, recorded in the audit record.
     paths : sequence of path
@@ -261,7 +388,13 @@ def collect(
 
     trends = _EMPTY.copy()
     if run is not None:
-        tags = list(trend_tags) if trend_tags else _trend_tags(plant, run)
+        if trend_tags:
+            tags = list(trend_tags)
+        elif not stability.empty:
+            # every tag whose stability was judged, so the figure shows each band
+            tags = [t for t in stability.index if t in run.data.columns]
+        else:
+            tags = _trend_tags(plant, run)
         tags = [t for t in tags if t in run.data.columns]
         trends = run.data[tags].copy()
 
@@ -284,7 +417,7 @@ def collect(
                 chi2=e.chi2,
                 dof=e.dof,
                 p_value=e.p_value,
-                indistinguishable_from=", ".join(getattr(e, "tied_with", ())),
+                tied_with=", ".join(getattr(e, "tied_with", ())),
             )
             for e in getattr(reconciliation, "eliminated", ())
         ]
@@ -313,11 +446,15 @@ def collect(
         plant, run, window_run, reconciliation, paths=paths, options=options
     ).to_dict()
 
+    quantities, densities = _tag_facts(plant)
+    run_paths = [
+        f["name"] for f in audit.get("input_files", ()) if f.get("role") == "run" and f.get("name")
+    ]
     return ReportData(
         title=title,
         window=window,
         units=_display_units(plant),
-        atmospheric_pressure=_atmospheric(plant, measurements),
+        atmospheric_pressure=_atmospheric(plant, measurements, window_run),
         measurements=_frame(measurements, "to_frame"),
         stability=stability,
         exclusions=exclusions,
@@ -342,6 +479,10 @@ def collect(
         critical_z=float(NormalDist().inv_cdf(1.0 - alpha / 2.0)),
         version=__version__,
         audit=audit,
+        quantities=quantities,
+        densities=densities,
+        inputs=performance.inputs.copy() if performance is not None else _EMPTY.copy(),
+        meta=_meta(plant, window, measurements, performance, reconciliation, run_paths),
     )
 
 

@@ -12,10 +12,11 @@ from dataclasses import dataclass, field
 
 import pandas as pd
 
+from perftest import display as D
 from perftest.report import tables as T
 from perftest.report.data import CAUTION, ReportData
 
-__all__ = ["Block", "sections", "fmt", "fmt_uncertain"]
+__all__ = ["Block", "sections", "fmt", "fmt_uncertain", "present", "guarantee_lines"]
 
 
 @dataclass(frozen=True)
@@ -36,104 +37,170 @@ class Block:
     figure: str = ""
 
 
-# Columns shown with few significant digits (uncertainties, statistics).
-_SHORT = {
-    "u",
-    "U95",
-    "u_random",
-    "u_systematic",
-    "u_measured",
-    "u_reconciled",
-    "z",
-    "ratio",
-    "u_destroyed",
-    "sensitivity",
-    "u_contribution",
-    "permissible",
-    "max_deviation",
-    "drift",
-    "adjustment",
-    "chi2",
-    "p_value",
-}
-
-
 def fmt(v, short: bool = False) -> str:
-    """Format a number for a table: 6 significant digits (3 for uncertainties)."""
-    if v is None:
-        return ""
-    if isinstance(v, bool):
-        return "yes" if v else "no"
+    """Format a number for a table: 4 significant digits (2 for uncertainties), no
+    e-notation (:func:`perftest.display.fmt_number`)."""
     if isinstance(v, int) and not isinstance(v, bool):
         return str(v)
-    try:
-        f = float(v)
-    except (TypeError, ValueError):
-        return str(v)
-    if math.isnan(f):
-        return "-"
-    if math.isinf(f):
-        return "inf"
-    if f != 0 and (abs(f) >= 1e7 or abs(f) < 1e-4):
-        return f"{f:.3g}" if short else f"{f:.6g}"
-    return f"{f:.3g}" if short else f"{f:.6g}"
+    return D.fmt_number(v, 2 if short else 4)
 
 
 def fmt_uncertain(value, U) -> tuple[str, str]:
     """Value and expanded uncertainty rounded together: U to 2 significant digits,
-    the value to the same decimal place (the usual way of stating a result)."""
-    try:
-        v, u = float(value), float(U)
-    except (TypeError, ValueError):
-        return fmt(value), fmt(U, True)
-    if not (math.isfinite(v) and math.isfinite(u)) or u <= 0:
-        return fmt(v), fmt(u, True)
-    decimals = max(0, 1 - int(math.floor(math.log10(u))))
-    return f"{v:.{decimals}f}", f"{u:.{decimals}f}"
+    the value to the same decimal place (GUM 7.2.6)."""
+    return D.fmt_uncertain(value, U)
 
 
-def _strings(df: pd.DataFrame, *, percent=()) -> pd.DataFrame:
-    out = pd.DataFrame(index=range(len(df)))
-    for c in df.columns:
-        col = df[c].tolist()
-        if c in percent:
-            out[c] = [fmt(v, short=True) if v is not None else "" for v in col]
-        else:
-            out[c] = [fmt(v, short=c in _SHORT) for v in col]
+# ---------------------------------------------------------------- presentation
+# A column of a shown table: (key in the numeric table, heading in words, format).
+# Formats: "text", "num" (4 significant digits), "u" (2 significant digits),
+# ("by", col) (rounded to the decimal place of two significant digits of column
+# col of the same row), "dof", "int", "yesno", "pct" (1 decimal), "z" (2 decimals).
+
+
+def _cell(v, kind, row) -> str:
+    if kind == "text":
+        if v is None or (isinstance(v, float) and math.isnan(v)):
+            return ""
+        return str(v)
+    if isinstance(kind, tuple) and kind[0] == "by":
+        if isinstance(v, tuple):
+            return " & ".join(D.fmt_number(x) for x in v)
+        return D.fmt_fixed(v, D.decimals_for(row.get(kind[1])))
+    if isinstance(v, tuple):
+        return " & ".join(D.fmt_number(x) for x in v)
+    if kind == "num":
+        return D.fmt_number(v, 4)
+    if kind == "u":  # two significant digits, integer digits rounded too (119 -> 120)
+        return D.fmt_u(v)
+    if kind == "plain":  # a stated number (guarantee, reference) as written
+        return D.fmt_plain(v)
+    if kind == "dof":
+        return D.fmt_dof(v)
+    if kind == "int":
+        try:
+            return str(int(v))
+        except (TypeError, ValueError):
+            return D.NO_UNIT
+    if kind == "yesno":
+        if v is None or (isinstance(v, float) and math.isnan(v)):
+            return D.NO_UNIT
+        return "yes" if bool(v) else "no"
+    if kind == "pct":
+        return D.fmt_fixed(v, 1)
+    if kind == "z":
+        return D.fmt_fixed(v, 2)
+    return D.fmt_number(v)
+
+
+def present(df: pd.DataFrame, spec) -> pd.DataFrame:
+    """A numeric table as the strings a report shows, with headings in words."""
+    cols = [(k, h, f) for k, h, f in spec if k in df.columns or callable(f)]
+    out = {h: [] for _, h, _ in cols}
+    for row in df.to_dict("records"):
+        for k, h, f in cols:
+            out[h].append(f(row) if callable(f) else _cell(row.get(k), f, row))
+    return pd.DataFrame(out, columns=[h for _, h, _ in cols])
+
+
+def _table(df: pd.DataFrame, spec, flags=None) -> Block:
+    return Block("table", table=present(df, spec), flags=list(flags or [False] * len(df)))
+
+
+def _unit(u) -> str:
+    return D.unit_label(u)
+
+
+def _flags_text(row) -> str:
+    words = []
+    if row.get("eliminated"):
+        words.append("dropped")
+    elif row.get("suspect"):
+        words.append("suspect")
+    if row.get("redundant"):
+        words.append("redundant")
+    return ", ".join(words) if words else "–"
+
+
+_HEADLINE = (
+    "net_power",
+    "heat_input",
+    "first_law_efficiency",
+    "heat_rate",
+    "cooling_capacity",
+    "heating_capacity",
+    "cop",
+    "heat_export",
+    "fuel_utilisation",
+    "boiler_efficiency",
+    "carnot_efficiency",
+    "second_law_efficiency",
+)
+
+
+def _headline_names(res: pd.DataFrame) -> list:
+    names = [n for n in _HEADLINE if n in res.index]
+    names += [n for n in res.index if str(n).startswith("corrected_") and n not in names]
+    return names
+
+
+_DIRECTION = {"at least": "≥", "at most": "≤"}
+
+
+def guarantee_lines(data: ReportData) -> list:
+    """One sentence per guarantee: value ± U95 against the guarantee, and the verdict."""
+    gt = T.guarantees_table(data)
+    out = []
+    for r in gt.to_dict("records"):
+        v, U = D.fmt_uncertain(r["corrected_value"], r["U95"])
+        unit = "" if r["unit"] in ("1", "") else _unit(r["unit"])
+        sign = _DIRECTION.get(r["direction"], r["direction"])
+        text = (
+            f"Guarantee {r['quantity']}: {v} ± {U} {unit} (U95) against {sign} "
+            f"{D.fmt_plain(r['guaranteed'])} {unit}: {r['verdict']} (rule {r['rule']})"
+        )
+        out.append(" ".join(text.split()).replace(" :", ":"))
     return out
 
 
-def _table(df: pd.DataFrame, flags=None, **kw) -> Block:
-    return Block("table", table=_strings(df, **kw), flags=list(flags or [False] * len(df)))
+def _describe(data: ReportData, name: str) -> str:
+    res = data.results
+    if name in res.index and isinstance(res.loc[name].get("description"), str):
+        return f"{res.loc[name, 'description']} ({name})"
+    return str(name)
 
 
 def _headline(data: ReportData) -> list:
     res = data.results
     items = []
-    for name in (
-        "net_power",
-        "heat_input",
-        "first_law_efficiency",
-        "heat_rate",
-        "carnot_efficiency",
-        "second_law_efficiency",
-        "corrected_net_power",
-        "corrected_heat_rate",
-    ):
-        if name in res.index:
-            r = res.loc[name]
-            unit, scale, off = T.result_display(name, r["unit"])
-            v, u = fmt_uncertain(r["value"] * scale + off, r["U95"] * abs(scale))
-            items.append(f"{r.get('description', name)}: {v} {unit} (U95 {u} {unit})")
-    for g in data.guarantees.itertuples(index=False):
-        items.append(f"Guarantee {g.quantity} ({g.direction.replace('_', ' ')}): {g.verdict}")
+    for name in _headline_names(res):
+        r = res.loc[name]
+        unit, scale, off = T.result_display(name, r["unit"], r["value"])
+        v, u = fmt_uncertain(r["value"] * scale + off, r["U95"] * abs(scale))
+        unit = "" if unit == "1" else _unit(unit)
+        items.append(f"{r.get('description', name)}: {v} ± {u} {unit} (U95)".replace("  ", " "))
+    items += guarantee_lines(data)
     gt = data.global_test
     if gt and gt.get("chi2") is not None:
         items.append(
-            f"Global test: chi2 = {fmt(gt['chi2'], True)} with {gt['dof']} dof, p = "
-            f"{fmt(gt['p_value'], True)} ({'passed' if gt['passed'] else 'failed'})"
+            f"Global test: chi² = {fmt(gt['chi2'], True)} with {gt['dof']} degrees of freedom, "
+            f"p = {fmt(gt['p_value'], True)} ({'passed' if gt['passed'] else 'failed'})"
         )
     return items
+
+
+def _meta_block(data: ReportData) -> list:
+    meta = dict(data.meta)
+    if not meta:
+        w = data.window
+        meta["Plant"] = data.title
+        if w.get("start"):
+            meta["Window"] = f"{w.get('start')} to {w.get('end')}"
+        if w.get("how"):
+            meta["Window chosen"] = w["how"]
+    meta["Software"] = f"perftest {data.version}" if data.version else "perftest"
+    table = pd.DataFrame({"item": list(meta), "value": [str(v) for v in meta.values()]})
+    return [Block("table", text="meta", table=table, flags=[False] * len(table))]
 
 
 def sections(data: ReportData, *, figures=()) -> list:
@@ -148,14 +215,8 @@ def sections(data: ReportData, *, figures=()) -> list:
     figs = set(figures)
     b: list = [Block("h1", data.title + ": performance test report")]
     b.append(Block("caution", CAUTION))
-    w = data.window
-    b.append(
-        Block(
-            "p",
-            f"perftest {data.version}. Window averaged: {w.get('start') or '-'} to "
-            f"{w.get('end') or '-'}" + (f" ({w['how']})" if w.get("how") else "") + ".",
-        )
-    )
+    b.append(Block("h2", "Test particulars"))
+    b.extend(_meta_block(data))
     if data.missing:
         b.append(Block("warning", "Stages not computed: " + "; ".join(data.missing)))
 
@@ -173,14 +234,47 @@ def sections(data: ReportData, *, figures=()) -> list:
             txt += f" Dropped from the reconciliation by serial elimination: {dropped}."
         b.append(Block("warning", txt))
 
+    # ---- conditions
+    ct = T.conditions_table(data)
+    if not ct.empty:
+        b.append(Block("h2", "Test conditions and reference conditions"))
+        b.append(
+            Block(
+                "p",
+                "Conditions during the test (reconciled where the balances include them) "
+                "against the reference conditions the results are corrected to.",
+            )
+        )
+        ct["unit"] = ct["unit"].map(_unit)
+        b.append(
+            _table(
+                ct,
+                [
+                    ("variable", "condition", "text"),
+                    ("test", "during the test", ("by", "U95")),
+                    ("U95", "U95", "u"),
+                    ("reference", "reference", "plain"),
+                    ("deviation", "test − reference", ("by", "U95")),
+                    ("unit", "unit", "text"),
+                ],
+            )
+        )
+
     # ---- window, stability, exclusions
     b.append(Block("h2", "Test window and stability"))
-    if "stability" in figs:
+    pages = sorted(
+        (f for f in figs if f == "stability" or f.startswith("stability_")),
+        key=lambda f: 1 if f == "stability" else int(f.rsplit("_", 1)[1]),
+    )
+    for i, stem in enumerate(pages, 1):
+        more = f" (page {i} of {len(pages)})" if len(pages) > 1 else ""
         b.append(
             Block(
                 "figure",
-                "Trends over the whole run; the averaged window is shaded.",
-                figure="stability",
+                "Trends over the whole run; the averaged window is shaded and the "
+                "permissible variation about the window mean is drawn as a band (a tag "
+                f"outside it is not steady){more}.",
+                figure=stem,
             )
         )
     st = T.stability_table(data)
@@ -195,7 +289,23 @@ def sections(data: ReportData, *, figures=()) -> list:
                 "permissible variation.",
             )
         )
-        b.append(_table(st, failed))
+        st["unit"] = st["unit"].map(_unit)
+        b.append(
+            _table(
+                st,
+                [
+                    ("tag", "tag", "text"),
+                    ("mean", "mean", ("by", "permissible")),
+                    ("max_deviation", "largest deviation", "u"),
+                    ("drift", "drift", "u"),
+                    ("permissible", "permissible variation", "u"),
+                    ("unit", "unit", "text"),
+                    ("ratio", "ratio", "z"),
+                    ("passed", "steady", "yesno"),
+                ],
+                failed,
+            )
+        )
     ex = T.exclusions_table(data)
     b.append(Block("h2", "Excluded samples"))
     if ex.empty:
@@ -208,7 +318,21 @@ def sections(data: ReportData, *, figures=()) -> list:
                 "are kept in the run's exclusion table.",
             )
         )
-        b.append(_table(ex))
+        for c in ("first", "last"):
+            if c in ex.columns:
+                ex[c] = [_short_time(t) for t in ex[c]]
+        b.append(
+            _table(
+                ex,
+                [
+                    ("tag", "tag", "text"),
+                    ("reason", "reason", "text"),
+                    ("count", "samples", "int"),
+                    ("first", "first", "text"),
+                    ("last", "last", "text"),
+                ],
+            )
+        )
 
     # ---- measurements
     mt = T.measurements_table(data)
@@ -218,10 +342,29 @@ def sections(data: ReportData, *, figures=()) -> list:
             Block(
                 "p",
                 "Mean over the window with random (autocorrelation-corrected) "
-                "and systematic standard uncertainties, in the logged units.",
+                "and systematic standard uncertainties, in the logged units; U95 = k·u "
+                "with the Student t factor of the degrees of freedom (k = 1.96 for "
+                "many), before reconciliation.",
             )
         )
-        b.append(_table(mt))
+        mt["unit"] = mt["unit"].map(_unit)
+        b.append(
+            _table(
+                mt,
+                [
+                    ("tag", "tag", "text"),
+                    ("quantity", "quantity", "text"),
+                    ("mean", "mean", ("by", "U95")),
+                    ("U95", "U95", "u"),
+                    ("unit", "unit", "text"),
+                    ("u_random", "u random", "u"),
+                    ("u_systematic", "u systematic", "u"),
+                    ("dof", "degrees of freedom", "dof"),
+                    ("n_samples", "samples", "int"),
+                    ("n_excluded", "excluded", "int"),
+                ],
+            )
+        )
 
     # ---- reconciliation
     rt = T.reconciliation_table(data)
@@ -232,8 +375,8 @@ def sections(data: ReportData, *, figures=()) -> list:
             b.append(
                 Block(
                     "p",
-                    f"Global test: chi2 = {fmt(gt['chi2'], True)}, dof = {gt['dof']}, "
-                    f"p = {fmt(gt['p_value'], True)}; "
+                    f"Global test: chi² = {fmt(gt['chi2'], True)}, {gt['dof']} degrees of "
+                    f"freedom, p = {fmt(gt['p_value'], True)}; "
                     f"{'passed' if gt['passed'] else 'failed'} at alpha = {data.alpha:g}. "
                     f"Measurement test critical value |z| = {data.critical_z:.2f}.",
                 )
@@ -241,14 +384,26 @@ def sections(data: ReportData, *, figures=()) -> list:
         if data.eliminated:
             el = pd.DataFrame(data.eliminated)
             b.append(Block("p", "Serial elimination (instruments dropped, in order):"))
-            b.append(_table(el))
-            if any(e.get("indistinguishable_from") for e in data.eliminated):
+            b.append(
+                _table(
+                    el,
+                    [
+                        ("tag", "tag dropped", "text"),
+                        ("z", "|z| before the step", lambda r: D.fmt_fixed(abs(r["z"]), 2)),
+                        ("chi2", "chi² before the step", "num"),
+                        ("dof", "degrees of freedom", "int"),
+                        ("p_value", "p before the step", "u"),
+                        ("tied_with", "tied with", "text"),
+                    ],
+                )
+            )
+            if any(e.get("tied_with") for e in data.eliminated):
                 b.append(
                     Block(
                         "warning",
-                        "Where a step lists instruments it is indistinguishable from, "
-                        "their measurement-test statistics are equal: the test cannot "
-                        "tell which of them is faulty, and the one dropped was chosen "
+                        "Where a step lists instruments it is tied with, their "
+                        "measurement-test statistics are equal: the test cannot tell "
+                        "which of them is faulty, and the one dropped was chosen "
                         "arbitrarily. Check all of them before accepting the result.",
                     )
                 )
@@ -256,15 +411,52 @@ def sections(data: ReportData, *, figures=()) -> list:
             b.append(
                 Block(
                     "figure",
-                    "Adjustments and measurement-test statistics.",
+                    "Adjustments with their U95 and measurement-test statistics.",
                     figure="reconciliation",
                 )
             )
-        b.append(_table(rt, list(rt["suspect"] | rt["eliminated"])))
-        ct = T.closure_table(data)
-        if not ct.empty:
+        b.append(
+            Block(
+                "p",
+                "U95 = 1.96·u throughout this table, without and with reconciliation; "
+                "adjustment = reconciled − measured.",
+            )
+        )
+        rt["unit"] = rt["unit"].map(_unit)
+        rt["U95_measured"] = 1.959963984540054 * rt["u_measured"]
+        rt["U95_reconciled"] = 1.959963984540054 * rt["u_reconciled"]
+        b.append(
+            _table(
+                rt,
+                [
+                    ("tag", "tag", "text"),
+                    ("measured", "measured", ("by", "U95_measured")),
+                    ("U95_measured", "U95 without reconciliation", "u"),
+                    ("reconciled", "reconciled", ("by", "U95_reconciled")),
+                    ("U95_reconciled", "U95 with reconciliation", "u"),
+                    ("adjustment", "adjustment", ("by", "U95_reconciled")),
+                    ("unit", "unit", "text"),
+                    ("z", "z", "z"),
+                    ("flags", "flags", _flags_text),
+                ],
+                list(rt["suspect"] | rt["eliminated"]),
+            )
+        )
+        cl = T.closure_table(data)
+        if not cl.empty:
             b.append(Block("p", "Balance closure at the reconciled values (should be ~0):"))
-            b.append(_table(ct))
+            b.append(
+                _table(
+                    cl,
+                    [
+                        ("equipment", "equipment", "text"),
+                        ("type", "type", "text"),
+                        ("mass_imbalance", "mass imbalance [kg/s]", "num"),
+                        ("energy_imbalance", "energy imbalance [kW]", "num"),
+                        ("energy_throughput", "energy throughput [MW]", "num"),
+                    ],
+                )
+            )
 
     # ---- results
     res = T.results_table(data)
@@ -273,11 +465,26 @@ def sections(data: ReportData, *, figures=()) -> list:
         b.append(
             Block(
                 "p",
-                "Standard uncertainty u and expanded uncertainty U95 (about 95 % "
-                "coverage), propagated linearly from the reconciled covariance.",
+                "Expanded uncertainty U95 (about 95 % coverage, k from the effective "
+                "degrees of freedom) and standard uncertainty u, propagated linearly "
+                "from the reconciled covariance; values rounded to two significant "
+                "digits of U95.",
             )
         )
-        b.append(_table(res))
+        res["unit"] = res["unit"].map(_unit)
+        b.append(
+            _table(
+                res,
+                [
+                    ("description", "result", "text"),
+                    ("value", "value", ("by", "U95")),
+                    ("U95", "U95", "u"),
+                    ("unit", "unit", "text"),
+                    ("u", "u", "u"),
+                    ("name", "name", "text"),
+                ],
+            )
+        )
         if "efficiency" in figs:
             b.append(
                 Block(
@@ -286,42 +493,100 @@ def sections(data: ReportData, *, figures=()) -> list:
                     figure="efficiency",
                 )
             )
-        if not data.corrections.empty:
+        cor = T.corrections_table(data)
+        if not cor.empty:
+            b.append(Block("h2", "Corrections to reference conditions"))
             b.append(
                 Block(
                     "p",
-                    "Corrections to reference conditions (condition and reference "
-                    "in SI units; factor divides the measured result):",
+                    "Condition and reference in the variable's unit; a multiplicative "
+                    "factor divides the measured result, an additive one is subtracted; "
+                    "change = what this correction alone changes the result by.",
                 )
             )
-            b.append(_table(data.corrections))
-        if not data.monte_carlo.empty:
-            mc = data.monte_carlo.reset_index()
+            cor["unit"] = cor["unit"].map(_unit)
+            cor["change_unit"] = cor["change_unit"].map(_unit)
+            b.append(
+                _table(
+                    cor,
+                    [
+                        ("result", "result", "text"),
+                        ("variable", "condition", "text"),
+                        ("condition", "during the test", "num"),
+                        ("reference", "reference", "plain"),
+                        ("unit", "unit", "text"),
+                        ("kind", "kind", "text"),
+                        ("factor", "factor or offset", "num"),
+                        ("change", "change", "num"),
+                        ("change_unit", "unit of change", "text"),
+                        ("relative_change", "change [%]", "u"),
+                    ],
+                )
+            )
+        mc = T.monte_carlo_table(data)
+        if not mc.empty:
+            b.append(Block("h2", "Monte Carlo check"))
             b.append(
                 Block(
                     "p",
-                    "Monte Carlo check of the linear propagation (SI units; ratio "
-                    "= Monte Carlo u / linear u):",
+                    "The linear propagation checked by Monte Carlo (JCGM 101:2008, seeded "
+                    "draws from the reconciled covariance): the shortest coverage interval "
+                    "of the draws at the evaluation's coverage level (95 %) against the "
+                    "linear interval y ± U95, and the larger difference of their ends in % "
+                    "of U95. A few per cent is the sampling noise of the draws; a large "
+                    "difference means the linear propagation misjudges the result.",
                 )
             )
-            b.append(_table(mc))
+            mc["unit"] = mc["unit"].map(_unit)
+            b.append(
+                _table(
+                    mc,
+                    [
+                        ("name", "result", "text"),
+                        ("low", "Monte Carlo 95 % interval", _interval("low", "high")),
+                        ("linear_low", "linear y ± U95", _interval("linear_low", "linear_high")),
+                        ("unit", "unit", "text"),
+                        ("u", "u Monte Carlo", "u"),
+                        ("u_linear", "u linear", "u"),
+                        ("ratio", "u ratio", "z"),
+                        ("end_difference", "end difference [% of U95]", "pct"),
+                    ],
+                )
+            )
 
     # ---- budgets
-    if data.budgets:
-        b.append(Block("h2", "Uncertainty budget"))
+    names = T.budget_results(data)
+    if names:
+        b.append(Block("h2", "Uncertainty budgets"))
         if "budget" in figs:
             b.append(
                 Block(
-                    "figure", "Share of the variance of the first-law efficiency.", figure="budget"
+                    "figure",
+                    f"Share of the variance of the {names[0].replace('_', ' ')}.",
+                    figure="budget",
                 )
             )
-        for name in ("first_law_efficiency", "heat_rate", "corrected_net_power"):
+        for name in names:
             bt = T.budget_table(data, name, top=10)
-            if not bt.empty:
-                b.append(
-                    Block("p", f"{name} (contribution in {bt.attrs.get('unit', '')}, share in %):")
+            if bt.empty:
+                continue
+            ru = _unit(bt.attrs.get("unit", ""))
+            b.append(Block("p", f"{_describe(data, name)}; contributions in {ru}:"))
+            bt["unit"] = bt["unit"].map(_unit)
+            b.append(
+                _table(
+                    bt,
+                    [
+                        ("input", "input", "text"),
+                        ("estimate", "estimate", ("by", "u")),
+                        ("u", "u", "u"),
+                        ("unit", "unit", "text"),
+                        ("sensitivity", f"sensitivity [{ru} per input unit]", "u"),
+                        ("u_contribution", f"contribution [{ru}]", "u"),
+                        ("share", "share of variance [%]", "pct"),
+                    ],
                 )
-                b.append(_table(bt))
+            )
 
     # ---- exergy
     et = T.exergy_table(data)
@@ -331,19 +596,36 @@ def sections(data: ReportData, *, figures=()) -> list:
             b.append(
                 Block(
                     "figure",
-                    "Energy and exergy of the fuel, and exergy destroyed per unit.",
+                    "Energy and exergy of the fuel, and exergy destroyed per piece of equipment.",
                     figure="flows",
                 )
             )
         b.append(
             Block(
                 "p",
-                "Exergy balance per unit in MW (share in % of the fuel exergy); "
-                "gouy_stodola = T0 x entropy generation, which must match 'destroyed' "
-                "where the energy balance closes.",
+                "Exergy balance per piece of equipment; Gouy-Stodola = T0 × entropy "
+                "generation, which must match the exergy destroyed where the energy "
+                "balance closes; share in % of the fuel exergy.",
             )
         )
-        b.append(_table(et))
+        b.append(
+            _table(
+                et,
+                [
+                    ("equipment", "equipment", "text"),
+                    ("type", "type", "text"),
+                    ("exergy_in", "exergy in [MW]", "num"),
+                    ("exergy_out", "exergy out [MW]", "num"),
+                    ("work_in", "work in [MW]", "num"),
+                    ("work_out", "work out [MW]", "num"),
+                    ("heat", "heat [MW]", "num"),
+                    ("destroyed", "exergy destroyed [MW]", "num"),
+                    ("u_destroyed", "u destroyed [MW]", "u"),
+                    ("gouy_stodola", "Gouy-Stodola [MW]", "num"),
+                    ("share", "share [%]", "pct"),
+                ],
+            )
+        )
         if data.exergy_losses:
             b.append(
                 Block(
@@ -359,6 +641,7 @@ def sections(data: ReportData, *, figures=()) -> list:
     gtab = T.guarantees_table(data)
     if not gtab.empty:
         b.append(Block("h2", "Guarantees"))
+        b.append(Block("list", items=guarantee_lines(data)))
         statements = [
             f"{q}: {st}"
             for q, st in zip(
@@ -370,13 +653,29 @@ def sections(data: ReportData, *, figures=()) -> list:
         ]
         if not statements:
             statements = [
-                "A verdict is given only when the corrected value +- U95 lies "
+                "A verdict is given only when the corrected value ± U95 lies "
                 "wholly on one side of the guaranteed value; otherwise it is "
                 "inconclusive."
             ]
         b.append(Block("p", "Verdict rule (chosen in the plant file):"))
-        b.append(Block("list", items=statements))
-        b.append(_table(gtab, [v != "met" for v in gtab["verdict"]]))
+        b.append(Block("list", items=[s.replace("+-", "±") for s in statements]))
+        gtab["unit"] = gtab["unit"].map(_unit)
+        b.append(
+            _table(
+                gtab,
+                [
+                    ("quantity", "result", "text"),
+                    ("corrected_value", "corrected value", ("by", "U95")),
+                    ("U95", "U95", "u"),
+                    ("direction", "guarantee", "text"),
+                    ("guaranteed", "guaranteed value", "plain"),
+                    ("unit", "unit", "text"),
+                    ("verdict", "verdict", "text"),
+                    ("rule", "rule", "text"),
+                ],
+                [v != "met" for v in gtab["verdict"]],
+            )
+        )
 
     # ---- notes, log, timings
     if data.notes:
@@ -401,5 +700,30 @@ def sections(data: ReportData, *, figures=()) -> list:
     tt = T.timings_table(data)
     if not tt.empty:
         b.append(Block("h2", "Run time"))
-        b.append(_table(tt, percent=("share",)))
+        b.append(
+            _table(
+                tt,
+                [
+                    ("stage", "stage", "text"),
+                    ("seconds", "time [s]", lambda r: D.fmt_fixed(r["seconds"], 2)),
+                    ("share", "share [%]", "pct"),
+                ],
+            )
+        )
     return b
+
+
+def _interval(lo: str, hi: str):
+    def cell(row) -> str:
+        d = D.decimals_for(row.get("u_linear"))
+        d = None if d is None else d + 1
+        return f"{D.fmt_fixed(row[lo], d)} to {D.fmt_fixed(row[hi], d)}"
+
+    return cell
+
+
+def _short_time(t) -> str:
+    try:
+        return f"{pd.Timestamp(t):%Y-%m-%d %H:%M:%S}"
+    except (TypeError, ValueError):
+        return str(t)

@@ -22,11 +22,14 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from perftest.display import COLOURS, fmt_uncertain, unit_label
 from perftest.report.data import ReportData
 from perftest.report.tables import result_display, to_display
 
 __all__ = [
     "stability_figure",
+    "stability_pages",
+    "STABILITY_TAGS_PER_PAGE",
     "reconciliation_figure",
     "budget_figure",
     "efficiency_figure",
@@ -59,10 +62,15 @@ _STYLE = {
     "grid.alpha": 0.3,
     "figure.dpi": 100,
 }
-_OK = "#2f6f9f"
-_BAD = "#c0392b"
-_GREY = "#7f8c8d"
-_WINDOW = "#f5c542"
+# One colour per thing, shared with the HTML report and the notebook tables.
+_OK = COLOURS["reconciled"]
+_BAD = COLOURS["suspect"]
+_GREY = COLOURS["measured"]
+_WINDOW = COLOURS["window"]
+_U95 = COLOURS["uncertainty"]
+
+#: Tags per page of the stability figure.
+STABILITY_TAGS_PER_PAGE = 10
 
 
 def _figure(nrows=1, ncols=1, *, size=(8.0, 4.5), **kw):
@@ -93,34 +101,108 @@ def _apply_style(fig) -> None:
 # --------------------------------------------------------------------------- 1 trends
 
 
-def stability_figure(data: ReportData):
-    """Trends of a few tags over the whole run, the chosen window shaded."""
+def stability_pages(data: ReportData) -> list:
+    """The trended tags split into pages of :data:`STABILITY_TAGS_PER_PAGE`."""
+    tags = list(data.trends.columns)
+    n = STABILITY_TAGS_PER_PAGE
+    return [tags[i : i + n] for i in range(0, len(tags), n)]
+
+
+def stability_figure(data: ReportData, tags=None, *, page: int = 1, pages: int = 1):
+    """Trends over the whole run, the chosen window shaded, the permissible band drawn.
+
+    Parameters
+    ----------
+    data : ReportData
+    tags : sequence of str, optional
+        Tags to draw (default: the first page of :func:`stability_pages`).
+    page, pages : int
+        Page number and page count, for the title.
+
+    Notes
+    -----
+    The band is the window mean ± the tag's permissible variation, drawn over the
+    window: a tag is steady when its trace and its drift stay inside (the ratio
+    of the stability table is at most one).
+    """
     t = data.trends
     if t.empty:
         return None
-    tags = list(t.columns)
-    fig, axes = _figure(len(tags), 1, size=(8.5, 1.9 * len(tags) + 0.8), sharex=True)
+    if tags is None:
+        tags = stability_pages(data)[0]
+    tags = [c for c in tags if c in t.columns]
+    if not tags:
+        return None
+    fig, axes = _figure(len(tags), 1, size=(8.5, 1.45 * len(tags) + 1.1), sharex=True)
     axes = np.atleast_1d(axes)
     start = pd.Timestamp(data.window["start"]) if data.window.get("start") else None
     end = pd.Timestamp(data.window["end"]) if data.window.get("end") else None
     idx = t.index
-    if isinstance(idx, pd.DatetimeIndex) and idx.tz is not None:
-        idx = idx.tz_convert(idx.tz)
+    st = data.stability
     for ax, tag in zip(axes, tags, strict=True):
+        q = data.quantities.get(tag)
+        rho = data.densities.get(tag)
         values, unit = to_display(
             t[tag].to_numpy(float),
             data.units.get(tag),
             atmospheric_pressure=data.atmospheric_pressure,
+            quantity=q,
+            density=rho,
         )
-        ax.plot(idx, values, color=_OK, lw=1.0, label=tag)
+        ax.plot(idx, values, color=_OK, lw=1.0, label="logged value")
         if start is not None and end is not None:
-            ax.axvspan(start, end, color=_WINDOW, alpha=0.25, lw=0, label="averaged window")
-        ax.set_ylabel(f"{tag}\n[{unit}]" if unit else tag)
+            ax.axvspan(start, end, color=_WINDOW, alpha=0.35, lw=0, label="averaged window")
+            if not st.empty and tag in st.index and "permissible" in st.columns:
+                mean_si = float(st.loc[tag, "mean"])
+                perm_si = float(st.loc[tag, "permissible"])
+                if math.isfinite(mean_si) and math.isfinite(perm_si) and perm_si > 0:
+                    mean, _ = to_display(
+                        mean_si,
+                        unit,
+                        atmospheric_pressure=data.atmospheric_pressure,
+                        quantity=q,
+                        density=rho,
+                    )
+                    perm, _ = to_display(perm_si, unit, quantity=q, difference=True, density=rho)
+                    lo, hi = float(mean) - float(perm), float(mean) + float(perm)
+                    ax.fill_between(
+                        [start, end],
+                        lo,
+                        hi,
+                        color=COLOURS["band"],
+                        alpha=0.8,
+                        lw=0,
+                        label="permissible variation",
+                        zorder=0.5,
+                    )
+                    for edge in (lo, hi):
+                        ax.hlines(edge, start, end, color=COLOURS["band_edge"], lw=0.9, ls="--")
+                    failed = st.loc[tag].get("passed") is False or (
+                        float(st.loc[tag].get("ratio", 0.0)) > 1.0
+                    )
+                    if failed:
+                        ax.set_facecolor(COLOURS["flag_background"])
+        label = unit_label(unit)
+        ax.set_ylabel(f"{tag}\n[{label}]" if label else tag, fontsize=9)
         ax.margins(x=0)
-    axes[0].legend(loc="lower right", ncols=2, frameon=False)
+    handles, labels = axes[0].get_legend_handles_labels()
+    for ax in axes[1:]:
+        for h, lab in zip(*ax.get_legend_handles_labels(), strict=True):
+            if lab not in labels:
+                handles.append(h)
+                labels.append(lab)
+    fig.legend(handles, labels, loc="outside lower center", ncols=3, frameon=False)
     axes[-1].set_xlabel("time" + (f" [{idx.tz}]" if getattr(idx, "tz", None) else ""))
-    fig.autofmt_xdate(rotation=0, ha="center")
-    fig.suptitle(f"{data.title}: trends and the averaged window")
+    if isinstance(idx, pd.DatetimeIndex):
+        import matplotlib.dates as mdates
+
+        loc = mdates.AutoDateLocator(tz=idx.tz)
+        axes[-1].xaxis.set_major_locator(loc)
+        axes[-1].xaxis.set_major_formatter(mdates.ConciseDateFormatter(loc, tz=idx.tz))
+    title = f"{data.title}: trends, averaged window and permissible variation"
+    if pages > 1:
+        title += f" ({page} of {pages})"
+    fig.suptitle(title)
     _apply_style(fig)
     return fig
 
@@ -144,6 +226,7 @@ def reconciliation_figure(data: ReportData):
     with np.errstate(divide="ignore", invalid="ignore"):
         rel = (r["reconciled"] - r["measured"]) / np.abs(r["measured"]) * 100.0
         urel = r["u_measured"] / np.abs(r["measured"]) * 100.0 * 1.96
+        urel_rec = r["u_reconciled"] / np.abs(r["measured"]) * 100.0 * 1.96
     z = np.abs(r["z"].to_numpy(float))
     # A dropped instrument has no z in the final reconciliation: show the z that
     # dropped it (serial elimination), hatched.
@@ -154,21 +237,34 @@ def reconciliation_figure(data: ReportData):
     colors = [_BAD if s else _OK for s in suspect]
     y = np.arange(len(tags))
     fig, (a1, a2) = _figure(1, 2, size=(10.0, 0.32 * len(tags) + 2.2), sharey=True)
-    a1.barh(y, rel, color=colors, height=0.6, label="adjustment (red: suspect)")
-    a1.errorbar(
-        np.zeros_like(y, dtype=float),
+    # U95 of the measurement as a pale box around zero (an adjustment inside it is
+    # within the instrument's uncertainty), U95 of the reconciled value as a capped
+    # bar at the end of the adjustment.
+    a1.barh(
         y,
-        xerr=urel,
+        2 * np.asarray(urel, dtype=float),
+        left=-np.asarray(urel, dtype=float),
+        color=_U95,
+        alpha=0.35,
+        height=0.8,
+        lw=0,
+        label="U95 without reconciliation",
+    )
+    a1.barh(y, rel, color=colors, height=0.45, label="adjustment (red: suspect)")
+    a1.errorbar(
+        np.asarray(rel, dtype=float),
+        y,
+        xerr=np.asarray(urel_rec, dtype=float),
         fmt="none",
-        ecolor=_GREY,
-        capsize=2,
-        lw=1,
-        label="measurement U95",
+        ecolor="black",
+        capsize=3,
+        lw=1.1,
+        label="U95 with reconciliation",
     )
     a1.axvline(0, color="black", lw=0.8)
     a1.set_yticks(y, tags)
     a1.invert_yaxis()
-    a1.set_xlabel("reconciled - measured [% of measured]")
+    a1.set_xlabel("reconciled − measured [% of measured]")
     a1.set_title("Adjustments")
     z_plot = np.where(np.isfinite(z), z, 0.0)
     a2.barh(y[~dropped], z_plot[~dropped], color=np.array(colors)[~dropped], height=0.6)
@@ -201,11 +297,14 @@ def reconciliation_figure(data: ReportData):
         h, lab = ax.get_legend_handles_labels()
         handles += h
         labels += lab
-    fig.legend(handles, labels, loc="outside lower center", ncols=4, frameon=False)
+    fig.legend(handles, labels, loc="outside lower center", ncols=3, frameon=False)
     gt = data.global_test or {}
     sub = ""
     if gt.get("chi2") is not None:
-        sub = f" (global test: chi2 = {gt['chi2']:.2f}, dof = {gt['dof']}, p = {gt['p_value']:.3f})"
+        sub = (
+            f" (global test: χ² = {gt['chi2']:.2f}, {gt['dof']} degrees of freedom, "
+            f"p = {gt['p_value']:.3f})"
+        )
     fig.suptitle(f"Measured vs reconciled; suspects in red{sub}")
     _apply_style(fig)
     return fig
@@ -214,8 +313,19 @@ def reconciliation_figure(data: ReportData):
 # --------------------------------------------------------------------------- 3 budget
 
 
-def budget_figure(data: ReportData, name: str = "first_law_efficiency", top: int = 8):
-    """Uncertainty budget of one result: share of the variance per input."""
+def budget_figure(data: ReportData, name: str | None = None, top: int = 8):
+    """Uncertainty budget of one result: share of the variance per input.
+
+    ``name`` defaults to the first headline result with a budget (first-law
+    efficiency, heat rate, COP, fuel utilisation, then any guaranteed result).
+    """
+    if name is None:
+        from perftest.report.tables import budget_results
+
+        names = budget_results(data)
+        if not names:
+            return None
+        name = names[0]
     b = data.budgets.get(name)
     if b is None or b.empty:
         return None
@@ -231,10 +341,12 @@ def budget_figure(data: ReportData, name: str = "first_law_efficiency", top: int
     title = name.replace("_", " ")
     if name in data.results.index:
         r = data.results.loc[name]
-        unit, scale, offset = result_display(name, r["unit"])
-        title += (
-            f": {r['value'] * scale + offset:.4g} {unit}, U95 = {r['U95'] * abs(scale):.2g} {unit}"
-        )
+        if isinstance(r.get("description"), str) and r["description"]:
+            title = r["description"][0].lower() + r["description"][1:]
+        unit, scale, offset = result_display(name, r["unit"], r["value"])
+        v, U = fmt_uncertain(r["value"] * scale + offset, r["U95"] * abs(scale))
+        label = "" if unit == "1" else " " + unit_label(unit)
+        title += f": {v} ± {U}{label} (U95)"
     ax.set_title(f"Uncertainty budget of the {title}")
     _apply_style(fig)
     return fig
@@ -260,7 +372,7 @@ def efficiency_figure(data: ReportData):
         (1, "cycle_efficiency", "cycle\n(gross / heat absorbed)", "#1f618d"),
         (3, "mean_temperature_carnot_efficiency", "Carnot at mean\ntemperatures", "#5d6d7e"),
     ]
-    colors = [_OK, _GREY, "#34495e"]
+    colors = [_OK, _GREY, COLOURS["bound"]]
     for at, n, label, color in extra:
         if n in res.index:
             names.insert(at, (n, label))
@@ -275,8 +387,8 @@ def efficiency_figure(data: ReportData):
         color=colors,
         width=0.55,
         yerr=errs,
-        capsize=6,
-        error_kw={"lw": 1.2},
+        capsize=8,
+        error_kw={"lw": 1.6, "ecolor": "black"},
         label="value with U95",
     )
     for xi, v, e in zip(x, vals, errs, strict=True):
@@ -292,7 +404,9 @@ def efficiency_figure(data: ReportData):
         )
         r = res.loc["second_law_efficiency"]
         ax.annotate(
-            f"second-law efficiency\n{r['value'] * 100:.1f} % (U95 {r['U95'] * 100:.1f} %)",
+            "second-law efficiency\n{} ± {} % (U95)".format(
+                *fmt_uncertain(r["value"] * 100, r["U95"] * 100)
+            ),
             xy=(i_ref, vals[i_ref] + errs[i_ref]),
             xytext=(i_ref + 0.5, vals[-1] * 0.9),
             fontsize=9,
@@ -303,7 +417,7 @@ def efficiency_figure(data: ReportData):
     tk = res.loc["sink_temperature", "value"] if "sink_temperature" in res.index else None
     sub = ""
     if ts is not None and tk is not None and math.isfinite(ts) and math.isfinite(tk):
-        sub = f"\nbetween {ts - 273.15:.1f} degC (source) and {tk - 273.15:.1f} degC (sink)"
+        sub = f"\nbetween {ts - 273.15:.1f} °C (source) and {tk - 273.15:.1f} °C (sink)"
     ax.set_title("Efficiency and its thermodynamic bounds" + sub)
     ax.legend(loc="upper left", frameon=False)
     _apply_style(fig)
@@ -331,9 +445,9 @@ def exergy_figure(data: ReportData):
         sum(_condenser_heat(data, u) for u in e[e["type"].isin(["condenser", "cooler"])]["unit"])
         * mw
     )
-    energy = [("net power", net, _OK), ("auxiliaries", aux, "#5dade2")]
+    energy = [("net power", net, _OK), ("auxiliaries", aux, _U95)]
     if q_cond > 0:
-        energy.append(("condenser heat", q_cond, "#85c1e9"))
+        energy.append(("condenser heat", q_cond, "#aed6f1"))
     if "heat_export" in res.index:  # CHP: the exported heat is a product, not a loss
         energy.append(("heat export", res.loc["heat_export", "value"] * mw, "#f5b041"))
     energy.append(("boiler and other losses", max(q_in - sum(v for _, v, _ in energy), 0.0), _GREY))
@@ -350,7 +464,7 @@ def exergy_figure(data: ReportData):
     for i, (k, v) in enumerate(data.exergy_losses.items()):
         exergy.append((f"lost: {k}", float(v) * mw, greys[i % len(greys)]))
 
-    fig, (a1, a2) = _figure(2, 1, size=(9.5, 7.0), height_ratios=[1.0, 1.3])
+    fig, (a1, a2) = _figure(2, 1, size=(11.0, 7.0), height_ratios=[1.0, 1.3])
     for row, (_label, total, parts) in enumerate(
         [("energy\n(heat input)", q_in, energy), ("exergy\n(fuel exergy)", ex_in, exergy)]
     ):
@@ -378,21 +492,29 @@ def exergy_figure(data: ReportData):
     a1.set_title("Where the fuel goes: energy and exergy")
     handles, labels = a1.get_legend_handles_labels()
     uniq = dict(zip(labels, handles, strict=True))
+    # One readable column beside the bars, in the order the segments are stacked.
     a1.legend(
         uniq.values(),
         uniq.keys(),
-        loc="upper center",
-        bbox_to_anchor=(0.5, -0.32),
-        ncols=4,
+        loc="upper left",
+        bbox_to_anchor=(1.01, 1.0),
+        ncols=1,
         frameon=False,
-        fontsize=8,
+        fontsize=9,
+        title="segments, left to right",
+        title_fontsize=9,
+        alignment="left",
     )
 
     order = e.sort_values("destroyed", ascending=True)
     y = np.arange(len(order))
     err = order["u_destroyed"].to_numpy(float) * mw * 1.96
     a2.barh(
-        y, order["destroyed"].to_numpy(float) * mw, color="#d35400", height=0.6, label="destroyed"
+        y,
+        order["destroyed"].to_numpy(float) * mw,
+        color=COLOURS["destroyed"],
+        height=0.6,
+        label="exergy destroyed",
     )
     has_u = np.isfinite(err)
     if has_u.any():
@@ -402,8 +524,8 @@ def exergy_figure(data: ReportData):
             xerr=err[has_u],
             fmt="none",
             ecolor="black",
-            capsize=3,
-            lw=1,
+            capsize=5,
+            lw=1.4,
             label="U95",
         )
     gs = order["gouy_stodola"].to_numpy(float) * mw
@@ -416,15 +538,15 @@ def exergy_figure(data: ReportData):
         mfc="white",
         mec="black",
         ls="none",
-        label="T0 x entropy generation",
+        label="T0 × entropy generation (Gouy-Stodola)",
     )
     a2.set_yticks(
         y,
         [u if u == t else f"{u} ({t})" for u, t in zip(order["unit"], order["type"], strict=True)],
     )
     a2.set_xlabel("exergy destroyed [MW]")
-    a2.set_title("Exergy destroyed per unit (boiler includes stack loss)")
-    a2.legend(loc="lower right", frameon=False)
+    a2.set_title("Exergy destroyed per piece of equipment (boiler includes stack loss)")
+    a2.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False, fontsize=9)
     _apply_style(fig)
     return fig
 
@@ -451,9 +573,20 @@ FIGURES = {
 
 
 def all_figures(data: ReportData) -> dict:
-    """Every figure that the data allow: ``{stem: Figure}``."""
+    """Every figure that the data allow: ``{stem: Figure}``.
+
+    The stability figure is paged: ``stability``, ``stability_2``, ... with
+    :data:`STABILITY_TAGS_PER_PAGE` tags each.
+    """
     out = {}
     for stem, func in FIGURES.items():
+        if stem == "stability":
+            pages = stability_pages(data)
+            for i, tags in enumerate(pages, 1):
+                fig = stability_figure(data, tags, page=i, pages=len(pages))
+                if fig is not None:
+                    out["stability" if i == 1 else f"stability_{i}"] = fig
+            continue
         fig = func(data)
         if fig is not None:
             out[stem] = fig

@@ -7,6 +7,7 @@ from pathlib import Path
 
 import pandas as pd
 
+from perftest.display import numeric_columns
 from perftest.report.data import ReportData
 from perftest.report.document import sections
 
@@ -35,9 +36,11 @@ def markdown_table(df: pd.DataFrame, flags=None) -> str:
     """A DataFrame of strings as a Markdown table; flagged rows are set in bold."""
     flags = list(flags or [False] * len(df))
     cols = [str(c) for c in df.columns]
+    # text left-aligned, columns of numbers right-aligned (GFM alignment row)
+    numeric = numeric_columns([list(r) for r in df.itertuples(index=False)], len(cols))
     lines = [
         "| " + " | ".join(_cell(c) for c in cols) + " |",
-        "|" + "|".join("---" for _ in cols) + "|",
+        "|" + "|".join("---:" if num else ":---" for num in numeric) + "|",
     ]
     for flag, row in zip(flags, df.itertuples(index=False), strict=True):
         cells = [_cell(v) for v in row]

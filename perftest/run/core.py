@@ -1114,7 +1114,9 @@ class Run:
         for gid in group_rows:
             notes.append(
                 f"group '{gid}' averaged from {len(_get(groups[gid], 'tags'))} members "
-                f"({', '.join(f'{m}={mean[pos[m]]:.6g}' for m in _get(groups[gid], 'tags'))})"
+                "("
+                + ", ".join(_member_text(self, m, mean[pos[m]]) for m in _get(groups[gid], "tags"))
+                + ")"
             )
         return Measurements(
             tags=tuple(out_tags),
@@ -1227,3 +1229,11 @@ class Run:
                 }
             )
         return pd.DataFrame(rows, index=pd.Index(list(self.data.columns), name="tag"))
+
+
+def _member_text(run, tag: str, value: float) -> str:
+    """A group member's mean in its logged unit (no e-notation), for the notes."""
+    from perftest.display import convert, fmt_number, unit_label
+
+    shown, unit = convert(value, run.units.get(tag), quantity=run.quantities.get(tag) or None)
+    return f"{tag} = {fmt_number(float(shown), 6)} {unit_label(unit)}".rstrip()

@@ -48,6 +48,13 @@ class MeasurementRecord:
     n_samples: int
     n_excluded: int
 
+    def __repr__(self) -> str:
+        # value is SI and unit the display unit: the text shows the value in that
+        # unit, so no number stands beside a unit it is not in
+        from perftest.display.views import record_text
+
+        return record_text(self)
+
 
 def _vector(values, n: int, name: str, *, default=None, dtype=float) -> np.ndarray:
     if values is None:
@@ -290,16 +297,28 @@ class Measurements:
             notes=self.notes,
         )
 
-    def to_frame(self) -> pd.DataFrame:
-        """One row per tag, SI values.
+    def to_frame(self, units="si") -> pd.DataFrame:
+        """One row per tag.
+
+        Parameters
+        ----------
+        units : "si", "logged", "engineering" or mapping, default "si"
+            Units of ``value`` and the uncertainties: SI (as used inside), the unit
+            each tag was logged in, bar/°C/t/h... by quantity, or a mapping of tag
+            id or quantity to a unit (others keep their logged unit).  ``unit``
+            always names the unit the numbers of its row are in; a gauge unit is
+            shown as absolute bar (the measurements do not hold the barometer).
 
         Returns
         -------
         DataFrame
             Columns ``tag, quantity, value, unit, u_random, u_systematic, u, dof,
-            n_samples, n_excluded``; ``unit`` is the SI unit of the quantity
-            (``""`` when the quantity is unknown).
+            n_samples, n_excluded``; ``unit`` is ``""`` when the quantity is unknown.
         """
+        if not (isinstance(units, str) and units == "si"):
+            from perftest.display.views import measurements_frame
+
+            return measurements_frame(self, units)
         from perftest.units import si_unit
 
         def _si(q: str) -> str:
@@ -439,3 +458,14 @@ class Measurements:
             end=end,
             notes=tuple(notes),
         )
+
+    # ------------------------------------------------------------------ display
+    def __repr__(self) -> str:
+        from perftest.display.views import measurements_text
+
+        return measurements_text(self)
+
+    def _repr_html_(self) -> str:
+        from perftest.display.views import measurements_html
+
+        return measurements_html(self)

@@ -37,6 +37,7 @@ from collections.abc import Mapping, Sequence
 import numpy as np
 import pandas as pd
 
+from perftest.display.views import WindowTable
 from perftest.errors import InputError, PerftestError
 from perftest.run.core import Run
 from perftest.scale.store import Progress, WindowStore, fingerprint
@@ -883,4 +884,4 @@ def reconcile_many(
     if wstore is not None:
         wstore.prune()
     ordered = [frames[i] for i in range(len(chunks))]
-    return _finish(ordered, [c.run_number for c in chunks], options.results)
+    return WindowTable(_finish(ordered, [c.run_number for c in chunks], options.results))

@@ -234,21 +234,63 @@ def _unlock(fh) -> None:
     fcntl.flock(fh.fileno(), fcntl.LOCK_UN)
 
 
+def _in_notebook() -> bool:
+    """Whether the code runs in a Jupyter kernel (IPython with a kernel app)."""
+    ipython = sys.modules.get("IPython")
+    if ipython is None:
+        return False
+    try:
+        shell = ipython.get_ipython()
+    except AttributeError:
+        return False
+    return shell is not None and "IPKernelApp" in getattr(shell, "config", {})
+
+
+#: A job shorter than this shows no bar at all [s]: a bar that appears and is
+#: gone within a blink only clutters a notebook cell.
+BAR_DELAY = 2.0
+
+
+def _bar(total: int, notebook: bool, delay: float):
+    """A tqdm bar: the notebook widget when ipywidgets is there, else text on stderr."""
+    try:
+        if notebook:
+            import importlib.util
+
+            if importlib.util.find_spec("ipywidgets") is not None:
+                from tqdm.auto import tqdm
+            else:  # text bar in the cell's stderr output (Jupyter honours "\r")
+                from tqdm.std import tqdm
+        else:
+            from tqdm.std import tqdm
+    except ImportError:
+        return None
+    return tqdm(total=total, unit="window", delay=delay, file=sys.stderr, dynamic_ncols=True)
+
+
 class Progress:
-    """A progress line on a stream, at most one update every ``every`` seconds.
+    """Progress of a job: a tqdm bar in a notebook or terminal, or a line on a stream.
 
     Parameters
     ----------
     total : int
         Windows in the job.
     enabled : bool or None
-        None: only when the stream is a terminal.
-    stream : file, default sys.stderr
+        None: shown in a Jupyter notebook (tqdm's notebook bar) or when stderr is a
+        terminal; either way only for jobs that last more than :data:`BAR_DELAY`.
+    stream : file, optional
+        Write plain progress lines to this stream instead of a bar.
     every : float, default 0.5
-        Smallest interval between two updates [s].
+        Smallest interval between two updates of a line [s].
     """
 
     def __init__(self, total: int, enabled=None, stream=None, every: float = 0.5):
+        self._tqdm = None
+        if stream is None and enabled is not False:
+            notebook = _in_notebook()
+            isatty = getattr(sys.stderr, "isatty", None)
+            if enabled or notebook or bool(isatty and isatty()):
+                self._tqdm = _bar(int(total), notebook, 0.0 if enabled else BAR_DELAY)
         self.stream = stream if stream is not None else sys.stderr
         if enabled is None:
             isatty = getattr(self.stream, "isatty", None)
@@ -267,12 +309,25 @@ class Progress:
         self.failed += failed
         if reused:
             self.reused += rows
+        if self._tqdm is not None:
+            extra = {}
+            if self.failed:
+                extra["failed"] = self.failed
+            if self.reused:
+                extra["from earlier run"] = self.reused
+            if extra:
+                self._tqdm.set_postfix(extra, refresh=False)
+            self._tqdm.update(rows)
+            return
         now = time.perf_counter()
         if now - self._last >= self.every:
             self._last = now
             self._show(final=False)
 
     def close(self) -> None:
+        if self._tqdm is not None:
+            self._tqdm.close()
+            return
         self._show(final=True)
 
     def _show(self, final: bool) -> None:

@@ -762,4 +762,4 @@ def test_rule_reaches_summary_json_and_markdown(tmp_path):
     assert row["verdict"] == ("met" if row["corrected_value"] >= 29e6 else "not met")
     md = report.render_markdown(data)
     assert row["rule_statement"] in md
-    assert "relative_change" in md  # the size of every correction is tabulated
+    assert "change [%]" in md  # the size of every correction is tabulated

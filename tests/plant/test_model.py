@@ -767,7 +767,7 @@ def test_elimination_reports_instruments_the_test_cannot_tell_apart(tmp_path):
     from perftest import report
 
     data = report.collect(plant, None, None, meas, reconciliation=rec)
-    assert data.eliminated[0]["indistinguishable_from"] == step.tied_with[0]
+    assert data.eliminated[0]["tied_with"] == step.tied_with[0]
     assert "cannot tell which of them is faulty" in report.render_markdown(data)
 
 

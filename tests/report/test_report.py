@@ -270,7 +270,7 @@ def test_markdown_and_html_carry_caution_window_exclusions_and_suspects():
         assert "met" in text
     # Suspect rows highlighted: bold in Markdown, class="flag" in HTML.
     assert re.search(r"\| \*\*FT-171\*\* \|", md)
-    assert re.search(r'<tr class="flag"><td>FT-171</td>', html)
+    assert re.search(r'<tr class="flag"><td class="id">FT-171</td>', html)
     assert "figures/reconciliation.png" in md
 
 

@@ -136,11 +136,11 @@ def test_trend_figure_artists(direct):
     assert "mid-time" in axs.get_xlabel()
     labels = ax.get_legend_handles_labels()[1]
     assert "global test failed" in labels and any(lab.startswith("U95 band") for lab in labels)
-    # the band spans eta +- 2u (GUM coverage factor 2), in percent
+    # the band spans eta +- 1.96 u (the normal 95 % factor used for every U95), in percent
     band = ax.collections[0].get_paths()[0].vertices[:, 1]
     eta = 100 * direct["first_law_efficiency"].to_numpy()
     u = 100 * direct["u_first_law_efficiency"].to_numpy()
-    assert band.max() == pytest.approx(np.nanmax(np.delete(eta + 2 * u, 5)), rel=1e-12)
+    assert band.max() == pytest.approx(np.nanmax(np.delete(eta + 1.959963984540054 * u, 5)), rel=1e-12)
     assert [t.get_text() for t in axs.get_yticklabels()] == ["FT-171"]
     fig.canvas.draw()  # lays out without error
 
