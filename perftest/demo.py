@@ -30,8 +30,8 @@ DEMO_FILES = ("historian.csv", "logger.csv")
 STAGES = {
     "load plant": "perftest.plant.file",
     "read run": "perftest.importers",
-    "choose window": "perftest.run.core",
-    "screen outliers": "perftest.run.core",
+    "choose window": "perftest.run.steady",
+    "screen outliers": "perftest.run.outliers",
     "average": "perftest.run.measurements",
     "reconcile": "perftest.balance.plant",
     "evaluate": "perftest.evaluation.results",

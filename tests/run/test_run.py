@@ -1,4 +1,4 @@
-"""Tests of perftest.run.core: windows, stability, outliers, averaging to Measurements."""
+"""Tests of perftest.run (core, windows, steady, stability, outliers, averaging, quality)."""
 
 from __future__ import annotations
 

@@ -1,0 +1,262 @@
+"""Averaging a run (or window) to :class:`~perftest.run.measurements.Measurements`.
+
+``Run.average`` calls :func:`average`: per-tag means with their random and systematic
+uncertainty, groups of redundant instruments, the covariance between entries.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+
+import numpy as np
+
+from perftest.errors import DataError, DataQualityWarning
+from perftest.run import stats
+from perftest.run.common import PERCENT_KINDS, field, fmt_time
+from perftest.run.measurements import Measurements
+
+__all__ = ["average", "check_agreement", "atmospheric_pressure"]
+
+
+def atmospheric_pressure(run):
+    """Mean of the barometer tag in the run, else the site's stated pressure [Pa] (or None)."""
+    site = field(run.plant, "site")
+    baro = field(site, "barometer_tag")
+    if baro and baro in run.data.columns:
+        p = run.data[baro].mean()
+        if np.isfinite(p):
+            return float(p)
+    return field(site, "atmospheric_pressure")
+
+
+def average(run, *, autocorrelation: bool = True, tags=None, keep_members: bool = False):
+    """Average the run (or window) to :class:`~perftest.run.measurements.Measurements`.
+
+    Parameters
+    ----------
+    run : Run
+        The run (or window) to work on.
+    autocorrelation : bool, default True
+        Use the effective number of samples for the random uncertainty.
+    tags : list of str, optional
+        Tags to average (default all columns).  Groups of the plant whose
+        members are all present are added.
+    keep_members : bool, default False
+        Keep the members of redundant groups as entries of their own besides
+        the group entry.
+
+    Returns
+    -------
+    Measurements
+        One entry per tag (members of a group replaced by the group id unless
+        ``keep_members``), SI values, covariance, notes.
+
+    Raises
+    ------
+    DataError
+        If a tag has no valid sample in the window (names tag and window).
+
+    Warns
+    -----
+    DataQualityWarning
+        When a group's members disagree, or a tag has a single valid sample.
+
+    Notes
+    -----
+    Per tag, from the :math:`m` valid samples:
+
+    - value: :math:`\\bar x`; random part
+      :math:`u_r = s/\\sqrt{n_{eff}}` with :math:`\\nu_r = n_{eff} - 1` (at
+      least 1) (:func:`perftest.run.stats.random_uncertainty_of_mean`);
+    - systematic part :math:`u_s` from the plant's
+      ``TagSpec.systematic_standard_uncertainty(mean)``, taken with infinite
+      degrees of freedom (a stated instrument uncertainty is treated as
+      exactly known, GUM G.4.3 for Type B with no doubt about the bound);
+      0 with a note for a tag the plant does not describe;
+    - combined :math:`u = \\sqrt{u_r^2 + u_s^2}`, degrees of freedom by
+      Welch-Satterthwaite (GUM G.2b) :math:`\\nu = u^4/(u_r^4/\\nu_r)`.
+
+    Covariance: :math:`C = \\mathrm{diag}(u_r^2) + S` with
+    :math:`S_{ij} = u_{s,i}u_{s,j}` when i and j share a calibration lot
+    (correlation 1) and :math:`S_{ii} = u_{s,i}^2`.  A group entry is the plain
+    mean of its members' means, :math:`g = w^T x` with :math:`w_i = 1/k`; its
+    variances follow :math:`w^T C w` for the random and systematic parts
+    separately, so shared lots are not averaged away.  Members disagree when
+    their spread exceeds the group's ``agreement`` or when a pair differs by
+    more than 1.96 standard uncertainties of the difference (95 %, normal).
+    """
+    tags = run._check_tags(tags, "average")
+    x = run.data[tags].to_numpy(dtype=float)
+    n_valid = np.isfinite(x).sum(axis=0)
+    t0 = run.start if run.start is not None else (run.data.index[0] if len(x) else None)
+    t1 = run.end if run.end is not None else (run.data.index[-1] if len(x) else None)
+    empty = [tg for tg, k in zip(tags, n_valid, strict=True) if k == 0]
+    if empty:
+        raise DataError(
+            f"Tag '{empty[0]}' has no valid sample in the window {fmt_time(t0)} to "
+            f"{fmt_time(t1)}"
+            + (f" (nor do {empty[1:]})" if len(empty) > 1 else "")
+            + ". Choose another window, fix the source data, or leave the tag out with "
+            "average(tags=[...]).",
+            tag=empty[0],
+        )
+    notes: list[str] = []
+    _, mean, _, neff, u_r = stats.mean_statistics(x, autocorrelation)
+    dof_r = np.maximum(neff - 1.0, 1.0)
+    single = [tg for tg, k in zip(tags, n_valid, strict=True) if k == 1]
+    if single:
+        u_r = np.where(n_valid == 1, 0.0, u_r)
+        dof_r = np.where(n_valid == 1, np.inf, dof_r)
+        msg = (
+            f"only one valid sample in the window for {single}: random uncertainty not "
+            "evaluated (taken as 0)"
+        )
+        notes.append(msg)
+        warnings.warn(msg[0].upper() + msg[1:] + ".", DataQualityWarning, stacklevel=3)
+    # systematic part
+    tagspecs = field(run.plant, "tags", {}) or {}
+    atm = atmospheric_pressure(run)
+    u_s = np.zeros(len(tags))
+    lots: list[str | None] = []
+    unknown = []
+    for j, tg in enumerate(tags):
+        spec = tagspecs.get(tg)
+        lots.append(field(spec, "shared_calibration"))
+        func = field(spec, "systematic_standard_uncertainty")
+        if spec is None or func is None or field(spec, "uncertainty", 0) is None:
+            unknown.append(tg)
+            continue
+        u_s[j] = float(func(float(mean[j]), atmospheric_pressure=atm, unit=run.units.get(tg)))
+    if unknown:
+        notes.append(
+            f"no instrument uncertainty in the plant for {unknown}: systematic uncertainty "
+            "taken as 0"
+        )
+    C_s = np.diag(u_s**2)
+    lot_arr = np.array([lot or "" for lot in lots], dtype=object)
+    for lot in sorted({lot for lot in lots if lot}):
+        ix = np.flatnonzero(lot_arr == lot)
+        C_s[np.ix_(ix, ix)] = np.outer(u_s[ix], u_s[ix])
+    C_r = np.diag(u_r**2)
+    # output entries: tags (minus group members) + groups, as rows of L
+    groups = field(run.plant, "groups", {}) or {}
+    pos = {tg: j for j, tg in enumerate(tags)}
+    out_tags: list[str] = []
+    rows: list[np.ndarray] = []
+    grouped: set[str] = set()
+    group_rows: dict[str, np.ndarray] = {}
+    for gid, g in groups.items():
+        members = list(field(g, "tags", ()) or ())
+        if not members:
+            continue
+        missing = [m for m in members if m not in pos]
+        if missing:
+            notes.append(f"group '{gid}' not averaged: members {missing} not in the run")
+            continue
+        w = np.zeros(len(tags))
+        w[[pos[m] for m in members]] = 1.0 / len(members)
+        group_rows[gid] = w
+        grouped.update(members)
+        check_agreement(run, gid, g, members, pos, mean, C_r + C_s, notes)
+    for tg in tags:
+        if keep_members or tg not in grouped:
+            e = np.zeros(len(tags))
+            e[pos[tg]] = 1.0
+            out_tags.append(tg)
+            rows.append(e)
+    for gid, w in group_rows.items():
+        out_tags.append(gid)
+        rows.append(w)
+    L = np.array(rows).reshape(len(rows), len(tags))
+    value = L @ mean
+    cov_r = L @ C_r @ L.T
+    cov_s = L @ C_s @ L.T
+    cov = cov_r + cov_s
+    ur_out = np.sqrt(np.clip(np.diag(cov_r), 0.0, None))
+    us_out = np.sqrt(np.clip(np.diag(cov_s), 0.0, None))
+    # make the diagonal exactly consistent with the parts
+    np.fill_diagonal(cov, ur_out**2 + us_out**2)
+    # Welch-Satterthwaite: random contributions |L_ij| u_r,j with dof_r,j;
+    # systematic parts carry infinite dof and drop out of the denominator
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        contrib = (L * u_r[None, :]) ** 2
+        utot2 = ur_out**2 + us_out**2
+        denom = np.sum(np.where(np.isinf(dof_r), 0.0, contrib**2 / dof_r), axis=1)
+        dof = np.where(denom > 0, utot2**2 / denom, np.inf)
+    n_samp = ((L > 0) @ n_valid).astype(int)
+    n_masked = run.mask[tags].to_numpy().sum(axis=0)
+    n_excl = ((L > 0) @ n_masked).astype(int)
+    quantities, units = [], []
+    for w in L:
+        members = [tags[j] for j in np.flatnonzero(w)]
+        q = {run.quantities.get(m, "") for m in members}
+        u = {run.units.get(m, "") for m in members}
+        quantities.append(q.pop() if len(q) == 1 else "")
+        units.append(u.pop() if len(u) == 1 else "")
+    for gid in group_rows:
+        notes.append(
+            f"group '{gid}' averaged from {len(field(groups[gid], 'tags'))} members "
+            f"({', '.join(f'{m}={mean[pos[m]]:.6g}' for m in field(groups[gid], 'tags'))})"
+        )
+    return Measurements(
+        tags=tuple(out_tags),
+        quantities=tuple(quantities),
+        units=tuple(units),
+        value=value,
+        u_random=ur_out,
+        u_systematic=us_out,
+        dof=dof,
+        n_samples=n_samp,
+        n_excluded=n_excl,
+        cov=cov,
+        start=t0,
+        end=t1,
+        notes=tuple(notes),
+    )
+
+
+def check_agreement(run, gid, group, members, pos, mean, C, notes) -> None:
+    """Note and warn when the members of group ``gid`` disagree."""
+    from perftest.units import to_si
+
+    ix = [pos[m] for m in members]
+    mm = mean[ix]
+    problems = []
+    agreement = field(group, "agreement")
+    if agreement is not None:
+        centre = abs(float(np.mean(mm)))
+        if hasattr(agreement, "limit_si"):  # plant-file StabilityLimit
+            limit = float(agreement.limit_si(centre))
+        elif isinstance(agreement, int | float):
+            limit = float(agreement)  # absolute, SI
+        else:
+            value = float(field(agreement, "value"))
+            if str(field(agreement, "kind", "percent")) in PERCENT_KINDS:
+                limit = value / 100.0 * centre
+            else:
+                unit = field(agreement, "unit") or run.units.get(members[0])
+                q = run.quantities.get(members[0])
+                limit = float(to_si(value, unit, quantity=q, difference=True)) if unit else value
+        spread = float(mm.max() - mm.min())
+        if spread > limit:
+            problems.append(f"spread {spread:.4g} exceeds the agreement limit {limit:.4g}")
+    k = stats.coverage_factor(math.inf, 0.95)
+    for a in range(len(ix)):
+        for b in range(a + 1, len(ix)):
+            i, j = ix[a], ix[b]
+            ud = math.sqrt(max(C[i, i] + C[j, j] - 2.0 * C[i, j], 0.0))
+            d = abs(mean[i] - mean[j])
+            if d > k * ud:
+                problems.append(
+                    f"{members[a]} - {members[b]} = {mean[i] - mean[j]:.4g} exceeds "
+                    f"{k:.2f} u = {k * ud:.4g}"
+                )
+    if problems:
+        msg = f"group '{gid}' members disagree: " + "; ".join(problems)
+        notes.append(msg)
+        warnings.warn(
+            f"Redundant instruments of {msg}. Check them before using the group mean.",
+            DataQualityWarning,
+            stacklevel=4,
+        )
