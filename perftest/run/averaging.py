@@ -155,9 +155,11 @@ def average(run, *, autocorrelation: bool = True, tags=None, keep_members: bool 
             notes.append(f"group '{gid}' not averaged: members {missing} not in the run")
             continue
         w = np.zeros(len(tags))
-        w[[pos[m] for m in members]] = 1.0 / len(members)
+        ix = [pos[m] for m in members]
+        w[ix] = 1.0 / len(members)
         group_rows[gid] = w
         grouped.update(members)
+        _correlate_members(C_r, x, ix, u_r, n_valid, autocorrelation)
         check_agreement(run, gid, g, members, pos, mean, C_r + C_s, notes)
     for tg in tags:
         if keep_members or tg not in grouped:
@@ -183,6 +185,15 @@ def average(run, *, autocorrelation: bool = True, tags=None, keep_members: bool 
         contrib = (L * u_r[None, :]) ** 2
         utot2 = ur_out**2 + us_out**2
         denom = np.sum(np.where(np.isinf(dof_r), 0.0, contrib**2 / dof_r), axis=1)
+        # a group whose members' random parts are correlated: Welch-Satterthwaite
+        # needs independent parts, so the group's random part counts as one part
+        # with the fewest degrees of freedom of its members (conservative)
+        offdiag = C_r - np.diag(np.diag(C_r))
+        for r, w in enumerate(L):
+            on = np.flatnonzero(w)
+            if on.size > 1 and np.any(offdiag[np.ix_(on, on)] != 0.0):
+                nu = float(np.min(dof_r[on]))
+                denom[r] = 0.0 if math.isinf(nu) else ur_out[r] ** 4 / nu
         dof = np.where(denom > 0, utot2**2 / denom, np.inf)
     n_samp = ((L > 0) @ n_valid).astype(int)
     n_masked = run.mask[tags].to_numpy().sum(axis=0)
@@ -260,3 +271,33 @@ def check_agreement(run, gid, group, members, pos, mean, C, notes) -> None:
             DataQualityWarning,
             stacklevel=4,
         )
+
+
+def _correlate_members(C_r, x, ix, u_r, n_valid, autocorrelation) -> None:
+    """Put the covariance of the random parts of a group's members' means into ``C_r``.
+
+    Redundant meters of one quantity see the same process wander; the covariance of
+    their means comes from the joint record (:func:`perftest.run.stats.mean_covariance`,
+    the same estimator as each tag's own u), scaled to the members' ``u_r`` (so the
+    diagonal stays as it is).  Without ``autocorrelation``: the lag-0 sample
+    correlation over the times both are valid.  Members with fewer than 2 valid
+    samples stay uncorrelated.
+    """
+    ok = [j for j in ix if n_valid[j] >= 2 and u_r[j] > 0]
+    if len(ok) < 2:
+        return
+    sub = x[:, ok]
+    if autocorrelation:
+        cv = stats.mean_covariance(sub)
+        d = np.sqrt(np.clip(np.diag(cv), 1e-300, None))
+        R = cv / np.outer(d, d)
+    else:
+        both = np.isfinite(sub).all(axis=1)
+        if both.sum() < 3:
+            return
+        R = np.corrcoef(sub[both], rowvar=False)
+        R = np.nan_to_num(R)
+    for a, i in enumerate(ok):
+        for b, j in enumerate(ok):
+            if a != b:
+                C_r[i, j] = float(np.clip(R[a, b], -1.0, 1.0)) * u_r[i] * u_r[j]
