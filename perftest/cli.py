@@ -14,6 +14,7 @@ import sys
 import time
 from pathlib import Path
 
+from perftest import defaults
 from perftest.errors import PerftestError
 
 __all__ = ["main", "build_parser"]
@@ -121,16 +122,16 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument(
         "--window",
         metavar="LENGTH",
-        default="2h",
+        default=defaults.STEADY_WINDOW,
         help="length of the steadiest window to search when --start/--end are "
-        "not given (default 2h); 'all' averages the whole run",
+        f"not given (default {defaults.STEADY_WINDOW}); 'all' averages the whole run",
     )
     r.add_argument(
         "--outlier-alpha",
         metavar="ALPHA",
         type=_probability,
-        default=0.01,
-        help="significance level of the outlier screen (default 0.01)",
+        default=defaults.OUTLIER_ALPHA,
+        help=f"significance level of the outlier screen (default {defaults.OUTLIER_ALPHA})",
     )
     r.add_argument(
         "--keep-all",

@@ -10,11 +10,14 @@ import math
 import warnings
 
 import numpy as np
+import pandas as pd
 
 from perftest.errors import DataError, DataQualityWarning
 from perftest.run import stats
 from perftest.run.common import PERCENT_KINDS, field, fmt_time
 from perftest.run.measurements import Measurements
+from perftest.run.trend import trend_test
+from perftest.run.windows import check_min_coverage, coverage
 
 __all__ = ["average", "check_agreement", "atmospheric_pressure"]
 
@@ -30,7 +33,15 @@ def atmospheric_pressure(run):
     return field(site, "atmospheric_pressure")
 
 
-def average(run, *, autocorrelation: bool = True, tags=None, keep_members: bool = False):
+def average(
+    run,
+    *,
+    autocorrelation: bool = True,
+    tags=None,
+    keep_members: bool = False,
+    min_coverage=None,
+    trend: bool = True,
+):
     """Average the run (or window) to :class:`~perftest.run.measurements.Measurements`.
 
     Parameters
@@ -45,6 +56,13 @@ def average(run, *, autocorrelation: bool = True, tags=None, keep_members: bool 
     keep_members : bool, default False
         Keep the members of redundant groups as entries of their own besides
         the group entry.
+    min_coverage : float, optional
+        Smallest share of its expected samples each tag must hold in the window
+        (:func:`perftest.run.windows.coverage`; default
+        :data:`perftest.defaults.MIN_COVERAGE`, 0.8).
+    trend : bool, default True
+        Test each tag for a trend inside the window
+        (:func:`perftest.run.trend.trend_test`), report its p-value and warn.
 
     Returns
     -------
@@ -55,12 +73,15 @@ def average(run, *, autocorrelation: bool = True, tags=None, keep_members: bool 
     Raises
     ------
     DataError
-        If a tag has no valid sample in the window (names tag and window).
+        If a tag has no valid sample in the window, or covers less than
+        ``min_coverage`` of it (names tag, window and coverage).
 
     Warns
     -----
     DataQualityWarning
         When a group's members disagree, or a tag has a single valid sample.
+    StabilityWarning
+        When tags trend inside the window beyond their scatter.
 
     Notes
     -----
@@ -101,7 +122,29 @@ def average(run, *, autocorrelation: bool = True, tags=None, keep_members: bool 
             "average(tags=[...]).",
             tag=empty[0],
         )
+    limit = check_min_coverage(min_coverage, "average")
+    cover = coverage(run, tags).to_numpy()
+    low = [j for j, c in enumerate(cover) if c < limit]
+    if low:
+        shown = ", ".join(f"{tags[j]} ({cover[j]:.0%})" for j in low)
+        raise DataError(
+            f"In the window {fmt_time(t0)} to {fmt_time(t1)}, tag(s) {shown} hold less "
+            f"than the minimum coverage {limit:.0%} of the samples expected (valid samples "
+            "/ window length over the sampling interval). Choose another window, leave "
+            "the tag out with average(tags=[...]), or pass min_coverage= to accept it.",
+            tag=tags[low[0]],
+        )
     notes: list[str] = []
+    trend_p = np.full(len(tags), np.nan)
+    if trend:
+        tt = trend_test(run, tags, stacklevel=4)
+        trend_p = tt["p_value"].to_numpy(dtype=float)
+        hit = tt.index[tt["trending"].fillna(False).to_numpy(dtype=bool)].tolist()
+        if hit:
+            notes.append(
+                "trend inside the window beyond the scatter for "
+                + ", ".join(f"{tg} (p = {tt.loc[tg, 'p_value']:.2g})" for tg in hit)
+            )
     _, mean, _, neff, u_r = stats.mean_statistics(x, autocorrelation)
     dof_r = np.maximum(neff - 1.0, 1.0)
     single = [tg for tg, k in zip(tags, n_valid, strict=True) if k == 1]
@@ -196,7 +239,7 @@ def average(run, *, autocorrelation: bool = True, tags=None, keep_members: bool 
                 denom[r] = 0.0 if math.isinf(nu) else ur_out[r] ** 4 / nu
         dof = np.where(denom > 0, utot2**2 / denom, np.inf)
     n_samp = ((L > 0) @ n_valid).astype(int)
-    n_masked = run.mask[tags].to_numpy().sum(axis=0)
+    n_masked = _excluded_counts(run, tags)
     n_excl = ((L > 0) @ n_masked).astype(int)
     quantities, units = [], []
     for w in L:
@@ -224,6 +267,8 @@ def average(run, *, autocorrelation: bool = True, tags=None, keep_members: bool 
         start=t0,
         end=t1,
         notes=tuple(notes),
+        coverage=_per_entry(L, cover, np.min),
+        trend_p=_per_entry(L, trend_p, np.min),
     )
 
 
@@ -301,3 +346,40 @@ def _correlate_members(C_r, x, ix, u_r, n_valid, autocorrelation) -> None:
         for b, j in enumerate(ok):
             if a != b:
                 C_r[i, j] = float(np.clip(R[a, b], -1.0, 1.0)) * u_r[i] * u_r[j]
+
+
+def _per_entry(L, per_tag, reduce) -> np.ndarray:
+    """A per-tag quantity carried to the output entries (a group: ``reduce`` of its members)."""
+    out = np.full(L.shape[0], np.nan)
+    for r, w in enumerate(L):
+        vals = per_tag[np.flatnonzero(w)]
+        vals = vals[np.isfinite(vals)]
+        if vals.size:
+            out[r] = reduce(vals)
+    return out
+
+
+def _excluded_counts(run, tags) -> np.ndarray:
+    """Masked samples per tag in the window, leaving out those outside the tag's record.
+
+    A tag is empty without an exclusion row before its first and after its last valid
+    sample when its file does not reach there (another file's stamps at the edge of
+    the aligned time base): those are not excluded samples.  Masked samples with an
+    exclusion row, and every masked sample between valid ones, are counted.
+    """
+    mask = run.mask[tags].to_numpy()
+    n = mask.sum(axis=0).astype(int)
+    idx = run.data.index
+    ex = run.exclusions
+    for j, tg in enumerate(tags):
+        col = mask[:, j]
+        if not (col[0] or col[-1]) or col.all():
+            continue
+        ok = np.flatnonzero(~col)
+        edge = np.r_[np.arange(ok[0]), np.arange(ok[-1] + 1, col.size)]
+        if not edge.size:
+            continue
+        times = pd.to_datetime(ex.loc[ex["tag"] == tg, "time"], utc=True)
+        recorded = idx[edge].isin(pd.DatetimeIndex(times))
+        n[j] -= int((~recorded).sum())
+    return n

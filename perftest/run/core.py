@@ -16,8 +16,9 @@ from types import MappingProxyType
 import numpy as np
 import pandas as pd
 
+from perftest.defaults import OUTLIER_ALPHA, OUTLIER_WINDOW
 from perftest.errors import InputError
-from perftest.run import averaging, outliers, quality, stability, steady, windows
+from perftest.run import averaging, outliers, quality, stability, steady, trend, windows
 from perftest.run.common import CHECK_BYTES as _CHECK_BYTES
 from perftest.run.common import EXCLUSION_COLUMNS
 from perftest.run.common import empty_exclusions as _empty_exclusions
@@ -326,12 +327,24 @@ class Run:
 
     # ----------------------------------------------------------------- windows
     @_doc(windows.window)
-    def window(self, start=None, end=None) -> Run:
-        return windows.window(self, start, end)
+    def window(self, start=None, end=None, *, min_coverage=None) -> Run:
+        return windows.window(self, start, end, min_coverage=min_coverage)
 
     @_doc(steady.steadiest_window)
-    def steadiest_window(self, length, *, step=None, tags=None, limits=None) -> Run:
-        return steady.steadiest_window(self, length, step=step, tags=tags, limits=limits)
+    def steadiest_window(
+        self, length, *, step=None, tags=None, limits=None, min_coverage=None
+    ) -> Run:
+        return steady.steadiest_window(
+            self, length, step=step, tags=tags, limits=limits, min_coverage=min_coverage
+        )
+
+    @_doc(windows.coverage)
+    def coverage(self, tags=None, *, interval=None) -> pd.Series:
+        return windows.coverage(self, tags, interval=interval)
+
+    @_doc(trend.trend_test)
+    def trend(self, tags=None, *, alpha=None, warn: bool = True) -> pd.DataFrame:
+        return trend.trend_test(self, tags, alpha=alpha, warn=warn)
 
     # ----------------------------------------------------------------- stability
     @_doc(stability.stability)
@@ -340,16 +353,29 @@ class Run:
 
     # ----------------------------------------------------------------- outliers
     @_doc(outliers.screen_outliers)
-    def screen_outliers(self, alpha: float = 0.05, tags=None, *, window: int | None = 11) -> Run:
+    def screen_outliers(
+        self, alpha: float = OUTLIER_ALPHA, tags=None, *, window: int | None = OUTLIER_WINDOW
+    ) -> Run:
         return outliers.screen_outliers(self, alpha, tags, window=window)
 
     # ----------------------------------------------------------------- averaging
     @_doc(averaging.average)
     def average(
-        self, *, autocorrelation: bool = True, tags=None, keep_members: bool = False
+        self,
+        *,
+        autocorrelation: bool = True,
+        tags=None,
+        keep_members: bool = False,
+        min_coverage=None,
+        trend: bool = True,
     ) -> Measurements:
         return averaging.average(
-            self, autocorrelation=autocorrelation, tags=tags, keep_members=keep_members
+            self,
+            autocorrelation=autocorrelation,
+            tags=tags,
+            keep_members=keep_members,
+            min_coverage=min_coverage,
+            trend=trend,
         )
 
     # ----------------------------------------------------------------- quality

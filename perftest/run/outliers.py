@@ -10,6 +10,7 @@ import warnings
 import numpy as np
 import pandas as pd
 
+from perftest.defaults import OUTLIER_ALPHA, OUTLIER_WINDOW
 from perftest.errors import DataQualityWarning, InputError
 from perftest.run import stats
 from perftest.run.common import CHECK_BYTES
@@ -62,20 +63,23 @@ def neighbour_median(x: np.ndarray, half: int) -> np.ndarray:
     return out
 
 
-def screen_outliers(run, alpha: float = 0.05, tags=None, *, window: int | None = 11):
+def screen_outliers(
+    run, alpha: float = OUTLIER_ALPHA, tags=None, *, window: int | None = OUTLIER_WINDOW
+):
     """Reject spikes per tag with the modified Thompson tau test, sized for long logs.
 
     Parameters
     ----------
     run : Run
         The run (or window) to work on.
-    alpha : float, default 0.05
+    alpha : float, default 0.01
         Probability that a tag whose samples are independent normal scatter loses
         any sample at all (the level of the whole screen of one tag, not of each
-        single test; see Notes).
+        single test; see Notes).  The default is
+        :data:`perftest.defaults.OUTLIER_ALPHA`, shared with ``perftest report``.
     tags : list of str, optional
         Tags to screen (default all).
-    window : int or None, default 11
+    window : int or None, default 11 (:data:`perftest.defaults.OUTLIER_WINDOW`)
         Odd number of samples, at least 5: each sample is compared with the median
         of the ``window - 1`` samples around it.  None compares with the tag's
         mean (the textbook form, for a short steady record).
@@ -84,7 +88,7 @@ def screen_outliers(run, alpha: float = 0.05, tags=None, *, window: int | None =
     -------
     Run
         With each rejected sample masked and listed in ``exclusions`` (reason
-        ``"outlier (modified Thompson tau, alpha=0.05)"``, ``raw_value`` the SI
+        ``"outlier (modified Thompson tau, alpha=0.01)"``, ``raw_value`` the SI
         value, ``source`` ``"screen_outliers"``) and a log line with the rule and
         the counts.
 

@@ -9,14 +9,14 @@ import numpy as np
 import pandas as pd
 
 from perftest.errors import DataError, InputError
-from perftest.run.common import fmt_time
+from perftest.run.common import CHECK_BYTES, fmt_time
 from perftest.run.stability import permissible
-from perftest.run.windows import cut, to_timedelta
+from perftest.run.windows import check_min_coverage, cut, sampling_interval, to_timedelta
 
 __all__ = ["steadiest_window"]
 
 
-def steadiest_window(run, length, *, step=None, tags=None, limits=None):
+def steadiest_window(run, length, *, step=None, tags=None, limits=None, min_coverage=None):
     """The window of the given length in which the tags vary least.
 
     Parameters
@@ -31,11 +31,17 @@ def steadiest_window(run, length, *, step=None, tags=None, limits=None):
         Tags that decide (default: every tag with a permissible variation).
     limits : dict, optional
         As in :meth:`stability`.
+    min_coverage : float, optional
+        Smallest share of the expected samples a candidate must hold, for the
+        window as a whole (sample times with any valid value) and for each deciding
+        tag (at its own sampling interval).  Default
+        :data:`perftest.defaults.MIN_COVERAGE` (0.8).
 
     Returns
     -------
     Run
-        The samples in ``(end - length, end]`` of the best window; the log
+        The samples in ``[start, end)`` of the best window, the same samples as
+        ``window(start, end)`` (:func:`perftest.run.windows.window`); the log
         records the window, its score and the tag that set it.
 
     Raises
@@ -44,7 +50,8 @@ def steadiest_window(run, length, *, step=None, tags=None, limits=None):
         If ``length`` is not a positive duration, the run is shorter than it,
         or no tag has a permissible variation.
     DataError
-        If no candidate window has at least 2 valid samples of every deciding tag.
+        If no candidate window has the coverage asked for (and at least 2 valid
+        samples of every deciding tag).
 
     Notes
     -----
@@ -71,72 +78,122 @@ def steadiest_window(run, length, *, step=None, tags=None, limits=None):
             f"({span + dt}). Choose a shorter window.",
             parameter="length",
         )
-    x = run.data[tags]
-    valid = x.notna()
+    limit = check_min_coverage(min_coverage, "steadiest_window")
+    L_s = L / pd.Timedelta(seconds=1)
+    # candidate windows are [e - L, e) for every end e among the sample times and one
+    # interval past the last sample, so that the last sample can be in a window
+    ends = idx.append(pd.DatetimeIndex([idx[-1] + dt]))
+    n = len(ends)
     # seconds from the run's middle keep the regression sums well conditioned
     t_mid = idx[0] + span / 2
-    tsec = np.asarray((idx - t_mid) / pd.Timedelta(seconds=1), dtype=float)
-    T = pd.DataFrame(np.where(valid, tsec[:, None], 0.0), index=idx, columns=tags)
-    X = x.fillna(0.0)
-    roll = dict(window=L, min_periods=1)
-    cnt = valid.astype(float).rolling(**roll).sum()
-    sx = X.rolling(**roll).sum()
-    st = T.rolling(**roll).sum()
-    stt = (T * T).rolling(**roll).sum()
-    stx = (T * X).rolling(**roll).sum()
-    rmax = x.rolling(**roll).max()
-    rmin = x.rolling(**roll).min()
-    with np.errstate(invalid="ignore", divide="ignore"):
-        c = cnt.to_numpy()
-        mean = sx.to_numpy() / c
-        sxx = stt.to_numpy() - st.to_numpy() ** 2 / c
-        sxy = stx.to_numpy() - st.to_numpy() * sx.to_numpy() / c
-        slope = np.where(sxx > 0, sxy / sxx, 0.0)
-        maxdev = np.maximum(rmax.to_numpy() - mean, mean - rmin.to_numpy())
-    # a full window ending at sample t holds (t - L, t]; its regression span is
-    # from its first to its last sample, L - dt on a regular grid
-    drift = slope * ((L - dt) / pd.Timedelta(seconds=1))
-    perm, _ = permissible(run, tags, mean, limits)
-    decides = np.isfinite(perm).any(axis=0)
-    if not decides.any():
+    tsec = np.asarray((ends - t_mid) / pd.Timedelta(seconds=1), dtype=float)
+    roll = dict(window=L, min_periods=1, closed="left")
+    full = np.asarray(ends >= idx[0] + L)
+    if S is not None:
+        grid = pd.date_range(ends[full][0], ends[-1], freq=S)
+        pos = ends.get_indexer(grid, method="pad")
+        on_grid = np.zeros(n, dtype=bool)
+        on_grid[pos[pos >= 0]] = True
+        full &= on_grid
+    # the window's own coverage: sample times holding any valid value
+    any_valid = np.append(~run.mask.to_numpy().all(axis=1), False).astype(float)
+    rows = pd.Series(any_valid, index=ends).rolling(**roll).sum().to_numpy()
+    dt_s = dt / pd.Timedelta(seconds=1)
+    full &= np.nan_to_num(rows) >= limit * L_s / dt_s
+    score = np.full(n, -np.inf)
+    worst = np.zeros(n, dtype=int)
+    dec_tags: list[str] = []
+    # a few tags at a time: the rolling statistics of one chunk are the only
+    # temporaries as large as the data
+    k = max(1, CHECK_BYTES // max(8 * n, 1))
+    for a in range(0, len(tags), k):
+        cols = tags[a : a + k]
+        ratio, decides = _chunk_ratio(run, cols, ends, tsec, roll, L, dt, L_s, limit, limits)
+        if ratio is None:
+            continue
+        base = len(dec_tags)
+        dec_tags.extend(t for t, d in zip(cols, decides, strict=True) if d)
+        cm = ratio.max(axis=1)
+        up = cm > score
+        score = np.where(up, cm, score)
+        worst = np.where(up, base + np.argmax(ratio, axis=1), worst)
+    if not dec_tags:
         raise InputError(
             "Run.steadiest_window needs a permissible variation for at least one tag. "
             "None of the tags has a quantity with a default, a plant limit or a "
             "'limits' entry. Pass limits={tag: ...} or set quantities.",
             parameter="limits",
         )
-    with np.errstate(invalid="ignore", divide="ignore"):
-        ratio = np.maximum(maxdev, np.abs(drift)) / perm
-    ratio = ratio[:, decides]
-    ratio = np.where(c[:, decides] >= 2, ratio, np.inf)
-    ratio = np.where(np.isnan(ratio), np.inf, ratio)
-    score = ratio.max(axis=1)
-    full = np.asarray(idx >= idx[0] + L - dt)
-    if S is not None:
-        grid = pd.date_range(idx[full][0], idx[-1], freq=S)
-        pos = idx.get_indexer(grid, method="pad")
-        on_grid = np.zeros(len(idx), dtype=bool)
-        on_grid[pos[pos >= 0]] = True
-        full &= on_grid
     score = np.where(full, score, np.inf)
     best = int(np.argmin(score))
     if not np.isfinite(score[best]):
         raise DataError(
-            f"No {L} window of the run has at least 2 valid samples of every deciding tag. "
-            "Pass tags=[...] to leave out tags that are masked for long stretches.",
+            f"No {L} window of the run has a coverage of at least {limit:.0%} (valid samples "
+            "over the samples expected) for the run and every deciding tag, with at least "
+            "2 valid samples each. Pass tags=[...] to leave out tags that are masked for "
+            "long stretches, a shorter length, or min_coverage=.",
             parameter="tags",
         )
-    dec_tags = [t for t, d in zip(tags, decides, strict=True) if d]
-    worst_tag = dec_tags[int(np.argmax(ratio[best]))]
-    t1 = idx[best]
-    keep = np.asarray((idx > t1 - L) & (idx <= t1))
-    run = cut(
+    worst_tag = dec_tags[int(worst[best])]
+    t1 = ends[best]
+    t0 = t1 - L
+    keep = np.asarray((idx >= t0) & (idx < t1))
+    return cut(
         run,
         keep,
-        t1 - L,
+        t0,
         t1,
         f"steadiest_window(length={L}, step={S}) over {int(np.isfinite(score).sum())} "
-        f"candidate windows: {fmt_time(t1 - L)} (excl.) to {fmt_time(t1)}, "
+        f"candidate windows: {fmt_time(t0)} to {fmt_time(t1)} (excl.), "
         f"score {score[best]:.3g} set by '{worst_tag}'",
     )
-    return run
+
+
+def _chunk_ratio(run, cols, ends, tsec, roll, L, dt, L_s, limit, limits):
+    """Score ratio (candidates x deciding tags of ``cols``) and which of ``cols`` decide."""
+    n = len(ends)
+    xe = np.full((n, len(cols)), np.nan)
+    xe[:-1] = run.data[cols].to_numpy(dtype=float)
+    valid = np.isfinite(xe)
+
+    def rolled(values):
+        return pd.DataFrame(values, index=ends).rolling(**roll)
+
+    with np.errstate(invalid="ignore", divide="ignore"):
+        c = rolled(valid.astype(float)).sum().to_numpy()
+        X = np.where(valid, xe, 0.0)
+        T = np.where(valid, tsec[:, None], 0.0)
+        sx = rolled(X).sum().to_numpy()
+        st = rolled(T).sum().to_numpy()
+        stt = rolled(T * T).sum().to_numpy()
+        stx = rolled(T * X).sum().to_numpy()
+        del X, T
+        mean = sx / c
+        sxx = stt - st**2 / c
+        sxy = stx - st * sx / c
+        del stt, stx, st, sx
+        slope = np.where(sxx > 0, sxy / sxx, 0.0)
+        del sxx, sxy
+        frame = pd.DataFrame(xe, index=ends)
+        maxdev = np.maximum(frame.rolling(**roll).max().to_numpy() - mean, 0.0)
+        maxdev = np.maximum(maxdev, mean - frame.rolling(**roll).min().to_numpy())
+    # a full window [e - L, e) spans from its first to its last sample: L - dt on a
+    # regular grid
+    drift = slope * ((L - dt) / pd.Timedelta(seconds=1))
+    perm, _ = permissible(run, list(cols), mean, limits)
+    decides = np.isfinite(perm).any(axis=0)
+    if not decides.any():
+        return None, decides
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ratio = (np.maximum(maxdev, np.abs(drift)) / perm)[:, decides]
+    # each deciding tag must cover the window as the run does: at least min_coverage
+    # of the samples its own sampling interval leads to expect, and 2 at the least
+    idx = run.data.index
+    need = []
+    for j in np.flatnonzero(decides):
+        dt_j = sampling_interval(idx[valid[:-1, j]])
+        dt_j = dt_j if np.isfinite(dt_j) and dt_j > 0 else dt / pd.Timedelta(seconds=1)
+        need.append(max(2.0, limit * L_s / dt_j))
+    ok = c[:, decides] >= np.array(need)[None, :]
+    ratio = np.where(ok, ratio, np.inf)
+    return np.where(np.isnan(ratio), np.inf, ratio), decides

@@ -25,6 +25,7 @@ from pathlib import Path
 
 import pandas as pd
 
+from perftest.defaults import CHECK_STABILITY, ELIMINATE
 from perftest.errors import PerftestError
 
 __all__ = ["monitor", "summary", "add_parser", "run_command"]
@@ -97,8 +98,8 @@ def monitor(
     scheduler=None,
     workers: int | None = None,
     results=True,
-    eliminate: bool = True,
-    stability: bool = True,
+    eliminate: bool = ELIMINATE,
+    stability: bool = CHECK_STABILITY,
     resume: bool = True,
     progress=None,
     figure: bool = True,
