@@ -201,15 +201,20 @@ def _acov_columns(arr: np.ndarray, max_lag: int):
     return rho * var, pairs, m
 
 
-def _mean_variance_columns(arr: np.ndarray, max_lag: int | None, c: float = SOKAL_C):
-    """``(V, n_eff, M)`` per column: variance of the mean, effective size, window."""
+def _mean_variance_columns(
+    arr: np.ndarray, max_lag: int | None, c: float = SOKAL_C, *, with_gamma: bool = False
+):
+    """``(V, n_eff, M)`` per column: variance of the mean, effective size, window.
+
+    With ``with_gamma`` also the autocovariances (lags x columns) it used.
+    """
     n, k = arr.shape
     m = np.isfinite(arr).sum(axis=0).astype(float)
     V = np.full(k, np.nan)
     neff = np.where(m > 0, m, np.nan)
     M_sel = np.zeros(k, dtype=int)
     if n < 3:
-        return V, neff, M_sel
+        return (V, neff, M_sel, None) if with_gamma else (V, neff, M_sel)
     K = n // 2 if max_lag is None else int(max_lag)
     K = max(1, min(K, n - 1))
     gamma, pairs, _ = _acov_columns(arr, K)
@@ -242,6 +247,8 @@ def _mean_variance_columns(arr: np.ndarray, max_lag: int | None, c: float = SOKA
     neff = np.where(flat, m, neff)
     V = np.where(m >= 2, V, np.nan)
     neff = np.where(m > 0, neff, np.nan)
+    if with_gamma:
+        return V, neff, M_sel, gamma
     return V, neff, M_sel
 
 

@@ -100,8 +100,9 @@ def steadiest_window(run, length, *, step=None, tags=None, limits=None, min_cove
     rows = pd.Series(any_valid, index=ends).rolling(**roll).sum().to_numpy()
     dt_s = dt / pd.Timedelta(seconds=1)
     full &= np.nan_to_num(rows) >= limit * L_s / dt_s
+    del any_valid, rows
     score = np.full(n, -np.inf)
-    worst = np.zeros(n, dtype=int)
+    worst = np.zeros(n, dtype=np.int32)  # position in dec_tags of the tag that sets the score
     dec_tags: list[str] = []
     # a few tags at a time: the rolling statistics of one chunk are the only
     # temporaries as large as the data
@@ -115,8 +116,9 @@ def steadiest_window(run, length, *, step=None, tags=None, limits=None, min_cove
         dec_tags.extend(t for t, d in zip(cols, decides, strict=True) if d)
         cm = ratio.max(axis=1)
         up = cm > score
-        score = np.where(up, cm, score)
-        worst = np.where(up, base + np.argmax(ratio, axis=1), worst)
+        score[up] = cm[up]
+        worst[up] = base + np.argmax(ratio[up], axis=1)
+        del ratio
     if not dec_tags:
         raise InputError(
             "Run.steadiest_window needs a permissible variation for at least one tag. "
@@ -150,50 +152,77 @@ def steadiest_window(run, length, *, step=None, tags=None, limits=None, min_cove
 
 
 def _chunk_ratio(run, cols, ends, tsec, roll, L, dt, L_s, limit, limits):
-    """Score ratio (candidates x deciding tags of ``cols``) and which of ``cols`` decide."""
-    n = len(ends)
-    xe = np.full((n, len(cols)), np.nan)
-    xe[:-1] = run.data[cols].to_numpy(dtype=float)
-    valid = np.isfinite(xe)
+    """Score ratio (candidates x deciding tags of ``cols``) and which of ``cols`` decide.
 
-    def rolled(values):
-        return pd.DataFrame(values, index=ends).rolling(**roll)
-
-    with np.errstate(invalid="ignore", divide="ignore"):
-        c = rolled(valid.astype(float)).sum().to_numpy()
-        X = np.where(valid, xe, 0.0)
-        T = np.where(valid, tsec[:, None], 0.0)
-        sx = rolled(X).sum().to_numpy()
-        st = rolled(T).sum().to_numpy()
-        stt = rolled(T * T).sum().to_numpy()
-        stx = rolled(T * X).sum().to_numpy()
-        del X, T
-        mean = sx / c
-        sxx = stt - st**2 / c
-        sxy = stx - st * sx / c
-        del stt, stx, st, sx
-        slope = np.where(sxx > 0, sxy / sxx, 0.0)
-        del sxx, sxy
-        frame = pd.DataFrame(xe, index=ends)
-        maxdev = np.maximum(frame.rolling(**roll).max().to_numpy() - mean, 0.0)
-        maxdev = np.maximum(maxdev, mean - frame.rolling(**roll).min().to_numpy())
-    # a full window [e - L, e) spans from its first to its last sample: L - dt on a
-    # regular grid
-    drift = slope * ((L - dt) / pd.Timedelta(seconds=1))
-    perm, _ = permissible(run, list(cols), mean, limits)
-    decides = np.isfinite(perm).any(axis=0)
+    The rolling sums are formed and combined in place, one at a time, so that a
+    chunk holds about six arrays of its size at once.
+    """
+    # tags without a permissible variation do not decide: skip their statistics
+    probe, _ = permissible(run, list(cols), np.ones(len(cols)), limits)
+    decides = np.isfinite(probe)
     if not decides.any():
         return None, decides
+    use = [c for c, d in zip(cols, decides, strict=True) if d]
+    n = len(ends)
+    xe = np.full((n, len(use)), np.nan)
+    for j, tg in enumerate(use):
+        xe[:-1, j] = run.data[tg].to_numpy(dtype=float)
+    valid = np.isfinite(xe)
+
+    def rolled(values, how="sum"):
+        r = pd.DataFrame(values, index=ends, copy=False).rolling(**roll)
+        return getattr(r, how)().to_numpy(copy=True)  # writable: combined in place
+
     with np.errstate(invalid="ignore", divide="ignore"):
-        ratio = (np.maximum(maxdev, np.abs(drift)) / perm)[:, decides]
+        c = rolled(valid.astype(float))
+        work = np.where(valid, xe, 0.0)  # x, masked samples 0
+        sx = rolled(work)
+        T = np.where(valid, tsec[:, None], 0.0)
+        work *= T  # t x
+        sxy = rolled(work)
+        del work
+        st = rolled(T)
+        T *= T  # t t
+        sxx = rolled(T)
+        del T
+        mean = sx / c
+        sx *= st  # sxy = stx - st sx / c
+        sx /= c
+        sxy -= sx
+        del sx
+        st *= st  # sxx = stt - st^2 / c
+        st /= c
+        sxx -= st
+        del st
+        slope = sxy
+        np.divide(sxy, sxx, out=slope, where=sxx > 0)
+        slope[~(sxx > 0)] = 0.0
+        del sxx
+        maxdev = rolled(xe, "max")
+        maxdev -= mean
+        low = rolled(xe, "min")
+        np.subtract(mean, low, out=low)
+        np.maximum(maxdev, low, out=maxdev)
+        del low
+        # a full window [e - L, e) spans from its first to its last sample: L - dt on a
+        # regular grid; |drift| = |slope| (L - dt)
+        slope *= (L - dt) / pd.Timedelta(seconds=1)
+        np.abs(slope, out=slope)
+        perm, _ = permissible(run, use, mean, limits)
+        del mean
+        np.maximum(maxdev, slope, out=maxdev)
+        del slope
+        ratio = maxdev
+        ratio /= perm
     # each deciding tag must cover the window as the run does: at least min_coverage
     # of the samples its own sampling interval leads to expect, and 2 at the least
     idx = run.data.index
     need = []
-    for j in np.flatnonzero(decides):
-        dt_j = sampling_interval(idx[valid[:-1, j]])
+    for j in range(len(use)):
+        full = valid[:-1, j].all()
+        dt_j = dt / pd.Timedelta(seconds=1) if full else sampling_interval(idx[valid[:-1, j]])
         dt_j = dt_j if np.isfinite(dt_j) and dt_j > 0 else dt / pd.Timedelta(seconds=1)
         need.append(max(2.0, limit * L_s / dt_j))
-    ok = c[:, decides] >= np.array(need)[None, :]
-    ratio = np.where(ok, ratio, np.inf)
-    return np.where(np.isnan(ratio), np.inf, ratio), decides
+    ratio[~(c >= np.array(need)[None, :])] = np.inf
+    ratio[np.isnan(ratio)] = np.inf
+    return ratio, decides

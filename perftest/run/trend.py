@@ -160,12 +160,15 @@ def _slope_statistics(x: np.ndarray, t: np.ndarray):
     dof = np.full(k, np.nan)
     if x.shape[0] < 4:
         return slope, u, dof, n, stt
-    V, _, M = stats._mean_variance_columns(resid, None)
+    V, _, M, gamma = stats._mean_variance_columns(resid, None, with_gamma=True)
     K = int(max(M.max(), 1))
-    gamma, _, _ = stats._acov_columns(resid, K)
+    gamma = gamma[: K + 1]
     from scipy import fft as _fft  # imported on first use, as in perftest.run.stats
 
+    # c_k = sum_i w_i w_{i+k}; the same for every column without a masked sample
+    same = bool(valid.all()) and k > 1
     w = np.where(valid, np.nan_to_num(dt) / np.where(stt > 0, stt, np.inf), 0.0)
+    w = w[:, :1] if same else w
     nfft = _fft.next_fast_len(x.shape[0] + K + 1, real=True)
     fw = _fft.rfft(w, nfft, axis=0)
     c = _fft.irfft(fw * np.conj(fw), nfft, axis=0)[: K + 1]

@@ -66,14 +66,17 @@ def coverage(run, tags=None, *, interval=None) -> pd.Series:
     tags = list(run.data.columns) if tags is None else list(tags)
     idx = run.data.index
     run_dt = sampling_interval(idx)
+    valid = ~run.mask[tags].to_numpy()
+    counts = valid.sum(axis=0)
     out = {}
-    for tg in tags:
-        valid = run.data[tg].notna().to_numpy()
+    for j, tg in enumerate(tags):
         dt = interval
         if dt is None:
-            dt = sampling_interval(idx[valid]) if valid.sum() >= 2 else run_dt
-            dt = run_dt if not np.isfinite(dt) else dt
-        out[tg] = _share(int(valid.sum()), run, idx, dt)
+            dt = run_dt
+            if counts[j] < len(idx) and counts[j] >= 2:  # gaps: the tag's own step
+                own = sampling_interval(idx[valid[:, j]])
+                dt = own if np.isfinite(own) else run_dt
+        out[tg] = _share(int(counts[j]), run, idx, dt)
     return pd.Series(out, dtype=float, name="coverage")
 
 
