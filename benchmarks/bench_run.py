@@ -10,9 +10,8 @@ average
     References: (a) ``DataFrame.mean`` + ``DataFrame.std`` (the floor: no
     autocorrelation, no covariance); (b) the same random part as
     ``Run.average`` computed bare with numpy: mean, standard deviation, effective
-    sample size from the FFT autocorrelation (``perftest.run.stats`` documents the
-    rule: lags up to n // 4, stop before the first non-positive one, weights
-    1 - k/n) and s / sqrt(n_eff).  The largest relative difference of u_random
+    uncertainty of the mean from the FFT autocovariances (``perftest.run.stats``
+    documents the rule: Sokal's window with the mean-bias correction).  The largest relative difference of u_random
     between perftest and (b) is printed as a check that both compute the same.
 steadiest_window
     A day of one-minute data (1,440 samples) for 200 tags (pressures: the default
@@ -64,19 +63,29 @@ def signals(n: int, tags: int, freq: str, seed: int = 1) -> pd.DataFrame:
 
 
 def bare_random_part(x: np.ndarray) -> np.ndarray:
-    """s / sqrt(n_eff) per column with numpy only (no masked samples)."""
+    """u of the mean per column with numpy only (no masked samples), by the rule
+    ``perftest.run.stats`` documents: autocovariances from the FFT, window sums
+    V(M) = S(M) / (n - 1 - 2 sum (1 - k/n)), the first M >= 5 tau(M) with
+    tau = n V / (2 (gamma_0 + V)), at most n // 2, V at least s^2 / (2 n)."""
     n = x.shape[0]
-    k_max = n // 4
+    k_max = n // 2
     d = x - x.mean(axis=0)
     nfft = sfft.next_fast_len(n + k_max + 1, real=True)
     f = sfft.rfft(d, nfft, axis=0)
     sums = sfft.irfft(f * np.conj(f), nfft, axis=0)[: k_max + 1]
     lags = np.arange(k_max + 1)
-    rho = (sums / (n - lags)[:, None]) / (sums[0] / n)
-    keep = np.cumprod(rho[1:] > 0.0, axis=0).astype(bool)
-    s = np.sum(np.where(keep, (1.0 - lags[1:] / n)[:, None] * rho[1:], 0.0), axis=0)
-    neff = np.clip(n / (1.0 + 2.0 * s), 1.0, n)
-    return x.std(axis=0, ddof=1) / np.sqrt(neff)
+    gamma = sums / (n - lags)[:, None]
+    w = (1.0 - lags[1:] / n)[:, None]
+    S = gamma[0] + 2.0 * np.cumsum(w * gamma[1:], axis=0)
+    denom = n - 1.0 - 2.0 * np.cumsum(w * np.ones_like(gamma[1:]), axis=0)
+    V = np.where(denom > 0, S / denom, np.nan)
+    tau = n * V / (2.0 * (gamma[0] + V))
+    ok = (lags[1:, None] >= 5.0 * tau) & (denom > 0)
+    last = k_max - 1 - np.argmax((denom > 0)[::-1], axis=0)
+    first = np.where(ok.any(axis=0), np.argmax(ok, axis=0), last)
+    v = V[first, np.arange(x.shape[1])]
+    v = np.maximum(v, 0.5 * gamma[0] / (n - 1.0))
+    return np.sqrt(v)
 
 
 def bare_rolling(df: pd.DataFrame, window: str) -> pd.DataFrame:

@@ -14,6 +14,7 @@ import sys
 import time
 from pathlib import Path
 
+from perftest import defaults
 from perftest.errors import PerftestError
 
 __all__ = ["main", "build_parser"]
@@ -187,14 +188,14 @@ def build_parser() -> argparse.ArgumentParser:
         type=_window_length,
         help="window length, e.g. 2h, 30min or 7200 (seconds): with --start (or --end) "
         "the window from there; alone, the steadiest window of that length "
-        "(default 2h); 'all' averages the whole run",
+        "(default " + defaults.STEADY_WINDOW + "); 'all' averages the whole run",
     )
     r.add_argument(
         "--outlier-alpha",
         metavar="ALPHA",
         type=_probability,
-        default=0.01,
-        help="significance level of the outlier screen (default 0.01)",
+        default=defaults.OUTLIER_ALPHA,
+        help=f"significance level of the outlier screen (default {defaults.OUTLIER_ALPHA})",
     )
     r.add_argument(
         "--keep-all",
@@ -414,7 +415,7 @@ def _window_options(args) -> tuple:
 
     start, end, length = args.start, args.end, args.window
     if length is None:
-        return start, end, ("2h" if start is None and end is None else None)
+        return start, end, (defaults.STEADY_WINDOW if start is None and end is None else None)
     if length == "all":
         if start is not None or end is not None:
             raise PerftestError(

@@ -27,6 +27,7 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from perftest import defaults
 from perftest.errors import InputError, PerftestError
 
 __all__ = [
@@ -48,22 +49,17 @@ __all__ = [
 STAGES = {
     "load plant": "perftest.plant.file",
     "read run": "perftest.importers",
-    "choose window": "perftest.run.core",
-    "screen outliers": "perftest.run.core",
+    "choose window": "perftest.run.steady",
+    "screen outliers": "perftest.run.outliers",
     "average": "perftest.run.measurements",
     "reconcile": "perftest.balance.plant",
     "evaluate": "perftest.evaluation.results",
     "write reports": "perftest.report",
 }
 
-# Length of the steadiest window the demo looks for: two hours is a common
-# acceptance-test duration for a steam unit (common practice, no source).
-DEFAULT_WINDOW = "2h"
-
-# Significance level of the outlier screen: the chance that a clean tag loses any
-# sample in the window (the screen tests each sample at alpha/n against a running
-# median).  1 % keeps false rejections rare over the demo's 40-odd tags.
-DEFAULT_OUTLIER_ALPHA = 0.01
+# The defaults shared with the Python path and the command line (perftest.defaults).
+DEFAULT_WINDOW = defaults.STEADY_WINDOW
+DEFAULT_OUTLIER_ALPHA = defaults.OUTLIER_ALPHA
 
 
 @dataclass(frozen=True)
@@ -270,7 +266,7 @@ def run_pipeline(
     start=None,
     end=None,
     window: str | None = DEFAULT_WINDOW,
-    eliminate: bool = True,
+    eliminate: bool = defaults.ELIMINATE,
     outlier_alpha: float = DEFAULT_OUTLIER_ALPHA,
     figures: bool = True,
     progress: Callable[..., None] | None = None,

@@ -159,9 +159,12 @@ def test_window_table_covers_the_run(executed):
     expected = pd.date_range(t0.floor("15min"), t1, freq="15min")
     assert [pd.Timestamp(s) for s in w["start"]] == list(expected)
     for status, n in zip(w["status"], w["n_samples"], strict=True):
-        assert status in ("ok", "skipped", "failed")
+        # "unstable": reconcile_many judges stability by default (perftest.defaults)
+        assert status in ("ok", "unstable", "skipped", "failed")
         if status == "skipped":
-            assert n < 8  # fewer than half of a full window's 15 one-minute samples
+            # fewer than half of a full window's 15 one-minute samples, or below the
+            # minimum coverage of 80 % (12 of 15)
+            assert n < 12
 
 
 @pytest.mark.slow

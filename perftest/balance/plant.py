@@ -11,6 +11,7 @@ import numpy as np
 import pandas as pd
 import scipy.sparse as sp
 
+from perftest.defaults import RECONCILIATION_ALPHA
 from perftest.errors import ConvergenceError, InputError, ReconciliationWarning
 from perftest.plant import states as thermo
 from perftest.plant.equations import PlantModel, build_model
@@ -647,7 +648,7 @@ def _warm_solve(model: PlantModel, extra: tuple, measurements, x0, start):
 
 
 def reconcile(
-    plant, measurements, *, eliminate=False, alpha=0.05, start=None
+    plant, measurements, *, eliminate=False, alpha=RECONCILIATION_ALPHA, start=None
 ) -> PlantReconciliation:
     """Reconcile a plant's measurements against its mass and energy balances.
 

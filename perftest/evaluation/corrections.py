@@ -40,8 +40,8 @@ from dataclasses import KW_ONLY, dataclass, field
 import numpy as np
 import pandas as pd
 
-from perftest.evaluation.correction_surface import CorrectionSurface
 from perftest.errors import InputError, PlantFileError
+from perftest.evaluation.correction_surface import CorrectionSurface
 from perftest.evaluation.guarantees import (
     DEFAULT_RULE,
     DIRECTIONS,

@@ -854,10 +854,20 @@ def _combine(files: list[_FileData], step, excl: _Exclusions, log: list[str]):
         empty = count == 0
         mask[:, j0 : j0 + m] = empty
         rows_in_bin = np.bincount(k - k0, minlength=n_bins)
+        # stamps before the file's first or after its last interval are outside its
+        # record (another file fills them): empty there, but no excluded sample
+        inside = np.zeros(n_bins, dtype=bool)
+        inside[int(k[0]) - k0 : int(k[-1]) - k0 + 1] = True
+        if not inside.all():
+            log.append(
+                f"{fd.layout.name}: {int((~inside).sum())} stamp(s) of the time base lie "
+                "outside its record (only other files fill them); its tags are empty there, "
+                "not excluded samples"
+            )
         for j, job in enumerate(fd.jobs):
             # intervals whose samples are all masked are explained by those samples'
             # own exclusions; only intervals without any sample get a row here
-            e = np.flatnonzero(empty[:, j] & (rows_in_bin == 0))
+            e = np.flatnonzero(empty[:, j] & (rows_in_bin == 0) & inside)
             if e.size:
                 reason = f"no sample of {fd.layout.name} in the interval"
                 excl.add(labels[e], job.tag, reason, np.nan, fd.layout.stem)

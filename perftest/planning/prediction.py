@@ -173,8 +173,8 @@ def _sensitivities(perf, names: list, outputs: list) -> np.ndarray:
 
 
 def _reconcile(plant, m):
-    from perftest.errors import ReconciliationWarning
     from perftest.balance.plant import reconcile
+    from perftest.errors import ReconciliationWarning
 
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", ReconciliationWarning)

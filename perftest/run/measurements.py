@@ -35,6 +35,10 @@ class MeasurementRecord:
         Welch-Satterthwaite degrees of freedom of ``u`` (inf allowed).
     n_samples, n_excluded : int
         Samples averaged and samples excluded in the window.
+    coverage : float
+        Valid samples over the samples expected in the window (NaN when unknown).
+    trend_p : float
+        p-value of the test for a trend inside the window (NaN when not tested).
     """
 
     tag: str
@@ -47,6 +51,8 @@ class MeasurementRecord:
     dof: float
     n_samples: int
     n_excluded: int
+    coverage: float = float("nan")
+    trend_p: float = float("nan")
 
     def __repr__(self) -> str:
         # value is SI and unit the display unit: the text shows the value in that
@@ -126,6 +132,12 @@ class Measurements:
         Averaging window.
     notes : tuple of str
         Remarks made while averaging (missing plant info, group disagreement...).
+    coverage : ndarray
+        Per tag, valid samples over the samples expected in the window
+        (:func:`perftest.run.windows.coverage`); NaN when unknown.
+    trend_p : ndarray
+        Per tag, p-value of the test for a trend inside the window
+        (:func:`perftest.run.trend.trend_test`); NaN when not tested.
 
     Raises
     ------
@@ -153,6 +165,8 @@ class Measurements:
     start: pd.Timestamp | None = None
     end: pd.Timestamp | None = None
     notes: tuple[str, ...] = field(default=())
+    coverage: np.ndarray | None = None
+    trend_p: np.ndarray | None = None
 
     def __post_init__(self):
         tags = tuple(str(t) for t in self.tags)
@@ -174,6 +188,8 @@ class Measurements:
             set_(self, name, _vector(getattr(self, name), n, name))
         for name in ("n_samples", "n_excluded"):
             set_(self, name, _vector(getattr(self, name), n, name, default=0, dtype=int))
+        for name in ("coverage", "trend_p"):
+            set_(self, name, _vector(getattr(self, name), n, name, default=np.nan))
         for name in ("u_random", "u_systematic"):
             arr = getattr(self, name)
             bad = np.flatnonzero(~(arr >= 0))
@@ -221,7 +237,16 @@ class Measurements:
         cov = cov.copy()
         cov.setflags(write=False)
         set_(self, "cov", cov)
-        for name in ("value", "u_random", "u_systematic", "dof", "n_samples", "n_excluded"):
+        for name in (
+            "value",
+            "u_random",
+            "u_systematic",
+            "dof",
+            "n_samples",
+            "n_excluded",
+            "coverage",
+            "trend_p",
+        ):
             getattr(self, name).setflags(write=False)
         set_(self, "notes", tuple(str(s) for s in self.notes))
 
@@ -275,6 +300,8 @@ class Measurements:
             dof=float(self.dof[i]),
             n_samples=int(self.n_samples[i]),
             n_excluded=int(self.n_excluded[i]),
+            coverage=float(self.coverage[i]),
+            trend_p=float(self.trend_p[i]),
         )
 
     def subset(self, tags: Iterable[str]) -> Measurements:
@@ -295,6 +322,8 @@ class Measurements:
             start=self.start,
             end=self.end,
             notes=self.notes,
+            coverage=self.coverage[idx],
+            trend_p=self.trend_p[idx],
         )
 
     def to_frame(self, units="si") -> pd.DataFrame:
@@ -313,7 +342,8 @@ class Measurements:
         -------
         DataFrame
             Columns ``tag, quantity, value, unit, u_random, u_systematic, u, dof,
-            n_samples, n_excluded``; ``unit`` is ``""`` when the quantity is unknown.
+            n_samples, n_excluded, coverage, trend_p``; ``unit`` is ``""`` when the quantity is
+            unknown.
         """
         if not (isinstance(units, str) and units == "si"):
             from perftest.display.views import measurements_frame
@@ -339,6 +369,8 @@ class Measurements:
                 "dof": self.dof,
                 "n_samples": self.n_samples,
                 "n_excluded": self.n_excluded,
+                "coverage": self.coverage,
+                "trend_p": self.trend_p,
             }
         )
 

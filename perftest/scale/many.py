@@ -37,9 +37,11 @@ from collections.abc import Mapping, Sequence
 import numpy as np
 import pandas as pd
 
+from perftest.defaults import CHECK_STABILITY, ELIMINATE, MIN_COVERAGE, RECONCILIATION_ALPHA
 from perftest.display.views import WindowTable
 from perftest.errors import InputError, PerftestError
 from perftest.run.core import Run
+from perftest.run.windows import sampling_interval
 from perftest.scale.store import Progress, WindowStore, fingerprint
 from perftest.scale.windows import (
     _as_runs,
@@ -369,6 +371,10 @@ def _compute_row(plant, run, spec, options, start=None):
             f"{row['n_samples']} sample(s) in the window, fewer than min_samples={spec.min_samples}"
         )
         return row, None
+    share = _window_coverage(run)
+    if share < MIN_COVERAGE:
+        row["reason"] = f"coverage {share:.0%} of the window, below the minimum {MIN_COVERAGE:.0%}"
+        return row, None
     stage = "average"
     rec = None
     unstable = ""
@@ -629,11 +635,11 @@ def reconcile_many(
     *,
     engine: str = "local",
     results=True,
-    eliminate: bool = False,
-    alpha: float = 0.05,
+    eliminate: bool = ELIMINATE,
+    alpha: float = RECONCILIATION_ALPHA,
     min_samples: int | None = None,
     screen_outliers: bool = False,
-    stability: bool = False,
+    stability: bool = CHECK_STABILITY,
     warm_start: bool = True,
     scheduler=None,
     on_error: str = "row",
@@ -675,7 +681,7 @@ def reconcile_many(
         and every ``corrected_*`` result (when the plant file
         has a ``[performance]`` table; without one, True reconciles only), or the
         names given.
-    eliminate : bool, default False
+    eliminate : bool, default True (:data:`perftest.defaults.ELIMINATE`)
         Serial elimination of suspect measurements in each window (as in
         :func:`perftest.reconcile`).
     alpha : float, default 0.05
@@ -683,10 +689,12 @@ def reconcile_many(
     min_samples : int, optional
         Fewest samples a window must hold to be reconciled.  Default: half the
         samples a full window holds at the run's median sampling interval, at
-        least 2.  Windows with fewer get a row with status ``"skipped"``.
+        least 2.  Windows with fewer get a row with status ``"skipped"``, and so
+        do windows whose sample times hold valid values at less than
+        :data:`perftest.defaults.MIN_COVERAGE` (0.8) of the times they should.
     screen_outliers : bool, default False
         Screen each window with :meth:`Run.screen_outliers` before averaging.
-    stability : bool, default False
+    stability : bool, default True (:data:`perftest.defaults.CHECK_STABILITY`)
         Judge each window with :meth:`Run.stability` (the plant's limits).  A window
         with a tag outside its permissible variation is still reconciled but gets
         status ``"unstable"`` and the tags in ``unstable`` and ``reason``.
@@ -885,3 +893,13 @@ def reconcile_many(
         wstore.prune()
     ordered = [frames[i] for i in range(len(chunks))]
     return WindowTable(_finish(ordered, [c.run_number for c in chunks], options.results))
+
+
+def _window_coverage(run) -> float:
+    """Sample times holding a valid value over those a window of its length expects."""
+    dt = sampling_interval(run.data.index)
+    if not (np.isfinite(dt) and dt > 0) or run.start is None or run.end is None:
+        return 1.0
+    expected = (run.end - run.start) / pd.Timedelta(seconds=1) / dt
+    valid = int((~run.mask.to_numpy().all(axis=1)).sum())
+    return valid / expected if expected > 0 else 1.0

@@ -25,6 +25,7 @@ from pathlib import Path
 
 import pandas as pd
 
+from perftest.defaults import CHECK_STABILITY, ELIMINATE
 from perftest.errors import PerftestError
 from perftest.report.output import check_outputs
 from perftest.scale.store import StoreLock
@@ -123,8 +124,8 @@ def monitor(
     scheduler=None,
     workers: int | None = None,
     results=True,
-    eliminate: bool = True,
-    stability: bool = True,
+    eliminate: bool = ELIMINATE,
+    stability: bool = CHECK_STABILITY,
     resume: bool = True,
     progress=None,
     figure: bool = True,

@@ -359,7 +359,7 @@ def _cut(run: Run, start, end, lean: bool) -> Run | None:
     idx = run.data.index
     if not ((idx >= start) & (idx < end)).any():
         return None
-    w = run.window(start, end)
+    w = run.window(start, end, min_coverage=0.0)  # min_samples screens windows here
     if not lean:
         return w
     ex = w.exclusions

@@ -7,6 +7,7 @@ import pandas as pd
 import pytest
 from standin import StandIn
 
+from perftest.errors import InputError, PlantFileError
 from perftest.evaluation.corrections import (
     RULES,
     CorrectionCurve,
@@ -19,7 +20,6 @@ from perftest.evaluation.corrections import (
     guarantee_from_table,
     guarantees_from_plant,
 )
-from perftest.errors import InputError, PlantFileError
 
 # Power vs ambient temperature, normalised to 1 at 15 degC (illustrative numbers).
 T_X = (273.15, 288.15, 303.15)
@@ -547,8 +547,8 @@ polynomial = [0.0, -20000.0]
 
 
 def test_corrected_result_uncertainty_against_monte_carlo(tmp_path):
-    from perftest.plant.file import load_plant
     from perftest.evaluation.results import evaluate
+    from perftest.plant.file import load_plant
 
     path = tmp_path / "plant.toml"
     path.write_text(_MC_PLANT, encoding="utf-8")
@@ -741,8 +741,8 @@ def test_bad_guarantee_keys_name_key_and_line(tmp_path, old, new, match, line_of
 def test_rule_reaches_summary_json_and_markdown(tmp_path):
     """The rule name and its sentence appear in summary.json rows and the report."""
     from perftest import report
-    from perftest.plant.file import load_plant
     from perftest.evaluation.results import evaluate
+    from perftest.plant.file import load_plant
 
     text = _MC_PLANT + (
         '\n[acceptance]\nrule = "plain"\n\n[[guarantees]]\nquantity = "corrected_net_power"\n'

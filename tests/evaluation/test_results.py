@@ -17,8 +17,8 @@ import pytest
 from standin import StandIn
 
 from perftest.errors import InputError, PlantFileError
-from perftest.plant.file import load_plant
 from perftest.evaluation.results import Performance, evaluate, fuel_exergy_ratio
+from perftest.plant.file import load_plant
 
 PLANT = """
 [site]

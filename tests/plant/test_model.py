@@ -25,9 +25,9 @@ import scipy.optimize
 
 import perftest
 from perftest.errors import InputError, PlantFileError, PropertyRangeError, ReconciliationWarning
-from perftest.run.measurements import Measurements
 from perftest.plant import build_model
 from perftest.plant.guess import initial_guess
+from perftest.run.measurements import Measurements
 
 DATA = Path(__file__).resolve().parents[1] / "data" / "model"
 IF97 = "IF97::Water"

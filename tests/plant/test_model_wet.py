@@ -28,8 +28,8 @@ import scipy.optimize
 import perftest
 from perftest.balance import reconcile_nonlinear
 from perftest.errors import ReconciliationWarning
-from perftest.run.measurements import Measurements
 from perftest.plant.guess import initial_guess
+from perftest.run.measurements import Measurements
 
 PLANT = Path(__file__).resolve().parents[1] / "data" / "model" / "wet_extraction.toml"
 IF97 = "IF97::Water"

@@ -16,7 +16,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from perftest.report import ReportData, render_markdown, tables as T
+from perftest.report import ReportData, render_markdown
+from perftest.report import tables as T
 
 DATA = Path(__file__).resolve().parents[2] / "sample_data" / "brackenfold"
 

@@ -17,8 +17,8 @@ import numpy as np
 import pytest
 
 import perftest
-from perftest.report.audit import build_audit, file_fingerprint, normalise_reason
 from perftest.demo import run_demo
+from perftest.report.audit import build_audit, file_fingerprint, normalise_reason
 
 from .conftest import DEMO, PLANT, RUN, write_text
 

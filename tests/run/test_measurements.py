@@ -52,6 +52,8 @@ def test_frame_view_uses_si_units():
         "dof",
         "n_samples",
         "n_excluded",
+        "coverage",
+        "trend_p",
     ]
     # SI units of the glossary quantities (SI brochure, common facts)
     assert df["unit"].tolist() == ["Pa", "K", "kg/s"]

@@ -1,4 +1,4 @@
-"""Tests of perftest.run.core: windows, stability, outliers, averaging to Measurements."""
+"""Tests of perftest.run (core, windows, steady, stability, outliers, averaging, quality)."""
 
 from __future__ import annotations
 
@@ -192,8 +192,12 @@ def test_average_shared_lot_covariance_and_group(plant):
     df = frame()
     m_all = Run.from_frame(df, plant=plant).average(autocorrelation=False, keep_members=True)
     i, j, k = (m_all.index(t) for t in ("FT-A", "FT-B", "FT-C"))
-    # same lot: systematic errors fully correlated, cov = u_s,i u_s,j = 0.2 * 0.2
-    assert m_all.cov[i, j] == pytest.approx(0.04, rel=1e-12)
+    # same lot: systematic errors fully correlated, cov = u_s,i u_s,j = 0.2 * 0.2;
+    # the two are members of one group (redundant meters), so their random parts
+    # carry the sample correlation r of the joint record: + r u_r,i u_r,j
+    r = np.corrcoef(df["FT-A"], df["FT-B"])[0, 1]
+    ur = [m_all[t].u_random for t in ("FT-A", "FT-B")]
+    assert m_all.cov[i, j] == pytest.approx(0.04 + r * ur[0] * ur[1], rel=1e-12)
     assert m_all.cov[i, k] == 0.0  # different lot (none)
 
     m = Run.from_frame(df, plant=plant).average(autocorrelation=False)
@@ -209,6 +213,42 @@ def test_average_shared_lot_covariance_and_group(plant):
     assert g.u_systematic == pytest.approx(0.2, rel=1e-12)
     assert g.n_samples == 240
     assert any("group 'FQ' averaged from 2 members" in s for s in m.notes)
+
+
+def test_group_mean_keeps_wander_common_to_its_meters(plant):
+    # numpy Monte Carlo: the two flow meters of group FQ see one common AR(1) load
+    # wander (correlation time 10 samples, the e-folding lag of rho_k = phi^k) plus
+    # their own white noise.  The spread of the group mean over 300 records is the
+    # true u of one group mean; Run.average must report it, not the smaller u of
+    # two independent meters.
+    from scipy.signal import lfilter
+
+    rng = np.random.default_rng(1616)
+    n, reps, phi = 120, 300, math.exp(-1.0 / 10.0)
+    idx = pd.date_range("2031-05-04 08:00", periods=n, freq="1min", tz="UTC")
+    values, u = [], []
+    for _ in range(reps):
+        e = rng.normal(size=n) * 0.01
+        e[0] /= math.sqrt(1.0 - phi**2)
+        wander = lfilter([1.0], [1.0, -phi], e)
+        df = pd.DataFrame(
+            {
+                "FT-A": 50.0 + wander + 0.01 * rng.normal(size=n),
+                "FT-B": 50.0 + wander + 0.01 * rng.normal(size=n),
+            },
+            index=idx,
+        )
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", DataQualityWarning)
+            g = Run.from_frame(df, plant=plant).average()["FQ"]
+        values.append(g.value)
+        u.append(g.u_random)
+    spread = np.std(values, ddof=1)
+    rms_u = math.sqrt(np.mean(np.square(u)))
+    # 300 records know the spread to 4 % (1/sqrt(600)); the estimator itself runs
+    # 0.87-0.98 on such records (tests/run/test_stats.py): 0.80-1.10 allowed.
+    # Treated as independent meters the ratio is about sqrt(2) = 1.4.
+    assert 0.80 <= spread / rms_u <= 1.10
 
 
 def test_group_disagreement_is_flagged(plant):

@@ -16,6 +16,7 @@ are the true values plus seeded noise.
 
 from __future__ import annotations
 
+import functools
 import sys
 import warnings
 from pathlib import Path
@@ -35,6 +36,11 @@ from perftest.errors import (
 )
 from perftest.run.core import Run
 from perftest.scale.many import KEY_RESULTS, TABLE_COLUMNS, reconcile_many
+
+# These tests were written for the plain path: no serial elimination and no stability
+# check unless a test asks for them.  reconcile_many's own defaults are those of
+# perftest.defaults, shared with `perftest monitor` (tests/run/test_defaults.py).
+reconcile_many = functools.partial(reconcile_many, eliminate=False, stability=False)
 
 IF97 = "IF97::Water"
 T0 = pd.Timestamp("2031-03-02 10:00", tz="UTC")
@@ -243,9 +249,12 @@ def test_explicit_windows_and_several_runs(plant, run, faulty_run):
         start, end = (pd.Timestamp(t, tz="UTC") for t in pairs[i])
         assert table.loc[i, "start"] == start and table.loc[i, "end"] == end
         assert_row_matches(table.iloc[i], direct(plant, run, start, end))
-    # run b: 10:05-10:25 lacks FT-H from 10:15 on but has valid samples before
+    # run b: 10:05-10:25 lacks FT-H from 10:15 on: half its samples, below the minimum
+    # coverage (perftest.defaults.MIN_COVERAGE): refused, naming the tag, as by hand
     start, end = (pd.Timestamp(t, tz="UTC") for t in pairs[0])
-    assert_row_matches(table.iloc[2], direct(plant, faulty_run, start, end))
+    assert table.loc[2, "status"] == "failed" and "FT-H (50%)" in table.loc[2, "reason"]
+    with pytest.raises(DataError, match=r"FT-H \(50%\) hold less than the minimum coverage"):
+        direct(plant, faulty_run, start, end)
     # 10:32-10:42 lies inside the stretch where the cold stream reads as steam
     assert table.loc[3, "status"] == "failed"
     assert "PropertyRangeError" in table.loc[3, "reason"]
@@ -638,7 +647,12 @@ def test_run_files_with_windows_longer_than_a_day(plant, tmp_path):
         kw = dict(every=every, results=False, warm_start=False)
         expected = reconcile_many(plant, whole, **kw)
         got = reconcile_many(plant, path, **kw)
-        assert (got["status"] == "ok").all()
+        # the last "2D" window holds one day of data: below the minimum coverage
+        partial = got["reason"].str.startswith("coverage 50%")
+        assert (got["status"][~partial] == "ok").all() and (
+            got["status"][partial] == "skipped"
+        ).all()
+        assert partial.sum() == (1 if isinstance(every, str) else 0)
         assert got["n_samples"].max() >= 2 * 1440  # windows of two days or more, whole
         _same_windows(got, expected)
 

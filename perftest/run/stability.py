@@ -1,0 +1,188 @@
+"""Stability of a run: permissible variations and the per-tag steadiness table.
+
+``Run.stability`` calls :func:`stability`; :func:`permissible` is shared with the
+steadiest-window search (:mod:`perftest.run.steady`).
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+
+import numpy as np
+import pandas as pd
+
+from perftest.errors import InputError, StabilityWarning
+from perftest.plant.file import DEFAULT_STABILITY
+from perftest.run.common import PERCENT_KINDS, field, fmt_time
+from perftest.run.windows import duration_seconds
+
+__all__ = ["stability", "permissible", "permissible_spec"]
+
+
+def permissible_spec(run, tag: str, limits):
+    """Return ``(spec, basis)`` for a tag following the documented priority."""
+    quantity = run.quantities.get(tag)
+    if limits is not None:
+        if tag in limits:
+            return limits[tag], "argument (tag)"
+        if quantity is not None and quantity in limits:
+            return limits[quantity], "argument (quantity)"
+    spec = field(field(run.plant, "tags", {}) or {}, tag)
+    override = field(spec, "stability")
+    if override is not None:
+        return override, "plant tag"
+    plant_limits = field(run.plant, "stability", {}) or {}
+    if quantity is not None and quantity in plant_limits:
+        lim = plant_limits[quantity]
+        return lim, ("default" if lim == DEFAULT_STABILITY.get(quantity) else "plant quantity")
+    if quantity in DEFAULT_STABILITY:
+        return DEFAULT_STABILITY[quantity], "default"
+    return None, "none"
+
+
+def permissible(run, tags: list[str], means: np.ndarray, limits):
+    """Permissible variation [SI] per tag (NaN where none) and its basis.
+
+    ``means`` may be 1-D (one per tag) or 2-D (windows x tags).
+    """
+    from perftest.units import to_si
+
+    means = np.asarray(means, dtype=float)
+    out = np.full(means.shape, np.nan)
+    basis = []
+    for j, tag in enumerate(tags):
+        spec, where = permissible_spec(run, tag, limits)
+        basis.append(where)
+        if spec is None:
+            continue
+        col = (..., j)
+        if hasattr(spec, "limit_si"):  # a plant-file StabilityLimit, already in SI
+            out[col] = spec.limit_si(means[col])
+            continue
+        if isinstance(spec, int | float | np.floating | np.integer):
+            value, kind, unit = float(spec), "absolute", None
+        else:
+            value = field(spec, "value")
+            kind = str(field(spec, "kind", "absolute"))
+            unit = field(spec, "unit")
+            if value is None:
+                raise InputError(
+                    f"The stability limit of tag '{tag}' ({where}) has no 'value'. Give "
+                    "{value, kind} with kind 'percent' or 'absolute'.",
+                    parameter="limits",
+                    tag=tag,
+                )
+            value = float(value)
+        if not (value > 0 and math.isfinite(value)):
+            raise InputError(
+                f"The stability limit of tag '{tag}' ({where}) must be a positive number. "
+                f"Got {value!r}.",
+                parameter="limits",
+                tag=tag,
+            )
+        if kind in PERCENT_KINDS:
+            out[col] = value / 100.0 * np.abs(means[col])
+        elif kind == "absolute":
+            if unit:
+                value = float(to_si(value, unit, quantity=run.quantities.get(tag), difference=True))
+            out[col] = value
+        else:
+            raise InputError(
+                f"The stability limit of tag '{tag}' ({where}) must have kind 'percent' or "
+                f"'absolute'. Got {kind!r}.",
+                parameter="limits",
+                tag=tag,
+            )
+    return out, basis
+
+
+def stability(run, limits=None, *, tags=None, warn: bool = True) -> pd.DataFrame:
+    """Judge how steady each tag is over the run (or window).
+
+    Parameters
+    ----------
+    run : Run
+        The run (or window) to work on.
+    limits : dict, optional
+        Permissible variation keyed by tag id or quantity: a number [SI,
+        absolute] or ``{"value": v, "kind": "percent" | "absolute", "unit": u}``.
+    tags : list of str, optional
+        Tags to judge (default all).
+    warn : bool, default True
+        Issue a :class:`~perftest.errors.StabilityWarning` listing the failing tags.
+
+    Returns
+    -------
+    DataFrame
+        Indexed by tag: ``quantity, n, mean, std, min, max, max_deviation,
+        drift, permissible, ratio, passed, basis`` (SI).  ``passed`` is
+        ``<NA>`` when no permissible variation is known for the tag.
+
+    Notes
+    -----
+    ``max_deviation`` is the largest :math:`|x_i - \\bar x|`; ``drift`` is the
+    least-squares slope times the window length :math:`t_{last} - t_{first}`;
+
+    .. math:: r = \\max(\\text{max\\_deviation}, |\\text{drift}|) / \\text{permissible}
+
+    and a tag passes when :math:`r \\le 1`.  The permissible variation is taken
+    from, in order: ``limits[tag]``, ``limits[quantity]``, the tag's
+    ``stability`` in the plant file, the plant's ``[stability.<quantity>]``,
+    :data:`DEFAULT_STABILITY` (common practice, no source).  Percent limits
+    are a percentage of the window mean.
+    """
+    tags = run._check_tags(tags, "stability")
+    x = run.data[tags].to_numpy(dtype=float)
+    n = np.isfinite(x).sum(axis=0)
+    t = (run.data.index - run.data.index[0]) / pd.Timedelta(seconds=1)
+    t = np.asarray(t, dtype=float)[:, None] * np.ones((1, len(tags)))
+    with warnings.catch_warnings(), np.errstate(invalid="ignore", divide="ignore"):
+        warnings.simplefilter("ignore", RuntimeWarning)
+        mean = np.nanmean(x, axis=0)
+        std = np.nanstd(x, axis=0, ddof=1)
+        lo = np.nanmin(x, axis=0)
+        hi = np.nanmax(x, axis=0)
+        maxdev = np.maximum(hi - mean, mean - lo)
+        tv = np.where(np.isfinite(x), t, np.nan)
+        tm = np.nanmean(tv, axis=0)
+        sxx = np.nansum((tv - tm) ** 2, axis=0)
+        sxy = np.nansum((tv - tm) * (x - mean), axis=0)
+        slope = np.where(sxx > 0, sxy / sxx, 0.0)
+    drift = slope * duration_seconds(run)
+    drift = np.where(n >= 2, drift, np.nan)
+    perm, basis = permissible(run, tags, mean, limits)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ratio = np.maximum(maxdev, np.abs(drift)) / perm
+    passed = pd.array(
+        [pd.NA if not np.isfinite(r) else bool(r <= 1.0) for r in ratio], dtype="boolean"
+    )
+    table = pd.DataFrame(
+        {
+            "quantity": [run.quantities.get(tg, "") for tg in tags],
+            "n": n,
+            "mean": mean,
+            "std": std,
+            "min": lo,
+            "max": hi,
+            "max_deviation": maxdev,
+            "drift": drift,
+            "permissible": perm,
+            "ratio": ratio,
+            "passed": passed,
+            "basis": basis,
+        },
+        index=pd.Index(tags, name="tag"),
+    )
+    failing = table.index[table["passed"].fillna(True).to_numpy() == False].tolist()  # noqa: E712
+    if warn and failing:
+        worst = table.loc[failing, "ratio"].sort_values(ascending=False)
+        shown = ", ".join(f"{tg} ({r:.2f})" for tg, r in worst.items())
+        warnings.warn(
+            f"{len(failing)} tag(s) vary more than permitted in the window "
+            f"{fmt_time(run.data.index[0])} to {fmt_time(run.data.index[-1])} "
+            f"(ratio to the permissible variation): {shown}.",
+            StabilityWarning,
+            stacklevel=3,
+        )
+    return table

@@ -1,0 +1,185 @@
+"""Test for a trend inside a window: a regression slope against the random scatter.
+
+``Run.trend`` and ``Run.average`` call :func:`trend_test`.  A window that starts
+before the unit has settled shows as a slope that the scatter of the samples cannot
+explain.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import pandas as pd
+
+from perftest.defaults import TREND_ALPHA
+from perftest.errors import InputError, StabilityWarning
+from perftest.run import stats
+from perftest.run.common import fmt_time
+
+__all__ = ["trend_test", "TREND_COLUMNS"]
+
+TREND_COLUMNS = ("slope", "u_slope", "t", "dof", "p_value", "trend", "trending")
+
+
+def trend_test(
+    run, tags=None, *, alpha=None, warn: bool = True, stacklevel: int = 3
+) -> pd.DataFrame:
+    """Least-squares slope of each tag over the window and its significance.
+
+    Parameters
+    ----------
+    run : Run
+        The run (or window) to work on.
+    tags : list of str, optional
+        Tags to test (default all).
+    alpha : float, optional
+        Level of the test for the window as a whole (two-sided; default
+        :data:`perftest.defaults.TREND_ALPHA`, 0.05): each of the m tested tags is
+        flagged when its p-value is below ``alpha / m`` (Bonferroni), so a steady
+        window raises a false alarm with probability of about ``alpha``.
+    warn : bool, default True
+        Issue a :class:`~perftest.errors.StabilityWarning` naming the flagged tags.
+    stacklevel : int, default 3
+        Of that warning (3: the caller of ``Run.trend``).
+
+    Returns
+    -------
+    DataFrame
+        Indexed by tag: ``slope`` [SI/s], ``u_slope`` [SI/s], ``t``, ``dof``,
+        ``p_value``, ``trend`` (slope times the window span [SI]) and ``trending``
+        (bool; ``<NA>`` with fewer than 4 valid samples or no scatter).
+
+    Raises
+    ------
+    InputError
+        If ``alpha`` is not in (0, 1).
+
+    Notes
+    -----
+    The slope :math:`b = \\sum_i w_i x_i` of :math:`x_i = a + b t_i + e_i` by ordinary
+    least squares, :math:`w_i = (t_i - \\bar t)/S_{tt}`, is a weighted mean of the
+    samples; its variance under autocorrelated scatter is
+    :math:`\\sum_{|k|\\le M} c_k \\gamma_k` with :math:`c_k = \\sum_i w_i w_{i+k}`.
+    The autocovariances :math:`\\gamma_k` come from the residuals with the window
+    :math:`M` and the mean-bias correction :math:`V` of
+    :func:`perftest.run.stats.random_uncertainty_of_mean` (Sokal's window); the
+    residuals also lack the scatter of the fitted slope itself, about
+    :math:`u(b)^2 S_{tt}/m` at every lag, which gives
+
+    .. math::
+
+        u(b)^2 = \\frac{\\sum_{|k|\\le M} c_k (\\hat\\gamma_k + V)}{1 - (2M + 1)/m},
+        \\qquad t = b/u(b), \\qquad \\nu = \\max(m/(2M + 1) - 2, 1)
+
+    (:math:`\\nu`: the number of independent stretches of the correlation window,
+    less the two fitted parameters; from memory) and the two-sided p-value from
+    Student's t.  This is the trend t-test against the random scatter of
+    Santer et al. [1]_ (their Eqs. 3-6) with their lag-one effective sample size
+    replaced by the windowed autocovariance sum.  By simulation (first-order
+    autoregressive scatter, 120 samples, correlation times up to 12 samples,
+    tests/run/test_trend.py) the false-alarm rate stays at or below the nominal
+    level; with the plain residual effective sample size it reached 20 % at 5 %.
+
+    References
+    ----------
+    .. [1] B. D. Santer et al., "Statistical significance of trends and trend
+       differences in layer-average atmospheric temperature time series", Journal of
+       Geophysical Research 105(D6), 7337-7356, 2000. DOI 10.1029/1999JD901105
+       (from memory).
+    """
+    tags = run._check_tags(tags, "trend")
+    level = TREND_ALPHA if alpha is None else alpha
+    if not (isinstance(level, int | float) and 0.0 < float(level) < 1.0):
+        raise InputError(
+            f"The 'alpha' parameter of Run.trend must lie in (0, 1). Got {alpha!r}.",
+            parameter="alpha",
+        )
+    x = run.data[tags].to_numpy(dtype=float)
+    idx = run.data.index
+    t = np.asarray((idx - idx[0]) / pd.Timedelta(seconds=1), dtype=float)
+    slope, u, dof, n, stt = _slope_statistics(x, t)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        tstat = slope / u
+    from scipy import stats as _sps  # on first use, as in perftest.run.stats
+
+    p = 2.0 * _sps.t.sf(np.abs(tstat), dof)
+    usable = (n >= 4) & (stt > 0) & np.isfinite(p) & (u > 0)
+    p = np.where(usable, p, np.nan)
+    m = max(int(usable.sum()), 1)
+    flagged = pd.array(
+        [pd.NA if not ok else bool(pv < level / m) for ok, pv in zip(usable, p, strict=True)],
+        dtype="boolean",
+    )
+    span = float(t[-1] - t[0]) if len(idx) else 0.0
+    table = pd.DataFrame(
+        {
+            "slope": slope,
+            "u_slope": u,
+            "t": tstat,
+            "dof": dof,
+            "p_value": p,
+            "trend": slope * span,
+            "trending": flagged,
+        },
+        index=pd.Index(tags, name="tag"),
+    )
+    hit = table.index[table["trending"].fillna(False).to_numpy(dtype=bool)].tolist()
+    if warn and hit:
+        shown = ", ".join(
+            f"{tg} ({table.loc[tg, 'trend']:+.4g} over the window, p = "
+            f"{table.loc[tg, 'p_value']:.2g})"
+            for tg in hit
+        )
+        warnings.warn(
+            f"{len(hit)} tag(s) trend inside the window {fmt_time(run.start or idx[0])} to "
+            f"{fmt_time(run.end or idx[-1])} beyond their scatter (level {level:g} for the "
+            f"window, {level / m:.2g} per tag): {shown}. The unit may not have settled: "
+            "look at the record, or choose a later window.",
+            StabilityWarning,
+            stacklevel=stacklevel,
+        )
+    return table
+
+
+def _slope_statistics(x: np.ndarray, t: np.ndarray):
+    """Per column: OLS slope, its u under autocorrelated scatter, dof, m, S_tt."""
+    valid = np.isfinite(x)
+    n = valid.sum(axis=0).astype(float)
+    tv = np.where(valid, t[:, None], np.nan)
+    with warnings.catch_warnings(), np.errstate(invalid="ignore", divide="ignore"):
+        warnings.simplefilter("ignore", RuntimeWarning)
+        tm = np.nanmean(tv, axis=0)
+        xm = np.nanmean(x, axis=0)
+        dt = tv - tm
+        stt = np.nansum(dt**2, axis=0)
+        slope = np.nansum(dt * (x - xm), axis=0) / stt
+        resid = x - xm - slope * dt
+    k = x.shape[1]
+    u = np.full(k, np.nan)
+    dof = np.full(k, np.nan)
+    if x.shape[0] < 4:
+        return slope, u, dof, n, stt
+    V, _, M, gamma = stats._mean_variance_columns(resid, None, with_gamma=True)
+    K = int(max(M.max(), 1))
+    gamma = gamma[: K + 1]
+    from scipy import fft as _fft  # imported on first use, as in perftest.run.stats
+
+    # c_k = sum_i w_i w_{i+k}; the same for every column without a masked sample
+    same = bool(valid.all()) and k > 1
+    w = np.where(valid, np.nan_to_num(dt) / np.where(stt > 0, stt, np.inf), 0.0)
+    w = w[:, :1] if same else w
+    nfft = _fft.next_fast_len(x.shape[0] + K + 1, real=True)
+    fw = _fft.rfft(w, nfft, axis=0)
+    c = _fft.irfft(fw * np.conj(fw), nfft, axis=0)[: K + 1]
+    lags = np.arange(K + 1)[:, None]
+    inside = lags <= M[None, :]
+    g = np.nan_to_num(gamma) + np.nan_to_num(V)[None, :]
+    terms = np.where(inside, c * g, 0.0)
+    num = terms[0] + 2.0 * terms[1:].sum(axis=0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        denom = 1.0 - (2.0 * M + 1.0) / n
+        var_b = np.where(denom > 0, num / denom, np.nan)
+        u = np.sqrt(np.where(var_b > 0, var_b, np.nan))
+        dof = np.maximum(n / (2.0 * M + 1.0) - 2.0, 1.0)
+    return slope, u, dof, n, stt
