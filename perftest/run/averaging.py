@@ -143,7 +143,7 @@ def average(
         if hit:
             notes.append(
                 "trend inside the window beyond the scatter for "
-                + ", ".join(f"{tg} (p = {tt.loc[tg, 'p_value']:.2g})" for tg in hit)
+                + ", ".join(f"{tg} (p {_p_text(tt.loc[tg, 'p_value'])})" for tg in hit)
             )
     _, mean, _, neff, u_r = stats.mean_statistics(x, autocorrelation)
     dof_r = np.maximum(neff - 1.0, 1.0)
@@ -393,3 +393,8 @@ def _member_text(run, tag: str, value: float) -> str:
 
     shown, unit = convert(value, run.units.get(tag), quantity=run.quantities.get(tag) or None)
     return f"{tag} = {fmt_number(float(shown), 6)} {unit_label(unit)}".rstrip()
+
+
+def _p_text(p: float) -> str:
+    """A p-value for a note, without e-notation ("= 0.012", "< 0.001")."""
+    return "< 0.001" if p < 0.001 else f"= {p:.2g}"
