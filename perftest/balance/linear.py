@@ -3,52 +3,19 @@
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass
-from typing import Any
 
 import numpy as np
 import scipy.linalg
 import scipy.sparse as sp
 from scipy.linalg.lapack import dtrtrs
 
-from perftest.balance import _checks, _dense
-from perftest.balance.result import BatchReconciliation, Reconciliation, chi2_p_value
+from perftest.balance import _checks, _dense, _sparse
+from perftest.balance._core import Core, Problem
+from perftest.balance._stats import chi2_p_value
+from perftest.balance.result import BatchReconciliation, Reconciliation
 from perftest.errors import InputError, ReconciliationWarning
 
 __all__ = ["reconcile_linear", "reconcile_linear_batch"]
-
-
-@dataclass
-class Problem:
-    """Checked inputs of a linear reconciliation."""
-
-    x: np.ndarray
-    S: Any  # dense ndarray or CSR
-    sdiag: np.ndarray
-    is_diag: bool
-    A: Any
-    b: np.ndarray
-    B: Any  # (m, k), dense or CSR; k may be 0
-    sparse: bool
-
-
-@dataclass
-class Core:
-    """Everything the linear solve produces, before it is wrapped in a result."""
-
-    xhat: np.ndarray
-    y: np.ndarray  # minimum-norm estimate, finite everywhere
-    observable: np.ndarray
-    lam: np.ndarray  # multipliers of the original constraints
-    chi2: float
-    dof: int
-    vdiag: np.ndarray  # variances of the adjustments
-    redundant: np.ndarray
-    covariances: Any  # callable -> (x_cov, y_cov, xy_cov), unobservable y not masked
-    y_var: np.ndarray  # variances of y (unobservable not masked)
-    constraint_residual: np.ndarray
-    constraint_u: np.ndarray
-    inconsistent: tuple | None
 
 
 def check_problem(x, cov, A, b, B, func: str, *, allow_sparse: bool = True) -> Problem:
@@ -330,8 +297,6 @@ def solve(p: Problem, *, strict: bool = False) -> Core:
     that do not close, the one closer to closing is kept.
     """
     if p.sparse:
-        from perftest.balance import _sparse
-
         core = _sparse.solve_sparse(p)
     else:
         core = solve_dense(p)

@@ -8,11 +8,8 @@ import numpy as np
 import scipy.sparse as sp
 
 from perftest.balance import _checks
-from perftest.balance.linear import (
-    Problem,
-    build_result,
-    solve,
-)
+from perftest.balance._core import Problem
+from perftest.balance.linear import build_result, solve
 from perftest.errors import ConvergenceError, InputError, ReconciliationWarning
 
 __all__ = ["reconcile_nonlinear", "finite_difference_jacobian"]

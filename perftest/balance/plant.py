@@ -500,7 +500,7 @@ def _dead_state(plant, measurements):
 
 def _solve(model: PlantModel, extra: tuple, measurements, y0):
     """Run the balance engine on ``model`` with tags ``extra`` appended to ``x``."""
-    from perftest.balance import reconcile_nonlinear
+    from perftest.balance.nonlinear import reconcile_nonlinear
 
     tags = (*model.measured, *extra)
     idx = np.array([measurements.index(t) for t in tags], dtype=int)

@@ -10,6 +10,8 @@ import numpy as np
 import scipy.sparse as sp
 import scipy.special
 
+from perftest.balance._stats import check_alpha, sidak_critical_value
+
 __all__ = ["Reconciliation", "BatchReconciliation", "EliminationStep", "Elimination"]
 
 
@@ -145,9 +147,12 @@ class Reconciliation:
         ndarray of int
             Indices into ``x``, in increasing order.
         """
-        from perftest.balance.gross import measurement_test
-
-        return np.flatnonzero(measurement_test(self, alpha).flagged)
+        # The measurement test of perftest.balance.gross.measurement_test, computed
+        # here so that the record does not import the tests built on it.
+        alpha = check_alpha(alpha, "Reconciliation.suspects")
+        crit, _ = sidak_critical_value(alpha, int(np.count_nonzero(self.redundant)))
+        z = self.z
+        return np.flatnonzero(np.where(np.isnan(z), False, z > crit))
 
     def ufloats(self, tags: Sequence[str] | None = None):
         """Reconciled measured values as correlated ``uncertainties`` ufloats.
@@ -340,14 +345,6 @@ class Elimination:
     keep: np.ndarray
     x: np.ndarray
     passed: bool
-
-
-def chi2_p_value(chi2: float, dof: int) -> float:
-    """Survival probability of a chi-square statistic; 1 when there are no degrees."""
-    if dof <= 0:
-        return 1.0
-    # chdtrc is the ufunc behind scipy.stats.chi2.sf, without its per-call overhead.
-    return float(scipy.special.chdtrc(dof, chi2))
 
 
 def as_dense(mat) -> np.ndarray:
