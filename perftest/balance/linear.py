@@ -157,9 +157,14 @@ def solve_dense(p: Problem) -> Core:
     )
 
 
-# Closure check of a solution: |A xhat + B y - b| against the size of the terms
-# |A| |xhat| + |B| |y| + |b|.  A correct solve closes to a few hundred ulp; 1e-9 leaves
-# room for ill-conditioning that still gives a usable estimate.
+# Closure check of a solution: |A xhat + B y - b| of a row against the size of its
+# terms, the measured values included: |A| (|x| + |xhat|) + |B| |y| + |b|.  The
+# measured values set the scale of the round-off a correct solve leaves; without them,
+# a row that the balances force to zero (a stream between two closed valves) has
+# round-off terms and round-off residual, a ratio near 1, and a false alarm sent a
+# 2,000-stream solve through the dense null-space fallback.  A correct solve closes to
+# a few hundred ulp; 1e-9 leaves room for ill-conditioning that still gives a usable
+# estimate.
 CLOSURE_RTOL = 1e-9
 
 # Largest problem (measured + unmeasured variables) that the null-space fallback
@@ -168,10 +173,11 @@ FALLBACK_MAX = 3000
 
 
 def _closure_error(p: Problem, xhat, y) -> float:
-    """Largest |A xhat + B y - b| of a row relative to the size of its terms."""
+    """Largest |A xhat + B y - b| of a row relative to the size of its terms and of
+    the measured values in it (see ``CLOSURE_RTOL``)."""
     A, B, b = p.A, p.B, p.b
     res = A @ xhat - b
-    scale = abs(A) @ np.abs(xhat) + np.abs(b)
+    scale = abs(A) @ (np.abs(xhat) + np.abs(p.x)) + np.abs(b)
     if B.shape[1]:
         res = res + B @ y
         scale = scale + abs(B) @ np.abs(y)
