@@ -20,9 +20,10 @@ import scipy.sparse as sp
 
 from perftest.balance import _checks
 from perftest.balance._stats import check_alpha as _check_alpha
+from perftest.balance.ambiguity import indistinguishable
 from perftest.balance.linear import check_problem, reconcile_linear
 from perftest.balance.nonlinear import reconcile_nonlinear
-from perftest.balance.result import Elimination, EliminationStep
+from perftest.balance.result import Elimination, EliminationAlternative, EliminationStep
 from perftest.errors import InputError, ReconciliationWarning
 
 __all__ = ["serial_elimination", "serial_elimination_nonlinear"]
@@ -33,7 +34,7 @@ def _max_z(result):
     return float(np.nanmax(z)) if np.any(~np.isnan(z)) else float("nan")
 
 
-def _step(result, dropped, name, alpha):
+def _step(result, dropped, name, alpha, tied=(), tied_names=(), lost=0):
     return EliminationStep(
         dropped=dropped,
         name=name,
@@ -42,6 +43,9 @@ def _step(result, dropped, name, alpha):
         p_value=float(result.p_value),
         max_z=_max_z(result),
         passed=bool(result.p_value >= alpha),
+        tied_with=tuple(tied),
+        tied_names=tuple(tied_names),
+        redundancy_lost=int(lost),
     )
 
 
@@ -58,34 +62,116 @@ def _names(names, n, func):
     return names
 
 
-def _eliminate(run, n, k0, alpha, names, max_steps):
-    """Shared loop: ``run(keep, dropped, y_start)`` returns a Reconciliation."""
-    keep = np.arange(n)
-    dropped: list[int] = []
-    y_start: list[float] = []
+def _trusted(trusted, n, names, func):
+    """Indices of the trusted measurements (given as indices or names)."""
+    if trusted is None:
+        return ()
+    out = []
+    for t in trusted:
+        if isinstance(t, str):
+            if names is None or t not in names:
+                raise InputError(
+                    f"The 'trusted' parameter of {func} must name measurements in 'names' "
+                    f"or give their indices. Got {t!r}.",
+                    parameter="trusted",
+                )
+            out.append(names.index(t))
+        elif isinstance(t, int | np.integer) and 0 <= int(t) < n:
+            out.append(int(t))
+        else:
+            raise InputError(
+                f"The 'trusted' parameter of {func} must hold indices between 0 and {n - 1} "
+                f"or names. Got {t!r}.",
+                parameter="trusted",
+            )
+    return tuple(sorted(set(out)))
+
+
+def _full(result, keep, dropped, k0, n):
+    """Estimate and standard uncertainty of every original measured quantity."""
+    x = np.empty(n)
+    u = np.empty(n)
+    x[keep] = result.x
+    u[keep] = result.u_reconciled
+    x[dropped] = result.y[k0:]
+    u[dropped] = result.y_u[k0:]
+    return x, u
+
+
+def _quiet(run, keep, dropped, y_start):
     with warnings.catch_warnings():
         # dof reaching 0 is an expected end of elimination, not news.
         warnings.simplefilter("ignore", ReconciliationWarning)
-        result = run(keep, dropped, y_start)
+        return run(keep, list(dropped), list(y_start))
+
+
+def _eliminate(run, n, k0, alpha, names, max_steps, trusted=()):
+    """Shared loop: ``run(keep, dropped, y_start)`` returns a Reconciliation.
+
+    At each step the measurement with the largest statistic is taken out together
+    with every measurement the tests cannot tell from it
+    (:func:`perftest.balance.ambiguity.indistinguishable`); each single choice among
+    them is reconciled too and kept as an alternative.
+    """
+    keep = np.arange(n)
+    dropped: list[int] = []
+    y_start: list[float] = []
+    is_trusted = np.zeros(n, dtype=bool)
+    is_trusted[list(trusted)] = True
+    result = _quiet(run, keep, dropped, y_start)
     steps = [_step(result, None, None, alpha)]
+    alternatives = []
     limit = n if max_steps is None else int(max_steps)
     while result.p_value < alpha and result.dof > 0 and len(dropped) < limit:
-        z = np.where(result.redundant, result.z, -np.inf)
+        eligible = np.asarray(result.redundant, dtype=bool) & ~is_trusted[keep]
+        z = np.where(eligible, result.z, -np.inf)
         z = np.where(np.isnan(z), -np.inf, z)
-        if not np.isfinite(z.max()):
+        if not np.isfinite(z.max(initial=-np.inf)):
             break
         pos = int(np.argmax(z))
-        idx = int(keep[pos])
-        y_start.append(float(result.x[pos]))
-        dropped.append(idx)
-        keep = np.delete(keep, pos)
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", ReconciliationWarning)
-            result = run(keep, dropped, y_start)
-        steps.append(_step(result, idx, None if names is None else names[idx], alpha))
-    x_full = np.empty(n)
-    x_full[keep] = result.x
-    x_full[dropped] = result.y[k0:]
+        group = indistinguishable(result, pos, eligible & np.isfinite(z))
+        if len(dropped) + group.size > limit:
+            break  # the set does not fit: taking out part of it would be a silent pick
+        idx = [int(keep[g]) for g in group]
+        singles = []
+        if group.size > 1:
+            for g, i in zip(group, idx, strict=True):
+                alt_keep = np.delete(keep, g)
+                alt = _quiet(run, alt_keep, [*dropped, i], [*y_start, float(result.x[g])])
+                ax, au = _full(alt, alt_keep, [*dropped, i], k0, n)
+                singles.append(EliminationAlternative(len(steps), i, alt, ax, au))
+        alternatives.extend(singles)
+        if group.size == keep.size:
+            # Taking the whole set out would leave nothing measured: stop here, with
+            # the single choices on record as alternatives.
+            break
+        y_start.extend(float(result.x[g]) for g in group)
+        dropped.extend(idx)
+        keep = np.delete(keep, group)
+        result = _quiet(run, keep, dropped, y_start)
+        lost = max(a.result.dof for a in singles) - result.dof if singles else 0
+        steps.append(
+            _step(
+                result,
+                idx[0],
+                None if names is None else names[idx[0]],
+                alpha,
+                idx[1:],
+                () if names is None else tuple(names[i] for i in idx[1:]),
+                lost,
+            )
+        )
+    x_full, _ = _full(result, keep, dropped, k0, n)
+    if alternatives:
+        tied = sorted({a.dropped for a in alternatives})
+        warnings.warn(
+            "Serial elimination met measurements the tests cannot tell apart ("
+            + ", ".join(str(i) if names is None else names[i] for i in tied)
+            + "): all were taken out together rather than one picked; see the steps' "
+            "redundancy_lost and the result's depends_on_choice and choice_spread.",
+            ReconciliationWarning,
+            stacklevel=3,
+        )
     return Elimination(
         steps=tuple(steps),
         dropped=tuple(dropped),
@@ -93,17 +179,33 @@ def _eliminate(run, n, k0, alpha, names, max_steps):
         keep=keep,
         x=x_full,
         passed=bool(result.p_value >= alpha),
+        alternatives=tuple(alternatives),
+        trusted=tuple(trusted),
     )
 
 
 def serial_elimination(
-    x, cov, A, b=None, B=None, alpha: float = 0.05, *, names=None, max_steps=None
+    x,
+    cov,
+    A,
+    b=None,
+    B=None,
+    alpha: float = 0.05,
+    *,
+    names=None,
+    max_steps=None,
+    trusted=None,
 ) -> Elimination:
     """Find gross errors in a linear problem by serial elimination.
 
     While the global test fails and redundancy remains, the measurement with the
     largest measurement-test statistic is turned into an unmeasured variable and the
-    problem is reconciled again.
+    problem is reconciled again.  Measurements the tests cannot tell from it (equal
+    statistics, or within their sampling spread; see
+    :mod:`perftest.balance.ambiguity`) are turned into unmeasured variables with it,
+    not left to an arbitrary pick; each single choice among them is reconciled as
+    an alternative (:attr:`Elimination.alternatives`), and a
+    :class:`perftest.errors.ReconciliationWarning` says so.
 
     Parameters
     ----------
@@ -115,6 +217,10 @@ def serial_elimination(
         Measurement names, reported in the steps.
     max_steps : int, optional
         Largest number of measurements to drop.
+    trusted : sequence of int or str, optional
+        Measurements (indices, or names from ``names``) never to drop: instruments
+        the engineer has reason to trust, e.g. freshly calibrated.  They settle a
+        choice the tests cannot make.
 
     Returns
     -------
@@ -148,7 +254,7 @@ def serial_elimination(
             Sk = S[np.ix_(keep, keep)]
         return reconcile_linear(p.x[keep], Sk, Ak, p.b, Bk)
 
-    return _eliminate(run, n, k0, alpha, names, max_steps)
+    return _eliminate(run, n, k0, alpha, names, max_steps, _trusted(trusted, n, names, func))
 
 
 def serial_elimination_nonlinear(
@@ -161,6 +267,7 @@ def serial_elimination_nonlinear(
     *,
     names=None,
     max_steps=None,
+    trusted=None,
     **options,
 ) -> Elimination:
     """Serial elimination for a nonlinear problem.
@@ -169,7 +276,7 @@ def serial_elimination_nonlinear(
     ----------
     residual, x, cov, y0, jacobian
         As for :func:`perftest.balance.reconcile_nonlinear`.
-    alpha, names, max_steps
+    alpha, names, max_steps, trusted
         As for :func:`serial_elimination`.
     **options
         Passed to :func:`perftest.balance.reconcile_nonlinear` (``tol``, ``max_iter``...).
@@ -228,4 +335,4 @@ def serial_elimination_nonlinear(
         scale = np.concatenate([base_scale, np.maximum(np.abs(y_k[k0:]), u[drop])])
         return reconcile_nonlinear(res, xm[keep], Sk, y_k, jac, y_scale=scale, **options)
 
-    return _eliminate(run, n, k0, alpha, names, max_steps)
+    return _eliminate(run, n, k0, alpha, names, max_steps, _trusted(trusted, n, names, func))

@@ -12,7 +12,19 @@ import scipy.special
 
 from perftest.balance._stats import check_alpha, sidak_critical_value
 
-__all__ = ["Reconciliation", "BatchReconciliation", "EliminationStep", "Elimination"]
+__all__ = [
+    "Reconciliation",
+    "BatchReconciliation",
+    "EliminationStep",
+    "EliminationAlternative",
+    "Elimination",
+]
+
+#: An estimate "depends on the choice" among instruments the tests cannot tell apart
+#: when its alternatives spread by more than this fraction of its standard
+#: uncertainty.  Our own threshold: a tenth of u is where a difference starts to show
+#: in a result quoted to two significant digits of its uncertainty.
+CHOICE_RTOL = 0.1
 
 
 @dataclass(frozen=True, eq=False)
@@ -305,6 +317,15 @@ class EliminationStep:
         redundant).
     passed : bool
         Whether the global test passes after this step.
+    tied_with : tuple of int
+        Measurements taken out together with ``dropped`` because the tests could not
+        tell them from it (equal statistics, or within their sampling spread: see
+        :mod:`perftest.balance.ambiguity`); empty when the choice was clear.
+    tied_names : tuple of str
+        Their names, when names were given.
+    redundancy_lost : int
+        Degrees of freedom given up by taking the whole set out rather than the one
+        measurement a single choice would drop (0 when the choice was clear).
     """
 
     dropped: int | None
@@ -314,6 +335,36 @@ class EliminationStep:
     p_value: float
     max_z: float
     passed: bool
+    tied_with: tuple = ()
+    tied_names: tuple = ()
+    redundancy_lost: int = 0
+
+
+@dataclass(frozen=True, eq=False)
+class EliminationAlternative:
+    """One single choice at an elimination step whose candidates could not be told apart.
+
+    Attributes
+    ----------
+    step : int
+        Index into :attr:`Elimination.steps` of the step it is an alternative to.
+    dropped : int
+        The one measurement (index into the original ``x``) this alternative drops,
+        besides those dropped at earlier steps.
+    result : Reconciliation
+        The reconciliation with that choice.
+    x : ndarray (n,)
+        Estimate of every original measured quantity under this choice (as
+        :attr:`Elimination.x`).
+    u : ndarray (n,)
+        Their standard uncertainties.
+    """
+
+    step: int
+    dropped: int
+    result: Reconciliation
+    x: np.ndarray
+    u: np.ndarray
 
 
 @dataclass(frozen=True, eq=False)
@@ -337,6 +388,16 @@ class Elimination:
         (``nan`` if a dropped one is not observable).
     passed : bool
         Whether the last global test passes.
+    alternatives : tuple of EliminationAlternative
+        Where a step took out several measurements the tests could not tell apart,
+        the reconciliation of each single choice among them.
+    trusted : tuple of int
+        Measurements that were never candidates for dropping.
+
+    Notes
+    -----
+    :attr:`choice_spread` and :attr:`depends_on_choice` say which estimates the
+    arbitrary choice would have moved.
     """
 
     steps: tuple
@@ -345,6 +406,33 @@ class Elimination:
     keep: np.ndarray
     x: np.ndarray
     passed: bool
+    alternatives: tuple = ()
+    trusted: tuple = ()
+
+    @property
+    def choice_spread(self) -> np.ndarray:
+        """Largest minus smallest estimate of each measured quantity over the
+        alternatives of any ambiguous step (0 where there are none, ``nan`` where an
+        alternative leaves it unobservable) [unit of the measurement]."""
+        spread = np.zeros(self.x.size)
+        for step in sorted({a.step for a in self.alternatives}):
+            xs = np.array([a.x for a in self.alternatives if a.step == step])
+            with np.errstate(invalid="ignore"):
+                spread = np.fmax(spread, xs.max(axis=0) - xs.min(axis=0))
+            spread[np.isnan(xs).any(axis=0)] = np.nan
+        return spread
+
+    @property
+    def depends_on_choice(self) -> np.ndarray:
+        """Estimates whose alternatives spread by more than ``CHOICE_RTOL`` times
+        their largest standard uncertainty, or that some alternative leaves
+        unobservable (bool, (n,))."""
+        if not self.alternatives:
+            return np.zeros(self.x.size, dtype=bool)
+        u = np.nanmax(np.array([a.u for a in self.alternatives]), axis=0)
+        spread = self.choice_spread
+        with np.errstate(invalid="ignore"):
+            return np.isnan(spread) | (spread > CHOICE_RTOL * u)
 
 
 def as_dense(mat) -> np.ndarray:
