@@ -31,6 +31,11 @@ when both hold:
    :math:`r_i`) and :math:`|z_i - |\\rho_{ij}| z_j| \\le k \\sqrt{1 - \\rho_{ij}^2}`
    (an error in :math:`j` explains :math:`z_i`).
 
+3. the measurement test flags :math:`j` too (:math:`z_j` above its Sidak critical
+   value at the level of the elimination): a measurement the test does not call
+   suspect is no candidate for dropping, however weak the evidence against the
+   others.  Exact ties are flagged together or not at all.
+
 :math:`k = 1.96` (two-sided 95 %).  Exact ties (:math:`|\\rho| = 1`: instruments that
 enter the same balances in the same way) meet both with zero spread; a relative
 tolerance ``TIE_RTOL`` absorbs round-off.
@@ -46,6 +51,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from perftest.balance._stats import sidak_critical_value
 from perftest.balance.result import CHOICE_RTOL, as_dense
 
 __all__ = ["TIE_RTOL", "SPREAD_K", "CHOICE_RTOL", "indistinguishable"]
@@ -66,7 +72,7 @@ def _adjustment_row(result, i: int) -> np.ndarray:
     return np.asarray(s_row, dtype=float) - as_dense(result.x_cov)[i]
 
 
-def indistinguishable(result, i: int, eligible: np.ndarray) -> np.ndarray:
+def indistinguishable(result, i: int, eligible: np.ndarray, alpha: float = 0.05) -> np.ndarray:
     """Measurements the tests cannot tell from measurement ``i``.
 
     Parameters
@@ -77,6 +83,8 @@ def indistinguishable(result, i: int, eligible: np.ndarray) -> np.ndarray:
         Index into ``result.x`` of the measurement with the largest statistic.
     eligible : ndarray of bool (n,)
         Measurements that may be dropped (not trusted, in the balance).
+    alpha : float
+        Family-wise level of the measurement test (condition 3).
 
     Returns
     -------
@@ -102,9 +110,11 @@ def indistinguishable(result, i: int, eligible: np.ndarray) -> np.ndarray:
     rho = np.clip(np.nan_to_num(rho), 0.0, 1.0)
     zi = z[i]
     slack = TIE_RTOL * max(zi, 1.0)
+    critical, _ = sidak_critical_value(alpha, int(np.count_nonzero(result.redundant)))
+    flagged = (z > critical) | (z >= zi - slack)
     prefer = zi - z <= SPREAD_K * np.sqrt(2.0 * (1.0 - rho)) + slack
     cond = SPREAD_K * np.sqrt(1.0 - rho**2) + slack
     explained = (np.abs(z - rho * zi) <= cond) & (np.abs(zi - rho * z) <= cond)
-    others = np.flatnonzero(eligible & prefer & explained)
+    others = np.flatnonzero(eligible & flagged & prefer & explained)
     others = others[np.argsort(-z[others], kind="stable")]
     return np.concatenate([[i], others]).astype(int)

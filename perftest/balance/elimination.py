@@ -93,34 +93,46 @@ def _full(result, keep, dropped, k0, n):
     u = np.empty(n)
     x[keep] = result.x
     u[keep] = result.u_reconciled
-    x[dropped] = result.y[k0:]
-    u[dropped] = result.y_u[k0:]
+    nd = len(dropped)
+    x[dropped] = result.y[k0 : k0 + nd]
+    u[dropped] = result.y_u[k0 : k0 + nd]
     return x, u
 
 
-def _quiet(run, keep, dropped, y_start):
+def _quiet(run, keep, dropped, y_start, D):
     with warnings.catch_warnings():
         # dof reaching 0 is an expected end of elimination, not news.
         warnings.simplefilter("ignore", ReconciliationWarning)
-        return run(keep, list(dropped), list(y_start))
+        return run(keep, list(dropped), list(y_start), D)
 
 
 def _eliminate(run, n, k0, alpha, names, max_steps, trusted=()):
-    """Shared loop: ``run(keep, dropped, y_start)`` returns a Reconciliation.
+    """Shared loop: ``run(keep, dropped, y_start, D)`` returns a Reconciliation.
 
-    At each step the measurement with the largest statistic is taken out together
-    with every measurement the tests cannot tell from it
-    (:func:`perftest.balance.ambiguity.indistinguishable`); each single choice among
-    them is reconciled too and kept as an alternative.
+    ``D`` (n, q) holds the shared directions freed so far: the measured values are
+    taken as :math:`x = x_t + D b + e` with ``b`` unmeasured (appended to ``y``
+    after the dropped measurements), so the balances no longer judge the candidates
+    along what they share.
+
+    At each step the measurement with the largest statistic is found with every
+    measurement the tests cannot tell from it
+    (:func:`perftest.balance.ambiguity.indistinguishable`).  Alone, it is dropped.
+    With others, none is dropped: the direction their gross-error signatures share
+    is freed instead (each candidate's one-standard-uncertainty bias in the sense its
+    adjustment points, summed), which takes out the redundancy they share and keeps
+    every candidate's own reading; each single choice among them is reconciled too
+    and kept as an alternative.
     """
     keep = np.arange(n)
     dropped: list[int] = []
     y_start: list[float] = []
+    D = np.zeros((n, 0))
     is_trusted = np.zeros(n, dtype=bool)
     is_trusted[list(trusted)] = True
-    result = _quiet(run, keep, dropped, y_start)
+    result = _quiet(run, keep, dropped, y_start, D)
     steps = [_step(result, None, None, alpha)]
     alternatives = []
+    shared = []
     limit = n if max_steps is None else int(max_steps)
     while result.p_value < alpha and result.dof > 0 and len(dropped) < limit:
         eligible = np.asarray(result.redundant, dtype=bool) & ~is_trusted[keep]
@@ -129,46 +141,56 @@ def _eliminate(run, n, k0, alpha, names, max_steps, trusted=()):
         if not np.isfinite(z.max(initial=-np.inf)):
             break
         pos = int(np.argmax(z))
-        group = indistinguishable(result, pos, eligible & np.isfinite(z))
-        if len(dropped) + group.size > limit:
-            break  # the set does not fit: taking out part of it would be a silent pick
+        group = indistinguishable(result, pos, eligible & np.isfinite(z), alpha)
         idx = [int(keep[g]) for g in group]
-        singles = []
-        if group.size > 1:
-            for g, i in zip(group, idx, strict=True):
-                alt_keep = np.delete(keep, g)
-                alt = _quiet(run, alt_keep, [*dropped, i], [*y_start, float(result.x[g])])
-                ax, au = _full(alt, alt_keep, [*dropped, i], k0, n)
-                singles.append(EliminationAlternative(len(steps), i, alt, ax, au))
-        alternatives.extend(singles)
-        if group.size == keep.size:
-            # Taking the whole set out would leave nothing measured: stop here, with
-            # the single choices on record as alternatives.
+        before = result
+        if group.size == 1:
+            y_start.append(float(result.x[pos]))
+            dropped.append(idx[0])
+            keep = np.delete(keep, pos)
+            result = _quiet(run, keep, dropped, y_start, D[keep])
+            name = None if names is None else names[idx[0]]
+            steps.append(_step(result, idx[0], name, alpha, lost=before.dof - result.dof))
+            continue
+        Dk = D[keep]
+        for g, i in zip(group, idx, strict=True):
+            alt_keep = np.delete(keep, g)
+            alt = _quiet(
+                run, alt_keep, [*dropped, i], [*y_start, float(result.x[g])], np.delete(Dk, g, 0)
+            )
+            ax, au = _full(alt, alt_keep, [*dropped, i], k0, n)
+            alternatives.append(EliminationAlternative(len(steps), i, alt, ax, au))
+        d = np.zeros(n)
+        adj = np.asarray(result.adjustments, dtype=float)
+        u_meas = np.asarray(result.u_measured, dtype=float)
+        d[idx] = -np.sign(adj[group]) * u_meas[group]
+        D_next = np.column_stack([D, d])
+        result = _quiet(run, keep, dropped, [*y_start], D_next[keep])
+        if result.dof >= before.dof:  # pragma: no cover - the direction was free already
+            result = before
             break
-        y_start.extend(float(result.x[g]) for g in group)
-        dropped.extend(idx)
-        keep = np.delete(keep, group)
-        result = _quiet(run, keep, dropped, y_start)
-        lost = max(a.result.dof for a in singles) - result.dof if singles else 0
+        D = D_next
+        shared.append(tuple(idx))
         steps.append(
             _step(
                 result,
-                idx[0],
-                None if names is None else names[idx[0]],
+                None,
+                None,
                 alpha,
-                idx[1:],
-                () if names is None else tuple(names[i] for i in idx[1:]),
-                lost,
+                idx,
+                () if names is None else tuple(names[i] for i in idx),
+                before.dof - result.dof,
             )
         )
     x_full, _ = _full(result, keep, dropped, k0, n)
-    if alternatives:
-        tied = sorted({a.dropped for a in alternatives})
+    if shared:
+        tied = sorted({i for g in shared for i in g})
         warnings.warn(
             "Serial elimination met measurements the tests cannot tell apart ("
             + ", ".join(str(i) if names is None else names[i] for i in tied)
-            + "): all were taken out together rather than one picked; see the steps' "
-            "redundancy_lost and the result's depends_on_choice and choice_spread.",
+            + "): none was dropped; the redundancy they share was taken out instead. "
+            "See the result's depends_on_choice and choice_spread for what a single "
+            "choice would change.",
             ReconciliationWarning,
             stacklevel=3,
         )
@@ -181,6 +203,7 @@ def _eliminate(run, n, k0, alpha, names, max_steps, trusted=()):
         passed=bool(result.p_value >= alpha),
         alternatives=tuple(alternatives),
         trusted=tuple(trusted),
+        shared=tuple(shared),
     )
 
 
@@ -203,8 +226,15 @@ def serial_elimination(
     problem is reconciled again.  Measurements the tests cannot tell from it (equal
     statistics, or within their sampling spread; see
     :mod:`perftest.balance.ambiguity`) are turned into unmeasured variables with it,
-    not left to an arbitrary pick; each single choice among them is reconciled as
-    an alternative (:attr:`Elimination.alternatives`), and a
+    not left to an arbitrary pick: none of them is dropped; the direction their
+    gross-error signatures share is freed instead (an unmeasured bias
+    :math:`x = x_t + d\\, b + e` with :math:`d_i` each candidate's standard
+    uncertainty in the sense of its adjustment), which takes out the redundancy
+    they share and leaves each candidate's own reading unjudged by it.  The step
+    records the set in ``tied_with`` (``dropped`` None) and the degrees of freedom
+    taken out in ``redundancy_lost``; each single choice among them is reconciled
+    as an alternative (:attr:`Elimination.alternatives`; see
+    :attr:`Elimination.depends_on_choice`), and a
     :class:`perftest.errors.ReconciliationWarning` says so.
 
     Parameters
@@ -243,14 +273,15 @@ def serial_elimination(
     A_full = sp.csc_matrix(p.A) if p.sparse else p.A
     S = sp.csr_matrix(p.S) if p.sparse else p.S
 
-    def run(keep, dropped, y_start):
+    def run(keep, dropped, y_start, D):
+        # A (x - D b) + B y = b: the shared directions enter as columns -A D of B.
         if p.sparse:
-            Bk = sp.hstack([p.B, A_full[:, dropped]]).tocsr()
             Ak = A_full[:, keep].tocsr()
+            Bk = sp.hstack([p.B, A_full[:, dropped], sp.csr_matrix(-(Ak @ D))]).tocsr()
             Sk = S[keep][:, keep]
         else:
-            Bk = np.hstack([p.B, A_full[:, dropped]])
             Ak = A_full[:, keep]
+            Bk = np.hstack([p.B, A_full[:, dropped], -(Ak @ D)])
             Sk = S[np.ix_(keep, keep)]
         return reconcile_linear(p.x[keep], Sk, Ak, p.b, Bk)
 
@@ -285,7 +316,8 @@ def serial_elimination_nonlinear(
     -------
     Elimination
         A dropped measurement becomes an unmeasured variable appended to ``y``,
-        started at its last reconciled value.
+        started at its last reconciled value; a shared bias (see
+        :func:`serial_elimination`) one more after them, started at 0.
     """
     func = "serial_elimination_nonlinear"
     alpha = _check_alpha(alpha, func)
@@ -301,14 +333,16 @@ def serial_elimination_nonlinear(
     )
     u = np.sqrt(np.asarray(S.diagonal(), dtype=float))
 
-    def run(keep, dropped, y_start):
+    def run(keep, dropped, y_start, D):
         keep = np.asarray(keep)
         drop = np.asarray(dropped, dtype=int)
+        nd, q = drop.size, D.shape[1]
 
         def full_x(xk, yk):
+            # the measured values less the shared biases: x = x_t + D b
             xf = xm.copy()
-            xf[keep] = xk
-            xf[drop] = yk[k0:]
+            xf[keep] = xk - D @ yk[k0 + nd :] if q else xk
+            xf[drop] = yk[k0 : k0 + nd]
             return xf
 
         def res(xk, yk):
@@ -322,17 +356,23 @@ def serial_elimination_nonlinear(
                 if sp.issparse(Jx):
                     Jx = sp.csc_matrix(Jx)
                     Jy = sp.csr_matrix((Jx.shape[0], 0)) if Jy is None else Jy
-                    return Jx[:, keep], sp.hstack([sp.csr_matrix(Jy), Jx[:, drop]]).tocsr()
+                    Jk = Jx[:, keep]
+                    shared = sp.csr_matrix(-(Jk @ D))
+                    return Jk, sp.hstack([sp.csr_matrix(Jy), Jx[:, drop], shared]).tocsr()
                 Jx = np.asarray(Jx, dtype=float)
                 Jy = np.zeros((Jx.shape[0], 0)) if Jy is None else np.asarray(Jy, dtype=float)
                 if sp.issparse(Jy):
                     Jy = Jy.toarray()
-                return Jx[:, keep], np.hstack([Jy, Jx[:, drop]])
+                Jk = Jx[:, keep]
+                return Jk, np.hstack([Jy, Jx[:, drop], -(Jk @ D)])
 
         Sk = S[keep][:, keep] if sp.issparse(S) else S[np.ix_(keep, keep)]
-        y_k = np.concatenate([y_base, np.asarray(y_start, dtype=float)])
-        # A dropped measurement keeps its own uncertainty as its typical size.
-        scale = np.concatenate([base_scale, np.maximum(np.abs(y_k[k0:]), u[drop])])
+        y_k = np.concatenate([y_base, np.asarray(y_start, dtype=float), np.zeros(q)])
+        # A dropped measurement keeps its own uncertainty as its typical size; a
+        # shared bias is counted in standard uncertainties of its candidates.
+        scale = np.concatenate(
+            [base_scale, np.maximum(np.abs(y_k[k0 : k0 + nd]), u[drop]), np.ones(q)]
+        )
         return reconcile_nonlinear(res, xm[keep], Sk, y_k, jac, y_scale=scale, **options)
 
     return _eliminate(run, n, k0, alpha, names, max_steps, _trusted(trusted, n, names, func))

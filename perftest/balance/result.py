@@ -318,14 +318,15 @@ class EliminationStep:
     passed : bool
         Whether the global test passes after this step.
     tied_with : tuple of int
-        Measurements taken out together with ``dropped`` because the tests could not
-        tell them from it (equal statistics, or within their sampling spread: see
-        :mod:`perftest.balance.ambiguity`); empty when the choice was clear.
+        At a step that met measurements the tests could not tell apart (equal
+        statistics, or within their sampling spread: see
+        :mod:`perftest.balance.ambiguity`): all of them, largest statistic first.
+        None is dropped (``dropped`` is None); the redundancy they share is taken out
+        instead.  Empty at other steps.
     tied_names : tuple of str
         Their names, when names were given.
     redundancy_lost : int
-        Degrees of freedom given up by taking the whole set out rather than the one
-        measurement a single choice would drop (0 when the choice was clear).
+        Degrees of freedom this step took out (0 for the starting reconciliation).
     """
 
     dropped: int | None
@@ -385,14 +386,17 @@ class Elimination:
     x : ndarray (n,)
         Final estimate of every original measured quantity: reconciled values for the
         kept ones and the estimates from the balance for the dropped ones
-        (``nan`` if a dropped one is not observable).
+        (``nan`` if a dropped one is not observable).  Measurements of a set the
+        tests could not tell apart are kept, unjudged by the redundancy they share.
     passed : bool
         Whether the last global test passes.
     alternatives : tuple of EliminationAlternative
-        Where a step took out several measurements the tests could not tell apart,
-        the reconciliation of each single choice among them.
+        Where a step met several measurements the tests could not tell apart, the
+        reconciliation of each single choice among them (that one dropped).
     trusted : tuple of int
         Measurements that were never candidates for dropping.
+    shared : tuple of tuple of int
+        The sets whose shared redundancy was taken out, in step order.
 
     Notes
     -----
@@ -408,6 +412,7 @@ class Elimination:
     passed: bool
     alternatives: tuple = ()
     trusted: tuple = ()
+    shared: tuple = ()
 
     @property
     def choice_spread(self) -> np.ndarray:

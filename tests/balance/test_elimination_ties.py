@@ -13,7 +13,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from perftest.balance import reconcile_linear, serial_elimination, serial_elimination_nonlinear
+from perftest.balance import serial_elimination, serial_elimination_nonlinear
 from perftest.balance.ambiguity import SPREAD_K
 from perftest.errors import InputError, ReconciliationWarning
 
@@ -38,7 +38,7 @@ def _adjustment_statistics(x, u, A):
     return np.abs(a) / sd, V / np.outer(sd, sd)
 
 
-def test_exact_tie_takes_both_out_and_shows_the_spread():
+def test_exact_tie_drops_neither_and_shows_the_spread():
     # Without x5's row, feeds x0 and x1 enter only the header row: their columns of
     # A are equal, so their adjustments are perfectly correlated and their
     # statistics equal whatever the error.  A +8 kg/s error in x0.
@@ -51,28 +51,28 @@ def test_exact_tie_takes_both_out_and_shows_the_spread():
     with pytest.warns(ReconciliationWarning, match="cannot tell apart"):
         out = serial_elimination(x, np.diag(u**2), A2, names=["F0", "F1", "H", "P1", "P2"])
     step = out.steps[1]
-    assert {step.dropped, *step.tied_with} == {0, 1} and len(step.tied_with) == 1
-    assert {step.name, *step.tied_names} == {"F0", "F1"}
-    assert sorted(out.dropped) == [0, 1]
-    # Both out: the header row can no longer say anything about either feed alone.
-    assert np.isnan(out.x[:2]).all()
-    # One choice or both out: the header row adds no redundancy either way (its
-    # remaining feed is determined by it), so no degree of freedom is lost here.
-    assert step.redundancy_lost == 0 and step.dof == 1
-    # The alternatives: dropping x0 gives x0 = x2 - x1 (the truth, 60, to within the
-    # adjustments of the split row); dropping x1 gives x1 = x2 - x0, 8 kg/s low.
+    assert step.dropped is None and set(step.tied_with) == {0, 1}
+    assert set(step.tied_names) == {"F0", "F1"}
+    assert out.dropped == () and out.shared == (step.tied_with,)
+    # The redundancy they share is the header row's: one degree of freedom out.
+    assert out.steps[0].dof == 2 and step.dof == 1 and step.redundancy_lost == 1
+    assert out.passed
+    # Both feeds keep their readings (the header row no longer judges them), and
+    # the split row alone reconciles x2..x4, whose data are exact: the truth.
+    # (rounding only)
+    np.testing.assert_allclose(out.x, [68.0, 40.0, 100.0, 70.0, 30.0], rtol=1e-12)
+    # The shared bias, in units of the feeds' u along (+1, +1): the header's excess
+    # of 8 kg/s split evenly, b = 4 (closed form of one free direction, rounding only).
+    assert out.result.y[-1] == pytest.approx(4.0, rel=1e-12)
+    # The alternatives: dropping x0 gives x0 = x2 - x1 = 100 - 40; dropping x1 keeps
+    # x0 at its reading, 68, and gives x1 = 100 - 68 (rounding only).
     alt = {a.dropped: a for a in out.alternatives}
     assert set(alt) == {0, 1}
-    spread_feeds = out.choice_spread[:2]
-    # the two alternatives differ by exactly the injected error in both feeds
-    # (rounding only: the header flow is the same in both)
-    np.testing.assert_allclose(spread_feeds, [8.0, 8.0], rtol=1e-9)
-    # dropping x0: x0 = x2 - x1 = 100 - 40 (the split row's data are exact, so x2
-    # stays 100); dropping x1: x0 keeps its measured 68 (rounding only)
-    assert alt[0].x[0] == pytest.approx(60.0, rel=1e-12)
-    assert alt[1].x[0] == pytest.approx(68.0, rel=1e-12)
-    # The split row's streams do not depend on the choice: the header row is
-    # non-redundant in both alternatives, so x2..x4 come from the split row alone.
+    np.testing.assert_allclose(alt[0].x[:2], [60.0, 40.0], rtol=1e-12)
+    np.testing.assert_allclose(alt[1].x[:2], [68.0, 32.0], rtol=1e-12)
+    # the two choices differ by the injected error in both feeds, and by nothing in
+    # the split row's streams
+    np.testing.assert_allclose(out.choice_spread[:2], [8.0, 8.0], rtol=1e-9)
     assert np.all(out.choice_spread[2:] < 1e-9)
     np.testing.assert_array_equal(out.depends_on_choice, [True, True, False, False, False])
 
@@ -95,16 +95,29 @@ def test_statistics_within_sampling_spread_are_not_picked_from():
     with pytest.warns(ReconciliationWarning, match="cannot tell apart"):
         out = serial_elimination(x, np.diag(u**2), A)
     step = out.steps[1]
-    assert (step.dropped, step.tied_with) == (0, (1,))
-    # One choice would keep dof 2 (3 rows, one measurement out); both out, the
-    # header row only estimates x0: 1 degree of freedom lost.
-    single = reconcile_linear(np.delete(x, 0), np.diag(np.delete(u, 0) ** 2), A[:, 1:], B=A[:, :1])
-    assert single.dof == 2 and step.dof == 1 and step.redundancy_lost == 1
-    # With both out, x1 = x5 and x0 = x2 - x1: the noise-free data give the truth.
-    # (rounding only)
-    np.testing.assert_allclose(out.x, TRUTH, rtol=1e-9)
+    assert (step.dropped, step.tied_with) == (None, (0, 1))
+    assert step.redundancy_lost == 1 and out.passed
+    # Independent solution of the same model, x = x_t + d b + e with d = (1, 1, 0...)
+    # (both feeds' u, in the sense of their adjustments, which are both negative):
+    # the constraints A (x - d b) = 0 as A x + B b = 0 with B = -A d, solved as a
+    # KKT system of the weighted least-squares problem.
+    d = np.array([1.0, 1.0, 0, 0, 0, 0])
+    B = -(A @ d)[:, None]
+    W = np.diag(1 / u**2)
+    K = np.block(
+        [
+            [W, np.zeros((6, 1)), A.T],
+            [np.zeros((1, 6)), np.zeros((1, 1)), B.T],
+            [A, B, np.zeros((3, 3))],
+        ]
+    )
+    sol = np.linalg.solve(K, np.concatenate([W @ x, [0.0], np.zeros(3)]))
+    # two exact solvers, 10 variables: rounding only
+    np.testing.assert_allclose(out.x, sol[:6], rtol=1e-10)
+    assert out.result.y[-1] == pytest.approx(sol[6], rel=1e-10)
+    # The single choices differ in the feeds by more than their u: flagged.
     assert out.depends_on_choice[:2].all()
-    assert out.passed
+    assert np.all(out.choice_spread[:2] > 1.0)
 
 
 def test_a_clear_fault_is_dropped_alone():
@@ -148,7 +161,9 @@ def test_nonlinear_elimination_handles_the_tie_the_same_way():
     with pytest.warns(ReconciliationWarning, match="cannot tell apart"):
         lin = serial_elimination(x, np.diag(u**2), A2)
         non = serial_elimination_nonlinear(residual, x, np.diag(u**2))
-    assert sorted(non.dropped) == sorted(lin.dropped) == [0, 1]
+    assert non.shared == lin.shared == ((0, 1),)
+    # the same linear problem solved by the nonlinear engine: to its step tolerance
+    np.testing.assert_allclose(non.x, lin.x, atol=1e-6)
     # the same linear problem solved by the nonlinear engine: to its step tolerance
     np.testing.assert_allclose(non.choice_spread, lin.choice_spread, atol=1e-6)
     np.testing.assert_array_equal(non.depends_on_choice, lin.depends_on_choice)

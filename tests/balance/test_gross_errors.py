@@ -146,12 +146,14 @@ def test_serial_elimination_nonlinear_finds_injected_error():
 def test_elimination_stops_without_redundancy():
     # Two meters on one pipe disagreeing grossly, with unequal uncertainties: the
     # one statistic they share (|r| / sqrt(u1^2 + u2^2) for one balance) cannot say
-    # which is wrong.  Taking both out would leave nothing measured, so elimination
-    # stops at the start, with each single choice on record: dropping either leaves
-    # no redundancy (dof 0, p = 1) and the other meter's value for both.
+    # which is wrong.  Neither is dropped: the one redundancy they share is taken
+    # out, which leaves no degree of freedom and both readings as they are.  Each
+    # single choice is on record: dropping either gives the other's reading to both.
     with pytest.warns(ReconciliationWarning, match="cannot tell apart"):
         out = serial_elimination([10.0, 20.0], np.diag([1.0, 4.0]), [[1.0, -1.0]])
-    assert len(out.steps) == 1 and out.dropped == ()
+    assert len(out.steps) == 2 and out.steps[-1].dof == 0 and out.dropped == ()
+    assert out.steps[-1].passed  # p_value 1 with no degrees of freedom
+    np.testing.assert_allclose(out.x, [10.0, 20.0], rtol=1e-12)  # rounding only
     assert sorted(a.dropped for a in out.alternatives) == [0, 1]
     for a in out.alternatives:
         assert a.result.dof == 0 and a.result.p_value == 1.0
