@@ -106,8 +106,9 @@ class PlantReconciliation:
 
     @property
     def eliminated_tags(self) -> tuple:
-        """Every tag elimination took out, in order (ties included)."""
-        return tuple(t for e in self.eliminated for t in (e.tag, *e.tied_with))
+        """Every tag elimination dropped, in order (sets the test could not tell apart
+        are kept: their steps say ``shared``)."""
+        return tuple(e.tag for e in self.eliminated if not e.shared)
 
     def choice_spread(self, names=None) -> pd.DataFrame:
         """What the choice among tags the tests could not tell apart would change.
@@ -429,10 +430,11 @@ class PlantReconciliation:
             {
                 "name": list(names),
                 "quantity": [self.model.quantities[n] for n in names],
-                "value": r.y,
-                "u": r.y_u,
-                "observable": r.observable,
-                "weak": _weak(r),
+                # y may end with the shared biases of elimination (not model variables)
+                "value": r.y[: len(names)],
+                "u": r.y_u[: len(names)],
+                "observable": r.observable[: len(names)],
+                "weak": _weak(r)[: len(names)],
             }
         )
 
@@ -504,7 +506,7 @@ def _weak(result) -> np.ndarray:
 
 
 def _weak_notes(names, quantities, result) -> list[str]:
-    weak = np.flatnonzero(_weak(result))
+    weak = np.flatnonzero(_weak(result)[: len(names)])
     return [
         f"Unmeasured '{names[i]}' ({quantities[names[i]]}) is only weakly determined by "
         f"the balances: {result.y[i]:.4g} with u = {result.y_u[i]:.3g} [SI], more than "
@@ -537,8 +539,13 @@ def _dead_state(plant, measurements):
     return (T0, p0), "; ".join(src), T0_tag
 
 
-def _solve(model: PlantModel, extra: tuple, measurements, y0):
-    """Run the balance engine on ``model`` with tags ``extra`` appended to ``x``."""
+def _solve(model: PlantModel, extra: tuple, measurements, y0, shared=()):
+    """Run the balance engine on ``model`` with tags ``extra`` appended to ``x``.
+
+    ``shared``: directions freed by elimination, each a mapping tag -> weight [SI];
+    the readings are taken as :math:`x = x_t + d\\, b`, one unmeasured ``b`` per
+    direction appended to ``y`` (see :mod:`perftest.balance.plant_elimination`).
+    """
     from perftest.balance.nonlinear import reconcile_nonlinear
 
     tags = (*model.measured, *extra)
@@ -546,9 +553,20 @@ def _solve(model: PlantModel, extra: tuple, measurements, y0):
     x = np.asarray(measurements.value, dtype=float)[idx]
     cov = np.asarray(measurements.cov, dtype=float)[np.ix_(idx, idx)]
     n = model.n_x
+    k = model.n_y
+    where = {t: i for i, t in enumerate(tags)}
+    D = np.zeros((len(tags), len(shared)))
+    for c, direction in enumerate(shared):
+        for t, w in direction.items():
+            if t in where:  # a tag of the set dropped at a later step has left x
+                D[where[t], c] = w
+    q = D.shape[1]
+
+    def true_x(xx, yy):
+        return (xx - D @ yy[k:])[:n] if q else xx[:n]
 
     def residual(xx, yy):
-        return model.residual(xx[:n], yy)
+        return model.residual(true_x(xx, yy), yy[:k])
 
     # The model's Jacobian is sparse; the balance engine's dense path is faster for
     # plant-sized problems (measured on benchmarks/bench_model.py: 185 variables,
@@ -556,9 +574,11 @@ def _solve(model: PlantModel, extra: tuple, measurements, y0):
     dense = len(tags) + model.n_y <= _DENSE_LIMIT
 
     def jacobian(xx, yy):
-        Jx, Jy = model.jacobian(xx[:n], yy)
+        Jx, Jy = model.jacobian(true_x(xx, yy), yy[:k])
         if extra:
             Jx = sp.hstack([Jx, sp.csr_matrix((Jx.shape[0], len(extra)))], format="csr")
+        if q:
+            Jy = sp.hstack([Jy, sp.csr_matrix(-(Jx @ D))], format="csr")
         if dense:
             return Jx.toarray(), Jy.toarray()
         return Jx, Jy
@@ -576,6 +596,9 @@ def _solve(model: PlantModel, extra: tuple, measurements, y0):
     }
     y_scale = np.array([typical.get(model.quantities[v], 1.0) for v in model.unmeasured])
     y_scale = np.maximum(np.abs(y0), y_scale) if y0.size else y_scale
+    # a shared bias is counted in standard uncertainties of its candidates
+    y0 = np.concatenate([y0, np.zeros(q)])
+    y_scale = np.concatenate([y_scale, np.ones(q)])
     return reconcile_nonlinear(residual, x, cov, y0=y0, jacobian=jacobian, y_scale=y_scale), tags
 
 
@@ -735,8 +758,8 @@ def reconcile(
     if eliminate:
         # Serial elimination (perftest.balance.plant_elimination): "unmeasured" means
         # the model variables a dropped tag measured become entries of y again.
-        def solve(m, y0):
-            return _solve(m, extra, measurements, y0)
+        def solve(m, y0, shared=()):
+            return _solve(m, extra, measurements, y0, shared)
 
         model, result, tags, steps, alternatives = _eliminate_tags(
             model, result, tags, measurements, alpha, trusted, solve
@@ -775,8 +798,8 @@ def reconcile(
         warnings.warn(
             "Serial elimination met tags the measurement test cannot tell apart ("
             + ", ".join(dict.fromkeys(a.tag for a in alternatives))
-            + "): they were taken out together rather than one picked. See "
-            "choice_spread() for the results that depend on the choice, or mark the "
+            + "): none was dropped; the redundancy they share was taken out instead. "
+            "See choice_spread() for the results that depend on the choice, or mark the "
             "instruments you trust (trusted = true).",
             ReconciliationWarning,
             stacklevel=2,

@@ -39,15 +39,17 @@ class EliminatedTag:
     chi2, dof, p_value : float, int, float
         Global test before it was dropped.
     tied_with : tuple of str
-        Tags taken out together with ``tag`` because the measurement test cannot tell
-        them from it: equal statistics (they sit in the same balances in the same
-        way) or statistics within their sampling spread (see
-        :mod:`perftest.balance.ambiguity`).  Any of them may be the faulty one;
-        reports say so, and :meth:`PlantReconciliation.choice_spread` shows what
-        each single choice would give.
+        Tags the measurement test cannot tell from ``tag``: equal statistics (they
+        sit in the same balances in the same way) or statistics within their
+        sampling spread (see :mod:`perftest.balance.ambiguity`).  Any of them may be
+        the faulty one; :meth:`PlantReconciliation.choice_spread` shows what each
+        single choice would give.
     redundancy_lost : int
-        Degrees of freedom given up by taking the whole set out rather than one tag
-        (0 when the choice was clear).
+        Degrees of freedom the step took out.
+    shared : bool
+        True at a step that met such a set: then no tag was dropped (``tag`` and
+        ``tied_with`` keep their readings) and the redundancy they share was taken
+        out instead (see :func:`eliminate`).
     """
 
     tag: str
@@ -57,6 +59,7 @@ class EliminatedTag:
     p_value: float
     tied_with: tuple = ()
     redundancy_lost: int = 0
+    shared: bool = False
 
 
 @dataclass(frozen=True, eq=False)
@@ -175,15 +178,29 @@ def eliminate(model, result, tags, measurements, alpha, trusted, solve):
     trusted : tuple of str
         Tags never to drop.
     solve : callable
-        ``solve(model, y0) -> (result, tags)``.
+        ``solve(model, y0, shared) -> (result, tags)``; ``shared`` a list of
+        directions, each a mapping tag -> weight [SI] (see Notes).
 
     Returns
     -------
     tuple
         ``(model, result, tags, steps, alternatives)``.
+
+    Notes
+    -----
+    A tag whose statistic stands clear of the others is dropped (its model
+    variables become unmeasured).  A set of tags the test cannot tell apart keeps
+    its readings: the direction their gross-error signatures share is freed, the
+    readings taken as :math:`x = x_t + d\\, b` with :math:`d_i` each tag's standard
+    uncertainty in the sense of its adjustment and ``b`` unmeasured.  That takes out
+    the redundancy they share (the step's ``redundancy_lost``) and no more; the
+    balances stay closed in the true values :math:`x_t`, while the reported values
+    of the set are its readings, so :meth:`PlantReconciliation.closure` shows the
+    imbalance the set leaves.
     """
     steps: list[EliminatedTag] = []
     alternatives: list[TagAlternative] = []
+    shared: list[dict] = []
     trusted = set(trusted)
     while result.p_value < alpha and result.dof > 0:
         nx = model.n_x
@@ -199,33 +216,45 @@ def eliminate(model, result, tags, measurements, alpha, trusted, solve):
         positions = indistinguishable(result, j, eligible, alpha)
         group = [model.measured[g] for g in positions]
         previous = model.slot_values(result.x[:nx], result.y)
-        singles = []
-        if len(group) > 1:
-            for g, tag in zip(positions, group, strict=True):
-                alt_model = model.bind([t for t in model.measured if t != tag])
-                with warnings.catch_warnings():
-                    warnings.simplefilter("ignore", ReconciliationWarning)
-                    alt, alt_tags = solve(alt_model, _start(alt_model, previous, measurements))
-                record = EliminatedTag(
-                    tag,
-                    float(result.z[g]),
-                    float(result.chi2),
-                    int(result.dof),
-                    float(result.p_value),
-                )
-                singles.append(
-                    TagAlternative(len(steps), tag, alt_model, alt, tuple(alt_tags), record)
-                )
-        alternatives.extend(singles)
-        if len(group) == nx:
-            break  # taking the whole set out would leave nothing measured
         before = result
-        model = model.bind([t for t in model.measured if t not in group])
-        with warnings.catch_warnings():
-            # dof reaching 0 is an expected end of elimination, not news
-            warnings.simplefilter("ignore", ReconciliationWarning)
-            result, tags = solve(model, _start(model, previous, measurements))
-        lost = max(a.result.dof for a in singles) - result.dof if singles else 0
+        if len(group) == 1:
+            model = model.bind([t for t in model.measured if t != group[0]])
+            result, tags = _quiet(solve, model, _start(model, previous, measurements), shared)
+            steps.append(
+                EliminatedTag(
+                    group[0],
+                    float(before.z[j]),
+                    float(before.chi2),
+                    int(before.dof),
+                    float(before.p_value),
+                    (),
+                    int(before.dof - result.dof),
+                )
+            )
+            continue
+        for g, tag in zip(positions, group, strict=True):
+            alt_model = model.bind([t for t in model.measured if t != tag])
+            alt, alt_tags = _quiet(
+                solve, alt_model, _start(alt_model, previous, measurements), shared
+            )
+            record = EliminatedTag(
+                tag, float(before.z[g]), float(before.chi2), int(before.dof), float(before.p_value)
+            )
+            alternatives.append(
+                TagAlternative(len(steps), tag, alt_model, alt, tuple(alt_tags), record)
+            )
+        adj = np.asarray(before.adjustments, dtype=float)
+        u = np.asarray(before.u_measured, dtype=float)
+        direction = {
+            t: float(-np.sign(adj[g]) * u[g]) for g, t in zip(positions, group, strict=True)
+        }
+        result, tags = _quiet(
+            solve, model, _start(model, previous, measurements), [*shared, direction]
+        )
+        if result.dof >= before.dof:  # pragma: no cover - the direction was free already
+            result, tags = before, tags
+            break
+        shared.append(direction)
         steps.append(
             EliminatedTag(
                 group[0],
@@ -234,7 +263,15 @@ def eliminate(model, result, tags, measurements, alpha, trusted, solve):
                 int(before.dof),
                 float(before.p_value),
                 tuple(group[1:]),
-                int(lost),
+                int(before.dof - result.dof),
+                shared=True,
             )
         )
     return model, result, tags, steps, alternatives
+
+
+def _quiet(solve, model, y0, shared):
+    with warnings.catch_warnings():
+        # dof reaching 0 is an expected end of elimination, not news
+        warnings.simplefilter("ignore", ReconciliationWarning)
+        return solve(model, y0, list(shared))
