@@ -9,6 +9,7 @@ import scipy.sparse as sp
 
 from perftest.balance import _checks
 from perftest.balance._core import Problem
+from perftest.balance._kkt import kkt_step
 from perftest.balance.linear import build_result, solve
 from perftest.errors import ConvergenceError, InputError, ReconciliationWarning
 
@@ -327,22 +328,40 @@ def reconcile_nonlinear(
         resid_small = bool(np.all(np.abs(fk) * row_scale <= tol))
         # Linearised constraints in the variables (x, dy): Jx x + Jy dy = Jx xk - f.
         b_lin = Jx @ xk - fk
-        p = _linearised_problem(xm, S, sdiag, is_diag, Jx, b_lin, Jy)
-        core = solve(p)
-        consistent = core.inconsistent is None
+        # The step from one factorisation of the KKT system where it is regular;
+        # the full linear machinery (rank decisions, minimum-norm y) otherwise, and
+        # wherever the iteration's choices need what only it gives: the observability
+        # of y when the step leaves the trust region, the statistics at the solution.
+        step = kkt_step(Jx, Jy, S, sdiag, is_diag, xk, xm, fk, ysize)
+        p = core = None
+        if step is not None:
+            dx, dy, lam = step
+            consistent = all_observable = True
+            size = max(
+                (np.abs(dx) / u).max(initial=0.0) / _X_BOX,
+                (np.abs(dy) / ysize).max(initial=0.0) / _Y_BOX,
+            )
+        if step is None or size > radius:
+            p = _linearised_problem(xm, S, sdiag, is_diag, Jx, b_lin, Jy)
+            core = solve(p)
+            consistent = core.inconsistent is None
+            if consistent:
+                dx, dy, lam = core.xhat - xk, core.y, core.lam  # minimum-norm step in y
+            all_observable = bool(core.observable.all())
         viol = float(np.sum(np.abs(fk) * row_scale))
         grad_obj = _obj_grad(xk, xm, S, sdiag, is_diag, chol)
         accepted = False
         if consistent:
-            dx = core.xhat - xk
-            dy = core.y  # minimum-norm step in y
             sx = np.abs(dx) / u
             sy = np.abs(dy) / ysize
             if resid_small and np.all(sx <= tol) and np.all(sy <= tol):
+                if core is None:
+                    p = _linearised_problem(xm, S, sdiag, is_diag, Jx, b_lin, Jy)
+                    core = solve(p)
                 converged = True
                 break
             # Exact-penalty parameter above the largest scaled multiplier.
-            mu = max(mu, 1.5 * float((np.abs(core.lam) / row_scale).max(initial=0.0)) + 1.0)
+            mu = max(mu, 1.5 * float((np.abs(lam) / row_scale).max(initial=0.0)) + 1.0)
             phi0 = objective(xk) + mu * viol
             # Directional derivative of the merit along the step (constraints linearised).
             dphi = float(grad_obj @ dx) - mu * viol
@@ -356,7 +375,7 @@ def reconcile_nonlinear(
             else:
                 if size <= radius:
                     alphas = _halvings()
-                elif not core.observable.all():
+                elif not all_observable:
                     # Some y are not determined at this iterate: their minimum-norm
                     # step is arbitrary, so a long step is not to be trusted.
                     alphas = ()
