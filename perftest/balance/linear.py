@@ -12,6 +12,7 @@ from scipy.linalg.lapack import dtrtrs
 from perftest.balance import _checks, _dense, _sparse
 from perftest.balance._core import Core, Problem
 from perftest.balance._stats import chi2_p_value
+from perftest.balance._threads import one_blas_thread_when_small
 from perftest.balance.result import BatchReconciliation, Reconciliation
 from perftest.errors import InputError, ReconciliationWarning
 
@@ -390,6 +391,11 @@ def build_result(
     )
 
 
+def _linear_size(x, cov=None, A=None, b=None, B=None):
+    return np.size(x) + (0 if B is None else np.shape(B)[1])
+
+
+@one_blas_thread_when_small(_linear_size)
 def reconcile_linear(x, cov, A, b=None, B=None) -> Reconciliation:
     """Reconcile measurements with linear constraints by weighted least squares.
 

@@ -10,6 +10,7 @@ import scipy.sparse as sp
 from perftest.balance import _checks
 from perftest.balance._core import Problem
 from perftest.balance._kkt import kkt_step
+from perftest.balance._threads import one_blas_thread_when_small
 from perftest.balance.linear import build_result, solve
 from perftest.errors import ConvergenceError, InputError, ReconciliationWarning
 
@@ -101,6 +102,11 @@ def _evaluate(residual, x, y, m=None):
     return f
 
 
+def _nonlinear_size(residual=None, x=None, cov=None, y0=None, *args, **kwargs):
+    return np.size(x) + (0 if y0 is None else np.size(y0))
+
+
+@one_blas_thread_when_small(_nonlinear_size)
 def reconcile_nonlinear(
     residual,
     x,

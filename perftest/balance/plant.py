@@ -12,6 +12,7 @@ import numpy as np
 import pandas as pd
 import scipy.sparse as sp
 
+from perftest.balance._threads import one_blas_thread_when_small
 from perftest.balance.ambiguity import TIE_RTOL  # noqa: F401 - kept importable here
 from perftest.balance.plant_elimination import EliminatedTag, trusted_tags
 from perftest.balance.plant_elimination import eliminate as _eliminate_tags
@@ -636,6 +637,12 @@ def _warm_solve(model: PlantModel, extra: tuple, measurements, x0, start):
     return out
 
 
+def _plant_size(plant=None, measurements=None, *args, **kwargs):
+    # every tag plus the unknowns of the streams (a plant model has a few per stream)
+    return len(getattr(measurements, "tags", ())) + 4 * len(plant.sections.get("streams", {}))
+
+
+@one_blas_thread_when_small(_plant_size)
 def reconcile(
     plant, measurements, *, eliminate=False, alpha=0.05, start=None, trusted=None
 ) -> PlantReconciliation:
