@@ -195,22 +195,22 @@ def network_case(repeat, n_nodes=60):
     # a node's outflows (edges to children and its product) leave at h_node
     for j in range(1, n_nodes):
         h[j] = h_node[parent[j]]
-    # Energy balance of node i: m_i h_i (its inflow) + Q_i - sum(out m h) = 0, with
-    # Q_i known (fixed heat input); mass: m_i - sum(out m) = 0.
-    Q = np.zeros(n_nodes)
-    for i in range(n_nodes):
-        outs = [j for j in range(ns) if out_of[j] == i]
-        Q[i] = sum(m[j] * h[j] for j in outs) - m[i] * h[i]
-    outs = [np.array([j for j in range(ns) if out_of[j] == i]) for i in range(n_nodes)]
+    # Incidence: +1 where a stream enters node i, -1 where it leaves.  Node i:
+    # mass N m = 0; energy N (m h) + Q = 0 with Q its (known) heat input.
+    rows = np.concatenate([into[into >= 0], out_of[out_of >= 0]])
+    cols = np.concatenate([np.flatnonzero(into >= 0), np.flatnonzero(out_of >= 0)])
+    vals = np.concatenate([np.ones(int((into >= 0).sum())), -np.ones(int((out_of >= 0).sum()))])
+    N = sp.csr_matrix((vals, (rows, cols)), shape=(n_nodes, ns))
+    Q = -(N @ (m * h))
     unmeasured_h = n_nodes + np.arange(0, n_nodes, 3)  # products' enthalpy at every 3rd node
-    var_m = np.arange(ns)
-    var_h = ns + np.arange(ns)
-    measured = np.setdiff1d(np.concatenate([var_m, var_h]), ns + unmeasured_h)
     unmeasured = ns + unmeasured_h
+    measured = np.setdiff1d(np.arange(2 * ns), unmeasured)
     truth = np.concatenate([m, h])
     u = np.where(measured < ns, 0.01 * truth[measured] + 0.01, 2e3)
     xm = truth[measured] + rng.normal(size=measured.size) * u
     y0 = truth[unmeasured] * 1.05
+    order = np.concatenate([measured, unmeasured])
+    nx = measured.size
 
     def full(x, y):
         v = np.empty(2 * ns)
@@ -220,30 +220,15 @@ def network_case(repeat, n_nodes=60):
 
     def residual(x, y):
         mm, hh = full(x, y)
-        f = np.empty(2 * n_nodes)
-        for i in range(n_nodes):
-            o = outs[i]
-            f[2 * i] = mm[i] - mm[o].sum()
-            f[2 * i + 1] = (mm[i] * hh[i] + Q[i] - mm[o] @ hh[o]) / 1e5
-        return f
-
-    col = np.empty(2 * ns, dtype=int)
-    col[measured] = np.arange(measured.size)
-    col[unmeasured] = measured.size + np.arange(unmeasured.size)
+        return np.concatenate([N @ mm, (N @ (mm * hh) + Q) / 1e5])
 
     def jacobian(x, y):
         mm, hh = full(x, y)
-        rows, cols, vals = [], [], []
-        for i in range(n_nodes):
-            o = outs[i]
-            rows += [2 * i] * (1 + o.size)
-            cols += [i, *o]
-            vals += [1.0, *(-np.ones(o.size))]
-            rows += [2 * i + 1] * (2 + 2 * o.size)
-            cols += [i, ns + i, *o, *(ns + o)]
-            vals += [hh[i] / 1e5, mm[i] / 1e5, *(-hh[o] / 1e5), *(-mm[o] / 1e5)]
-        J = sp.csr_matrix((vals, (rows, col[np.array(cols)])), shape=(2 * n_nodes, 2 * ns))
-        return J[:, : measured.size], J[:, measured.size :]
+        J = sp.bmat(
+            [[N, None], [N.multiply(hh[None, :] / 1e5), N.multiply(mm[None, :] / 1e5)]],
+            format="csc",
+        )[:, order]
+        return J[:, :nx], J[:, nx:]
 
     return _case(
         f"bilinear network ({2 * ns} variables)",

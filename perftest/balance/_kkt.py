@@ -62,6 +62,11 @@ DENSE_MAX = 800
 #: undetermined y ~DELTA; below 1e-15 the factorisation itself is unreliable.
 RCOND_MIN = 1e-15
 
+#: Reciprocal condition number above which the unregularised scaled system counts as
+#: regular (every unmeasured variable determined): six orders of magnitude above
+#: RCOND_MIN, so that the step keeps ~6 correct digits or more.
+RCOND_REGULAR = 1e-10
+
 #: Largest share of the regularisation in the y optimality conditions accepted,
 #: relative to the largest scaled right-hand side: with DELTA = 1e-6 it accepts
 #: directions with scaled singular value above ~1e-3 (solved to ~1e-4 relative or
@@ -95,9 +100,12 @@ def kkt_step(Jx, Jy, S, sdiag, is_diag, xk, xm, fk, ysize):
 
     Returns
     -------
-    tuple of ndarray or None
-        ``dx = x - xk``, ``dy`` and the multipliers ``lam`` (m,) of the linearised
-        constraints; None where the system is singular or ill-conditioned.
+    tuple or None
+        ``(dx, dy, lam, regular)``: ``dx = x - xk``, ``dy``, the multipliers ``lam``
+        (m,) of the linearised constraints, and whether the unregularised system was
+        regular (every unmeasured variable determined at the iterate; known for the
+        dense factorisation only, False otherwise).  None where the system is
+        singular or ill-conditioned.
     """
     m = fk.size
     k = ysize.size
@@ -137,27 +145,25 @@ def kkt_step(Jx, Jy, S, sdiag, is_diag, xk, xm, fk, ysize):
         r = _row_scale(np.diag(M), np.abs(Jy_).max(axis=1) if k else None)
         if r is None:
             return None
-        K = np.empty((size, size))
-        K[:m, :m] = M * r[:, None] * r
-        K[:m, m:] = -Jy_ * r[:, None]
-        K[m:, :m] = K[:m, m:].T
-        K[m:, m:] = 0.0
-        K[np.arange(m, size), np.arange(m, size)] = -DELTA
+        K0 = np.empty((size, size))
+        K0[:m, :m] = M * r[:, None] * r
+        K0[:m, m:] = -Jy_ * r[:, None]
+        K0[m:, :m] = K0[:m, m:].T
+        K0[m:, m:] = 0.0
         rhs = np.zeros(size)
         rhs[:m] = (fk + Jx_ @ (xm - xk)) * r
-        anorm = np.abs(K).sum(axis=0).max()
-        lu, piv, info = dgetrf(K, overwrite_a=1)
-        if info != 0:
-            return None
-        rcond, info = dgecon(lu, anorm, norm="1")
-        if info != 0 or not rcond > RCOND_MIN:
-            return None
-        sol, info = dgetrs(lu, piv, rhs)
-        corr, _ = dgetrs(lu, piv, np.concatenate([np.zeros(m), -DELTA * sol[m:]]))
-        if info != 0 or not np.all(np.isfinite(sol)):
-            return None
         JxS_t = JxS * r[:, None]
-    lam_s = sol[:m]
+        # First the system as it stands: regular when every y is determined.
+        solver = _DenseSolve()
+        out = solver(K0.copy(), rhs, RCOND_REGULAR)
+        if out is not None:
+            sol = out
+            return xm - JxS_t.T @ sol[:m] - xk, sol[m:] * ysize, sol[:m] * r, True
+        K0[np.arange(m, size), np.arange(m, size)] = -DELTA
+        sol = solver(K0, rhs, RCOND_MIN)
+        if sol is None:
+            return None
+        corr = solver.last(np.concatenate([np.zeros(m), -DELTA * sol[m:]]))
     # One step of refinement towards the unregularised system (its residual is
     # (0, -DELTA dy)): it removes the regularisation's bias from the determined
     # directions to second order.  A large correction means a direction of y that is
@@ -167,10 +173,35 @@ def kkt_step(Jx, Jy, S, sdiag, is_diag, xk, xm, fk, ysize):
     if float(np.abs(corr[m:]).max(initial=0.0)) > REG_CHECK * big:
         return None
     sol = sol + corr
+    lam_s = sol[:m]
     dy = sol[m:] * ysize
     # x = xm - S Jx^T lam with lam = row_scale * lam_s: S Jx^T D_r lam_s = (D_r Jx S)^T lam_s
     x = xm - JxS_t.T @ lam_s
-    return x - xk, dy, lam_s * r
+    return x - xk, dy, lam_s * r, False
+
+
+class _DenseSolve:
+    """LU with a condition check; keeps the last factors for a second right-hand side."""
+
+    def __init__(self):
+        self._lu = None
+
+    def __call__(self, K, rhs, rcond_min):
+        anorm = np.abs(K).sum(axis=0).max()
+        lu, piv, info = dgetrf(K, overwrite_a=1)
+        if info != 0:
+            return None
+        rcond, info = dgecon(lu, anorm, norm="1")
+        if info != 0 or not rcond > rcond_min:
+            return None
+        sol, info = dgetrs(lu, piv, rhs)
+        if info != 0 or not np.all(np.isfinite(sol)):
+            return None
+        self._lu = (lu, piv)
+        return sol
+
+    def last(self, rhs):
+        return dgetrs(*self._lu, rhs)[0]
 
 
 def _row_scale(m_diag, jy_max):

@@ -336,18 +336,21 @@ def reconcile_nonlinear(
         b_lin = Jx @ xk - fk
         # The step from one factorisation of the KKT system where it is regular;
         # the full linear machinery (rank decisions, minimum-norm y) otherwise, and
-        # wherever the iteration's choices need what only it gives: the observability
-        # of y when the step leaves the trust region, the statistics at the solution.
-        step = kkt_step(Jx, Jy, S, sdiag, is_diag, xk, xm, fk, ysize)
+        # wherever the iteration's choices need what only it gives: whether every y
+        # is determined when the step leaves the trust region and the factorisation
+        # could not tell (a regularised one), the statistics at the solution.
+        # Residuals already below tolerance: this is most likely the last
+        # linearisation, whose full solve gives the statistics; go there directly.
+        step = None if resid_small else kkt_step(Jx, Jy, S, sdiag, is_diag, xk, xm, fk, ysize)
         p = core = None
         if step is not None:
-            dx, dy, lam = step
-            consistent = all_observable = True
+            dx, dy, lam, all_observable = step
+            consistent = True
             size = max(
                 (np.abs(dx) / u).max(initial=0.0) / _X_BOX,
                 (np.abs(dy) / ysize).max(initial=0.0) / _Y_BOX,
             )
-        if step is None or size > radius:
+        if step is None or (size > radius and not all_observable):
             p = _linearised_problem(xm, S, sdiag, is_diag, Jx, b_lin, Jy)
             core = solve(p)
             consistent = core.inconsistent is None
