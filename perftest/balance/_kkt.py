@@ -78,7 +78,7 @@ REG_CHECK = 1e-3
 SPARSE_CHECK = 1e-8
 
 
-def kkt_step(Jx, Jy, S, sdiag, is_diag, xk, xm, fk, ysize):
+def kkt_step(Jx, Jy, S, sdiag, is_diag, xk, xm, fk, ysize, try_regular=True):
     """Step ``(dx, dy, lam)`` of the linearised problem, or None.
 
     Parameters
@@ -97,6 +97,10 @@ def kkt_step(Jx, Jy, S, sdiag, is_diag, xk, xm, fk, ysize):
         Residuals at the iterate.
     ysize : ndarray (k,)
         Typical size of each unmeasured variable (positive).
+    try_regular : bool
+        Try the unregularised system first (dense only).  A caller whose previous
+        iterate had undetermined variables passes False and saves a factorisation;
+        ``regular`` is then False.
 
     Returns
     -------
@@ -155,7 +159,7 @@ def kkt_step(Jx, Jy, S, sdiag, is_diag, xk, xm, fk, ysize):
         JxS_t = JxS * r[:, None]
         # First the system as it stands: regular when every y is determined.
         solver = _DenseSolve()
-        out = solver(K0.copy(), rhs, RCOND_REGULAR)
+        out = solver(K0.copy(), rhs, RCOND_REGULAR) if try_regular else None
         if out is not None:
             sol = out
             return xm - JxS_t.T @ sol[:m] - xk, sol[m:] * ysize, sol[:m] * r, True

@@ -318,6 +318,8 @@ def reconcile_nonlinear(
     p = core = None
     converged = False
     radius = 1.0
+    regular_before = True  # whether the last KKT system had every y determined
+    last_step = np.inf  # largest scaled component of the last step taken
     it = 0
     while it < max_iter:
         it += 1
@@ -339,12 +341,19 @@ def reconcile_nonlinear(
         # wherever the iteration's choices need what only it gives: whether every y
         # is determined when the step leaves the trust region and the factorisation
         # could not tell (a regularised one), the statistics at the solution.
-        # Residuals already below tolerance: this is most likely the last
-        # linearisation, whose full solve gives the statistics; go there directly.
-        step = None if resid_small else kkt_step(Jx, Jy, S, sdiag, is_diag, xk, xm, fk, ysize)
+        # Residuals below tolerance after a step inside the region of quadratic
+        # convergence: this is most likely the last linearisation, whose full solve
+        # gives the statistics; go there directly.
+        last_one = resid_small and last_step <= _LOCAL
+        step = (
+            None
+            if last_one
+            else kkt_step(Jx, Jy, S, sdiag, is_diag, xk, xm, fk, ysize, regular_before)
+        )
         p = core = None
         if step is not None:
             dx, dy, lam, all_observable = step
+            regular_before = all_observable
             consistent = True
             size = max(
                 (np.abs(dx) / u).max(initial=0.0) / _X_BOX,
@@ -457,6 +466,9 @@ def reconcile_nonlinear(
             radius = max(radius / 4.0, _RADIUS_MIN)
         if not accepted:
             break  # no decrease in any direction tried: stalled
+        last_step = max(
+            (np.abs(xt - xk) / u).max(initial=0.0), (np.abs(yt - y) / ysize).max(initial=0.0)
+        )
         xk, y, fk = xt, yt, ft
     if not converged:
         norm = float(np.linalg.norm(fk))
