@@ -13,6 +13,9 @@ Targets (PASS/FAIL printed for each):
 5. 2,000-stream network with closed valves (balances that force streams to zero):
    within 1.5x of the same network without them (a false closure alarm used to send
    it through the dense null-space fallback, 16x slower).
+6. 100-stream network under the BLAS thread setting the user has (run it with
+   OPENBLAS_NUM_THREADS unset for the library default): within 1.2x of the same call
+   with one BLAS thread (threadpoolctl), measured in the same run.
 """
 
 from __future__ import annotations
@@ -220,6 +223,30 @@ def bench_closed_valves(rng, n_nodes=990, n_blocks=5):
     return True
 
 
+def bench_threads(rng, n_nodes=50):
+    import threadpoolctl
+
+    A, x, u = tree_network(n_nodes, rng)
+    S = np.diag(u**2)
+    threads = max(
+        i["num_threads"] for i in threadpoolctl.threadpool_info() if i["user_api"] == "blas"
+    )
+
+    def call():
+        return reconcile_linear(x, S, A).z
+
+    t_default, _ = best_of(call, repeat=50)
+    with threadpoolctl.threadpool_limits(limits=1, user_api="blas"):
+        t_one, _ = best_of(call, repeat=50)
+    ratio = t_default / t_one
+    print(
+        f"[6] {A.shape[1]} streams: user's BLAS setting ({threads} threads) "
+        f"{t_default * 1e3:.3f} ms, one thread {t_one * 1e3:.3f} ms, ratio {ratio:.2f} "
+        f"(target <= 1.2) {verdict(ratio <= 1.2)}"
+    )
+    return ratio <= 1.2
+
+
 def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="smaller batch (100,000)")
@@ -231,6 +258,7 @@ def main():
         bench_batch(rng, 100_000 if args.quick else 1_000_000),
         bench_sparse(rng),
         bench_closed_valves(rng),
+        bench_threads(rng),
     ]
     print("overall:", verdict(all(results)))
 
