@@ -10,6 +10,12 @@ Targets (PASS/FAIL printed for each):
    matrix product X @ F^T.
 4. Sparse networks: values, standard uncertainties and tests without dense n-by-n
    matrices; time from 2,000 to 20,000 streams grows by at most 30x.
+5. 2,000-stream network with closed valves (balances that force streams to zero):
+   within 1.5x of the same network without them (a false closure alarm used to send
+   it through the dense null-space fallback, 16x slower).
+6. 100-stream network under the BLAS thread setting the user has (run it with
+   OPENBLAS_NUM_THREADS unset for the library default): within 1.2x of the same call
+   with one BLAS thread (threadpoolctl), measured in the same run.
 """
 
 from __future__ import annotations
@@ -182,6 +188,65 @@ def bench_sparse(rng, sizes=(1000, 10000)):
     return growth <= 30
 
 
+def closed_valves(A, x, u, n_blocks):
+    """Append blocks of four streams in which the balances force two to zero: a
+    header x0 = x1 + x2 with x0 = x1 (the branch valve closed), and x2 = x3."""
+    blocks = []
+    for _ in range(n_blocks):
+        blocks.append(sp.csr_matrix([[1.0, -1.0, -1.0, 0.0], [1.0, -1.0, 0.0, 0.0], [0, 0, 1, -1]]))
+    A2 = sp.block_diag([sp.csr_matrix(A), *blocks]).tocsr()
+    x2 = np.concatenate([x, np.tile([100.0, 99.0, 0.5, 0.4], n_blocks)])
+    u2 = np.concatenate([u, np.tile([1.0, 1.0, 0.1, 0.1], n_blocks)])
+    return A2, x2, u2
+
+
+def bench_closed_valves(rng, n_nodes=990, n_blocks=5):
+    A, x, u = tree_network(n_nodes, rng, sparse=True)
+    A2, x2, u2 = closed_valves(A, x, u, n_blocks)
+    # The reference: the same size of network, the blocks' valves open (no row
+    # forced to zero: x0 = x1 + x2 and x2 = x3 only, plus a free stream).
+    open_block = sp.csr_matrix([[1.0, -1.0, -1.0, 0.0], [0, 0, 1, -1]])
+    A3 = sp.block_diag([sp.csr_matrix(A), *[open_block] * n_blocks]).tocsr()
+    for sparse in (False, True):
+        S2 = sp.diags(u2**2).tocsr() if sparse else np.diag(u2**2)
+        Ao, Ac = (A3, A2) if sparse else (A3.toarray(), A2.toarray())
+        t_ref, _ = best_of(lambda S2=S2, Ao=Ao: reconcile_linear(x2, S2, Ao).z)
+        t_ours, r = best_of(lambda S2=S2, Ac=Ac: reconcile_linear(x2, S2, Ac).z)
+        ratio = t_ours / t_ref
+        kind = "sparse" if sparse else "dense"
+        print(
+            f"[5] {kind} {x2.size} streams with {n_blocks} closed valves: {t_ours:.3f} s, "
+            f"valves open {t_ref:.3f} s, ratio {ratio:.2f} (target <= 1.5) {verdict(ratio <= 1.5)}"
+        )
+        if ratio > 1.5:
+            return False
+    return True
+
+
+def bench_threads(rng, n_nodes=50):
+    import threadpoolctl
+
+    A, x, u = tree_network(n_nodes, rng)
+    S = np.diag(u**2)
+    threads = max(
+        i["num_threads"] for i in threadpoolctl.threadpool_info() if i["user_api"] == "blas"
+    )
+
+    def call():
+        return reconcile_linear(x, S, A).z
+
+    t_default, _ = best_of(call, repeat=50)
+    with threadpoolctl.threadpool_limits(limits=1, user_api="blas"):
+        t_one, _ = best_of(call, repeat=50)
+    ratio = t_default / t_one
+    print(
+        f"[6] {A.shape[1]} streams: user's BLAS setting ({threads} threads) "
+        f"{t_default * 1e3:.3f} ms, one thread {t_one * 1e3:.3f} ms, ratio {ratio:.2f} "
+        f"(target <= 1.2) {verdict(ratio <= 1.2)}"
+    )
+    return ratio <= 1.2
+
+
 def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="smaller batch (100,000)")
@@ -192,6 +257,8 @@ def main():
         bench_slsqp(rng),
         bench_batch(rng, 100_000 if args.quick else 1_000_000),
         bench_sparse(rng),
+        bench_closed_valves(rng),
+        bench_threads(rng),
     ]
     print("overall:", verdict(all(results)))
 

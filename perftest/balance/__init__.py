@@ -4,6 +4,7 @@ balance constraints, redundancy and observability, and gross-error tests.
 Layer: depends on numpy, scipy and :mod:`perftest.errors` only.
 """
 
+from perftest.balance.elimination import serial_elimination, serial_elimination_nonlinear
 from perftest.balance.gross import (
     GlobalTest,
     MeasurementTest,
@@ -11,8 +12,6 @@ from perftest.balance.gross import (
     global_test,
     measurement_test,
     nodal_test,
-    serial_elimination,
-    serial_elimination_nonlinear,
     sidak_critical_value,
     vdi2048_criterion,
 )

@@ -35,6 +35,7 @@ import scipy.sparse.linalg as spla
 from scipy.sparse.csgraph import connected_components
 
 from perftest.balance import _dense
+from perftest.balance._core import Core
 
 # Diagonal shift used only to detect dependent rows: far below ROW_PIVOT_TOL so
 # independent rows are not affected, far above rounding so that an exactly
@@ -240,9 +241,7 @@ def selected_inverse(lu, n: int):
 
 
 def solve_sparse(p):
-    """Sparse reconciliation core; returns a :class:`perftest.balance.linear.Core`."""
-    from perftest.balance.linear import Core
-
+    """Sparse reconciliation core; returns a :class:`perftest.balance._core.Core`."""
     x, S, s = p.x, p.S, p.sdiag
     n = x.size
     A, B, b = p.A, p.B, p.b

@@ -1,4 +1,7 @@
-"""Gross-error detection: global, measurement and nodal tests, serial elimination.
+"""Gross-error detection: global, measurement and nodal tests.
+
+Serial elimination, which runs these tests over repeated reconciliations, lives in
+:mod:`perftest.balance.elimination` (above the solvers).
 
 References
 ----------
@@ -7,27 +10,19 @@ References
 .. [2] Z. Sidak, "Rectangular confidence regions for the means of multivariate normal
    distributions", Journal of the American Statistical Association 62(318), 626-633,
    1967. DOI 10.1080/01621459.1967.10482935
-.. [3] R. W. Serth, W. A. Heenan, "Gross error detection and data reconciliation in
-   steam-metering systems", AIChE Journal 32(5), 733-742, 1986.
-   DOI 10.1002/aic.690320505
 """
 
 from __future__ import annotations
 
-import warnings
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.sparse as sp
 import scipy.special
 
-from perftest.balance.result import (
-    Elimination,
-    EliminationStep,
-    Reconciliation,
-    chi2_p_value,
-)
-from perftest.errors import InputError, ReconciliationWarning
+from perftest.balance._stats import check_alpha as _check_alpha
+from perftest.balance._stats import chi2_p_value, sidak_critical_value
+from perftest.balance.result import Reconciliation
+from perftest.errors import InputError
 
 __all__ = [
     "GlobalTest",
@@ -38,8 +33,6 @@ __all__ = [
     "nodal_test",
     "vdi2048_criterion",
     "sidak_critical_value",
-    "serial_elimination",
-    "serial_elimination_nonlinear",
 ]
 
 # VDI 2048 Part 1 (2017) quality criterion: each normalised adjustment within the
@@ -114,15 +107,6 @@ class NodalTest:
     flagged: np.ndarray
 
 
-def _check_alpha(alpha, func):
-    if not (isinstance(alpha, int | float) and 0.0 < alpha < 1.0):
-        raise InputError(
-            f"The 'alpha' parameter of {func} must be a number between 0 and 1. Got {alpha!r}.",
-            parameter="alpha",
-        )
-    return float(alpha)
-
-
 def _check_result(result, func):
     if not isinstance(result, Reconciliation):
         raise InputError(
@@ -130,36 +114,6 @@ def _check_result(result, func):
             f"Got {type(result).__name__}.",
             parameter="result",
         )
-
-
-def sidak_critical_value(alpha: float, n_tests: int) -> tuple[float, float]:
-    """Two-sided normal critical value with the Sidak correction.
-
-    Parameters
-    ----------
-    alpha : float
-        Family-wise significance level.
-    n_tests : int
-        Number of tests.
-
-    Returns
-    -------
-    tuple of float
-        ``(critical, alpha_per)``.
-
-    Notes
-    -----
-    .. math::
-
-        \\alpha_{per} = 1 - (1 - \\alpha)^{1/N}, \\qquad
-        z_c = \\Phi^{-1}(1 - \\alpha_{per} / 2)
-
-    [2]_ (module references).
-    """
-    if n_tests <= 0:
-        return float("inf"), float("nan")
-    alpha_per = -np.expm1(np.log1p(-alpha) / n_tests)
-    return float(-scipy.special.ndtri(alpha_per / 2.0)), float(alpha_per)
 
 
 def global_test(result: Reconciliation, alpha: float = 0.05) -> GlobalTest:
@@ -282,211 +236,3 @@ def vdi2048_criterion(result: Reconciliation) -> np.ndarray:
     _check_result(result, "vdi2048_criterion")
     z = result.z
     return np.where(np.isnan(z), True, z <= VDI2048_LIMIT)
-
-
-def _max_z(result):
-    z = result.z
-    return float(np.nanmax(z)) if np.any(~np.isnan(z)) else float("nan")
-
-
-def _step(result, dropped, name, alpha):
-    return EliminationStep(
-        dropped=dropped,
-        name=name,
-        chi2=float(result.chi2),
-        dof=int(result.dof),
-        p_value=float(result.p_value),
-        max_z=_max_z(result),
-        passed=bool(result.p_value >= alpha),
-    )
-
-
-def _names(names, n, func):
-    if names is None:
-        return None
-    names = list(names)
-    if len(names) != n:
-        raise InputError(
-            f"The 'names' parameter of {func} must have one entry per measurement ({n}). "
-            f"Got {len(names)}.",
-            parameter="names",
-        )
-    return names
-
-
-def _eliminate(run, n, k0, alpha, names, max_steps):
-    """Shared loop: ``run(keep, dropped, y_start)`` returns a Reconciliation."""
-    keep = np.arange(n)
-    dropped: list[int] = []
-    y_start: list[float] = []
-    with warnings.catch_warnings():
-        # dof reaching 0 is an expected end of elimination, not news.
-        warnings.simplefilter("ignore", ReconciliationWarning)
-        result = run(keep, dropped, y_start)
-    steps = [_step(result, None, None, alpha)]
-    limit = n if max_steps is None else int(max_steps)
-    while result.p_value < alpha and result.dof > 0 and len(dropped) < limit:
-        z = np.where(result.redundant, result.z, -np.inf)
-        z = np.where(np.isnan(z), -np.inf, z)
-        if not np.isfinite(z.max()):
-            break
-        pos = int(np.argmax(z))
-        idx = int(keep[pos])
-        y_start.append(float(result.x[pos]))
-        dropped.append(idx)
-        keep = np.delete(keep, pos)
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", ReconciliationWarning)
-            result = run(keep, dropped, y_start)
-        steps.append(_step(result, idx, None if names is None else names[idx], alpha))
-    x_full = np.empty(n)
-    x_full[keep] = result.x
-    x_full[dropped] = result.y[k0:]
-    return Elimination(
-        steps=tuple(steps),
-        dropped=tuple(dropped),
-        result=result,
-        keep=keep,
-        x=x_full,
-        passed=bool(result.p_value >= alpha),
-    )
-
-
-def serial_elimination(
-    x, cov, A, b=None, B=None, alpha: float = 0.05, *, names=None, max_steps=None
-) -> Elimination:
-    """Find gross errors in a linear problem by serial elimination.
-
-    While the global test fails and redundancy remains, the measurement with the
-    largest measurement-test statistic is turned into an unmeasured variable and the
-    problem is reconciled again.
-
-    Parameters
-    ----------
-    x, cov, A, b, B
-        As for :func:`perftest.balance.reconcile_linear`.
-    alpha : float
-        Significance level of the global test.
-    names : sequence of str, optional
-        Measurement names, reported in the steps.
-    max_steps : int, optional
-        Largest number of measurements to drop.
-
-    Returns
-    -------
-    Elimination
-        Every step (starting point first), the dropped indices and the final result.
-
-    Notes
-    -----
-    For uncorrelated measurements, dropping measurement :math:`i` lowers the
-    chi-square statistic by exactly :math:`z_i^2`, so the largest :math:`z_i` is
-    also the deletion that lowers the global statistic most, the choice of serial
-    elimination [3]_ (module references).
-    """
-    from perftest.balance.linear import check_problem, reconcile_linear
-
-    func = "serial_elimination"
-    alpha = _check_alpha(alpha, func)
-    p = check_problem(x, cov, A, b, B, func)
-    n = p.x.size
-    k0 = p.B.shape[1]
-    names = _names(names, n, func)
-    A_full = sp.csc_matrix(p.A) if p.sparse else p.A
-    S = sp.csr_matrix(p.S) if p.sparse else p.S
-
-    def run(keep, dropped, y_start):
-        if p.sparse:
-            Bk = sp.hstack([p.B, A_full[:, dropped]]).tocsr()
-            Ak = A_full[:, keep].tocsr()
-            Sk = S[keep][:, keep]
-        else:
-            Bk = np.hstack([p.B, A_full[:, dropped]])
-            Ak = A_full[:, keep]
-            Sk = S[np.ix_(keep, keep)]
-        return reconcile_linear(p.x[keep], Sk, Ak, p.b, Bk)
-
-    return _eliminate(run, n, k0, alpha, names, max_steps)
-
-
-def serial_elimination_nonlinear(
-    residual,
-    x,
-    cov,
-    y0=None,
-    jacobian=None,
-    alpha: float = 0.05,
-    *,
-    names=None,
-    max_steps=None,
-    **options,
-) -> Elimination:
-    """Serial elimination for a nonlinear problem.
-
-    Parameters
-    ----------
-    residual, x, cov, y0, jacobian
-        As for :func:`perftest.balance.reconcile_nonlinear`.
-    alpha, names, max_steps
-        As for :func:`serial_elimination`.
-    **options
-        Passed to :func:`perftest.balance.reconcile_nonlinear` (``tol``, ``max_iter``...).
-
-    Returns
-    -------
-    Elimination
-        A dropped measurement becomes an unmeasured variable appended to ``y``,
-        started at its last reconciled value.
-    """
-    from perftest.balance import _checks
-    from perftest.balance.nonlinear import reconcile_nonlinear
-
-    func = "serial_elimination_nonlinear"
-    alpha = _check_alpha(alpha, func)
-    xm = _checks.vector(x, "x", func)
-    n = xm.size
-    y_base = np.zeros(0) if y0 is None else _checks.vector(y0, "y0", func)
-    k0 = y_base.size
-    names = _names(names, n, func)
-    S, *_ = _checks.covariance(cov, n, func)
-    y_scale = options.pop("y_scale", None)
-    base_scale = (
-        np.maximum(np.abs(y_base), 1.0) if y_scale is None else np.asarray(y_scale, dtype=float)
-    )
-    u = np.sqrt(np.asarray(S.diagonal(), dtype=float))
-
-    def run(keep, dropped, y_start):
-        keep = np.asarray(keep)
-        drop = np.asarray(dropped, dtype=int)
-
-        def full_x(xk, yk):
-            xf = xm.copy()
-            xf[keep] = xk
-            xf[drop] = yk[k0:]
-            return xf
-
-        def res(xk, yk):
-            return residual(full_x(xk, yk), yk[:k0])
-
-        jac = None
-        if jacobian is not None:
-
-            def jac(xk, yk):
-                Jx, Jy = jacobian(full_x(xk, yk), yk[:k0])
-                if sp.issparse(Jx):
-                    Jx = sp.csc_matrix(Jx)
-                    Jy = sp.csr_matrix((Jx.shape[0], 0)) if Jy is None else Jy
-                    return Jx[:, keep], sp.hstack([sp.csr_matrix(Jy), Jx[:, drop]]).tocsr()
-                Jx = np.asarray(Jx, dtype=float)
-                Jy = np.zeros((Jx.shape[0], 0)) if Jy is None else np.asarray(Jy, dtype=float)
-                if sp.issparse(Jy):
-                    Jy = Jy.toarray()
-                return Jx[:, keep], np.hstack([Jy, Jx[:, drop]])
-
-        Sk = S[keep][:, keep] if sp.issparse(S) else S[np.ix_(keep, keep)]
-        y_k = np.concatenate([y_base, np.asarray(y_start, dtype=float)])
-        # A dropped measurement keeps its own uncertainty as its typical size.
-        scale = np.concatenate([base_scale, np.maximum(np.abs(y_k[k0:]), u[drop])])
-        return reconcile_nonlinear(res, xm[keep], Sk, y_k, jac, y_scale=scale, **options)
-
-    return _eliminate(run, n, k0, alpha, names, max_steps)

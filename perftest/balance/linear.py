@@ -3,52 +3,20 @@
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass
-from typing import Any
 
 import numpy as np
 import scipy.linalg
 import scipy.sparse as sp
 from scipy.linalg.lapack import dtrtrs
 
-from perftest.balance import _checks, _dense
-from perftest.balance.result import BatchReconciliation, Reconciliation, chi2_p_value
+from perftest.balance import _checks, _dense, _sparse
+from perftest.balance._core import Core, Problem
+from perftest.balance._stats import chi2_p_value
+from perftest.balance._threads import one_blas_thread_when_small
+from perftest.balance.result import BatchReconciliation, Reconciliation
 from perftest.errors import InputError, ReconciliationWarning
 
 __all__ = ["reconcile_linear", "reconcile_linear_batch"]
-
-
-@dataclass
-class Problem:
-    """Checked inputs of a linear reconciliation."""
-
-    x: np.ndarray
-    S: Any  # dense ndarray or CSR
-    sdiag: np.ndarray
-    is_diag: bool
-    A: Any
-    b: np.ndarray
-    B: Any  # (m, k), dense or CSR; k may be 0
-    sparse: bool
-
-
-@dataclass
-class Core:
-    """Everything the linear solve produces, before it is wrapped in a result."""
-
-    xhat: np.ndarray
-    y: np.ndarray  # minimum-norm estimate, finite everywhere
-    observable: np.ndarray
-    lam: np.ndarray  # multipliers of the original constraints
-    chi2: float
-    dof: int
-    vdiag: np.ndarray  # variances of the adjustments
-    redundant: np.ndarray
-    covariances: Any  # callable -> (x_cov, y_cov, xy_cov), unobservable y not masked
-    y_var: np.ndarray  # variances of y (unobservable not masked)
-    constraint_residual: np.ndarray
-    constraint_u: np.ndarray
-    inconsistent: tuple | None
 
 
 def check_problem(x, cov, A, b, B, func: str, *, allow_sparse: bool = True) -> Problem:
@@ -190,9 +158,14 @@ def solve_dense(p: Problem) -> Core:
     )
 
 
-# Closure check of a solution: |A xhat + B y - b| against the size of the terms
-# |A| |xhat| + |B| |y| + |b|.  A correct solve closes to a few hundred ulp; 1e-9 leaves
-# room for ill-conditioning that still gives a usable estimate.
+# Closure check of a solution: |A xhat + B y - b| of a row against the size of its
+# terms, the measured values included: |A| (|x| + |xhat|) + |B| |y| + |b|.  The
+# measured values set the scale of the round-off a correct solve leaves; without them,
+# a row that the balances force to zero (a stream between two closed valves) has
+# round-off terms and round-off residual, a ratio near 1, and a false alarm sent a
+# 2,000-stream solve through the dense null-space fallback.  A correct solve closes to
+# a few hundred ulp; 1e-9 leaves room for ill-conditioning that still gives a usable
+# estimate.
 CLOSURE_RTOL = 1e-9
 
 # Largest problem (measured + unmeasured variables) that the null-space fallback
@@ -201,10 +174,11 @@ FALLBACK_MAX = 3000
 
 
 def _closure_error(p: Problem, xhat, y) -> float:
-    """Largest |A xhat + B y - b| of a row relative to the size of its terms."""
+    """Largest |A xhat + B y - b| of a row relative to the size of its terms and of
+    the measured values in it (see ``CLOSURE_RTOL``)."""
     A, B, b = p.A, p.B, p.b
     res = A @ xhat - b
-    scale = abs(A) @ np.abs(xhat) + np.abs(b)
+    scale = abs(A) @ (np.abs(xhat) + np.abs(p.x)) + np.abs(b)
     if B.shape[1]:
         res = res + B @ y
         scale = scale + abs(B) @ np.abs(y)
@@ -330,8 +304,6 @@ def solve(p: Problem, *, strict: bool = False) -> Core:
     that do not close, the one closer to closing is kept.
     """
     if p.sparse:
-        from perftest.balance import _sparse
-
         core = _sparse.solve_sparse(p)
     else:
         core = solve_dense(p)
@@ -419,6 +391,11 @@ def build_result(
     )
 
 
+def _linear_size(x, cov=None, A=None, b=None, B=None):
+    return np.size(x) + (0 if B is None else np.shape(B)[1])
+
+
+@one_blas_thread_when_small(_linear_size)
 def reconcile_linear(x, cov, A, b=None, B=None) -> Reconciliation:
     """Reconcile measurements with linear constraints by weighted least squares.
 

@@ -8,11 +8,10 @@ import numpy as np
 import scipy.sparse as sp
 
 from perftest.balance import _checks
-from perftest.balance.linear import (
-    Problem,
-    build_result,
-    solve,
-)
+from perftest.balance._core import Problem
+from perftest.balance._kkt import kkt_step
+from perftest.balance._threads import one_blas_thread_when_small
+from perftest.balance.linear import build_result, solve
 from perftest.errors import ConvergenceError, InputError, ReconciliationWarning
 
 __all__ = ["reconcile_nonlinear", "finite_difference_jacobian"]
@@ -103,6 +102,11 @@ def _evaluate(residual, x, y, m=None):
     return f
 
 
+def _nonlinear_size(residual=None, x=None, cov=None, y0=None, *args, **kwargs):
+    return np.size(x) + (0 if y0 is None else np.size(y0))
+
+
+@one_blas_thread_when_small(_nonlinear_size)
 def reconcile_nonlinear(
     residual,
     x,
@@ -314,6 +318,8 @@ def reconcile_nonlinear(
     p = core = None
     converged = False
     radius = 1.0
+    regular_before = True  # whether the last KKT system had every y determined
+    last_step = np.inf  # largest scaled component of the last step taken
     it = 0
     while it < max_iter:
         it += 1
@@ -330,22 +336,50 @@ def reconcile_nonlinear(
         resid_small = bool(np.all(np.abs(fk) * row_scale <= tol))
         # Linearised constraints in the variables (x, dy): Jx x + Jy dy = Jx xk - f.
         b_lin = Jx @ xk - fk
-        p = _linearised_problem(xm, S, sdiag, is_diag, Jx, b_lin, Jy)
-        core = solve(p)
-        consistent = core.inconsistent is None
+        # The step from one factorisation of the KKT system where it is regular;
+        # the full linear machinery (rank decisions, minimum-norm y) otherwise, and
+        # wherever the iteration's choices need what only it gives: whether every y
+        # is determined when the step leaves the trust region and the factorisation
+        # could not tell (a regularised one), the statistics at the solution.
+        # Residuals below tolerance after a step inside the region of quadratic
+        # convergence: this is most likely the last linearisation, whose full solve
+        # gives the statistics; go there directly.
+        last_one = resid_small and last_step <= _LOCAL
+        step = (
+            None
+            if last_one
+            else kkt_step(Jx, Jy, S, sdiag, is_diag, xk, xm, fk, ysize, regular_before)
+        )
+        p = core = None
+        if step is not None:
+            dx, dy, lam, all_observable = step
+            regular_before = all_observable
+            consistent = True
+            size = max(
+                (np.abs(dx) / u).max(initial=0.0) / _X_BOX,
+                (np.abs(dy) / ysize).max(initial=0.0) / _Y_BOX,
+            )
+        if step is None or (size > radius and not all_observable):
+            p = _linearised_problem(xm, S, sdiag, is_diag, Jx, b_lin, Jy)
+            core = solve(p)
+            consistent = core.inconsistent is None
+            if consistent:
+                dx, dy, lam = core.xhat - xk, core.y, core.lam  # minimum-norm step in y
+            all_observable = bool(core.observable.all())
         viol = float(np.sum(np.abs(fk) * row_scale))
         grad_obj = _obj_grad(xk, xm, S, sdiag, is_diag, chol)
         accepted = False
         if consistent:
-            dx = core.xhat - xk
-            dy = core.y  # minimum-norm step in y
             sx = np.abs(dx) / u
             sy = np.abs(dy) / ysize
             if resid_small and np.all(sx <= tol) and np.all(sy <= tol):
+                if core is None:
+                    p = _linearised_problem(xm, S, sdiag, is_diag, Jx, b_lin, Jy)
+                    core = solve(p)
                 converged = True
                 break
             # Exact-penalty parameter above the largest scaled multiplier.
-            mu = max(mu, 1.5 * float((np.abs(core.lam) / row_scale).max(initial=0.0)) + 1.0)
+            mu = max(mu, 1.5 * float((np.abs(lam) / row_scale).max(initial=0.0)) + 1.0)
             phi0 = objective(xk) + mu * viol
             # Directional derivative of the merit along the step (constraints linearised).
             dphi = float(grad_obj @ dx) - mu * viol
@@ -359,7 +393,7 @@ def reconcile_nonlinear(
             else:
                 if size <= radius:
                     alphas = _halvings()
-                elif not core.observable.all():
+                elif not all_observable:
                     # Some y are not determined at this iterate: their minimum-norm
                     # step is arbitrary, so a long step is not to be trusted.
                     alphas = ()
@@ -432,6 +466,9 @@ def reconcile_nonlinear(
             radius = max(radius / 4.0, _RADIUS_MIN)
         if not accepted:
             break  # no decrease in any direction tried: stalled
+        last_step = max(
+            (np.abs(xt - xk) / u).max(initial=0.0), (np.abs(yt - y) / ysize).max(initial=0.0)
+        )
         xk, y, fk = xt, yt, ft
     if not converged:
         norm = float(np.linalg.norm(fk))

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import warnings
 from dataclasses import dataclass, field
@@ -11,6 +12,11 @@ import numpy as np
 import pandas as pd
 import scipy.sparse as sp
 
+from perftest.balance._threads import one_blas_thread_when_small
+from perftest.balance.ambiguity import TIE_RTOL  # noqa: F401 - kept importable here
+from perftest.balance.plant_elimination import EliminatedTag, trusted_tags
+from perftest.balance.plant_elimination import eliminate as _eliminate_tags
+from perftest.balance.result import CHOICE_RTOL
 from perftest.defaults import RECONCILIATION_ALPHA
 from perftest.errors import ConvergenceError, InputError, ReconciliationWarning
 from perftest.plant import states as thermo
@@ -43,9 +49,6 @@ _DERIVED_QUANTITY = {
 }
 
 
-#: Relative tolerance below which two measurement-test statistics count as equal.
-TIE_RTOL = 1e-6
-
 #: An observable unmeasured variable whose standard uncertainty exceeds this
 #: fraction of its magnitude is "weakly determined": the balances give it a value,
 #: but one that says next to nothing (for instance a liquid's pressure known only
@@ -53,33 +56,6 @@ TIE_RTOL = 1e-6
 #: hundreds of bar).  Our own threshold: at u = |value| / 2 the 95 % interval
 #: (about +-2u) already reaches zero.
 WEAK_RTOL = 0.5
-
-
-@dataclass(frozen=True)
-class EliminatedTag:
-    """One step of serial elimination: the tag dropped and the test that dropped it.
-
-    Attributes
-    ----------
-    tag : str
-        Tag or group id moved to the unmeasured variables.
-    z : float
-        Its measurement-test statistic before it was dropped.
-    chi2, dof, p_value : float, int, float
-        Global test before it was dropped.
-    tied_with : tuple of str
-        Other redundant tags whose statistic equals ``z`` (to 1e-6 relative).  The
-        measurement test cannot tell these apart (they sit in the same balances in
-        the same way), so the choice of ``tag`` among them is arbitrary and any of
-        them may be the faulty one; reports say so.
-    """
-
-    tag: str
-    z: float
-    chi2: float
-    dof: int
-    p_value: float
-    tied_with: tuple = ()
 
 
 @dataclass(frozen=True, eq=False)
@@ -108,6 +84,12 @@ class PlantReconciliation:
         ``(T0 [K], p0 [Pa])`` of the exergy values.
     dead_state_source : str
         Where the dead state came from (plant file value, tag or default).
+    alternatives : tuple of PlantReconciliation
+        Where elimination took out several tags the tests could not tell apart, the
+        reconciliation of each single choice among them (its last ``eliminated``
+        step names the one tag it drops); see :meth:`choice_spread`.
+    trusted : tuple of str
+        Tags never dropped (plant file ``trusted = true`` or the ``trusted`` argument).
     """
 
     plant: object
@@ -121,6 +103,65 @@ class PlantReconciliation:
     dead_state: tuple
     dead_state_source: str
     _T0_index: int | None = field(default=None, repr=False)
+    alternatives: tuple = ()
+    trusted: tuple = ()
+
+    @property
+    def eliminated_tags(self) -> tuple:
+        """Every tag elimination dropped, in order (sets the test could not tell apart
+        are kept: their steps say ``shared``)."""
+        return tuple(e.tag for e in self.eliminated if not e.shared)
+
+    def choice_spread(self, names=None) -> pd.DataFrame:
+        """What the choice among tags the tests could not tell apart would change.
+
+        Parameters
+        ----------
+        names : sequence of str, optional
+            Tags or model variables (as for :meth:`value`); default every tag in the
+            balance and every model variable.
+
+        Returns
+        -------
+        pandas.DataFrame
+            Index ``name``; columns ``value``, ``u`` (this reconciliation, with the
+            whole set taken out), one column ``without <tag>`` per alternative, then
+            ``low``, ``high``, ``spread`` and ``depends_on_choice``: the spread over
+            the alternatives exceeds ``CHOICE_RTOL`` (0.1) times the largest standard
+            uncertainty among them, or an alternative leaves the value undetermined.
+            Without alternatives the spread is 0 and nothing depends on the choice.
+        """
+        if names is None:
+            names = [*self.model.spec.tag_ids, *self.model.variables]
+        names = list(dict.fromkeys(names))
+        table = pd.DataFrame(
+            {"value": [self.value(n) for n in names], "u": [self.uncertainty(n) for n in names]},
+            index=pd.Index(names, name="name"),
+        )
+        if not self.alternatives:
+            table["low"] = table["high"] = table["value"]
+            table["spread"] = 0.0
+            table["depends_on_choice"] = False
+            return table
+        vals, us = [], []
+        for alt in self.alternatives:
+            col = f"without {alt.eliminated[-1].tag}"
+            table[col] = [alt.value(n) for n in names]
+            vals.append(table[col].to_numpy())
+            us.append([alt.uncertainty(n) for n in names])
+        V = np.array(vals)
+        undetermined = np.isnan(V).any(axis=0)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)  # all-nan columns
+            table["low"] = np.nanmin(V, axis=0)
+            table["high"] = np.nanmax(V, axis=0)
+            u_big = np.nanmax(np.array(us, dtype=float), axis=0)
+        table["spread"] = np.where(undetermined, np.nan, table["high"] - table["low"])
+        with np.errstate(invalid="ignore"):
+            table["depends_on_choice"] = undetermined | (
+                table["spread"].to_numpy() > CHOICE_RTOL * u_big
+            )
+        return table
 
     # ------------------------------------------------------------ joint vector
     # Every reported quantity is a linear function (at the solution) of the joint
@@ -188,7 +229,7 @@ class PlantReconciliation:
             return float(self._joint[0][i]), {i: 1.0}
         if name in model.index:
             return self._slot_gradient(model.index[name])
-        elim = {e.tag for e in self.eliminated}
+        elim = set(self.eliminated_tags)
         if name in elim or name in model.spec.tag_ids:
             # A tag not in x (dropped or never measured): its estimate is the model
             # variable it measures.
@@ -321,7 +362,7 @@ class PlantReconciliation:
         meas = self.measurements
         pos = {t: i for i, t in enumerate(self.solver_tags)}
         flagged = set(int(i) for i in r.suspects(self.alpha))
-        elim = {e.tag for e in self.eliminated}
+        elim = set(self.eliminated_tags)
         uses: dict = {}
         for var in self.model.variables:
             tag = self.model.sources[var].tag
@@ -403,10 +444,11 @@ class PlantReconciliation:
             {
                 "name": list(names),
                 "quantity": [self.model.quantities[n] for n in names],
-                "value": r.y,
-                "u": r.y_u,
-                "observable": r.observable,
-                "weak": _weak(r),
+                # y may end with the shared biases of elimination (not model variables)
+                "value": r.y[: len(names)],
+                "u": r.y_u[: len(names)],
+                "observable": r.observable[: len(names)],
+                "weak": _weak(r)[: len(names)],
             }
         )
 
@@ -488,7 +530,7 @@ def _weak(result) -> np.ndarray:
 
 
 def _weak_notes(names, quantities, result) -> list[str]:
-    weak = np.flatnonzero(_weak(result))
+    weak = np.flatnonzero(_weak(result)[: len(names)])
     return [
         f"Unmeasured '{names[i]}' ({quantities[names[i]]}) is only weakly determined by "
         f"the balances: {result.y[i]:.4g} with u = {result.y_u[i]:.3g} [SI], more than "
@@ -521,18 +563,34 @@ def _dead_state(plant, measurements):
     return (T0, p0), "; ".join(src), T0_tag
 
 
-def _solve(model: PlantModel, extra: tuple, measurements, y0):
-    """Run the balance engine on ``model`` with tags ``extra`` appended to ``x``."""
-    from perftest.balance import reconcile_nonlinear
+def _solve(model: PlantModel, extra: tuple, measurements, y0, shared=()):
+    """Run the balance engine on ``model`` with tags ``extra`` appended to ``x``.
+
+    ``shared``: directions freed by elimination, each a mapping tag -> weight [SI];
+    the readings are taken as :math:`x = x_t + d\\, b`, one unmeasured ``b`` per
+    direction appended to ``y`` (see :mod:`perftest.balance.plant_elimination`).
+    """
+    from perftest.balance.nonlinear import reconcile_nonlinear
 
     tags = (*model.measured, *extra)
     idx = np.array([measurements.index(t) for t in tags], dtype=int)
     x = np.asarray(measurements.value, dtype=float)[idx]
     cov = np.asarray(measurements.cov, dtype=float)[np.ix_(idx, idx)]
     n = model.n_x
+    k = model.n_y
+    where = {t: i for i, t in enumerate(tags)}
+    D = np.zeros((len(tags), len(shared)))
+    for c, direction in enumerate(shared):
+        for t, w in direction.items():
+            if t in where:  # a tag of the set dropped at a later step has left x
+                D[where[t], c] = w
+    q = D.shape[1]
+
+    def true_x(xx, yy):
+        return (xx - D @ yy[k:])[:n] if q else xx[:n]
 
     def residual(xx, yy):
-        return model.residual(xx[:n], yy)
+        return model.residual(true_x(xx, yy), yy[:k])
 
     # The model's Jacobian is sparse; the balance engine's dense path is faster for
     # plant-sized problems (measured on benchmarks/bench_model.py: 185 variables,
@@ -540,9 +598,11 @@ def _solve(model: PlantModel, extra: tuple, measurements, y0):
     dense = len(tags) + model.n_y <= _DENSE_LIMIT
 
     def jacobian(xx, yy):
-        Jx, Jy = model.jacobian(xx[:n], yy)
+        Jx, Jy = model.jacobian(true_x(xx, yy), yy[:k])
         if extra:
             Jx = sp.hstack([Jx, sp.csr_matrix((Jx.shape[0], len(extra)))], format="csr")
+        if q:
+            Jy = sp.hstack([Jy, sp.csr_matrix(-(Jx @ D))], format="csr")
         if dense:
             return Jx.toarray(), Jy.toarray()
         return Jx, Jy
@@ -560,6 +620,9 @@ def _solve(model: PlantModel, extra: tuple, measurements, y0):
     }
     y_scale = np.array([typical.get(model.quantities[v], 1.0) for v in model.unmeasured])
     y_scale = np.maximum(np.abs(y0), y_scale) if y0.size else y_scale
+    # a shared bias is counted in standard uncertainties of its candidates
+    y0 = np.concatenate([y0, np.zeros(q)])
+    y_scale = np.concatenate([y_scale, np.ones(q)])
     _check_cov(cov, tags, measurements)
     try:
         result = reconcile_nonlinear(residual, x, cov, y0=y0, jacobian=jacobian, y_scale=y_scale)
@@ -647,8 +710,14 @@ def _warm_solve(model: PlantModel, extra: tuple, measurements, x0, start):
     return out
 
 
+def _plant_size(plant=None, measurements=None, *args, **kwargs):
+    # every tag plus the unknowns of the streams (a plant model has a few per stream)
+    return len(getattr(measurements, "tags", ())) + 4 * len(plant.sections.get("streams", {}))
+
+
+@one_blas_thread_when_small(_plant_size)
 def reconcile(
-    plant, measurements, *, eliminate=False, alpha=RECONCILIATION_ALPHA, start=None
+    plant, measurements, *, eliminate=False, alpha=RECONCILIATION_ALPHA, start=None, trusted=None
 ) -> PlantReconciliation:
     """Reconcile a plant's measurements against its mass and energy balances.
 
@@ -661,7 +730,12 @@ def reconcile(
     eliminate : bool
         When the global test fails, drop the measurement with the largest
         measurement-test statistic, reconcile again, and repeat until the test
-        passes or nothing redundant is left (serial elimination).
+        passes or nothing redundant is left (serial elimination).  Tags the test
+        cannot tell from the one with the largest statistic (equal statistics, or
+        within their sampling spread) are dropped with it rather than one picked;
+        each single choice is reconciled as an alternative (see
+        :meth:`PlantReconciliation.choice_spread`), with a
+        :class:`ReconciliationWarning`.
     alpha : float
         Significance level of the global and measurement tests.
     start : PlantReconciliation or mapping of str to float, optional
@@ -671,6 +745,9 @@ def reconcile(
         path to the solution changes: a start that is not a valid state, or from
         which the iteration does not converge, is dropped and the usual initial
         guess used, so failures are those of a call without ``start``.
+    trusted : sequence of str, optional
+        Tags elimination never drops, besides those whose ``[tags.<ID>]`` table in
+        the plant file says ``trusted = true``.
 
     Returns
     -------
@@ -711,6 +788,7 @@ def reconcile(
             f"The 'alpha' parameter of reconcile must be between 0 and 1. Got {alpha!r}.",
             parameter="alpha",
         )
+    trusted = trusted_tags(plant, trusted)
     model = build_model(plant)
     values = np.asarray(measurements.value, dtype=float)
     present = [
@@ -756,44 +834,16 @@ def reconcile(
     else:
         result, tags = result
 
-    steps = []
-    # Serial elimination, the same rule as perftest.balance.serial_elimination: while
-    # the global test fails and redundancy remains, the redundant measurement with the
-    # largest measurement-test statistic becomes unmeasured.  Here "unmeasured" means
-    # the model variables the tag measured become entries of y again.
-    while eliminate and result.p_value < alpha and result.dof > 0:
-        z = np.where(result.redundant, result.z, -np.inf)[: model.n_x]
-        z = np.where(np.isnan(z), -np.inf, z)
-        if not np.isfinite(z.max(initial=-np.inf)):
-            break
-        j = int(np.argmax(z))
-        tag = model.measured[j]
-        # Equal statistics (to round-off) cannot be told apart by the test.
-        tied = tuple(
-            model.measured[i] for i in np.flatnonzero(z >= z[j] * (1.0 - TIE_RTOL)) if i != j
+    steps, alternatives = [], []
+    if eliminate:
+        # Serial elimination (perftest.balance.plant_elimination): "unmeasured" means
+        # the model variables a dropped tag measured become entries of y again.
+        def solve(m, y0, shared=()):
+            return _solve(m, extra, measurements, y0, shared)
+
+        model, result, tags, steps, alternatives = _eliminate_tags(
+            model, result, tags, measurements, alpha, trusted, solve
         )
-        steps.append(
-            EliminatedTag(
-                tag,
-                float(result.z[j]),
-                float(result.chi2),
-                int(result.dof),
-                float(result.p_value),
-                tied,
-            )
-        )
-        previous = model.slot_values(result.x[: model.n_x], result.y)
-        model = model.bind([t for t in model.measured if t != tag])
-        y_next = previous[model._ys]
-        if not np.all(np.isfinite(y_next)):
-            # a variable the previous step left unobservable (nan) starts from the
-            # usual initial guess
-            x_next = values[[measurements.index(t) for t in model.measured]]
-            y_next = np.where(np.isfinite(y_next), y_next, initial_guess(model, x_next))
-        with warnings.catch_warnings():
-            # dof reaching 0 is an expected end of elimination, not news
-            warnings.simplefilter("ignore", ReconciliationWarning)
-            result, tags = _solve(model, extra, measurements, y_next)
 
     dead, dead_src, T0_tag = _dead_state(plant, measurements)
     rec = PlantReconciliation(
@@ -807,10 +857,33 @@ def reconcile(
         alpha=float(alpha),
         dead_state=dead,
         dead_state_source=dead_src,
+        trusted=trusted,
     )
-    if T0_tag is not None:
-        _, _, where = rec._joint
-        object.__setattr__(rec, "_T0_index", where.get(T0_tag))
+    alts = [
+        dataclasses.replace(
+            rec,
+            model=a.model,
+            result=a.result,
+            solver_tags=a.solver_tags,
+            eliminated=(*steps[: a.step], a.record),
+        )
+        for a in alternatives
+    ]
+    rec = dataclasses.replace(rec, alternatives=tuple(alts))
+    for r in (rec, *alts):
+        if T0_tag is not None:
+            _, _, where = r._joint
+            object.__setattr__(r, "_T0_index", where.get(T0_tag))
+    if alternatives:
+        warnings.warn(
+            "Serial elimination met tags the measurement test cannot tell apart ("
+            + ", ".join(dict.fromkeys(a.tag for a in alternatives))
+            + "): none was dropped; the redundancy they share was taken out instead. "
+            "See choice_spread() for the results that depend on the choice, or mark the "
+            "instruments you trust (trusted = true).",
+            ReconciliationWarning,
+            stacklevel=2,
+        )
     for text in _weak_notes(model.unmeasured, model.quantities, result):
         warnings.warn(text, ReconciliationWarning, stacklevel=2)
     if not rec.global_test["passed"]:

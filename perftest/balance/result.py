@@ -10,7 +10,21 @@ import numpy as np
 import scipy.sparse as sp
 import scipy.special
 
-__all__ = ["Reconciliation", "BatchReconciliation", "EliminationStep", "Elimination"]
+from perftest.balance._stats import check_alpha, sidak_critical_value
+
+__all__ = [
+    "Reconciliation",
+    "BatchReconciliation",
+    "EliminationStep",
+    "EliminationAlternative",
+    "Elimination",
+]
+
+#: An estimate "depends on the choice" among instruments the tests cannot tell apart
+#: when its alternatives spread by more than this fraction of its standard
+#: uncertainty.  Our own threshold: a tenth of u is where a difference starts to show
+#: in a result quoted to two significant digits of its uncertainty.
+CHOICE_RTOL = 0.1
 
 
 @dataclass(frozen=True, eq=False)
@@ -145,9 +159,12 @@ class Reconciliation:
         ndarray of int
             Indices into ``x``, in increasing order.
         """
-        from perftest.balance.gross import measurement_test
-
-        return np.flatnonzero(measurement_test(self, alpha).flagged)
+        # The measurement test of perftest.balance.gross.measurement_test, computed
+        # here so that the record does not import the tests built on it.
+        alpha = check_alpha(alpha, "Reconciliation.suspects")
+        crit, _ = sidak_critical_value(alpha, int(np.count_nonzero(self.redundant)))
+        z = self.z
+        return np.flatnonzero(np.where(np.isnan(z), False, z > crit))
 
     def ufloats(self, tags: Sequence[str] | None = None):
         """Reconciled measured values as correlated ``uncertainties`` ufloats.
@@ -300,6 +317,16 @@ class EliminationStep:
         redundant).
     passed : bool
         Whether the global test passes after this step.
+    tied_with : tuple of int
+        At a step that met measurements the tests could not tell apart (equal
+        statistics, or within their sampling spread: see
+        :mod:`perftest.balance.ambiguity`): all of them, largest statistic first.
+        None is dropped (``dropped`` is None); the redundancy they share is taken out
+        instead.  Empty at other steps.
+    tied_names : tuple of str
+        Their names, when names were given.
+    redundancy_lost : int
+        Degrees of freedom this step took out (0 for the starting reconciliation).
     """
 
     dropped: int | None
@@ -309,6 +336,36 @@ class EliminationStep:
     p_value: float
     max_z: float
     passed: bool
+    tied_with: tuple = ()
+    tied_names: tuple = ()
+    redundancy_lost: int = 0
+
+
+@dataclass(frozen=True, eq=False)
+class EliminationAlternative:
+    """One single choice at an elimination step whose candidates could not be told apart.
+
+    Attributes
+    ----------
+    step : int
+        Index into :attr:`Elimination.steps` of the step it is an alternative to.
+    dropped : int
+        The one measurement (index into the original ``x``) this alternative drops,
+        besides those dropped at earlier steps.
+    result : Reconciliation
+        The reconciliation with that choice.
+    x : ndarray (n,)
+        Estimate of every original measured quantity under this choice (as
+        :attr:`Elimination.x`).
+    u : ndarray (n,)
+        Their standard uncertainties.
+    """
+
+    step: int
+    dropped: int
+    result: Reconciliation
+    x: np.ndarray
+    u: np.ndarray
 
 
 @dataclass(frozen=True, eq=False)
@@ -329,9 +386,22 @@ class Elimination:
     x : ndarray (n,)
         Final estimate of every original measured quantity: reconciled values for the
         kept ones and the estimates from the balance for the dropped ones
-        (``nan`` if a dropped one is not observable).
+        (``nan`` if a dropped one is not observable).  Measurements of a set the
+        tests could not tell apart are kept, unjudged by the redundancy they share.
     passed : bool
         Whether the last global test passes.
+    alternatives : tuple of EliminationAlternative
+        Where a step met several measurements the tests could not tell apart, the
+        reconciliation of each single choice among them (that one dropped).
+    trusted : tuple of int
+        Measurements that were never candidates for dropping.
+    shared : tuple of tuple of int
+        The sets whose shared redundancy was taken out, in step order.
+
+    Notes
+    -----
+    :attr:`choice_spread` and :attr:`depends_on_choice` say which estimates the
+    arbitrary choice would have moved.
     """
 
     steps: tuple
@@ -340,14 +410,34 @@ class Elimination:
     keep: np.ndarray
     x: np.ndarray
     passed: bool
+    alternatives: tuple = ()
+    trusted: tuple = ()
+    shared: tuple = ()
 
+    @property
+    def choice_spread(self) -> np.ndarray:
+        """Largest minus smallest estimate of each measured quantity over the
+        alternatives of any ambiguous step (0 where there are none, ``nan`` where an
+        alternative leaves it unobservable) [unit of the measurement]."""
+        spread = np.zeros(self.x.size)
+        for step in sorted({a.step for a in self.alternatives}):
+            xs = np.array([a.x for a in self.alternatives if a.step == step])
+            with np.errstate(invalid="ignore"):
+                spread = np.fmax(spread, xs.max(axis=0) - xs.min(axis=0))
+            spread[np.isnan(xs).any(axis=0)] = np.nan
+        return spread
 
-def chi2_p_value(chi2: float, dof: int) -> float:
-    """Survival probability of a chi-square statistic; 1 when there are no degrees."""
-    if dof <= 0:
-        return 1.0
-    # chdtrc is the ufunc behind scipy.stats.chi2.sf, without its per-call overhead.
-    return float(scipy.special.chdtrc(dof, chi2))
+    @property
+    def depends_on_choice(self) -> np.ndarray:
+        """Estimates whose alternatives spread by more than ``CHOICE_RTOL`` times
+        their largest standard uncertainty, or that some alternative leaves
+        unobservable (bool, (n,))."""
+        if not self.alternatives:
+            return np.zeros(self.x.size, dtype=bool)
+        u = np.nanmax(np.array([a.u for a in self.alternatives]), axis=0)
+        spread = self.choice_spread
+        with np.errstate(invalid="ignore"):
+            return np.isnan(spread) | (spread > CHOICE_RTOL * u)
 
 
 def as_dense(mat) -> np.ndarray:

@@ -185,6 +185,8 @@ TAG = Table(
         Key("stability", "permissible variation, overriding `[stability]`", ("table",), _LIMIT),
         Key("sentinels", 'extra values that mean "bad sample"', ("number", "text", "array"),
             items=("number", "text")),
+        Key("trusted", "never dropped by serial elimination; settles a choice among "
+            "instruments the tests cannot tell apart", ("boolean",), default="false"),
     ),
 )  # fmt: skip
 GROUP = Table(

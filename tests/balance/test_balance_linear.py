@@ -411,3 +411,52 @@ def test_bad_input(kwargs, match):
     args.update(kwargs)
     with pytest.raises(InputError, match=match):
         reconcile_linear(**args)
+
+
+def _closed_valve_network(n_pairs):
+    """Pairs of streams: a header (x0 = x1 + x2, with x0 = x1 too) forces the branch
+    x2 to zero, and the branch feeds a second stream (x2 = x3), so the whole row
+    x2 - x3 = 0 is made of streams the balances force to zero."""
+    n = 4 * n_pairs
+    rows, cols, vals = [], [], []
+    for k in range(n_pairs):
+        i, r = 4 * k, 3 * k
+        for row, col, val in (
+            (r, i, 1.0), (r, i + 1, -1.0), (r, i + 2, -1.0),
+            (r + 1, i, 1.0), (r + 1, i + 1, -1.0),
+            (r + 2, i + 2, 1.0), (r + 2, i + 3, -1.0),
+        ):  # fmt: skip
+            rows.append(row)
+            cols.append(col)
+            vals.append(val)
+    A = sp.csr_matrix((vals, (rows, cols)), shape=(3 * n_pairs, n))
+    x = np.tile([100.0, 99.0, 0.5, 0.4], n_pairs)
+    u = np.tile([1.0, 1.0, 0.1, 0.1], n_pairs)
+    return x, u, A
+
+
+@pytest.mark.parametrize("sparse", [False, True])
+def test_stream_forced_to_zero_is_no_closure_alarm(monkeypatch, sparse):
+    """A row whose streams the balances force to zero closes to round-off of the
+    measured values; judged against its own round-off terms it looked open and the
+    dense null-space fallback ran (a 2,000-stream solve 16x slower)."""
+    import perftest.balance.linear as lin
+
+    calls = []
+    fallback = lin._solve_nullspace
+
+    def spy(p, core):
+        calls.append(p.x.size)
+        return fallback(p, core)
+
+    monkeypatch.setattr(lin, "_solve_nullspace", spy)
+    x, u, A = _closed_valve_network(1 if not sparse else 500)
+    cov = sp.diags(u**2).tocsr() if sparse else np.diag(u**2)
+    r = reconcile_linear(x, cov, A if sparse else A.toarray())
+    assert calls == []
+    # Closed form: x0 = x1 = their mean (equal weights), x2 = x3 = 0.  Round-off of
+    # the sums of ~100 [kg/s] is ~1e-14 * 100; 1e-10 absolute leaves margin.
+    expected = np.tile([99.5, 99.5, 0.0, 0.0], x.size // 4)
+    np.testing.assert_allclose(r.x, expected, rtol=0.0, atol=1e-10)
+    # chi2 = (100 - 99)^2 / 2 + (0.5^2 + 0.4^2) / 0.01 per group of four
+    assert r.chi2 == pytest.approx(x.size // 4 * (0.5 + 41.0), rel=EXACT)

@@ -20,7 +20,7 @@ from perftest.balance import (
     serial_elimination_nonlinear,
     vdi2048_criterion,
 )
-from perftest.errors import InputError
+from perftest.errors import InputError, ReconciliationWarning
 
 # Six-stream network of a splitter, exchanger, valve and mixer (see
 # tests/test_balance_linear.py), with a recycle-free chain of two more nodes.
@@ -144,11 +144,24 @@ def test_serial_elimination_nonlinear_finds_injected_error():
 
 
 def test_elimination_stops_without_redundancy():
-    # Two meters on one pipe disagreeing grossly: dropping either leaves no
-    # redundancy, so elimination stops after one step, having tried.
-    out = serial_elimination([10.0, 20.0], np.eye(2), [[1.0, -1.0]])
-    assert len(out.steps) == 2 and out.steps[-1].dof == 0
+    # Two meters on one pipe disagreeing grossly, with unequal uncertainties: the
+    # one statistic they share (|r| / sqrt(u1^2 + u2^2) for one balance) cannot say
+    # which is wrong.  Neither is dropped: the one redundancy they share is taken
+    # out, which leaves no degree of freedom and both readings as they are.  Each
+    # single choice is on record: dropping either gives the other's reading to both.
+    with pytest.warns(ReconciliationWarning, match="cannot tell apart"):
+        out = serial_elimination([10.0, 20.0], np.diag([1.0, 4.0]), [[1.0, -1.0]])
+    assert len(out.steps) == 2 and out.steps[-1].dof == 0 and out.dropped == ()
     assert out.steps[-1].passed  # p_value 1 with no degrees of freedom
+    np.testing.assert_allclose(out.x, [10.0, 20.0], rtol=1e-12)  # rounding only
+    assert sorted(a.dropped for a in out.alternatives) == [0, 1]
+    for a in out.alternatives:
+        assert a.result.dof == 0 and a.result.p_value == 1.0
+        kept = 1 - a.dropped
+        np.testing.assert_allclose(a.x, [[10.0, 20.0][kept]] * 2, rtol=1e-12)
+    # both estimates move by the full disagreement, 10, over the two choices
+    np.testing.assert_allclose(out.choice_spread, [10.0, 10.0], rtol=1e-12)
+    assert out.depends_on_choice.all()
 
 
 @pytest.mark.parametrize("alpha", [0.0, 1.0, -0.1, "0.05"])
