@@ -647,11 +647,13 @@ def test_report_writes_what_was_computed_when_evaluation_fails(tmp_path, capsys,
 def test_non_convergence_suggests_what_a_plant_file_user_can_do(files, capsys, monkeypatch):
     import functools
 
-    import perftest.balance as balance
+    import perftest.balance.nonlinear as nonlinear
 
     # the real engine, stopped after one iteration: it speaks of its own options
     monkeypatch.setattr(
-        balance, "reconcile_nonlinear", functools.partial(balance.reconcile_nonlinear, max_iter=1)
+        nonlinear,
+        "reconcile_nonlinear",
+        functools.partial(nonlinear.reconcile_nonlinear, max_iter=1),
     )
     args = ["report", *_args(_DEMO, files)]
     assert run_main(args) == 2

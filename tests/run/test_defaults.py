@@ -22,7 +22,8 @@ def test_defaults_are_the_same_object_everywhere():
     assert demo.DEFAULT_OUTLIER_ALPHA == defaults.OUTLIER_ALPHA
     args = cli.build_parser().parse_args(["report", "p.toml", "--data", "r.csv"])
     assert args.outlier_alpha == defaults.OUTLIER_ALPHA
-    assert args.window == defaults.STEADY_WINDOW
+    # no --window and no --start/--end: the steadiest window of the default length
+    assert cli._window_options(args)[2] == defaults.STEADY_WINDOW
     assert (not args.keep_all) == defaults.ELIMINATE
     # elimination and stability checks: reconcile_many as `perftest monitor`
     many = inspect.signature(reconcile_many).parameters
