@@ -496,7 +496,7 @@ def reconcile_nonlinear(
             "The constraints leave no redundancy: nothing can be reconciled "
             "(dof = 0, chi2 = 0, p_value = 1). Add measurements or balances.",
             ReconciliationWarning,
-            stacklevel=2,
+            stacklevel=3,
         )
     f_final = _evaluate(residual, core.xhat.copy(), core.y.copy(), m)
     norm = float(np.linalg.norm(fk if f_final is None else f_final))

@@ -633,7 +633,7 @@ def _warm_solve(model: PlantModel, extra: tuple, measurements, x0, start):
         # start decides, so that a window fails exactly as it does without a start.
         return None
     for w in caught:  # the solver's own notes, issued as the cold path issues them
-        warnings.warn(w.message, w.category, stacklevel=3)
+        warnings.warn(w.message, w.category, stacklevel=4)
     return out
 
 
@@ -729,7 +729,7 @@ def reconcile(
             f"Tags {', '.join(missing)} are used by the plant model but have no measured "
             "value; they are treated as unmeasured.",
             ReconciliationWarning,
-            stacklevel=2,
+            stacklevel=3,
         )
     for t in present:
         if not measurements[t].u > 0:
@@ -809,16 +809,16 @@ def reconcile(
             "See choice_spread() for the results that depend on the choice, or mark the "
             "instruments you trust (trusted = true).",
             ReconciliationWarning,
-            stacklevel=2,
+            stacklevel=3,
         )
     for text in _weak_notes(model.unmeasured, model.quantities, result):
-        warnings.warn(text, ReconciliationWarning, stacklevel=2)
+        warnings.warn(text, ReconciliationWarning, stacklevel=3)
     if not rec.global_test["passed"]:
         warnings.warn(
             f"The global test fails (chi2 = {result.chi2:.3g}, dof = {result.dof}, "
             f"p = {result.p_value:.3g} < alpha = {alpha}): some measurements or the "
             "model disagree. See to_frame() for suspects, or use eliminate=True.",
             ReconciliationWarning,
-            stacklevel=2,
+            stacklevel=3,
         )
     return rec
