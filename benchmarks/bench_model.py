@@ -38,9 +38,9 @@ import numpy as np  # noqa: E402
 import scipy.optimize  # noqa: E402
 
 import perftest  # noqa: E402
-from perftest.run.measurements import Measurements  # noqa: E402
 from perftest.plant import build_model  # noqa: E402
 from perftest.plant.guess import initial_guess  # noqa: E402
+from perftest.run.measurements import Measurements  # noqa: E402
 
 STAGES = 6
 TARGET = 20.0

@@ -40,7 +40,11 @@ def blas_for(size: int):
 
 
 def one_blas_thread_when_small(size_of):
-    """Decorator: run the function under :func:`blas_for` (``size_of(*args, **kw)``)."""
+    """Decorator: run the function under :func:`blas_for` (``size_of(*args, **kw)``).
+
+    It adds one frame between the caller and the function: warnings the function
+    issues itself use ``stacklevel=3`` to point at the caller.
+    """
 
     def wrap(func):
         @functools.wraps(func)

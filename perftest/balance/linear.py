@@ -485,7 +485,7 @@ def reconcile_linear(x, cov, A, b=None, B=None) -> Reconciliation:
             "The constraints leave no redundancy: nothing can be reconciled "
             "(dof = 0, chi2 = 0, p_value = 1). Add measurements or balances.",
             ReconciliationWarning,
-            stacklevel=2,
+            stacklevel=3,
         )
     method = "linear-sparse" if p.sparse else "linear-dense"
     return build_result(p, core, method=method)

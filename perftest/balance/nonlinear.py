@@ -9,6 +9,7 @@ import scipy.sparse as sp
 
 from perftest.balance import _checks
 from perftest.balance._core import Problem
+from perftest.balance._fd import finite_difference_jacobian
 from perftest.balance._kkt import kkt_step
 from perftest.balance._threads import one_blas_thread_when_small
 from perftest.balance.linear import build_result, solve
@@ -16,10 +17,6 @@ from perftest.errors import ConvergenceError, InputError, ReconciliationWarning
 
 __all__ = ["reconcile_nonlinear", "finite_difference_jacobian"]
 
-_EPS = np.finfo(float).eps
-# Central differences: the step eps**(1/3) * scale balances truncation
-# (~h^2) against rounding (~eps/h) errors.
-_FD_REL = _EPS ** (1.0 / 3.0)
 # Armijo sufficient-decrease constant and smallest step of the line search.
 _ARMIJO = 1e-4
 _MIN_STEP = 1.0 / 1024.0
@@ -49,45 +46,6 @@ _GOOD_RATIO = 0.5
 _LOCAL = 1e-4
 # Shrinks of the trust region tried within one iteration before giving up.
 _MAX_SHRINK = 8
-
-
-def finite_difference_jacobian(residual, x, y, x_scale, y_scale):
-    """Central-difference Jacobians ``(Jx, Jy)`` of ``residual(x, y)``.
-
-    Parameters
-    ----------
-    residual : callable
-        ``residual(x, y) -> ndarray (m,)``.
-    x, y : ndarray
-        Point of evaluation.
-    x_scale, y_scale : ndarray
-        Typical sizes of the variables (positive); each step is
-        ``eps**(1/3) * max(|v|, scale)``.
-
-    Returns
-    -------
-    tuple of ndarray
-        ``Jx`` (m, n) and ``Jy`` (m, k).
-    """
-
-    def columns(v, scale, call):
-        cols = []
-        for j in range(v.size):
-            h = _FD_REL * max(abs(v[j]), scale[j])
-            vp = v.copy()
-            vm = v.copy()
-            vp[j] += h
-            vm[j] -= h
-            # Use the representable step so the quotient is exact in its denominator.
-            cols.append((call(vp) - call(vm)) / (vp[j] - vm[j]))
-        return cols
-
-    fx = columns(x, x_scale, lambda v: np.asarray(residual(v, y), dtype=float))
-    fy = columns(y, y_scale, lambda v: np.asarray(residual(x, v), dtype=float))
-    m = np.asarray(residual(x, y)).size
-    Jx = np.column_stack(fx) if fx else np.zeros((m, 0))
-    Jy = np.column_stack(fy) if fy else np.zeros((m, 0))
-    return Jx, Jy
 
 
 def _evaluate(residual, x, y, m=None):
@@ -496,7 +454,7 @@ def reconcile_nonlinear(
             "The constraints leave no redundancy: nothing can be reconciled "
             "(dof = 0, chi2 = 0, p_value = 1). Add measurements or balances.",
             ReconciliationWarning,
-            stacklevel=2,
+            stacklevel=3,
         )
     f_final = _evaluate(residual, core.xhat.copy(), core.y.copy(), m)
     norm = float(np.linalg.norm(fk if f_final is None else f_final))

@@ -14,9 +14,8 @@ import scipy.sparse as sp
 
 from perftest.balance._threads import one_blas_thread_when_small
 from perftest.balance.ambiguity import TIE_RTOL  # noqa: F401 - kept importable here
-from perftest.balance.plant_elimination import EliminatedTag, trusted_tags
+from perftest.balance.plant_elimination import EliminatedTag, choice_table, trusted_tags
 from perftest.balance.plant_elimination import eliminate as _eliminate_tags
-from perftest.balance.result import CHOICE_RTOL
 from perftest.defaults import RECONCILIATION_ALPHA
 from perftest.errors import ConvergenceError, InputError, ReconciliationWarning
 from perftest.plant import states as thermo
@@ -131,37 +130,7 @@ class PlantReconciliation:
             uncertainty among them, or an alternative leaves the value undetermined.
             Without alternatives the spread is 0 and nothing depends on the choice.
         """
-        if names is None:
-            names = [*self.model.spec.tag_ids, *self.model.variables]
-        names = list(dict.fromkeys(names))
-        table = pd.DataFrame(
-            {"value": [self.value(n) for n in names], "u": [self.uncertainty(n) for n in names]},
-            index=pd.Index(names, name="name"),
-        )
-        if not self.alternatives:
-            table["low"] = table["high"] = table["value"]
-            table["spread"] = 0.0
-            table["depends_on_choice"] = False
-            return table
-        vals, us = [], []
-        for alt in self.alternatives:
-            col = f"without {alt.eliminated[-1].tag}"
-            table[col] = [alt.value(n) for n in names]
-            vals.append(table[col].to_numpy())
-            us.append([alt.uncertainty(n) for n in names])
-        V = np.array(vals)
-        undetermined = np.isnan(V).any(axis=0)
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", RuntimeWarning)  # all-nan columns
-            table["low"] = np.nanmin(V, axis=0)
-            table["high"] = np.nanmax(V, axis=0)
-            u_big = np.nanmax(np.array(us, dtype=float), axis=0)
-        table["spread"] = np.where(undetermined, np.nan, table["high"] - table["low"])
-        with np.errstate(invalid="ignore"):
-            table["depends_on_choice"] = undetermined | (
-                table["spread"].to_numpy() > CHOICE_RTOL * u_big
-            )
-        return table
+        return choice_table(self, names)
 
     # ------------------------------------------------------------ joint vector
     # Every reported quantity is a linear function (at the solution) of the joint
@@ -706,7 +675,7 @@ def _warm_solve(model: PlantModel, extra: tuple, measurements, x0, start):
         # start decides, so that a window fails exactly as it does without a start.
         return None
     for w in caught:  # the solver's own notes, issued as the cold path issues them
-        warnings.warn(w.message, w.category, stacklevel=3)
+        warnings.warn(w.message, w.category, stacklevel=4)
     return out
 
 
@@ -802,7 +771,7 @@ def reconcile(
             f"Tags {', '.join(missing)} are used by the plant model but have no measured "
             "value; they are treated as unmeasured.",
             ReconciliationWarning,
-            stacklevel=2,
+            stacklevel=3,
         )
     for t in present:
         if not measurements[t].u > 0:
@@ -882,16 +851,16 @@ def reconcile(
             "See choice_spread() for the results that depend on the choice, or mark the "
             "instruments you trust (trusted = true).",
             ReconciliationWarning,
-            stacklevel=2,
+            stacklevel=3,
         )
     for text in _weak_notes(model.unmeasured, model.quantities, result):
-        warnings.warn(text, ReconciliationWarning, stacklevel=2)
+        warnings.warn(text, ReconciliationWarning, stacklevel=3)
     if not rec.global_test["passed"]:
         warnings.warn(
             f"The global test fails (chi2 = {result.chi2:.3g}, dof = {result.dof}, "
             f"p = {result.p_value:.3g} < alpha = {alpha}): some measurements or the "
             "model disagree. See to_frame() for suspects, or use eliminate=True.",
             ReconciliationWarning,
-            stacklevel=2,
+            stacklevel=3,
         )
     return rec

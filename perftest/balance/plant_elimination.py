@@ -18,12 +18,14 @@ import warnings
 from dataclasses import dataclass
 
 import numpy as np
+import pandas as pd
 
 from perftest.balance.ambiguity import indistinguishable
+from perftest.balance.result import CHOICE_RTOL
 from perftest.errors import InputError, ReconciliationWarning
 from perftest.plant.guess import initial_guess
 
-__all__ = ["EliminatedTag", "TagAlternative", "eliminate", "trusted_tags"]
+__all__ = ["EliminatedTag", "TagAlternative", "choice_table", "eliminate", "trusted_tags"]
 
 
 @dataclass(frozen=True)
@@ -275,3 +277,38 @@ def _quiet(solve, model, y0, shared):
         # dof reaching 0 is an expected end of elimination, not news
         warnings.simplefilter("ignore", ReconciliationWarning)
         return solve(model, y0, list(shared))
+
+
+def choice_table(rec, names=None):
+    """The table of :meth:`PlantReconciliation.choice_spread` for ``rec``."""
+    if names is None:
+        names = [*rec.model.spec.tag_ids, *rec.model.variables]
+    names = list(dict.fromkeys(names))
+    table = pd.DataFrame(
+        {"value": [rec.value(n) for n in names], "u": [rec.uncertainty(n) for n in names]},
+        index=pd.Index(names, name="name"),
+    )
+    if not rec.alternatives:
+        table["low"] = table["high"] = table["value"]
+        table["spread"] = 0.0
+        table["depends_on_choice"] = False
+        return table
+    vals, us = [], []
+    for alt in rec.alternatives:
+        col = f"without {alt.eliminated[-1].tag}"
+        table[col] = [alt.value(n) for n in names]
+        vals.append(table[col].to_numpy())
+        us.append([alt.uncertainty(n) for n in names])
+    V = np.array(vals)
+    undetermined = np.isnan(V).any(axis=0)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # all-nan columns
+        table["low"] = np.nanmin(V, axis=0)
+        table["high"] = np.nanmax(V, axis=0)
+        u_big = np.nanmax(np.array(us, dtype=float), axis=0)
+    table["spread"] = np.where(undetermined, np.nan, table["high"] - table["low"])
+    with np.errstate(invalid="ignore"):
+        table["depends_on_choice"] = undetermined | (
+            table["spread"].to_numpy() > CHOICE_RTOL * u_big
+        )
+    return table
