@@ -418,6 +418,8 @@ def collect(
                 dof=e.dof,
                 p_value=e.p_value,
                 tied_with=", ".join(getattr(e, "tied_with", ())),
+                shared=bool(getattr(e, "shared", False)),
+                redundancy_lost=int(getattr(e, "redundancy_lost", 0) or 0),
             )
             for e in getattr(reconciliation, "eliminated", ())
         ]

@@ -383,6 +383,15 @@ def sections(data: ReportData, *, figures=()) -> list:
             )
         if data.eliminated:
             el = pd.DataFrame(data.eliminated)
+            if "shared" in el:
+                # a shared step drops no instrument: the tied instruments keep their
+                # readings and the bias they share is taken out
+                el["tag"] = [
+                    f"none ({r['tag']} and tied: shared bias taken out)"
+                    if r["shared"]
+                    else r["tag"]
+                    for _, r in el.iterrows()
+                ]
             b.append(Block("p", "Serial elimination (instruments dropped, in order):"))
             b.append(
                 _table(
@@ -397,14 +406,28 @@ def sections(data: ReportData, *, figures=()) -> list:
                     ],
                 )
             )
-            if any(e.get("tied_with") for e in data.eliminated):
+            if any(e.get("shared") for e in data.eliminated):
+                lost = sum(int(e.get("redundancy_lost", 0)) for e in data.eliminated)
+                b.append(
+                    Block(
+                        "warning",
+                        "Where a step lists instruments it is tied with, the tests cannot "
+                        "tell which of them is faulty (equal statistics, or statistics "
+                        "within their sampling spread). None of them was dropped: the "
+                        "bias they share was taken out instead, at the cost of "
+                        f"{lost} degree(s) of freedom of the global test. Results that "
+                        "depend on which instrument is at fault are flagged by "
+                        "rec.choice_spread(); check all of them before accepting the "
+                        "result.",
+                    )
+                )
+            elif any(e.get("tied_with") for e in data.eliminated):
                 b.append(
                     Block(
                         "warning",
                         "Where a step lists instruments it is tied with, their "
-                        "measurement-test statistics are equal: the test cannot tell "
-                        "which of them is faulty, and the one dropped was chosen "
-                        "arbitrarily. Check all of them before accepting the result.",
+                        "measurement-test statistics are close: check all of them "
+                        "before accepting the result.",
                     )
                 )
         if "reconciliation" in figs:

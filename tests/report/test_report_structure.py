@@ -235,3 +235,27 @@ def test_tables_generic_over_plant_kinds():
     assert (
         line == "- Guarantee corrected_cop: 4.100 ± 0.098 (U95) against ≥ 3.9: met (rule guarded)"
     )
+
+
+def test_a_shared_elimination_step_says_none_was_dropped(demo):
+    # A step over instruments the tests cannot tell apart drops none of them (the
+    # engine takes out the bias they share): the report must not name a "dropped" tag.
+    import dataclasses
+
+    from perftest.report import data as report_data
+
+    base = report_data.collect(
+        demo.plant, demo.run, demo.window_run, demo.measurements, demo.reconciliation,
+        demo.performance,
+    )  # fmt: skip
+    step = dict(tag="FT-101", z=4.1, chi2=20.0, dof=3, p_value=1e-4, tied_with="FT-161",
+                shared=True, redundancy_lost=1)  # fmt: skip
+    md = render_markdown(dataclasses.replace(base, eliminated=[step]))
+    section = md.split("## Reconciliation")[1].split("\n## ")[0]
+    assert "none (FT-101 and tied: shared bias taken out)" in section
+    assert "None of them was dropped" in section
+    assert "1 degree(s) of freedom" in section
+    plain = dict(step, shared=False, tied_with="", redundancy_lost=0)
+    md = render_markdown(dataclasses.replace(base, eliminated=[plain]))
+    section = md.split("## Reconciliation")[1].split("\n## ")[0]
+    assert "None of them was dropped" not in section and "| FT-101 |" in section
