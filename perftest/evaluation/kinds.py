@@ -48,7 +48,15 @@ from perftest.errors import PerftestError
 from perftest.evaluation import performance as perf
 from perftest.evaluation.plant_keys import STREAM_KEYS, _plant_error, refs_of
 
-__all__ = ["RESULT_UNITS", "DESCRIPTIONS", "gather", "outputs", "Needs"]
+__all__ = [
+    "RESULT_UNITS",
+    "DESCRIPTIONS",
+    "KIND_DESCRIPTIONS",
+    "describe",
+    "gather",
+    "outputs",
+    "Needs",
+]
 
 #: SI unit of every result name (summary.json "unit").
 RESULT_UNITS = {
@@ -131,6 +139,32 @@ DESCRIPTIONS = {
     "heating_exergy": "Exergy of the heating",
     "heat_balance_closure": "Heat-balance closure of the raw measurements",
 }
+
+#: Descriptions that differ by plant kind (the same name, another definition).
+KIND_DESCRIPTIONS = {
+    "chp": {
+        "exergetic_efficiency": "Exergetic efficiency ((net power + exergy of the exported "
+        "heat) / fuel exergy)",
+    },
+    "refrigeration": {
+        "second_law_efficiency": "Second-law efficiency (COP / Carnot COP)",
+        "exergetic_efficiency": "Exergetic efficiency (exergy of the cooling / power input)",
+    },
+    "heat_pump": {
+        "second_law_efficiency": "Second-law efficiency (COP / Carnot COP)",
+        "exergetic_efficiency": "Exergetic efficiency (exergy of the heating / power input)",
+    },
+}
+
+
+def describe(name: str, kind: str = "power") -> str:
+    """The report description of result ``name`` for a plant of ``kind``."""
+    base = name.removeprefix("corrected_")
+    text = KIND_DESCRIPTIONS.get(kind, {}).get(base) or DESCRIPTIONS.get(base, base)
+    if name.startswith("corrected_"):
+        return f"{text}, corrected to reference conditions"
+    return text
+
 
 # Results that use the fuel's heating value, and so state its basis.
 HEATING_VALUE_RESULTS = (

@@ -373,7 +373,7 @@ def evaluate(
             "k": prop.k,
             "dof": prop.dof,
             "description": [
-                _describe(o)
+                kinds.describe(o, needs.kind)
                 + (
                     f" ({basis.upper()})"
                     if basis and o.removeprefix("corrected_") in kinds.HEATING_VALUE_RESULTS
@@ -547,10 +547,7 @@ def _unit_of(name: str) -> str:
 
 
 def _describe(name: str) -> str:
-    if name.startswith("corrected_"):
-        base = name.removeprefix("corrected_")
-        return f"{DESCRIPTIONS.get(base, base)}, corrected to reference conditions"
-    return DESCRIPTIONS.get(name, name)
+    return kinds.describe(name)
 
 
 def _input_dof(rec, name: str) -> float:

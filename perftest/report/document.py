@@ -130,6 +130,7 @@ _HEADLINE = (
     "cooling_capacity",
     "heating_capacity",
     "cop",
+    "carnot_cop",
     "heat_export",
     "fuel_utilisation",
     "boiler_efficiency",

@@ -828,3 +828,21 @@ def test_report_command_writes_the_chiller_results(tmp_path, capsys):
     for name in ("cooling_capacity", "carnot_cop", "second_law_efficiency", "heat_balance_closure"):
         assert set(results[name]) >= {"value", "u", "U95", "unit", "k", "dof"}, name
     assert "COP" in capsys.readouterr().out
+
+
+@pytest.mark.parametrize(
+    ("kind", "fragment"),
+    [
+        ("power", "cycle / Carnot"),
+        ("chp", "cycle / Carnot"),
+        ("refrigeration", "COP / Carnot COP"),
+        ("heat_pump", "COP / Carnot COP"),
+    ],
+)
+def test_second_law_description_names_the_kind_s_definition(kind, fragment):
+    # A report must not describe a chiller's COP/Carnot COP as a cycle efficiency
+    # ratio: the description follows the definition of the kind (DESIGN contract).
+    from perftest.evaluation import kinds
+
+    assert fragment in kinds.describe("second_law_efficiency", kind)
+    assert fragment in kinds.describe("corrected_second_law_efficiency", kind)
