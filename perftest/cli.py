@@ -307,7 +307,7 @@ def _summary(outcome, out=None) -> None:
         )
         for e in rec.eliminated:
             w(f"  dropped           {e.tag} (|z| = {abs(e.z):.2f})\n")
-        frame = rec.to_frame()
+        frame = rec.to_frame(units="si")
         sus = [t for t, s in zip(frame["tag"], frame["suspect"], strict=True) if s]
         if sus:
             w(f"  suspects          {', '.join(sus)}\n")

@@ -60,7 +60,7 @@ def test_reconciled_balances_close(outcome):
 def test_biased_feedwater_flow_is_found(outcome, truth):
     bad = truth["faulty_instrument"]["tag"]
     rec = outcome.reconciliation
-    frame = rec.to_frame().set_index("tag")
+    frame = rec.to_frame(units="si").set_index("tag")
     assert bool(frame.loc[bad, "suspect"])
     assert bad in {e.tag for e in rec.eliminated}
     # After elimination no other instrument is flagged and the global test passes.

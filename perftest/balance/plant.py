@@ -307,12 +307,12 @@ class PlantReconciliation:
             "passed": bool(r.p_value >= self.alpha),
         }
 
-    def to_frame(self, units="si") -> pd.DataFrame:
+    def to_frame(self, units="logged") -> pd.DataFrame:
         """One row per measured tag (every tag of the measurements).
 
         Parameters
         ----------
-        units : "si", "logged", "engineering" or mapping, default "si"
+        units : "si", "logged", "engineering" or mapping, default "logged"
             Units of the values, uncertainties and adjustments: SI (as used inside),
             each tag's logged unit, bar/°C/t/h... by quantity, or a mapping of tag id
             or quantity to a unit.  Other than "si", a ``unit`` column names the unit

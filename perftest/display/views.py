@@ -303,7 +303,7 @@ def reconciliation_frame(frame: pd.DataFrame, rec, units="si") -> pd.DataFrame:
 
 
 def _rec_rows(rec):
-    f = reconciliation_frame(rec.to_frame(), rec, "logged")
+    f = reconciliation_frame(rec.to_frame(units="si"), rec, "logged")
     header = [
         "tag",
         "measured",
@@ -356,7 +356,7 @@ def _global_line(rec) -> str:
 
 
 def _rec_lines(rec) -> list:
-    f = rec.to_frame()
+    f = rec.to_frame(units="si")
     lines = [_global_line(rec)]
     sus = list(f.loc[f["suspect"], "tag"])
     lines.append(

@@ -139,7 +139,8 @@ def _frame(obj, attr: str | None = None) -> pd.DataFrame:
         return _EMPTY.copy()
     value = getattr(obj, attr) if attr else obj
     if callable(value):
-        value = value()
+        # the report's tables are SI inside and converted for display at the end
+        value = value(units="si") if attr == "to_frame" else value()
     return value.copy() if isinstance(value, pd.DataFrame) else _EMPTY.copy()
 
 

@@ -326,12 +326,12 @@ class Measurements:
             trend_p=self.trend_p[idx],
         )
 
-    def to_frame(self, units="si") -> pd.DataFrame:
+    def to_frame(self, units="logged") -> pd.DataFrame:
         """One row per tag.
 
         Parameters
         ----------
-        units : "si", "logged", "engineering" or mapping, default "si"
+        units : "si", "logged", "engineering" or mapping, default "logged"
             Units of ``value`` and the uncertainties: SI (as used inside), the unit
             each tag was logged in, bar/°C/t/h... by quantity, or a mapping of tag
             id or quantity to a unit (others keep their logged unit).  ``unit``

@@ -395,7 +395,7 @@ def _compute_row(plant, run, spec, options, start=None):
             plant, measurements, eliminate=options.eliminate, alpha=options.alpha, start=start
         )
         gt = rec.global_test
-        table = rec.to_frame()
+        table = rec.to_frame(units="si")
         suspects = [str(t) for t in table.loc[table["suspect"].astype(bool), "tag"]]
         row.update(
             chi2=gt["chi2"],

@@ -121,9 +121,7 @@ def _staged(paths, read_kw: dict) -> tuple:
     from perftest.importers import sources
 
     return tuple(
-        sources.stage_file(p, sheet=read_kw.get("sheet")).path
-        if sources.is_staged_kind(p)
-        else p
+        sources.stage_file(p, sheet=read_kw.get("sheet")).path if sources.is_staged_kind(p) else p
         for p in paths
     )
 

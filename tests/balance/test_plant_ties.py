@@ -94,7 +94,7 @@ def test_two_meters_on_one_line_keep_their_readings(tmp_path):
     assert rec.eliminated_tags == ()
     # Neither meter is dropped or adjusted: the readings stand (to the solver's
     # step tolerance, 1e-9 of u).
-    frame = rec.to_frame().set_index("tag")
+    frame = rec.to_frame(units="si").set_index("tag")
     np.testing.assert_allclose(frame.loc[["FT-1", "FT-2"], "reconciled"], [10.0, 11.0], atol=1e-9)
     assert not frame.loc[["FT-1", "FT-2"], "eliminated"].any()
     # and the valve's mass balance shows the 1 kg/s the set leaves open

@@ -54,9 +54,11 @@ def test_measurements_to_frame_in_logged_and_named_units():
         quantities=["mass_flow", "temperature"],
         units=["t/h", "degC"],
     )
-    si = m.to_frame()
+    si = m.to_frame(units="si")
     assert list(si["unit"]) == ["kg/s", "K"] and si["value"].tolist() == [10.0, 400.0]
     logged = m.to_frame(units="logged").set_index("tag")
+    # the tag's logged unit is the default (issue: "the tag's logged unit by default")
+    assert m.to_frame().set_index("tag").equals(logged)
     assert logged.loc["FT-1", "unit"] == "t/h"
     assert logged.loc["TT-1", "value"] == pytest.approx(400.0 - 273.15, abs=1e-12)
     assert logged.loc["TT-1", "u"] == pytest.approx(0.2, rel=1e-12)  # interval: no offset
@@ -87,7 +89,7 @@ def test_html_reprs_have_tables_with_units_and_U95(demo):
 
 def test_reconciliation_to_frame_in_logged_units(demo):
     rec = demo.reconciliation
-    si = rec.to_frame().set_index("tag")
+    si = rec.to_frame(units="si").set_index("tag")
     logged = rec.to_frame(units="logged").set_index("tag")
     assert logged.loc["FT-101", "unit"] == "t/h"
     assert logged.loc["FT-101", "reconciled"] == pytest.approx(

@@ -225,7 +225,7 @@ def test_network_unobservable_and_carried(network):
     assert rec.value("drain.enthalpy") == pytest.approx(rec.value("header.enthalpy"), rel=1e-12)
     assert np.isnan(rec.streams.loc["drain", "exergy"])
     # TT-AMB is in the measurements but in no balance: carried through unchanged
-    row = rec.to_frame().set_index("tag").loc["TT-AMB"]
+    row = rec.to_frame(units="si").set_index("tag").loc["TT-AMB"]
     assert not row["in_balance"] and row["reconciled"] == row["measured"]
     assert row["u_reconciled"] == row["u_measured"] and np.isnan(row["z"])
     assert "TT-AMB" in rec.carried
@@ -251,7 +251,7 @@ def test_correlated_tag_outside_balance_moves_with_its_partner(network):
     meas = Measurements.from_values(tags, base.value, cov=cov)
     rec = perftest.reconcile(network, meas)
     assert "TT-AMB" in rec.solver_tags and "TT-AMB" not in rec.carried
-    frame = rec.to_frame().set_index("tag")
+    frame = rec.to_frame(units="si").set_index("tag")
     expected = cov[i, j] / cov[i, i] * frame.loc["TT-A", "adjustment"]
     # rounding of the projection; the adjustments are ~1e-2 K
     assert frame.loc["TT-AMB", "adjustment"] == pytest.approx(expected, rel=1e-9, abs=1e-12)
@@ -398,11 +398,11 @@ def test_cycle_gross_error_found_by_serial_elimination(cycle):
     meas = measurements(truth, seed=20240611, bias={"FT-CD": 1.08})
     with pytest.warns(ReconciliationWarning, match="global test fails"):
         plain = perftest.reconcile(cycle, meas)
-    assert "FT-CD" in set(plain.to_frame().query("suspect").tag)
+    assert "FT-CD" in set(plain.to_frame(units="si").query("suspect").tag)
     rec = perftest.reconcile(cycle, meas, eliminate=True)
     assert rec.eliminated[0].tag == "FT-CD"
     assert rec.global_test["passed"]
-    row = rec.to_frame().set_index("tag").loc["FT-CD"]
+    row = rec.to_frame(units="si").set_index("tag").loc["FT-CD"]
     assert row["eliminated"] and row["suspect"]
     # the balance's estimate of the condensate flow is back near the truth
     # (within 3 of its standard uncertainties)
@@ -747,7 +747,7 @@ def test_demo_elimination_after_an_unobservable_pressure(demo_averages):
     # The balances' estimate of the main steam flow is back near the value measured
     # before the gross error was added: within 3 standard uncertainties of the
     # difference (estimate and measurement are independent once FT-101 is dropped).
-    row = rec.to_frame().set_index("tag").loc["FT-101"]
+    row = rec.to_frame(units="si").set_index("tag").loc["FT-101"]
     assert row["eliminated"]
     measured = float(m0.value[i])
     assert abs(row["reconciled"] - measured) < 3 * np.hypot(row["u_reconciled"], m0.u[i])

@@ -36,7 +36,7 @@ def evaluate(folder):
         m = window.average()
         rec = perftest.reconcile(plant, m, eliminate=True)
         perf = perftest.evaluate(plant, rec, monte_carlo=False)
-    frame = rec.to_frame().set_index("tag")
+    frame = rec.to_frame(units="si").set_index("tag")
     return {
         "window": (m.start, m.end),
         "reconciled": frame[["reconciled", "u_reconciled"]].sort_index(),

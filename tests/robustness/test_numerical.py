@@ -200,7 +200,7 @@ def test_zero_flow_in_a_plant_branch():
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         rec = perftest.reconcile(plant, m)
-    f = rec.to_frame()
+    f = rec.to_frame(units="si")
     assert np.all(np.isfinite(f["reconciled"].astype(float)))
     assert np.all(np.isfinite(f["u_reconciled"].astype(float)))
     # the true values close the balances: nothing to adjust beyond round-off

@@ -40,7 +40,7 @@ def test_combined_u_and_record():
 
 
 def test_frame_view_uses_si_units():
-    df = make().to_frame()
+    df = make().to_frame(units="si")
     assert list(df.columns) == [
         "tag",
         "quantity",

@@ -63,7 +63,7 @@ def test_window_after_a_gap_is_refused_and_tag_coverage_reported():
     # valid / expected: 120 and 90 of 120 one-minute samples in a 2 h window
     assert m["PT-1"].coverage == pytest.approx(1.0, rel=1e-12)
     assert m["TT-1"].coverage == pytest.approx(0.75, rel=1e-12)
-    assert m.to_frame()["coverage"].tolist() == pytest.approx([1.0, 0.75], rel=1e-12)
+    assert m.to_frame(units="si")["coverage"].tolist() == pytest.approx([1.0, 0.75], rel=1e-12)
 
 
 def test_steadiest_window_skips_a_calm_stub_after_a_gap():

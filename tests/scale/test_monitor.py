@@ -140,7 +140,9 @@ def test_trend_figure_artists(direct):
     band = ax.collections[0].get_paths()[0].vertices[:, 1]
     eta = 100 * direct["first_law_efficiency"].to_numpy()
     u = 100 * direct["u_first_law_efficiency"].to_numpy()
-    assert band.max() == pytest.approx(np.nanmax(np.delete(eta + 1.959963984540054 * u, 5)), rel=1e-12)
+    assert band.max() == pytest.approx(
+        np.nanmax(np.delete(eta + 1.959963984540054 * u, 5)), rel=1e-12
+    )
     assert [t.get_text() for t in axs.get_yticklabels()] == ["FT-171"]
     fig.canvas.draw()  # lays out without error
 

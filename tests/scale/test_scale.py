@@ -176,7 +176,7 @@ def assert_row_matches(row, rec):
     assert row["p_value"] == pytest.approx(gt["p_value"], rel=1e-12)
     assert row["dof"] == gt["dof"]
     assert bool(row["passed"]) is gt["passed"]
-    frame = rec.to_frame()
+    frame = rec.to_frame(units="si")
     expected = [str(t) for t in frame.loc[frame["suspect"].astype(bool), "tag"]]
     assert row["suspects"] == ", ".join(expected)
     assert row["n_suspects"] == len(expected)
@@ -518,7 +518,11 @@ def test_demo_every_window_equals_a_single_call(demo):
         row = table.iloc[i]
         rec = direct(plant, run, row["start"], row["end"], eliminate=True)
         assert row["suspects"] == ", ".join(
-            t for t, s in zip(rec.to_frame()["tag"], rec.to_frame()["suspect"], strict=True) if s
+            t
+            for t, s in zip(
+                rec.to_frame(units="si")["tag"], rec.to_frame(units="si")["suspect"], strict=True
+            )
+            if s
         )
         assert row["chi2"] == pytest.approx(rec.global_test["chi2"], rel=1e-9)
         with warnings.catch_warnings():
