@@ -265,7 +265,12 @@ def local_cluster(n_workers: int | None = None, *, profiler: bool = False, **kwa
             # each worker process gets this configuration from its nanny, also for
             # workers the cluster starts later (scale up)
             opts["config"] = copy.deepcopy(dask.config.config)
-        return LocalCluster(**opts)
+        with warnings.catch_warnings():
+            # The cluster has no dashboard, but the scheduler's HTTP server still
+            # tries port 8787 first and says so when another program holds it;
+            # perftest does not use that server, so the note only confuses.
+            warnings.filterwarnings("ignore", message=r"Port \d+ is already in use")
+            return LocalCluster(**opts)
 
 
 def _has_performance(plant) -> bool:

@@ -756,3 +756,29 @@ def test_stability_keeps_unstable_windows(plant, faulty_run):
     assert "stability: TT-H" in row["reason"] and not row["stable"]
     assert not pd.isna(row["chi2"])  # still reconciled, kept with its reason
     assert bool(table.loc[3, "stable"]) or table.loc[3, "status"] != "ok"
+
+
+def test_local_cluster_says_nothing_of_a_busy_dashboard_port():
+    # perftest's cluster has no dashboard; a program holding Dask's default port
+    # 8787 must not make `perftest monitor --engine dask` print Dask's port note
+    # (it broke the one-line promise of the command line).
+    import socket
+    import warnings
+
+    pytest.importorskip("distributed")
+    from perftest.scale import local_cluster
+
+    holder = socket.socket()
+    try:
+        holder.bind(("127.0.0.1", 8787))
+        holder.listen()
+    except OSError:
+        pass  # already held by another program: the condition under test
+    try:
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            cluster = local_cluster(1)
+            cluster.close()
+    finally:
+        holder.close()
+    assert not [w for w in caught if "already in use" in str(w.message)]
