@@ -89,7 +89,10 @@ def write_reports(
 
         from perftest.report.figures import all_figures, figure_png
 
+        from perftest.report.campaign import campaign_figures
+
         figs = all_figures(data)
+        figs.update(campaign_figures(data))
         pngs = {stem: figure_png(fig) for stem, fig in figs.items()}
         if markdown_path:
             fig_dir = Path(markdown_path).parent / "figures"

@@ -14,7 +14,7 @@ import pandas as pd
 
 from perftest.display import COLOURS, numeric_columns
 from perftest.report.data import ReportData
-from perftest.report.document import sections
+from perftest.report.campaign import report_sections as sections
 
 __all__ = ["render_html", "write_html", "html_table"]
 

@@ -9,7 +9,7 @@ import pandas as pd
 
 from perftest.display import numeric_columns
 from perftest.report.data import ReportData
-from perftest.report.document import sections
+from perftest.report.campaign import report_sections as sections
 
 __all__ = ["render_markdown", "write_markdown", "markdown_table"]
 
