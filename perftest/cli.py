@@ -100,6 +100,17 @@ def duration(text: str) -> str:
     return raw
 
 
+def _whole_runs(text: str) -> int:
+    """argparse type of plan --runs: a whole number >= 1."""
+    try:
+        value = int(str(text).strip())
+    except ValueError:
+        value = 0
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"must be a whole number of runs >= 1. Got {text!r}.")
+    return value
+
+
 def _window_length(text: str) -> str:
     """argparse type of --window: a duration, or 'all' for the whole run."""
     return "all" if str(text).strip().lower() in ("all", "none") else duration(text)
@@ -272,6 +283,13 @@ def build_parser() -> argparse.ArgumentParser:
         type=float,
         default=0.5,
         help="what-if: one instrument's systematic uncertainty times F (default 0.5)",
+    )
+    pl.add_argument(
+        "--runs",
+        metavar="N",
+        type=_whole_runs,
+        help="repeated runs planned: also predict the U95 of their mean (default: the plant "
+        "file's [design] runs, else 1)",
     )
     pl.add_argument(
         "--no-what-if", action="store_true", help="skip the what-if table (faster; default: shown)"
