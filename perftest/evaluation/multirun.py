@@ -288,14 +288,65 @@ def _point_plant(plant, entry: dict, index: int):
                     f"any [[corrections]] entry ({', '.join(sorted(map(str, variables)))}).",
                     "points", index, "reference", var,
                 )  # fmt: skip
-            for c in corrections:
+            for ci, c in enumerate(corrections):
+                if c.get("second_variable") == var or (
+                    c.get("variable") == var and "curve" not in c
+                ):
+                    raise _plant(
+                        plant,
+                        f"[[points]] '{entry['label']}': a point's reference can move only a "
+                        f"correction given as a 1-D 'curve'; [[corrections]] entry {ci + 1} "
+                        f"for {var!r} is a polynomial or a surface. State the curve as "
+                        "points, or make a plant file per reference condition.",
+                        "points", index, "reference", var,
+                    )  # fmt: skip
                 if c.get("variable") == var:
-                    c["reference"] = value
-                if c.get("second_variable") == var:
-                    c["second_reference"] = value
+                    _move_reference(plant, c, value, (index, var))
     if gts is not None:
         sections["guarantees"] = list(gts)
     return dataclasses.replace(plant, sections=sections)
+
+
+def _move_reference(plant, table: dict, value, where) -> None:
+    """Move a curve's reference to ``value``, renormalising it there.
+
+    A multiplicative curve is divided by its value at the new reference and an
+    additive one shifted by it, so that the curve is 1 (or 0) there, as the
+    corrections require; the correction of a result from the point's condition to
+    the new reference is then the ratio (or difference) of the original curve.
+    """
+    from perftest.units import to_si
+
+    def si(v, unit, difference=False):
+        return np.asarray(v, dtype=float) if unit is None else np.asarray(
+            to_si(np.asarray(v, dtype=float), unit, difference=difference), dtype=float)
+
+    old = table["reference"]
+    old_unit = old.get("unit") if isinstance(old, Mapping) else None
+    new_v, new_unit = (value.get("value"), value.get("unit")) if isinstance(
+        value, Mapping) else (value, old_unit)  # fmt: skip
+    try:
+        ref = float(si(float(new_v), new_unit if new_unit is not None else old_unit))
+        curve = dict(table["curve"])
+        x = si([float(v) for v in curve["x"]], curve.get("x_unit", old_unit))
+        y = np.asarray([float(v) for v in curve["y"]], dtype=float)
+    except (TypeError, ValueError, KeyError) as exc:
+        raise _plant(plant, f"[[points]] reference {where[1]!r}: {exc}", "points",
+                     *where) from None  # fmt: skip
+    if not (x.min() <= ref <= x.max()):
+        raise _plant(
+            plant,
+            f"[[points]] reference {where[1]!r} = {new_v} lies outside the correction "
+            f"curve ({curve['x'][0]} to {curve['x'][-1]}); the curve is not extrapolated.",
+            "points", *where,
+        )  # fmt: skip
+    at = float(np.interp(ref, x, y))
+    if table.get("kind", "multiplicative") == "additive":
+        curve["y"] = [float(v - at) for v in y]
+    else:
+        curve["y"] = [float(v / at) for v in y]
+    table["curve"] = curve
+    table["reference"] = value
 
 
 def _evaluate_window(plant, run, entry, *, eliminate, outlier_alpha, level, monte_carlo, seed):

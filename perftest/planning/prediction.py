@@ -338,7 +338,7 @@ def plan(
         predicted uncertainty of the mean of the runs,
         :math:`u^2 = u_s^2 + u_r^2/N`, since every run shares the instruments'
         systematic errors and has its own scatter (GUM 5.2, Eq. 13 with
-        :math:`\mathrm{cov}(r_i, r_j) = u_s^2` for :math:`i \ne j`); the coverage
+        :math:`\\mathrm{cov}(r_i, r_j) = u_s^2` for :math:`i \\ne j`); the coverage
         factor is the single run's (conservative: the mean has more degrees of
         freedom).
 
