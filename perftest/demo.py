@@ -505,8 +505,10 @@ def _run_test(out: Outcome, stage, *, runs, points, eliminate, outlier_alpha, re
         out.window_run, out.measurements = w.window_run, w.measurements
         out.reconciliation, out.performance = w.reconciliation, w.performance
     paths = report_args.pop("data_paths")
-    if not any(report_args.get(k) is not None for k in ("out_dir", "json_path",
-                                                          "markdown_path", "html_path")):
+    if not any(
+        report_args.get(k) is not None
+        for k in ("out_dir", "json_path", "markdown_path", "html_path")
+    ):
         return out  # fmt: skip
 
     def _report():

@@ -532,8 +532,11 @@ def _campaign_rows(test):
         row = [n]
         for w in wins:
             r = w.performance.results.loc[n] if n in w.performance.results.index else None
-            row.append("–" if r is None else fmt_uncertain(r["value"] * scale + off,
-                                                          r["U95"] * abs(scale))[0])
+            row.append(
+                "–"
+                if r is None
+                else fmt_uncertain(r["value"] * scale + off, r["U95"] * abs(scale))[0]
+            )
         if test.mode == "runs":
             c = test.results.loc[n]
             v, U = fmt_uncertain(c["value"] * scale + off, c["U95"] * abs(scale))
@@ -548,8 +551,17 @@ def _campaign_rows(test):
 
 
 def _campaign_names(test) -> list:
-    base = ("net_power", "heat_rate", "first_law_efficiency", "cooling_capacity",
-            "heating_capacity", "power_input", "cop", "heat_export", "fuel_utilisation")
+    base = (
+        "net_power",
+        "heat_rate",
+        "first_law_efficiency",
+        "cooling_capacity",
+        "heating_capacity",
+        "power_input",
+        "cop",
+        "heat_export",
+        "fuel_utilisation",
+    )
     return [p + b for b in base for p in ("", "corrected_")]
 
 
@@ -579,8 +591,10 @@ def campaign_text(test) -> str:
     header, rows = _campaign_rows(test)
     lines = _campaign_lines(test)
     title = f"Test of {lines[0]} (U95 at {test.level * 100:g} %)"
-    return "\n".join([title, *("  " + x for x in lines[1:])]) + "\n" + text_table(
-        header, rows, limit=12
+    return (
+        "\n".join([title, *("  " + x for x in lines[1:])])
+        + "\n"
+        + text_table(header, rows, limit=12)
     )
 
 

@@ -318,8 +318,13 @@ def _move_reference(plant, table: dict, value, where) -> None:
     from perftest.units import to_si
 
     def si(v, unit, difference=False):
-        return np.asarray(v, dtype=float) if unit is None else np.asarray(
-            to_si(np.asarray(v, dtype=float), unit, difference=difference), dtype=float)
+        return (
+            np.asarray(v, dtype=float)
+            if unit is None
+            else np.asarray(
+                to_si(np.asarray(v, dtype=float), unit, difference=difference), dtype=float
+            )
+        )
 
     old = table["reference"]
     old_unit = old.get("unit") if isinstance(old, Mapping) else None
@@ -439,7 +444,8 @@ def evaluate_test(
 
     Examples
     --------
-    >>> test = evaluate_test(plant, run, runs=[("09:00", "10:30"), ("10:30", "12:00")])  # doctest: +SKIP
+    >>> runs = [("09:00", "10:30"), ("10:30", "12:00")]
+    >>> test = evaluate_test(plant, run, runs=runs)  # doctest: +SKIP
     >>> test.results.loc["corrected_heat_rate", ["value", "U95"]]  # doctest: +SKIP
     """
     mode, entries = _window_list(runs, points, plant)

@@ -87,9 +87,8 @@ def write_reports(
     if figures and (markdown_path or html_path):
         import matplotlib.pyplot as plt
 
-        from perftest.report.figures import all_figures, figure_png
-
         from perftest.report.campaign import campaign_figures
+        from perftest.report.figures import all_figures, figure_png
 
         figs = all_figures(data)
         figs.update(campaign_figures(data))

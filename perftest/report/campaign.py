@@ -86,8 +86,17 @@ def with_campaign(data: ReportData, test) -> ReportData:
         for w in wins
     )
     # the header lists the windows first; the single-window lines describe run 1
-    meta = {kind: listing, **{(f"{k} ({wins[0]['label']})" if k in (
-        "Window", "Window chosen", "Samples per tag") else k): v for k, v in meta.items()}}
+    meta = {
+        kind: listing,
+        **{
+            (
+                f"{k} ({wins[0]['label']})"
+                if k in ("Window", "Window chosen", "Samples per tag")
+                else k
+            ): v
+            for k, v in meta.items()
+        },
+    }
     meta.pop(f"Window chosen ({wins[0]['label']})", None)
     campaign = {
         "mode": test.mode,
@@ -246,8 +255,9 @@ def campaign_blocks(data: ReportData, figures=()) -> list:
                 Block(
                     "warning",
                     "The runs differ by more than their random uncertainty allows for "
-                    + ", ".join(n for n, f in zip(c["repeatability"].index, flags, strict=True)
-                                if f)  # fmt: skip
+                    + ", ".join(
+                        n for n, f in zip(c["repeatability"].index, flags, strict=True) if f
+                    )  # fmt: skip
                     + ": the plant moved between runs or a run was not steady. Check the "
                     "runs before using their mean.",
                 )

@@ -36,7 +36,6 @@ from perftest.evaluation.joint import (
     joint_covariance,
     mean_variance,
     repeatability,
-    variance_split,
 )
 from perftest.evaluation.multirun import Campaign, evaluate_test
 
@@ -265,7 +264,9 @@ def test_chiller_points_against_truth(chiller):
                      "corrected_cooling_capacity"):  # fmt: skip
             # each point's result within its own U95 of the generator's truth
             assert abs(res.loc[name, "value"] - p["results"][name]) <= res.loc[name, "U95"], (
-                w.label, name)
+                w.label,
+                name,
+            )
 
 
 def test_chiller_weighted_cop(chiller):
@@ -351,9 +352,15 @@ def test_plant_file_point_reference_to_unknown_variable(tmp_path):
         (dict(runs=STEAM_RUNS[:1]), "at least two runs"),
         (dict(runs=[STEAM_RUNS[0] + ("x",), STEAM_RUNS[1] + ("x",)]), "must differ"),
         (dict(points=[("a", "2026-05-14 09:00")]), "label, start, end"),
-        (dict(points=[dict(label="a", start="2026-05-14 09:00", end="2026-05-14 10:00",
-                           weight=1.0), ("b", "2026-05-14 10:00", "2026-05-14 11:00")]),
-         "every load point"),  # fmt: skip
+        (
+            dict(
+                points=[
+                    dict(label="a", start="2026-05-14 09:00", end="2026-05-14 10:00", weight=1.0),
+                    ("b", "2026-05-14 10:00", "2026-05-14 11:00"),
+                ]
+            ),
+            "every load point",
+        ),  # fmt: skip
         (dict(), "needs 'runs' or 'points'"),
     ],
 )
