@@ -24,7 +24,7 @@ import numpy as np
 import pandas as pd
 
 from perftest import defaults
-from perftest.errors import InputError
+from perftest.errors import InputError, PerftestError
 from perftest.evaluation.joint import (
     HEADLINE_RESULTS,
     VarianceSplit,
@@ -155,14 +155,19 @@ class Campaign:
 
 
 def _window_list(runs, points, plant) -> tuple[str, list]:
-    """(mode, [dict(label, start, end, reference, guarantees, weight)])."""
+    """(mode, [dict(label, start, end, reference, guarantees, weight)]).
+
+    Entries from the plant file raise :class:`PlantFileError` at their key (file,
+    line); entries given as arguments raise :class:`InputError`.
+    """
     if runs is not None and points is not None:
         raise InputError(
             "The 'runs' and 'points' parameters of evaluate_test cannot both be given: a "
             "test is either repeated runs of one condition or a set of load points.",
             parameter="runs",
         )
-    if runs is None and points is None:
+    from_plant = runs is None and points is None
+    if from_plant:
         sections = getattr(plant, "sections", {}) or {}
         runs, points = sections.get("runs") or None, sections.get("points") or None
         if runs and points:
@@ -176,13 +181,17 @@ def _window_list(runs, points, plant) -> tuple[str, list]:
             )
     mode = "runs" if runs is not None else "points"
     items = runs if runs is not None else points
+    where = f"[[{mode}]]" if from_plant else f"the '{mode}' parameter of evaluate_test"
+    shape = "(start, end)" if mode == "runs" else "(label, start, end)"
+
+    def fail(message, *keys):
+        if from_plant:
+            return _plant(plant, message, mode, *keys)
+        return InputError(message, parameter=mode)
+
     if isinstance(items, str | bytes) or not isinstance(items, Sequence) or not items:
-        raise InputError(
-            f"The '{mode}' parameter of evaluate_test must be a non-empty list of "
-            f"{'(start, end)' if mode == 'runs' else '(label, start, end)'} entries. "
-            f"Got {items!r}.",
-            parameter=mode,
-        )
+        raise fail(f"{where[0].upper()}{where[1:]} must be a non-empty list of {shape} entries. "
+                   f"Got {items!r}.")  # fmt: skip
     out = []
     for i, item in enumerate(items):
         if isinstance(item, Mapping):
@@ -194,55 +203,44 @@ def _window_list(runs, points, plant) -> tuple[str, list]:
         elif mode == "points" and isinstance(item, Sequence) and len(item) == 3:
             entry = dict(label=item[0], start=item[1], end=item[2])
         else:
-            raise InputError(
-                f"Entry {i + 1} of the '{mode}' parameter of evaluate_test must be "
-                f"{'(start, end)' if mode == 'runs' else '(label, start, end)'} or a "
-                f"mapping with those keys. Got {item!r}.",
-                parameter=mode,
-            )
-        if entry.get("start") is None or entry.get("end") is None:
-            raise InputError(
-                f"Entry {i + 1} of the '{mode}' parameter of evaluate_test needs a start "
-                f"and an end. Got {item!r}.",
-                parameter=mode,
-            )
+            raise fail(f"Entry {i + 1} of {where} must be {shape} or a mapping with those "
+                       f"keys. Got {item!r}.", i)  # fmt: skip
+        for key in ("start", "end"):
+            value = entry.get(key)
+            if value is None or (isinstance(value, str) and not value.strip()):
+                raise fail(f"Entry {i + 1} of {where} needs a '{key}' time. Got {item!r}.",
+                           i, key)  # fmt: skip
         if mode == "points" and not str(entry.get("label") or "").strip():
-            raise InputError(
-                f"Load point {i + 1} of evaluate_test needs a label. Got {item!r}.",
-                parameter="points",
-            )
+            raise fail(f"Load point {i + 1} of {where} needs a 'label'. Got {item!r}.",
+                       i, "label")  # fmt: skip
         entry.setdefault("label", f"run {i + 1}")
         entry["label"] = str(entry["label"])
+        entry["index"] = i
         out.append(entry)
     labels = [e["label"] for e in out]
     dup = sorted({x for x in labels if labels.count(x) > 1})
     if dup:
-        raise InputError(
-            f"The labels of the {mode} of evaluate_test must differ. Got {', '.join(dup)} "
-            "more than once.",
-            parameter=mode,
-        )
+        raise fail(f"The labels of {where} must differ. Got {', '.join(dup)} more than once.",
+                   labels.index(dup[0]), "label")  # fmt: skip
     if mode == "runs" and len(out) < 2:
-        raise InputError(
-            "A test of repeated runs needs at least two runs (for a single window, "
-            f"evaluate that window). Got {len(out)}.",
-            parameter="runs",
+        raise fail(
+            f"A test of repeated runs needs at least two runs (for a single window, evaluate "
+            f"that window). Got {len(out)} in {where}."
         )
     weights = [e.get("weight") for e in out]
     if any(w is not None for w in weights) and any(w is None for w in weights):
-        raise InputError(
-            "Either every load point of evaluate_test carries a weight or none does. "
-            f"Got weights {weights}.",
-            parameter="points",
-        )
-    for w in weights:
-        if w is not None and not (isinstance(w, int | float) and math.isfinite(w) and w >= 0):
-            raise InputError(
-                f"A load point's weight must be a finite number >= 0. Got {w!r}.",
-                parameter="points",
-            )
+        missing = weights.index(None)
+        raise fail(f"Either every load point of {where} carries a weight or none does. Got "
+                   f"weights {weights}.", missing, "weight")  # fmt: skip
+    for i, w in enumerate(weights):
+        ok = isinstance(w, int | float) and not isinstance(w, bool) and math.isfinite(w)
+        if w is not None and not (ok and w >= 0):
+            raise fail(f"A load point's weight must be a finite number >= 0. Got {w!r}.",
+                       i, "weight")  # fmt: skip
     if all(w is not None for w in weights) and weights and not sum(weights) > 0:
-        raise InputError("The weights of the load points sum to zero.", parameter="points")
+        raise fail(f"The weights of the load points of {where} sum to zero.", 0, "weight")
+    for e in out:
+        e["from_plant"] = from_plant
     return mode, out
 
 
@@ -307,6 +305,10 @@ def _point_plant(plant, entry: dict, index: int):
     return dataclasses.replace(plant, sections=sections)
 
 
+def _mode_of(plant) -> str:
+    return "runs" if (getattr(plant, "sections", {}) or {}).get("runs") else "points"
+
+
 def _move_reference(plant, table: dict, value, where) -> None:
     """Move a curve's reference to ``value``, renormalising it there.
 
@@ -358,7 +360,13 @@ def _evaluate_window(plant, run, entry, *, eliminate, outlier_alpha, level, mont
     from perftest.balance.plant import reconcile
     from perftest.evaluation.results import evaluate
 
-    chosen = run.window(entry["start"], entry["end"])
+    try:
+        chosen = run.window(entry["start"], entry["end"])
+    except PerftestError as exc:
+        if not entry.get("from_plant"):
+            raise
+        raise _plant(plant, " ".join(str(exc).split()), _mode_of(plant), entry["index"],
+                     "start") from None  # fmt: skip
     screened = chosen.screen_outliers(alpha=outlier_alpha)
     m = screened.average()
     rec = reconcile(plant, m, eliminate=eliminate)

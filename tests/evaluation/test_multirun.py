@@ -407,3 +407,36 @@ def test_plan_predicts_mean_of_n_runs():
         assert r.loc[name, "U95_mean"] < r.loc[name, "U95_with"]
     with pytest.raises(InputError, match="runs"):
         perftest.plan(plant, what_if=False, runs=0)
+
+
+@pytest.mark.parametrize(
+    "extra, match",
+    [
+        (
+            '\n[[runs]]\nstart = "2026-07-09 08:30"\nend = "2026-07-09 09:30"\n',
+            r"plant.toml, line \d+.*at least two runs",
+        ),
+        (
+            '\n[[points]]\nstart = "2026-07-09 08:30"\nend = "2026-07-09 09:30"\n',
+            r"plant.toml, line \d+.*needs a 'label'",
+        ),
+        (
+            '\n[[points]]\nlabel = "a"\nstart = "2026-07-09 08:30"\nend = "2026-07-09 09:30"\n'
+            'weight = 1\n[[points]]\nlabel = "b"\nstart = "2026-07-09 10:00"\n'
+            'end = "2026-07-09 11:00"\n',
+            r"line \d+.*every load point",
+        ),
+        (
+            '\n[[points]]\nlabel = "a"\nstart = "noon"\nend = "2026-07-09 09:30"\n',
+            r"plant.toml, line \d+.*noon",
+        ),
+    ],
+)
+def test_plant_file_windows_bad(tmp_path, extra, match):
+    plant_path, files = _chiller_copy(tmp_path, extra)
+    plant = perftest.load_plant(plant_path)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        run = perftest.read_run(files, plant)
+    with pytest.raises(PlantFileError, match=match):
+        evaluate_test(plant, run)
