@@ -408,8 +408,10 @@ def evaluate_test(
     points : sequence of (label, start, end), optional
         Load points; a mapping entry may also give ``reference`` (correction
         variable -> ``{value, unit}``, overriding the ``[[corrections]]`` reference
-        for that point), ``guarantees`` (a list as in ``[[guarantees]]``, replacing
-        the plant's for that point) and ``weight``.
+        for that point), ``guarantees`` (a list as in ``[[guarantees]]``) and
+        ``weight``.  The plant's ``[[guarantees]]`` are judged at the first point
+        (the rated point) unless it lists its own; the other points are judged
+        against the guarantees they list only.
     eliminate : bool
         Serial elimination of suspect instruments, per window.
     outlier_alpha : float
@@ -458,6 +460,19 @@ def evaluate_test(
     """
     mode, entries = _window_list(runs, points, plant)
     wins = []
+    notes: list = []
+    if mode == "points" and (plant.sections.get("guarantees") or []):
+        others = [e["label"] for e in entries[1:] if e.get("guarantees") is None]
+        if others:
+            # A plant-level guarantee is stated for the rated condition; judging a
+            # full-load capacity at part load would report a false "not met".
+            notes.append(
+                f"The plant's [[guarantees]] are judged at the first load point "
+                f"({entries[0]['label']}), the rated point; {', '.join(others)} "
+                "list no guarantees of their own and are not judged."
+            )
+            for e in entries[1:]:
+                e.setdefault("guarantees", [])
     for i, e in enumerate(entries):
         p = _point_plant(plant, e, i) if mode == "points" else plant
         screened, m, rec, perf, split = _evaluate_window(
@@ -487,7 +502,6 @@ def evaluate_test(
         [(w.label, n) for w in wins for n in names], names=["window", "name"]
     )
     joint_frame = pd.DataFrame(joint, index=index, columns=index)
-    notes: list = []
     if any(w.split.gradient.isna().any(axis=1).any() for w in wins):
         odd = sorted({n for w in wins for n in w.split.gradient.index[
             w.split.gradient.isna().any(axis=1)]})  # fmt: skip

@@ -503,8 +503,8 @@ POINT = Table(
             ("table",), Table("a point's reference conditions", entries=Key(
                 "<variable>", "its reference value", _QUANTITY, _VALUE_UNIT))),
         Key("guarantees", "this point's guarantees, entries as in `[[guarantees]]` "
-            "(replacing the plant's for this point; `[]` judges none)", ("array",), GUARANTEE,
-            items=("table",), default="the plant's `[[guarantees]]`"),
+            "(`[]` judges none)", ("array",), GUARANTEE, items=("table",),
+            default="first point: the plant's `[[guarantees]]`; others: none"),
         Key("weight", "weight in the weighted part-load figures (`weighted_cop`, ...); "
             "every point or none; normalised to sum to one", ("number",)),
     ),
