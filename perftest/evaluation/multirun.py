@@ -141,7 +141,8 @@ class Campaign:
                 rows[w.label] = w.results().loc[name]
         if self.mode == "runs" and name in self.results.index:
             rows["combined"] = self.results.loc[name]
-        return pd.DataFrame(rows).T
+        cols = ["value", "u", "U95", "u_random", "u_systematic", "unit"]
+        return pd.DataFrame(rows).T.reindex(columns=cols)
 
     def __repr__(self) -> str:
         from perftest.display.views import campaign_text
