@@ -324,8 +324,13 @@ def test_plant_file_points_with_reference_and_guarantees(tmp_path, chiller):
 
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        out = run_pipeline(plant_path, files, json_path=tmp_path / "s.json", figures=False)
-    s = json.loads((tmp_path / "s.json").read_text())
+        out = run_pipeline(plant_path, files, out_dir=tmp_path / "o")
+    s = json.loads((tmp_path / "o" / "summary.json").read_text())
+    md = (tmp_path / "o" / "report.md").read_text()
+    # the header lists the points, a section shows them, the part-load figure exists
+    assert "| Load points | 100 %: 2026-07-09 08:30 to 09:30; 50 %: 2026-07-09 11:30" in md
+    assert "## Load points" in md and "figures/part_load.png" in md
+    assert (tmp_path / "o" / "figures" / "part_load.png").stat().st_size > 1000
     assert [p["label"] for p in s["points"]] == ["100 %", "50 %"]
     p50 = s["points"][1]
     assert [g["quantity"] for g in p50["guarantees"]] == ["corrected_cop"]
@@ -378,7 +383,8 @@ def test_cli_runs_writes_runs_and_repeatability(tmp_path, capsys):
     from perftest.cli import main
 
     folder = data_dir("brackenfold")
-    args = ["report", str(folder / "plant.toml"), "-q", "--json", str(tmp_path / "s.json")]
+    args = ["report", str(folder / "plant.toml"), "-q", "--json", str(tmp_path / "s.json"),
+            "--markdown", str(tmp_path / "r.md"), "--no-figures"]  # fmt: skip
     for f in SCENARIOS["brackenfold"].files:
         args += ["--data", str(folder / f)]
     for a, b in STEAM_RUNS:
@@ -390,6 +396,9 @@ def test_cli_runs_writes_runs_and_repeatability(tmp_path, capsys):
     mean = np.mean([r["results"]["corrected_heat_rate"]["value"] for r in s["runs"]])
     assert s["results"]["corrected_heat_rate"]["value"] == pytest.approx(mean, rel=1e-12)
     assert "repeatability" in capsys.readouterr().out
+    md = (tmp_path / "r.md").read_text()
+    assert "| Repeated runs | run 1: 2026-05-14 09:00 to 10:30; run 2:" in md
+    assert "## Repeated runs" in md and "chi-squared test of the runs" in md
     # a window option and --run contradict each other: one line, status 2
     assert main([*args, "--start", "2026-05-14 09:00"]) == 2
     assert "--run states the windows" in capsys.readouterr().err
