@@ -49,6 +49,8 @@ _LAZY = {
     "Gas": "perftest.thermo",
     "stoichiometric_air": "perftest.thermo.combustion",
     "evaluate": "perftest.evaluation",
+    "evaluate_test": "perftest.evaluation.multirun",
+    "Campaign": "perftest.evaluation.multirun",
     "reconcile_many": "perftest.scale",
     "plan": "perftest.planning",
     "UncertaintyPlan": "perftest.planning",

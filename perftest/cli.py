@@ -33,6 +33,14 @@ examples:
       --end "2026-05-14 12:00" --markdown report.md
       average a stated window instead
 
+  perftest report plant.toml --data run.csv --run "2026-05-14 09:00" \\
+      "2026-05-14 10:30" --run "2026-05-14 10:30" "2026-05-14 12:00" --out out/
+      two repeated runs: each evaluated alone, the result is their mean
+
+  perftest report chiller.toml --data bms.csv --point "100 %" 08:30 09:30 \\
+      --point "75 %" 10:00 11:00 --out out/
+      load points: results and guarantee verdicts per point
+
 The plant file format is described in docs/plant-file.md.  Results support,
 and do not replace, the applicable test code and engineering judgement.
 """
@@ -90,6 +98,17 @@ def duration(text: str) -> str:
             f"Got {text!r} = {seconds:g} s."
         )
     return raw
+
+
+def _whole_runs(text: str) -> int:
+    """argparse type of plan --runs: a whole number >= 1."""
+    try:
+        value = int(str(text).strip())
+    except ValueError:
+        value = 0
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"must be a whole number of runs >= 1. Got {text!r}.")
+    return value
 
 
 def _window_length(text: str) -> str:
@@ -191,6 +210,23 @@ def build_parser() -> argparse.ArgumentParser:
         "(default " + defaults.STEADY_WINDOW + "); 'all' averages the whole run",
     )
     r.add_argument(
+        "--run",
+        metavar=("START", "END"),
+        nargs=2,
+        action="append",
+        help="a repeated run of one condition (repeat for each run, at least two): each "
+        "is evaluated alone and the result is their mean with the covariance between "
+        "runs (default: the plant file's [[runs]], else one window)",
+    )
+    r.add_argument(
+        "--point",
+        metavar=("LABEL", "START", "END"),
+        nargs=3,
+        action="append",
+        help="a load point (repeat for each point): results, corrections and guarantee "
+        "verdicts per point (default: the plant file's [[points]], else one window)",
+    )
+    r.add_argument(
         "--outlier-alpha",
         metavar="ALPHA",
         type=_probability,
@@ -247,6 +283,13 @@ def build_parser() -> argparse.ArgumentParser:
         type=float,
         default=0.5,
         help="what-if: one instrument's systematic uncertainty times F (default 0.5)",
+    )
+    pl.add_argument(
+        "--runs",
+        metavar="N",
+        type=_whole_runs,
+        help="repeated runs planned: also predict the U95 of their mean (default: the plant "
+        "file's [design] runs, else 1)",
     )
     pl.add_argument(
         "--no-what-if", action="store_true", help="skip the what-if table (faster; default: shown)"
@@ -311,6 +354,9 @@ def _summary(outcome, out=None) -> None:
         sus = [t for t, s in zip(frame["tag"], frame["suspect"], strict=True) if s]
         if sus:
             w(f"  suspects          {', '.join(sus)}\n")
+    test = getattr(outcome, "test", None)
+    if test is not None:
+        perf = _test_lines(test, w)
     if perf is not None:
         rows = [
             ("net power", "net_power", "MW", 1e-6, 0.0),
@@ -349,6 +395,28 @@ def _summary(outcome, out=None) -> None:
         )
 
 
+def _test_lines(test, w):
+    """Lines of a test of several windows; returns what the result lines should show."""
+    from types import SimpleNamespace
+
+    for win in test.windows:
+        w(f"  {win.label:<17} {win.start:%Y-%m-%d %H:%M} to {win.end:%H:%M}\n")
+    if test.mode == "runs":
+        rep = test.repeatability
+        bad = [str(n) for n, r in rep.iterrows() if r["passed"] is False]
+        w(f"  repeatability     {'runs agree' if not bad else 'runs disagree: ' + ', '.join(bad)}"
+          f" (chi-squared of the random parts, 95 %)\n")  # fmt: skip
+        w(f"  test result       mean of {len(test.windows)} runs:\n")
+        return SimpleNamespace(results=test.results, guarantees=test.guarantees)
+    for win in test.windows:
+        for g in win.performance.guarantees.itertuples(index=False):
+            w(f"  guarantee         {win.label}: {g.quantity} {g.direction.replace('_', ' ')}: "
+              f"{g.verdict}\n")  # fmt: skip
+    for name in test.results.index:
+        w(f"  {name:<17} {_fmt_result(test, name, '', 1.0)} (U95)\n")
+    return None
+
+
 def _run(args) -> int:
     from perftest.demo import run_demo, run_pipeline
 
@@ -380,6 +448,7 @@ def _run(args) -> int:
             {"--data": [Path(f) for f in args.data or ()], "plant file": [plant]},
         )  # fmt: skip
         start, end, window = _window_options(args)
+        runs, points = _test_options(args)
         outcome = run_pipeline(
             plant,
             sources,
@@ -394,6 +463,8 @@ def _run(args) -> int:
             outlier_alpha=args.outlier_alpha,
             figures=not args.no_figures,
             progress=progress,
+            runs=runs,
+            points=points,
         )
     _summary(outcome)
     failure = getattr(outcome, "failure", None)
@@ -403,6 +474,31 @@ def _run(args) -> int:
         kept = f" Written with the stages computed before it: {', '.join(wrote)}." if wrote else ""
         raise PerftestError(f"{failure}{kept}")
     return 0
+
+
+def _test_options(args) -> tuple:
+    """(runs, points) of ``perftest report``: None each to use the plant file's, ``()``
+    for one window (a window option was given)."""
+    runs = [tuple(r) for r in args.run] if args.run else None
+    points = [tuple(p) for p in args.point] if args.point else None
+    if runs and points:
+        raise PerftestError(
+            "--run and --point cannot be combined: a test is either repeated runs of one "
+            "condition or a set of load points."
+        )
+    if (runs or points) and (args.start or args.end or args.window):
+        raise PerftestError(
+            f"{'--run' if runs else '--point'} states the windows; it cannot be combined "
+            "with --start, --end or --window (they choose a single window)."
+        )
+    if runs is not None and len(runs) < 2:
+        raise PerftestError(
+            "--run needs at least two runs (repeat --run START END); for one window use "
+            "--start and --end."
+        )
+    if runs is None and points is None and (args.start or args.end or args.window):
+        return (), None
+    return runs, points
 
 
 def _window_options(args) -> tuple:

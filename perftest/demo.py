@@ -171,6 +171,9 @@ class Outcome:
         reports then hold what was computed); empty when none did.
     warnings : list of str
         Warnings issued by the stages (``"<stage>: <message>"``).
+    test : perftest.evaluation.multirun.Campaign or None
+        The test of several runs or load points (then ``window_run`` ...
+        ``performance`` are those of its first window).
     """
 
     plant: object = None
@@ -185,6 +188,7 @@ class Outcome:
     missing: list = field(default_factory=list)
     warnings: list = field(default_factory=list)
     failure: str = ""
+    test: object = None
 
 
 def data_dir(name: str = DEFAULT_SCENARIO) -> Path:
@@ -270,6 +274,8 @@ def run_pipeline(
     outlier_alpha: float = DEFAULT_OUTLIER_ALPHA,
     figures: bool = True,
     progress: Callable[..., None] | None = None,
+    runs=None,
+    points=None,
 ) -> Outcome:
     """Run every stage from the files to the reports.
 
@@ -298,6 +304,15 @@ def run_pipeline(
     progress : callable, optional
         ``progress(stage, event, seconds, message="")`` with event ``"start"``,
         ``"done"``, ``"skipped"`` or ``"warning"``.
+    runs : sequence of (start, end), optional
+        Repeated runs of one condition (:func:`perftest.evaluation.multirun.evaluate_test`):
+        the summary's ``results`` are then their mean, with ``runs`` and
+        ``repeatability``.  An empty sequence evaluates one window even when the plant
+        file lists ``[[runs]]`` or ``[[points]]``.
+    points : sequence of (label, start, end), optional
+        Load points; the summary gains ``points``.  When neither ``runs`` nor
+        ``points`` is given and no ``start``/``end`` is stated, the plant file's
+        ``[[runs]]`` or ``[[points]]`` are used.
 
     Returns
     -------
@@ -348,6 +363,16 @@ def run_pipeline(
         return read_run([_source(p) for p in data_paths], out.plant)
 
     out.run = stage("read run", _read, out.plant)
+
+    if out.run is not None and (runs or points or (
+        runs is None and points is None and start is None and end is None
+        and _plant_lists_windows(out.plant)
+    )):  # fmt: skip
+        return _run_test(out, stage, runs=runs or None, points=points or None,
+                         eliminate=eliminate, outlier_alpha=outlier_alpha, report_args=dict(
+                             out_dir=out_dir, json_path=json_path, markdown_path=markdown_path,
+                             html_path=html_path, figures=figures, data_paths=data_paths),
+                         progress=progress)  # fmt: skip
 
     how = ""
 
@@ -450,6 +475,63 @@ def run_pipeline(
 
                 out.report = replace(out.report, timings=dict(out.timings))
                 write_summary(out.report, out.written["summary"])
+    return out
+
+
+def _plant_lists_windows(plant) -> bool:
+    sections = getattr(plant, "sections", {}) or {}
+    return bool(sections.get("runs") or sections.get("points"))
+
+
+def _run_test(out: Outcome, stage, *, runs, points, eliminate, outlier_alpha, report_args,
+              progress) -> Outcome:  # fmt: skip
+    """The stages of a test of several runs or load points (see :func:`run_pipeline`)."""
+
+    def _evaluate():
+        from perftest.evaluation.multirun import evaluate_test
+
+        return evaluate_test(out.plant, out.run, runs=runs, points=points, eliminate=eliminate,
+                             outlier_alpha=outlier_alpha)  # fmt: skip
+
+    try:
+        out.test = stage("evaluate", _evaluate, out.run)
+    except PerftestError as exc:
+        out.failure = f"evaluate failed: {' '.join(str(exc).split())}"
+        out.missing.append(out.failure)
+        if progress:
+            progress("evaluate", "warning", 0.0, out.failure)
+    if out.test is not None:
+        w = out.test.windows[0]
+        out.window_run, out.measurements = w.window_run, w.measurements
+        out.reconciliation, out.performance = w.reconciliation, w.performance
+    paths = report_args.pop("data_paths")
+    if not any(
+        report_args.get(k) is not None
+        for k in ("out_dir", "json_path", "markdown_path", "html_path")
+    ):
+        return out  # fmt: skip
+
+    def _report():
+        from perftest import report
+        from perftest.report.campaign import with_campaign
+
+        mode = out.test.mode if out.test is not None else "windows"
+        data = report.collect(
+            out.plant, out.run, out.window_run, out.measurements, out.reconciliation,
+            out.performance, how=f"{mode} as stated", missing=out.missing,
+            timings=out.timings, notes=out.warnings,
+            options={"test": mode, "outlier_alpha": outlier_alpha,
+                     "serial_elimination": eliminate},
+            paths=[str(p) for p in paths if isinstance(p, str | os.PathLike)],
+        )  # fmt: skip
+        if out.test is not None:
+            data = with_campaign(data, out.test)
+        figures = report_args.pop("figures")
+        return data, report.write_reports(data, **report_args, figures=figures)
+
+    done = stage("write reports", _report)
+    if done is not None:
+        out.report, out.written = done
     return out
 
 

@@ -45,6 +45,8 @@ __all__ = [
     "performance_html",
     "plan_text",
     "plan_html",
+    "campaign_text",
+    "campaign_html",
     "WindowTable",
 ]
 
@@ -513,6 +515,98 @@ def plan_html(plan) -> str:
         *plan.notes,
     ]
     return html_block(_plan_title(plan), lines, [html_table(header, rows, flags=flags)])
+
+
+def _campaign_rows(test):
+    """One row per headline result: each window's value, then the combined one."""
+    wins = test.windows
+    names = [n for n in wins[0].performance.results.index if n in _campaign_names(test)]
+    header = ["result", *[w.label for w in wins]]
+    if test.mode == "runs":
+        header += ["mean", "U95 (mean)"]
+    header.append("unit")
+    rows = []
+    for n in names:
+        si = wins[0].performance.results.loc[n, "unit"]
+        unit, scale, off = result_unit(n, si, wins[0].performance.results.loc[n, "value"])
+        row = [n]
+        for w in wins:
+            r = w.performance.results.loc[n] if n in w.performance.results.index else None
+            row.append(
+                "–"
+                if r is None
+                else fmt_uncertain(r["value"] * scale + off, r["U95"] * abs(scale))[0]
+            )
+        if test.mode == "runs":
+            c = test.results.loc[n]
+            v, U = fmt_uncertain(c["value"] * scale + off, c["U95"] * abs(scale))
+            row += [v, U]
+        row.append(_label(unit) or NO_UNIT)
+        rows.append(row)
+    for n, c in test.results.iterrows() if test.mode == "points" else ():
+        unit, scale, off = result_unit(n, c["unit"], c["value"])
+        v, U = fmt_uncertain(c["value"] * scale + off, c["U95"] * abs(scale))
+        rows.append([n, f"{v} ± {U}", *[""] * (len(wins) - 1), _label(unit) or NO_UNIT])
+    return header, rows
+
+
+def _campaign_names(test) -> list:
+    base = (
+        "net_power",
+        "heat_rate",
+        "first_law_efficiency",
+        "cooling_capacity",
+        "heating_capacity",
+        "power_input",
+        "cop",
+        "heat_export",
+        "fuel_utilisation",
+    )
+    return [p + b for b in base for p in ("", "corrected_")]
+
+
+def _campaign_lines(test) -> list:
+    kind = "repeated runs" if test.mode == "runs" else "load points"
+    lines = [
+        f"{w.label}: {pd.Timestamp(w.start):%Y-%m-%d %H:%M} to {pd.Timestamp(w.end):%H:%M}"
+        for w in test.windows
+    ]
+    rep = getattr(test, "repeatability", None)
+    if rep is not None and not rep.empty:
+        bad = [n for n, r in rep.iterrows() if r["passed"] is False]
+        lines.append(
+            "repeatability (χ² of the runs' random parts, 95 %): "
+            + ("all agree" if not bad else "runs disagree on " + ", ".join(bad))
+        )
+    g = getattr(test, "guarantees", None)
+    if g is not None and not g.empty:
+        for r in g.to_dict("records"):
+            where = f"{r['point']}: " if "point" in r else ""
+            lines.append(f"guarantee {where}{r['quantity']}: {str(r['verdict']).upper()}")
+    return [f"{len(test.windows)} {kind}", *lines]
+
+
+def campaign_text(test) -> str:
+    """Text view of a test of several runs or load points."""
+    header, rows = _campaign_rows(test)
+    lines = _campaign_lines(test)
+    title = f"Test of {lines[0]} (U95 at {test.level * 100:g} %)"
+    return (
+        "\n".join([title, *("  " + x for x in lines[1:])])
+        + "\n"
+        + text_table(header, rows, limit=12)
+    )
+
+
+def campaign_html(test) -> str:
+    """HTML view of a test of several runs or load points."""
+    header, rows = _campaign_rows(test)
+    lines = _campaign_lines(test)
+    return html_block(
+        f"Test of {lines[0]} (U95 at {test.level * 100:g} %)",
+        lines[1:] + list(getattr(test, "notes", ())),
+        [html_table(header, rows, limit=None)],
+    )
 
 
 def _global_like(g: dict) -> str:

@@ -311,6 +311,7 @@ def plan(
     upgrade_factor: float = DEFAULT_UPGRADE_FACTOR,
     level: float = 0.95,
     what_if: bool = True,
+    runs=None,
 ) -> UncertaintyPlan:
     """Predict the uncertainty of a planned test's results, before the test.
 
@@ -331,6 +332,15 @@ def plan(
         Coverage probability of the expanded uncertainties.
     what_if : bool, default True
         Compute the what-if table (one reconciliation per instrument).
+    runs : int, optional
+        Number of repeated runs planned (default ``[design] runs``, else 1).  With
+        more than one, ``results`` gains ``runs``, ``u_mean`` and ``U95_mean``: the
+        predicted uncertainty of the mean of the runs,
+        :math:`u^2 = u_s^2 + u_r^2/N`, since every run shares the instruments'
+        systematic errors and has its own scatter (GUM 5.2, Eq. 13 with
+        :math:`\\mathrm{cov}(r_i, r_j) = u_s^2` for :math:`i \\ne j`); the coverage
+        factor is the single run's (conservative: the mean has more degrees of
+        freedom).
 
     Returns
     -------
@@ -374,6 +384,7 @@ def plan(
             parameter="level",
         )
     design = read_design(plant, duration=duration, interval=interval)
+    n_runs = _planned_runs(plant, runs)
     notes = list(design.notes)
     base = _build(plant, design)
     m = base.measurements
@@ -491,6 +502,16 @@ def plan(
     shares = pd.DataFrame(
         rows, columns=["result", "source", "instrument", "part", "share_with", "share_without"]
     )
+    if n_runs > 1:
+        random = (src["part"] == "random").to_numpy()
+        var_r = contrib_with[:, random].sum(axis=1)
+        var = results["u_with"].to_numpy(float) ** 2
+        u_mean = np.sqrt(np.maximum(var - var_r * (1.0 - 1.0 / n_runs), 0.0))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            k = np.where(results["u_with"] > 0, results["U95_with"] / results["u_with"], 0.0)
+        results["runs"] = n_runs
+        results["u_mean"] = u_mean
+        results["U95_mean"] = k * u_mean
 
     wf = pd.DataFrame(
         columns=[
@@ -517,6 +538,23 @@ def plan(
         global_test=dict(gt),
         notes=tuple(dict.fromkeys(notes)),
     )
+
+
+def _planned_runs(plant, runs) -> int:
+    """Repeated runs planned: the argument, else ``[design] runs``, else 1."""
+    if runs is None:
+        value = (plant.sections.get("design") or {}).get("runs", 1)
+        if not (isinstance(value, int) and not isinstance(value, bool) and value >= 1):
+            raise _plant_fail(plant, "design", "runs")(
+                f"[design] runs must be a whole number of runs >= 1. Got {value!r}."
+            )
+        return int(value)
+    if not (isinstance(runs, int) and not isinstance(runs, bool) and runs >= 1):
+        raise InputError(
+            f"The 'runs' parameter of plan must be a whole number >= 1. Got {runs!r}.",
+            parameter="runs",
+        )
+    return int(runs)
 
 
 def _what_if(plant, design, base, rec, outputs, results, r_wo, hv_wo, f, level):

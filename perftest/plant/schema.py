@@ -479,6 +479,37 @@ ACCEPTANCE = Table(
     ),
 )  # fmt: skip
 
+# --------------------------------------------------------------------------- runs, points
+
+_TIME_DOC = "naive times are in `[site] timezone`"
+RUN = Table(
+    "a [[runs]] entry",
+    (
+        Key("start", f"start of the run, e.g. `\"2026-05-14 09:00\"` ({_TIME_DOC})",
+            required=True),
+        Key("end", "end of the run", required=True),
+        Key("label", "name in the reports", default='`"run 1"`, `"run 2"`, ...'),
+    ),
+)  # fmt: skip
+POINT = Table(
+    "a [[points]] entry",
+    (
+        Key("label", "name of the load point in the reports (`\"100 %\"`, ...)",
+            required=True),
+        Key("start", f"start of the point's window ({_TIME_DOC})", required=True),
+        Key("end", "end of the point's window", required=True),
+        Key("reference", "reference conditions of this point: correction variable = "
+            "`{ value, unit }`, overriding that variable's `[[corrections]]` reference",
+            ("table",), Table("a point's reference conditions", entries=Key(
+                "<variable>", "its reference value", _QUANTITY, _VALUE_UNIT))),
+        Key("guarantees", "this point's guarantees, entries as in `[[guarantees]]` "
+            "(`[]` judges none)", ("array",), GUARANTEE, items=("table",),
+            default="first point: the plant's `[[guarantees]]`; others: none"),
+        Key("weight", "weight in the weighted part-load figures (`weighted_cop`, ...); "
+            "every point or none; normalised to sum to one", ("number",)),
+    ),
+)  # fmt: skip
+
 # --------------------------------------------------------------------------- [design]
 
 _DURATION = ("text", "number")
@@ -509,6 +540,8 @@ DESIGN = Table(
             default="1 min"),
         Key("tags", "design value and scatter of every tag", ("table",),
             Table("[design.tags]", entries=DESIGN_TAG), required=True),
+        Key("runs", "repeated runs planned (integer >= 1); the plan then also predicts the "
+            "U95 of their mean", ("number",), default="1"),
         Key("allowed", "expanded uncertainty the contract allows, per result", ("table",),
             Table("[design.allowed]", entries=Key("<result>", "allowed U95", ("table",),
                                                   _TOLERANCE))),
@@ -544,6 +577,10 @@ PLANT_FILE = Table(
         Key("acceptance", "verdict rule of the guarantees", ("table",), ACCEPTANCE),
         Key("design", "design point and planned test, for `perftest plan`", ("table",),
             DESIGN),
+        Key("runs", "repeated runs of one condition (a test of several runs)", ("array",),
+            RUN, items=("table",)),
+        Key("points", "load points (a test at several loads)", ("array",), POINT,
+            items=("table",)),
     ),
 )  # fmt: skip
 
@@ -572,6 +609,8 @@ KEY_TABLES: dict = {
     "acceptance": ACCEPTANCE,
     "design": DESIGN,
     "design.tags": DESIGN_TAG.fields,
+    "runs": RUN,
+    "points": POINT,
 }
 
 # The loader's choices, from the tables above.

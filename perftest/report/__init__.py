@@ -87,9 +87,11 @@ def write_reports(
     if figures and (markdown_path or html_path):
         import matplotlib.pyplot as plt
 
+        from perftest.report.campaign import campaign_figures
         from perftest.report.figures import all_figures, figure_png
 
         figs = all_figures(data)
+        figs.update(campaign_figures(data))
         pngs = {stem: figure_png(fig) for stem, fig in figs.items()}
         if markdown_path:
             fig_dir = Path(markdown_path).parent / "figures"

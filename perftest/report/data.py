@@ -98,6 +98,11 @@ class ReportData:
     meta : dict[str, str]
         The test's particulars for the report's header, in order (plant, site,
         date, window, samples, what the plant file says of the test).
+    campaign : dict
+        A test of several runs or load points
+        (:func:`perftest.report.campaign.with_campaign`): ``mode``, ``windows`` (each
+        with its results and guarantees), ``repeatability``, ``combined``; empty for a
+        single window.
     """
 
     title: str = "perftest report"
@@ -132,6 +137,7 @@ class ReportData:
     densities: dict = field(default_factory=dict)
     inputs: pd.DataFrame = field(default_factory=pd.DataFrame)
     meta: dict = field(default_factory=dict)
+    campaign: dict = field(default_factory=dict)
 
 
 def _frame(obj, attr: str | None = None) -> pd.DataFrame:

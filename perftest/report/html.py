@@ -13,8 +13,8 @@ from pathlib import Path
 import pandas as pd
 
 from perftest.display import COLOURS, numeric_columns
+from perftest.report.campaign import report_sections as sections
 from perftest.report.data import ReportData
-from perftest.report.document import sections
 
 __all__ = ["render_html", "write_html", "html_table"]
 

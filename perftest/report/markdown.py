@@ -8,8 +8,8 @@ from pathlib import Path
 import pandas as pd
 
 from perftest.display import numeric_columns
+from perftest.report.campaign import report_sections as sections
 from perftest.report.data import ReportData
-from perftest.report.document import sections
 
 __all__ = ["render_markdown", "write_markdown", "markdown_table"]
 

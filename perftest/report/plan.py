@@ -55,6 +55,8 @@ def results_table(tp) -> pd.DataFrame:
                 within_allowed=r["within_allowed"],
             )
         )
+        if "U95_mean" in r.index:
+            rows[-1][f"U95_mean_of_{int(r['runs'])}_runs"] = r["U95_mean"] * abs(scale)
     return pd.DataFrame(rows)
 
 
@@ -158,6 +160,13 @@ def plan_text(tp, title: str = "") -> str:
             f"  {r.result:<28}{value:>12} {r.unit:<8}{_g(r.U95_with):>16}"
             f"{_g(r.U95_without):>17}  {_allowed_text(r)}"
         )
+    if "U95_mean" in tp.results:
+        n = int(tp.results["runs"].iloc[0])
+        lines.append("")
+        lines.append(f"  mean of {n} repeated runs (systematic parts shared, random parts / {n}):")
+        col = f"U95_mean_of_{n}_runs"
+        for r in res.to_dict("records"):
+            lines.append(f"  {r['result']:<28}{'':>12} {r['unit']:<8}{_g(r[col]):>16}")
     lines.append("")
     lines.append("  largest shares of the variance (with reconciliation):")
     rank = ranking_table(tp, top=3)
@@ -271,6 +280,7 @@ def run_plan_command(args, out=None) -> int:
         interval=args.interval,
         upgrade_factor=args.upgrade_factor,
         what_if=not args.no_what_if,
+        runs=getattr(args, "runs", None),
     )
     write = (out or sys.stdout).write
     write(plan_text(tp, plant.name))

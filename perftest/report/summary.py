@@ -72,6 +72,10 @@ def summary_json(data: ReportData) -> dict:
         "u_measured", "reconciled", "u_reconciled", "z", "suspect", ...}``; each
         result ``{"value", "u", "U95", "unit"}``; each guarantee ``{"quantity",
         "corrected_value", "U95", "guaranteed", "direction", "verdict", "unit"}``.
+        A test of several runs adds ``runs`` and ``repeatability`` (``results`` are
+        then the mean of the runs); of load points, ``points`` (``results`` are then
+        the first point's plus the weighted part-load figures, and each guarantee
+        names its ``point``).
     """
     gt = data.global_test or {}
     global_test = {
@@ -147,6 +151,8 @@ def summary_json(data: ReportData) -> dict:
                 "rule_statement": str(getattr(r, "rule_statement", "")),
             }
         )
+        if hasattr(r, "point"):
+            guarantees[-1]["point"] = str(r.point)
 
     excluded = []
     if not data.exclusions.empty and {"tag", "reason"} <= set(data.exclusions.columns):
@@ -173,6 +179,9 @@ def summary_json(data: ReportData) -> dict:
         "timings": dict(data.timings),
         "audit": dict(data.audit),
     }
+    from perftest.report.campaign import campaign_summary
+
+    out.update(campaign_summary(data))
     return _jsonable(out)
 
 

@@ -348,6 +348,34 @@ USER_ERRORS = [
         r"short or the tags are constant",
         id="window-of-one-sample",
     ),
+    # ---- tests of several runs or load points
+    pytest.param(
+        ["report", "{plant}", "--data", "{run}", "--run", "2031-05-04 10:00", "2031-05-04 10:02"],
+        r"--run needs at least two runs",
+        id="one-run",
+    ),  # fmt: skip
+    pytest.param(
+        ["report", "{plant}", "--data", "{run}", "--run", "2031-05-04 10:00", "2031-05-04 10:02",
+         "--point", "a", "2031-05-04 10:00", "2031-05-04 10:02"],
+        r"--run and --point cannot be combined",
+        id="runs-and-points",
+    ),  # fmt: skip
+    pytest.param(
+        ["report", "{plant}", "--data", "{run}", "--point", "a", "2031-05-04 10:00"],
+        r"--point: expected 3 arguments",
+        id="point-without-end",
+    ),  # fmt: skip
+    pytest.param(
+        ["report", "{plant}", "--data", "{run}", "--point", "a", "2031-05-04 10:00",
+         "2031-05-04 10:02", "--window", "1h"],
+        r"--point states the windows; it cannot be combined with --start, --end or --window",
+        id="point-with-window",
+    ),  # fmt: skip
+    pytest.param(
+        ["plan", "{plant}", "--runs", "0"],
+        r"--runs: must be a whole number of runs >= 1",
+        id="plan-zero-runs",
+    ),
     pytest.param(
         ["monitor", *_DEMO, "--every", "1min", "--out", "{tmp}/m1"],
         r"m1: no window of the run gave a result: 0 failed and \d+ skipped",
