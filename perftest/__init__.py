@@ -12,6 +12,7 @@ from perftest.errors import (  # noqa: F401 - re-exported through __all__
     ConvergenceError,
     DataError,
     DataQualityWarning,
+    IndistinguishableWarning,
     InputError,
     PerftestDeprecationWarning,
     PerftestError,
@@ -68,6 +69,7 @@ __all__ = sorted(
         "DataQualityWarning",
         "StabilityWarning",
         "ReconciliationWarning",
+        "IndistinguishableWarning",
         "PerftestDeprecationWarning",
         *_LAZY,
     ]

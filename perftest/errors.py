@@ -20,6 +20,7 @@ __all__ = [
     "DataQualityWarning",
     "StabilityWarning",
     "ReconciliationWarning",
+    "IndistinguishableWarning",
     "PerftestDeprecationWarning",
 ]
 
@@ -114,6 +115,10 @@ class StabilityWarning(PerftestWarning):
 
 class ReconciliationWarning(PerftestWarning):
     """The reconciliation succeeded but something deserves a look (e.g. global test failed)."""
+
+
+class IndistinguishableWarning(PerftestWarning):
+    """Planned instruments form sets that no measurement test can tell apart."""
 
 
 class PerftestDeprecationWarning(PerftestWarning, DeprecationWarning):
