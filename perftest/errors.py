@@ -15,6 +15,7 @@ __all__ = [
     "PlantFileError",
     "UnitError",
     "PropertyRangeError",
+    "DeclaredPhaseError",
     "ConvergenceError",
     "PerftestWarning",
     "DataQualityWarning",
@@ -79,6 +80,14 @@ class UnitError(PerftestError):
 
 class PropertyRangeError(PerftestError):
     """A fluid state lies outside the range of the equation of state, or is ambiguous."""
+
+
+class DeclaredPhaseError(PlantFileError, PropertyRangeError):
+    """A stream's measured pressure and temperature contradict its declared phase.
+
+    Both a plant-file error (the declaration is what to correct, named by key and
+    line) and a property-range error (the state is on the wrong side of saturation).
+    """
 
 
 class ConvergenceError(PerftestError):

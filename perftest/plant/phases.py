@@ -32,7 +32,7 @@ from collections.abc import Mapping
 
 import numpy as np
 
-from perftest.errors import PlantFileError
+from perftest.errors import DeclaredPhaseError
 
 __all__ = ["check_declared_phases", "PHASE_COVERAGE"]
 
@@ -82,14 +82,16 @@ def check_declared_phases(plant, spec, measured: Mapping) -> None:
 
     Raises
     ------
-    PlantFileError
-        A stream's measured state lies more than :data:`PHASE_COVERAGE` combined
-        standard uncertainties on the wrong side of saturation for its declared
-        phase: above the saturation temperature for ``liquid``, below it for
-        ``vapour`` or ``gas``, off it either way for ``wet``; a ``wet`` stream above
-        the critical pressure; a ``supercritical`` stream below both the critical
-        pressure and temperature.  The message names the stream, the declared phase,
-        the measured p and T, the saturation temperature and the tags.
+    DeclaredPhaseError
+        A :class:`~perftest.errors.PlantFileError` and a
+        :class:`~perftest.errors.PropertyRangeError`: a stream's measured state lies
+        more than :data:`PHASE_COVERAGE` combined standard uncertainties on the wrong
+        side of saturation for its declared phase: above the saturation temperature
+        for ``liquid``, below it for ``vapour`` or ``gas``, off it either way for
+        ``wet``; a ``wet`` stream above the critical pressure; a ``supercritical``
+        stream below both the critical pressure and temperature.  The message names
+        the stream, the declared phase, the measured p and T, the saturation
+        temperature and the tags.
 
     Notes
     -----
@@ -167,8 +169,13 @@ def check_declared_phases(plant, spec, measured: Mapping) -> None:
             )
 
 
-def _error(plant, message: str, sid: str) -> PlantFileError:
+def _error(plant, message: str, sid: str) -> DeclaredPhaseError:
+    """The error with the plant file's name, key and line (as ``plant.error`` gives)."""
+    key = f"streams.{sid}.phase"
     error = getattr(plant, "error", None)
-    if error is not None:
-        return error(message, "streams", sid, "phase")
-    return PlantFileError(message, key=f"streams.{sid}.phase")
+    if error is None:
+        return DeclaredPhaseError(message, key=key)
+    located = error(message, "streams", sid, "phase")
+    return DeclaredPhaseError(
+        str(located), file=located.file, line=located.line, key=located.key or key
+    )

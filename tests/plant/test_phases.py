@@ -20,7 +20,7 @@ import pytest
 
 import perftest
 from perftest.demo import data_dir, demo_measurements
-from perftest.errors import PlantFileError
+from perftest.errors import PlantFileError, PropertyRangeError
 from perftest.plant.equations import build_model
 from perftest.plant.phases import check_declared_phases
 
@@ -55,6 +55,8 @@ def test_demo_main_steam_declared_wet_is_refused(tmp_path):
     # the saturation temperature in the message is IF97's to its printed 0.01 K
     assert f"saturation temperature {tsat:.2f} K" in text
     assert info.value.key == "streams.main_steam.phase" and info.value.line is not None
+    # also a PropertyRangeError: code that caught the wrong side of saturation still does
+    assert isinstance(info.value, PropertyRangeError)
 
 
 def test_demo_as_declared_still_reconciles():

@@ -204,12 +204,13 @@ def test_rows_equal_an_independent_loop(plant, faulty_run):
     assert bool(table.loc[0, "passed"]) and not bool(table.loc[3, "passed"])
     assert "FT-C" in table.loc[3, "suspects"]
     # windows 1 and 2 fail: the row carries the error the direct call raises
+    # (window 2: the cold stream reads as steam, refused against its declared phase)
     for i, stage, error in ((1, "average", DataError), (2, "reconcile", PropertyRangeError)):
         with pytest.raises(error) as info:
             direct(plant, faulty_run, starts[i], starts[i] + EVERY)
         row = table.iloc[i]
         assert row["status"] == "failed"
-        assert row["reason"] == f"{stage}: {error.__name__}: {info.value}"
+        assert row["reason"] == f"{stage}: {type(info.value).__name__}: {info.value}"
         assert pd.isna(row["chi2"]) and pd.isna(row["passed"])
     # the trailing single sample: reported, not reconciled
     last = table.iloc[4]
@@ -257,7 +258,8 @@ def test_explicit_windows_and_several_runs(plant, run, faulty_run):
         direct(plant, faulty_run, start, end)
     # 10:32-10:42 lies inside the stretch where the cold stream reads as steam
     assert table.loc[3, "status"] == "failed"
-    assert "PropertyRangeError" in table.loc[3, "reason"]
+    # refused before the solve: the measured state contradicts the declared phase
+    assert "DeclaredPhaseError" in table.loc[3, "reason"]
     # a list of runs is labelled by position, the whole run with every=None
     whole = reconcile_many(plant, [run, run], every=None, results=False)
     assert list(whole["run"]) == [0, 1] and list(whole["n_samples"]) == [60, 60]
