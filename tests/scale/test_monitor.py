@@ -127,12 +127,20 @@ def test_monitor_as_a_subprocess(tmp_path):
 
 
 def test_trend_figure_artists(direct):
+    from perftest.evaluation.plant_keys import KEY_RESULTS
+
     table = direct.copy()
     table.loc[2, "passed"] = False  # one global-test failure to mark
     table.loc[5, ["first_law_efficiency", "u_first_law_efficiency"]] = np.nan  # no result
-    fig = trend_figure(table, title="demo")
-    ax, axc, axs = fig.axes
+    fig = trend_figure(table, title="demo", kind="power")
+    *panels, axs = fig.axes
+    # one panel per headline result of a power plant, in the order of KEY_RESULTS
+    assert len(panels) == len(KEY_RESULTS["power"])
+    ax = panels[KEY_RESULTS["power"].index("first_law_efficiency")]
+    axc = panels[KEY_RESULTS["power"].index("carnot_efficiency")]
     assert "[%]" in ax.get_ylabel() and "[%]" in axc.get_ylabel()
+    assert "first law efficiency" in ax.get_ylabel()
+    assert "heat rate [kJ/kWh]" in panels[KEY_RESULTS["power"].index("heat_rate")].get_ylabel()
     assert "mid-time" in axs.get_xlabel()
     labels = ax.get_legend_handles_labels()[1]
     assert "global test failed" in labels and any(lab.startswith("U95 band") for lab in labels)
@@ -140,11 +148,18 @@ def test_trend_figure_artists(direct):
     band = ax.collections[0].get_paths()[0].vertices[:, 1]
     eta = 100 * direct["first_law_efficiency"].to_numpy()
     u = 100 * direct["u_first_law_efficiency"].to_numpy()
-    assert band.max() == pytest.approx(np.nanmax(np.delete(eta + 1.959963984540054 * u, 5)), rel=1e-12)
+    assert band.max() == pytest.approx(
+        np.nanmax(np.delete(eta + 1.959963984540054 * u, 5)), rel=1e-12
+    )
     assert [t.get_text() for t in axs.get_yticklabels()] == ["FT-171"]
     fig.canvas.draw()  # lays out without error
 
 
 def test_trend_figure_needs_results(direct):
     with pytest.raises(perftest.InputError, match="lacks columns"):
-        trend_figure(direct.drop(columns=["carnot_efficiency"]))
+        trend_figure(direct.drop(columns=["carnot_efficiency"]), results=["carnot_efficiency"])
+    heads = [c for c in direct.columns if not c.startswith("u_")]
+    with pytest.raises(perftest.InputError, match="headline result"):
+        trend_figure(
+            direct[[c for c in heads if c in ("start", "end", "status", "passed", "suspects")]]
+        )
