@@ -163,3 +163,33 @@ def test_trend_figure_needs_results(direct):
         trend_figure(
             direct[[c for c in heads if c in ("start", "end", "status", "passed", "suspects")]]
         )
+
+
+def test_monitor_refused_while_a_python_job_holds_its_store(tmp_path, capsys):
+    # reconcile_many(store=OUT/windows.parquet) from Python, running in another process
+    import os
+
+    out = tmp_path / "o"
+    store = out / "windows.parquet"
+    code = (
+        "import sys, time; from perftest.scale.store import StoreLock; "
+        "lock = StoreLock(sys.argv[1], job='reconcile_many').acquire(); "
+        "print('held', flush=True); time.sleep(120)"
+    )
+    env = dict(os.environ, OPENBLAS_NUM_THREADS="1", PYTHONDONTWRITEBYTECODE="1")
+    holder = subprocess.Popen([sys.executable, "-c", code, str(store)], stdout=subprocess.PIPE,
+                              text=True, env=env)  # fmt: skip
+    try:
+        assert holder.stdout.readline().strip() == "held"
+        argv = ["monitor", str(DEMO / "plant.toml"), "--data", str(FILES[0]), "--data",
+                str(FILES[1]), "--every", "2h", "--out", str(out), "-q",
+                "--no-figures"]  # fmt: skip
+        assert main(argv) == 2
+    finally:
+        holder.kill()
+        holder.wait()
+    line = capsys.readouterr().err.strip()
+    assert line.startswith("perftest: error:") and "in use by reconcile_many" in line
+    assert f"process {holder.pid} on host" in line
+    assert not (out / "windows.csv").exists()
+    assert not list(store.glob("part-*.parquet"))
