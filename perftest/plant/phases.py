@@ -102,6 +102,19 @@ def check_declared_phases(plant, spec, measured: Mapping) -> None:
     from perftest.plant.states import fluid as get_fluid
     from perftest.thermo.saturation import tsat_or_nan
 
+    fix = (
+        " Correct the stream's 'phase' in the plant file (liquid, vapour, wet, gas, "
+        "supercritical) or check the pressure and temperature instruments."
+    )
+
+    def where(sid, st, p, u_p, p_src, T, u_T, T_src):
+        return (
+            f"Stream '{sid}' is declared {st.phase!r}, but its measured pressure "
+            f"{p / 1e6:.6g} MPa ({p_src}, u = {u_p / 1e6:.3g} MPa) and temperature "
+            f"{_c(T)} ({T_src}, u = {u_T:.3g} K)"
+        )
+
+    todo = []  # streams to compare with the saturation line, in file order
     for sid, st in spec.streams.items():
         if st.phase is None:
             continue
@@ -116,34 +129,38 @@ def check_declared_phases(plant, spec, measured: Mapping) -> None:
             f = get_fluid(st.fluid)
         except Exception:  # an unknown fluid is reported by the model, not here
             continue
-        where = (
-            f"Stream '{sid}' is declared {st.phase!r}, but its measured pressure "
-            f"{p / 1e6:.6g} MPa ({p_src}, u = {u_p / 1e6:.3g} MPa) and temperature "
-            f"{_c(T)} ({T_src}, u = {u_T:.3g} K)"
-        )
-        fix = (
-            " Correct the stream's 'phase' in the plant file (liquid, vapour, wet, gas, "
-            "supercritical) or check the pressure and temperature instruments."
-        )
+        state = (sid, st, p, u_p, p_src, T, u_T, T_src)
         pc, Tc = float(f.p_critical), float(f.T_critical)
         if st.phase == "supercritical":
             if p + PHASE_COVERAGE * u_p < pc and T + PHASE_COVERAGE * u_T < Tc:
                 raise _error(
                     plant,
-                    f"{where} lie below both the critical pressure {pc / 1e6:.6g} MPa and "
-                    f"the critical temperature {_c(Tc)}.{fix}",
+                    f"{where(*state)} lie below both the critical pressure "
+                    f"{pc / 1e6:.6g} MPa and the critical temperature {_c(Tc)}.{fix}",
                     sid,
                 )
             continue
         if st.phase == "wet" and p - PHASE_COVERAGE * u_p >= pc:
             raise _error(
                 plant,
-                f"{where} lie above the critical pressure {pc / 1e6:.6g} MPa, where no "
-                f"liquid-vapour mixture exists.{fix}",
+                f"{where(*state)} lie above the critical pressure {pc / 1e6:.6g} MPa, where "
+                f"no liquid-vapour mixture exists.{fix}",
                 sid,
             )
-        pp = np.array([p, p * (1 - _DP_REL), p * (1 + _DP_REL)])
-        ts = tsat_or_nan(f, pp)
+        if st.phase in ("liquid", "vapour", "gas", "wet"):
+            todo.append((f, state))
+    # one saturation call per fluid: each pressure and its two neighbours
+    tsat = {}
+    for name in dict.fromkeys(f.name for f, _ in todo):
+        items = [(k, f, st) for k, (f, st) in enumerate(todo) if f.name == name]
+        p = np.array([st[2] for _, _, st in items])
+        pp = np.concatenate([p, p * (1 - _DP_REL), p * (1 + _DP_REL)])
+        ts = tsat_or_nan(items[0][1], pp).reshape(3, -1)
+        for col, (k, _, _) in enumerate(items):
+            tsat[k] = ts[:, col]
+    for k, (f, state) in enumerate(todo):
+        sid, st, p, u_p, _, T, u_T, _ = state
+        ts = tsat[k]
         if not np.isfinite(ts[0]):
             continue  # no saturation line here (critical region, pseudo-pure fluid)
         dTdp = (ts[2] - ts[1]) / (2 * p * _DP_REL) if np.all(np.isfinite(ts)) else 0.0
@@ -154,17 +171,16 @@ def check_declared_phases(plant, spec, measured: Mapping) -> None:
             wrong, side = dT > limit, "above"
         elif st.phase in ("vapour", "gas"):
             wrong, side = dT < -limit, "below"
-        elif st.phase == "wet":
+        else:  # wet
             wrong, side = abs(dT) > limit, "above" if dT > 0 else "below"
-        else:
-            continue
         if wrong:
+            ratio = abs(dT) / u if u > 0 else math.inf
             raise _error(
                 plant,
-                f"{where} lie {abs(dT):.2f} K {side} the saturation temperature "
-                f"{_c(float(ts[0]))} at that pressure, {abs(dT) / u if u > 0 else math.inf:.3g} "
-                f"times the combined standard uncertainty {u:.3g} K (the limit is "
-                f"{PHASE_COVERAGE:g} times, at least {f.saturation_margin:g} K).{fix}",
+                f"{where(*state)} lie {abs(dT):.2f} K {side} the saturation temperature "
+                f"{_c(float(ts[0]))} at that pressure, {ratio:.3g} times the combined "
+                f"standard uncertainty {u:.3g} K (the limit is {PHASE_COVERAGE:g} times, at "
+                f"least {f.saturation_margin:g} K).{fix}",
                 sid,
             )
 
