@@ -9,6 +9,8 @@ figure's bands against matplotlib's artists.
 
 from __future__ import annotations
 
+import contextlib
+import io
 import json
 from pathlib import Path
 
@@ -36,15 +38,17 @@ def monitored(request, tmp_path_factory):
     for f in files:
         argv += ["--data", str(DATA / name / f)]
     argv += ["--every", "30min", "--out", str(out), "-q"]
-    assert main(argv) == 0
+    printed = io.StringIO()
+    with contextlib.redirect_stdout(printed):
+        assert main(argv) == 0
     info = json.loads((out / "monitor.json").read_text(encoding="utf-8"))
     table = pd.read_csv(out / "windows.csv", parse_dates=["start", "end"])
     truth = json.loads((DATA / name / "truth.json").read_text(encoding="utf-8"))
-    return name, kind, out, info, table, truth
+    return name, kind, out, info, table, truth, printed.getvalue()
 
 
 def test_summary_lists_the_kinds_headline_results(monitored):
-    _, kind, _, info, table, _ = monitored
+    _, kind, _, info, table, _, _ = monitored
     assert info["kind"] == kind
     assert list(info["results"]) == list(KEY_RESULTS[kind])
     ok = table[table["status"] == "ok"]
@@ -61,7 +65,7 @@ def test_summary_lists_the_kinds_headline_results(monitored):
 
 
 def test_full_load_windows_reproduce_truth_within_U95(monitored):
-    name, kind, _, _, table, truth = monitored
+    name, kind, _, _, table, truth, _ = monitored
     if name == "ostrenby":
         point = next(p for p in truth["points"] if p["label"] == "100 %")
         start, end, true = point["start"], point["end"], point["results"]
@@ -93,7 +97,7 @@ def test_full_load_windows_reproduce_truth_within_U95(monitored):
 
 
 def test_trend_figure_shows_the_kinds_results(monitored):
-    _, kind, out, _, table, _ = monitored
+    _, kind, out, _, table, _, _ = monitored
     assert (out / "trend.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     fig = trend_figure(table, kind=kind)
     *panels, strip = fig.axes
@@ -111,3 +115,18 @@ def test_trend_figure_shows_the_kinds_results(monitored):
     top = np.nanmax((v + COVERAGE_FACTOR * u) * scale)
     assert band.max() == pytest.approx(top, rel=1e-12)
     fig.canvas.draw()
+
+
+def test_command_prints_each_headline_result(monitored):
+    _, kind, _, info, _, _, printed = monitored
+    lines = printed.splitlines()
+    for name in KEY_RESULTS[kind]:
+        line = next(ln for ln in lines if ln.strip().startswith(name + " "))
+        assert "median" in line and f"over {info['results'][name]['windows']} ok window" in line
+    # a COP is printed as a plain number, a capacity in its power unit
+    if kind == "refrigeration":
+        cop = next(ln for ln in lines if ln.strip().startswith("cop "))
+        assert f"median {info['results']['cop']['median']:.5g} over" in cop
+    else:
+        heat = next(ln for ln in lines if ln.strip().startswith("heat_export "))
+        assert f"median {info['results']['heat_export']['median'] / 1e6:.5g} MW" in heat
