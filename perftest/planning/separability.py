@@ -53,7 +53,13 @@ import pandas as pd
 from perftest.balance.ambiguity import SPREAD_K, TIE_RTOL
 from perftest.balance.result import as_dense
 
-__all__ = ["indistinguishable_sets", "NEAR_CORRELATION", "SET_COLUMNS"]
+__all__ = [
+    "indistinguishable_sets",
+    "adjustment_correlation",
+    "describe_sets",
+    "NEAR_CORRELATION",
+    "SET_COLUMNS",
+]
 
 #: Correlation of the adjustments from which two instruments count as "near"
 #: indistinguishable: separating them needs an expected statistic of
