@@ -52,6 +52,7 @@ import pandas as pd
 
 from perftest.balance.ambiguity import SPREAD_K, TIE_RTOL
 from perftest.balance.result import as_dense
+from perftest.errors import InputError
 
 __all__ = [
     "indistinguishable_sets",
@@ -125,6 +126,11 @@ def indistinguishable_sets(rec, *, near: float = NEAR_CORRELATION) -> pd.DataFra
     near : float, default :data:`NEAR_CORRELATION`
         Correlation of the adjustments from which a pair counts as near (0 < near < 1).
 
+    Raises
+    ------
+    InputError
+        ``near`` is not between 0 and 1.
+
     Returns
     -------
     DataFrame
@@ -137,6 +143,12 @@ def indistinguishable_sets(rec, *, near: float = NEAR_CORRELATION) -> pd.DataFra
         with at most one member that is not trusted (``rec.trusted``: the plant file's
         ``trusted = true``) is left out: elimination then knows which one to drop.
     """
+    if not (isinstance(near, int | float) and 0.0 < near < 1.0):
+        raise InputError(
+            f"The 'near' parameter of indistinguishable_sets must be a number between 0 and "
+            f"1. Got {near!r}.",
+            parameter="near",
+        )
     result = rec.result
     tags = list(rec.solver_tags)
     rho, testable = adjustment_correlation(result)

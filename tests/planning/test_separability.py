@@ -172,3 +172,18 @@ def test_no_warning_when_every_set_has_a_trusted_member(tmp_path):
     assert tp.indistinguishable.empty
     assert json.loads(plan_json(tp))["indistinguishable"] == []
     assert "tell apart" not in plan_markdown(tp)
+
+
+@pytest.mark.parametrize("near", [0.0, 1.0, 1.5, "0.9"])
+def test_near_threshold_is_checked(network_plan, near):
+    from perftest.planning.prediction import _reconcile
+    from perftest.planning.separability import indistinguishable_sets
+
+    tp, _ = network_plan
+    rec = _reconcile(perftest.load_plant(PLANT), tp.measurements)
+    with pytest.raises(perftest.InputError, match="'near' parameter of indistinguishable_sets"):
+        indistinguishable_sets(rec, near=near)
+    # a looser threshold finds the same identical sets (they are exact ties)
+    loose = indistinguishable_sets(rec, near=0.5)
+    assert {frozenset(t) for t, k in zip(loose["tags"], loose["kind"], strict=True)
+            if k == "identical"} == _sets(tp)  # fmt: skip
