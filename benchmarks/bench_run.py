@@ -11,8 +11,9 @@ average
     autocorrelation, no covariance); (b) the same random part as
     ``Run.average`` computed bare with numpy: mean, standard deviation, effective
     uncertainty of the mean from the FFT autocovariances (``perftest.run.stats``
-    documents the rule: Sokal's window with the mean-bias correction).  The largest relative difference of u_random
-    between perftest and (b) is printed as a check that both compute the same.
+    documents the rule: Sokal's window with the mean-bias correction).  The largest
+    relative difference of u_random between perftest and (b) is printed as a check that
+    both compute the same.
 steadiest_window
     A day of one-minute data (1,440 samples) for 200 tags (pressures: the default
     permissible variation applies), windows of 60 minutes ending at every sample.

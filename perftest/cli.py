@@ -444,7 +444,7 @@ def _run(args) -> int:
 
         check_outputs(
             report_paths(args.out, json_path=args.json, markdown_path=args.markdown,
-                         html_path=args.html),
+                         html_path=args.html, figures=not args.no_figures),
             {"--data": [Path(f) for f in args.data or ()], "plant file": [plant]},
         )  # fmt: skip
         start, end, window = _window_options(args)

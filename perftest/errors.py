@@ -15,11 +15,13 @@ __all__ = [
     "PlantFileError",
     "UnitError",
     "PropertyRangeError",
+    "DeclaredPhaseError",
     "ConvergenceError",
     "PerftestWarning",
     "DataQualityWarning",
     "StabilityWarning",
     "ReconciliationWarning",
+    "IndistinguishableWarning",
     "PerftestDeprecationWarning",
 ]
 
@@ -80,6 +82,14 @@ class PropertyRangeError(PerftestError):
     """A fluid state lies outside the range of the equation of state, or is ambiguous."""
 
 
+class DeclaredPhaseError(PlantFileError, PropertyRangeError):
+    """A stream's measured pressure and temperature contradict its declared phase.
+
+    Both a plant-file error (the declaration is what to correct, named by key and
+    line) and a property-range error (the state is on the wrong side of saturation).
+    """
+
+
 class ConvergenceError(PerftestError):
     """An iterative solver stopped without meeting its convergence criteria.
 
@@ -114,6 +124,10 @@ class StabilityWarning(PerftestWarning):
 
 class ReconciliationWarning(PerftestWarning):
     """The reconciliation succeeded but something deserves a look (e.g. global test failed)."""
+
+
+class IndistinguishableWarning(PerftestWarning):
+    """Planned instruments form sets that no measurement test can tell apart."""
 
 
 class PerftestDeprecationWarning(PerftestWarning, DeprecationWarning):

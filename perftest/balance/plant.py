@@ -21,6 +21,7 @@ from perftest.errors import ConvergenceError, InputError, ReconciliationWarning
 from perftest.plant import states as thermo
 from perftest.plant.equations import PlantModel, build_model
 from perftest.plant.guess import initial_guess
+from perftest.plant.phases import check_declared_phases
 
 __all__ = [
     "PlantReconciliation",
@@ -725,7 +726,9 @@ def reconcile(
     Raises
     ------
     PlantFileError
-        The plant's streams or units are invalid.
+        The plant's streams or units are invalid, or a stream's measured pressure and
+        temperature contradict its declared phase beyond their uncertainty
+        (:func:`perftest.plant.phases.check_declared_phases`).
     PropertyRangeError
         A stream's state lies outside the property range or on the wrong side of
         saturation for its declared phase (names the stream and the state).
@@ -780,6 +783,11 @@ def reconcile(
                 "State its uncertainty in the plant file or make the variable a fixed value.",
                 tag=t,
             )
+    # A declared phase the measurements contradict would make its thermometer a
+    # gross error (a superheated stream declared wet): refuse it before solving.
+    check_declared_phases(
+        plant, model.spec, {t: (measurements[t].value, measurements[t].u) for t in present}
+    )
     model = model.bind(present)
     in_model = set(present)
     cov = np.asarray(measurements.cov, dtype=float)

@@ -57,7 +57,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from perftest.errors import InputError, PerftestError
+from perftest.errors import IndistinguishableWarning, InputError, PerftestError
 from perftest.planning.design import (
     DesignPoint,
     _build,
@@ -66,6 +66,7 @@ from perftest.planning.design import (
     planned_measurements,
     read_design,
 )
+from perftest.planning.separability import SET_COLUMNS, describe_sets, indistinguishable_sets
 
 __all__ = [
     "UncertaintyPlan",
@@ -222,6 +223,11 @@ class UncertaintyPlan:
         design values do not close the balances; the prediction is then made at
         the reconciled point).
     notes : tuple of str
+    indistinguishable : pandas.DataFrame
+        Sets of planned instruments that no measurement test can tell apart at the
+        design point (:func:`perftest.planning.separability.indistinguishable_sets`:
+        columns ``set, kind, tags, min_correlation, separating_z``); empty when every
+        gross error can be located.
     """
 
     results: pd.DataFrame
@@ -235,6 +241,9 @@ class UncertaintyPlan:
     level: float
     global_test: dict
     notes: tuple = field(default=())
+    indistinguishable: pd.DataFrame = field(
+        default_factory=lambda: pd.DataFrame(columns=SET_COLUMNS)
+    )
 
     def ranking(self, result: str, *, reconciled: bool = True) -> pd.DataFrame:
         """Instruments ranked by their share of one result's variance.
@@ -284,6 +293,16 @@ class UncertaintyPlan:
             "shares": records(self.shares),
             "what_if": records(self.what_if),
             "notes": list(self.notes),
+            "indistinguishable": [
+                {
+                    "set": int(r["set"]),
+                    "kind": r["kind"],
+                    "tags": list(r["tags"]),
+                    "min_correlation": clean(r["min_correlation"]),
+                    "separating_z": clean(r["separating_z"]),
+                }
+                for r in self.indistinguishable.to_dict(orient="records")
+            ],
         }
 
     def __repr__(self) -> str:
@@ -354,6 +373,12 @@ def plan(
     InputError
         A bad ``duration``, ``interval``, ``upgrade_factor`` or ``level``.
 
+    Warns
+    -----
+    IndistinguishableWarning
+        Planned instruments form sets whose gross errors no measurement test can
+        tell apart (``indistinguishable`` of the result lists them).
+
     Notes
     -----
     See the module notes for the planned measurements, the meaning of "without
@@ -396,6 +421,9 @@ def plan(
             f"{gt['chi2']:.3g}, dof = {gt['dof']}); the prediction is linearised at the "
             "reconciled design point. Check the design values."
         )
+    sets = indistinguishable_sets(rec)
+    if len(sets):
+        warnings.warn(describe_sets(sets), IndistinguishableWarning, stacklevel=2)
     perf = _evaluate(plant, rec, level)
     from perftest.evaluation.plant_keys import key_results, performance_kind
 
@@ -537,6 +565,7 @@ def plan(
         level=float(level),
         global_test=dict(gt),
         notes=tuple(dict.fromkeys(notes)),
+        indistinguishable=sets,
     )
 
 

@@ -2,9 +2,10 @@
 
 The loader first checks every key of the file against the schema
 (:func:`perftest.plant.checks.check_against_schema`), then validates the sections it
-owns (``site``, ``tags``, ``groups``, ``stability``) into records and keeps the others (``streams``, ``units``, ``fuel``,
-``performance``, ``corrections``, ``guarantees``, ``reference``, ``acceptance``,
-``design``) as raw tables in :attr:`Plant.sections` for the modules that own them.
+owns (``site``, ``tags``, ``groups``, ``stability``) into records and keeps the others
+(``streams``, ``units``, ``fuel``, ``performance``, ``corrections``, ``guarantees``,
+``reference``, ``acceptance``, ``design``) as raw tables in :attr:`Plant.sections` for the
+modules that own them.
 
 Decisions
 ---------

@@ -16,14 +16,16 @@ Two rules keep a user's files safe:
 
 from __future__ import annotations
 
+import fnmatch
 import os
 import tempfile
 from collections.abc import Iterable, Mapping
+from dataclasses import dataclass
 from pathlib import Path
 
 from perftest.errors import PerftestError
 
-__all__ = ["write_atomic", "check_outputs", "same_file", "report_paths"]
+__all__ = ["write_atomic", "check_outputs", "same_file", "report_paths", "OutputPattern"]
 
 
 def _umask() -> int:
@@ -101,6 +103,36 @@ def same_file(a, b) -> bool:
         return False
 
 
+@dataclass(frozen=True)
+class OutputPattern:
+    """Files a job writes into ``folder`` under names it chooses as it goes.
+
+    ``perftest report`` writes its figures as ``figures/<stem>.png`` with stems that
+    depend on the data (``stability_2`` ...): :func:`check_outputs` refuses an input
+    or another output that such a name would overwrite, and a ``folder`` that is a
+    file.
+
+    Attributes
+    ----------
+    folder : Path
+    glob : str
+        Shell pattern of the file names (``"*.png"``).
+    """
+
+    folder: Path
+    glob: str
+
+    def __str__(self) -> str:
+        return str(Path(self.folder) / self.glob)
+
+    def matches(self, path) -> bool:
+        """Whether writing under this pattern could replace ``path``."""
+        path = Path(path)
+        if not fnmatch.fnmatch(path.name, self.glob):
+            return False
+        return same_file(path.parent, self.folder)
+
+
 def _inside(path: Path, folder: Path) -> bool:
     try:
         path.resolve().relative_to(folder.resolve())
@@ -119,9 +151,10 @@ def check_outputs(
 
     Parameters
     ----------
-    outputs : mapping label -> path
+    outputs : mapping label -> path or OutputPattern
         Files to be written, labelled as the user named them (e.g. ``"--json"``).
-        None values are skipped.
+        None values are skipped; an :class:`OutputPattern` stands for the files a
+        job names as it goes (figures).
     inputs : mapping label -> iterable of paths, optional
         Files read by the job (e.g. ``{"--data": [...], "plant file": [...]}``).
     folders : mapping label -> path, optional
@@ -133,8 +166,36 @@ def check_outputs(
     PerftestError
         Naming the two options and the path.
     """
-    outs = [(label, Path(p)) for label, p in outputs.items() if p is not None]
+    patterns = [(label, p) for label, p in outputs.items() if isinstance(p, OutputPattern)]
+    outs = [
+        (label, Path(p))
+        for label, p in outputs.items()
+        if p is not None and not isinstance(p, OutputPattern)
+    ]
     ins = [(label, Path(p)) for label, paths in (inputs or {}).items() for p in paths]
+    for p_label, pattern in patterns:
+        folder = Path(pattern.folder)
+        if folder.exists() and not folder.is_dir():
+            raise PerftestError(
+                f"{folder}: the output folder of {p_label} is a file. Move that file or "
+                "choose another output folder.",
+                file=folder,
+            )
+        for i_label, i_path in ins:
+            if pattern.matches(i_path):
+                raise PerftestError(
+                    f"{i_path}: the output {p_label} is the input {i_label}; writing it "
+                    "would destroy the input. Move the input or choose another output "
+                    "folder.",
+                    file=i_path,
+                )
+        for o_label, o_path in outs:
+            if pattern.matches(o_path):
+                raise PerftestError(
+                    f"{o_path}: the outputs {o_label} and {p_label} are one file; one "
+                    "would overwrite the other. Give each its own file.",
+                    file=o_path,
+                )
     for o_label, o_path in outs:
         for i_label, i_path in ins:
             if same_file(o_path, i_path):
@@ -169,15 +230,27 @@ def check_outputs(
                 )
 
 
-def report_paths(out_dir=None, *, json_path=None, markdown_path=None, html_path=None) -> dict:
+def report_paths(
+    out_dir=None, *, json_path=None, markdown_path=None, html_path=None, figures: bool = False
+) -> dict:
     """The files ``perftest report`` writes, labelled by option, as
     :func:`perftest.report.write_reports` chooses them (an explicit file overrides
-    the one ``out_dir`` would hold)."""
+    the one ``out_dir`` would hold).
+
+    With ``figures`` and a Markdown report, the figures beside it
+    (``figures/<stem>.png``) are one :class:`OutputPattern` entry,
+    ``"--out (figures/*.png)"`` (or ``"--markdown (figures/*.png)"``)."""
     paths = {"--json": json_path, "--markdown": markdown_path, "--html": html_path}
+    md_label = "--markdown"
     if out_dir is not None:
         out_dir = Path(out_dir)
         for label, name in (("--json", "summary.json"), ("--markdown", "report.md"),
                             ("--html", "report.html")):  # fmt: skip
             if paths[label] is None:
                 paths[f"--out ({name})"] = out_dir / name
+                if label == "--markdown":
+                    md_label = "--out"
+    md = markdown_path if markdown_path is not None else paths.get("--out (report.md)")
+    if figures and md is not None:
+        paths[f"{md_label} (figures/*.png)"] = OutputPattern(Path(md).parent / "figures", "*.png")
     return {k: v for k, v in paths.items() if v is not None}

@@ -8,13 +8,21 @@ from __future__ import annotations
 
 import json
 import math
+import warnings
 from pathlib import Path
 
 import pandas as pd
 
-from perftest.errors import PerftestError
+from perftest.errors import IndistinguishableWarning, PerftestError
 
-__all__ = ["results_table", "ranking_table", "what_if_table", "plan_text", "plan_markdown"]
+__all__ = [
+    "results_table",
+    "ranking_table",
+    "what_if_table",
+    "indistinguishable_table",
+    "plan_text",
+    "plan_markdown",
+]
 
 #: How many instruments the summary tables name per result.
 TOP = 5
@@ -117,6 +125,29 @@ def what_if_table(tp, *, best_only: bool = False) -> pd.DataFrame:
     return out.reset_index(drop=True)
 
 
+def indistinguishable_table(tp) -> pd.DataFrame:
+    """Sets of planned instruments no measurement test can tell apart.
+
+    Columns ``set, kind, tags, min_correlation, separating_z``; ``tags`` joined by
+    commas, ``separating_z`` the measurement-test statistic a gross error must reach
+    before the test can prefer one member ("never" for identical sets).
+    """
+    sets = getattr(tp, "indistinguishable", None)
+    if sets is None or sets.empty:
+        return pd.DataFrame(columns=["set", "kind", "tags", "min_correlation", "separating_z"])
+    return pd.DataFrame(
+        dict(
+            set=sets["set"].astype(int).to_numpy(),
+            kind=sets["kind"].to_numpy(),
+            tags=[", ".join(t) for t in sets["tags"]],
+            min_correlation=[f"{v:.6f}" for v in sets["min_correlation"]],
+            separating_z=[
+                "never" if not math.isfinite(z) else f"{z:.0f}" for z in sets["separating_z"]
+            ],
+        )
+    )
+
+
 def _g(v) -> str:
     from perftest.report.document import fmt
 
@@ -188,6 +219,19 @@ def plan_text(tp, title: str = "") -> str:
                 f"    {r.result:<26} {r.instrument:<10} U95 {_g(r.U95_with)} -> "
                 f"{_g(r.U95_with_upgraded)} {r.unit} ({r.change_with:+.1f} %)"
             )
+    sets = indistinguishable_table(tp)
+    if not sets.empty:
+        lines.append("")
+        lines.append(
+            "  instruments no measurement test can tell apart (a gross error is not located):"
+        )
+        for r in sets.itertuples(index=False):
+            when = (
+                "never separable"
+                if r.separating_z == "never"
+                else f"separable only above a statistic of {r.separating_z}"
+            )
+            lines.append(f"    set {r.set}, {r.kind} ({when}): {r.tags}")
     for note in tp.notes:
         lines.append(f"  note: {note}")
     lines.append("")
@@ -249,6 +293,20 @@ def plan_markdown(tp, title: str = "") -> str:
             "Rows that change a result's U95 by less than 0.05 % are left out.",
             "",
         ]
+    sets = indistinguishable_table(tp)
+    if not sets.empty:
+        doc += [
+            "## Instruments no test can tell apart",
+            "",
+            "Each set's instruments enter the balances in the same way (identical) or "
+            "almost (near): a gross error in one gives the others the same measurement-test "
+            "statistic, so it is detected but not located. separating_z is the statistic a "
+            "gross error must reach before the test can prefer one member. Add or move an "
+            "instrument so that it enters another balance, or mark the instruments to trust "
+            "(trusted = true).",
+            "",
+            _md_table(sets),
+        ]
     if tp.notes:
         doc += ["## Notes", ""] + [f"- {n}" for n in tp.notes] + [""]
     return "\n".join(doc)
@@ -274,14 +332,17 @@ def run_plan_command(args, out=None) -> int:
 
     check_outputs({"--json": args.json, "--markdown": args.markdown}, {"plant file": [path]})
     plant = load_plant(path)
-    tp = plan(
-        plant,
-        duration=args.duration,
-        interval=args.interval,
-        upgrade_factor=args.upgrade_factor,
-        what_if=not args.no_what_if,
-        runs=getattr(args, "runs", None),
-    )
+    with warnings.catch_warnings():
+        # the printed plan lists the sets itself (indistinguishable_table)
+        warnings.simplefilter("ignore", IndistinguishableWarning)
+        tp = plan(
+            plant,
+            duration=args.duration,
+            interval=args.interval,
+            upgrade_factor=args.upgrade_factor,
+            what_if=not args.no_what_if,
+            runs=getattr(args, "runs", None),
+        )
     write = (out or sys.stdout).write
     write(plan_text(tp, plant.name))
     for target, text in ((args.json, plan_json), (args.markdown, plan_markdown)):

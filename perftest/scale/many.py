@@ -27,6 +27,7 @@ Parquet files as they finish and reused by a rerun (:mod:`perftest.scale.store`)
 
 from __future__ import annotations
 
+import contextlib
 import copy
 import dataclasses
 import hashlib
@@ -42,7 +43,7 @@ from perftest.display.views import WindowTable
 from perftest.errors import InputError, PerftestError
 from perftest.run.core import Run
 from perftest.run.windows import sampling_interval
-from perftest.scale.store import Progress, WindowStore, fingerprint
+from perftest.scale.store import Progress, StoreLock, WindowStore, fingerprint
 from perftest.scale.windows import (
     _as_runs,
     _check_min_samples,
@@ -723,6 +724,8 @@ def reconcile_many(
         chunk is done (see :class:`perftest.scale.store.WindowStore`).  With
         ``resume`` a rerun skips the chunks already there whose inputs, plant file
         and options are unchanged, so an interrupted job goes on where it stopped.
+        The folder is locked for the job (:class:`perftest.scale.store.StoreLock`,
+        the lock of ``perftest monitor``): a second job on it raises.
     resume : bool, default True
         Reuse matching chunks of ``store``; False computes everything again.
     progress : bool, optional
@@ -763,6 +766,8 @@ def reconcile_many(
         ``chunk`` or ``store``.
     DataError
         A run file is missing or unreadable (names the file and line).
+    PerftestError
+        Another job holds the lock of ``store`` (names its process, host and start).
 
     Notes
     -----
@@ -835,69 +840,74 @@ def reconcile_many(
     read_kw = dict(read_options or {})
     sources = _sources(plant, runs, read_kw)
     chunks = _chunks(sources, every, min_samples, chunk_length)
-    wstore = None if store is None else WindowStore(store, resume=resume)
-    from perftest import __version__
+    # The store's folder is locked for the job, as `perftest monitor` locks it: a
+    # second job on the same store (another process, or another thread of this one)
+    # is refused with the holder's name instead of mixing its part files in.
+    lock = contextlib.nullcontext() if store is None else StoreLock(store, job="reconcile_many")
+    with lock:
+        wstore = None if store is None else WindowStore(store, resume=resume)
+        from perftest import __version__
 
-    job = fingerprint(
-        __version__,
-        getattr(plant, "text", None) or repr(plant),
-        dataclasses.asdict(dataclasses.replace(options, on_error="row")),
-        sorted((k, repr(v)) for k, v in read_kw.items()),
-        str(chunk_length),
-    )
-    meter = Progress(sum(len(c.windows) for c in chunks), enabled=progress)
-    frames: dict[int, pd.DataFrame] = {}
-    order = {id(c): i for i, c in enumerate(chunks)}
-    keys: dict[int, str] = {}
+        job = fingerprint(
+            __version__,
+            getattr(plant, "text", None) or repr(plant),
+            dataclasses.asdict(dataclasses.replace(options, on_error="row")),
+            sorted((k, repr(v)) for k, v in read_kw.items()),
+            str(chunk_length),
+        )
+        meter = Progress(sum(len(c.windows) for c in chunks), enabled=progress)
+        frames: dict[int, pd.DataFrame] = {}
+        order = {id(c): i for i, c in enumerate(chunks)}
+        keys: dict[int, str] = {}
 
-    def done(c: _Chunk, rows: list[dict]) -> None:
-        i = order[id(c)]
-        frame = _table(rows, options.results)
-        if wstore is not None:
-            wstore.write(c.run_number, c.begin, keys[i], frame)
-        frames[i] = frame
-        meter.add(len(rows), failed=sum(r["status"] == "failed" for r in rows))
-        if on_window is not None:
-            for row in rows:
-                on_window(row)
-
-    lean = engine == "dask"
-
-    def work():
-        for i, c in enumerate(chunks):
-            src = sources[c.run_number]
+        def done(c: _Chunk, rows: list[dict]) -> None:
+            i = order[id(c)]
+            frame = _table(rows, options.results)
             if wstore is not None:
-                keys[i] = _chunk_key(job, c, src)
-                if wstore.has(keys[i]):
-                    frames[i] = wstore.read(keys[i])
-                    meter.add(len(c.windows), reused=True)
-                    continue
-            yield c, _payload(c, src, lean)
+                wstore.write(c.run_number, c.begin, keys[i], frame)
+            frames[i] = frame
+            meter.add(len(rows), failed=sum(r["status"] == "failed" for r in rows))
+            if on_window is not None:
+                for row in rows:
+                    on_window(row)
 
-    if engine == "local":
-        for c, payload in work():
-            done(c, _chunk_rows(plant, c, payload, options))
-    else:
-        client = _connect(scheduler)
-        cluster = None
-        try:
-            resolved = client or _resolve_scheduler(dask, scheduler)
-            if resolved is _OWN_CLUSTER:
-                from distributed import Client
+        lean = engine == "dask"
 
-                cluster = local_cluster()
-                client = resolved = Client(cluster)
-            _run_dask(dask, resolved, plant, work(), options, done)
-        finally:
-            if client is not None:
-                client.close()
-            if cluster is not None:
-                cluster.close()
-    meter.close()
-    if wstore is not None:
-        wstore.prune()
-    ordered = [frames[i] for i in range(len(chunks))]
-    return WindowTable(_finish(ordered, [c.run_number for c in chunks], options.results))
+        def work():
+            for i, c in enumerate(chunks):
+                src = sources[c.run_number]
+                if wstore is not None:
+                    keys[i] = _chunk_key(job, c, src)
+                    if wstore.has(keys[i]):
+                        frames[i] = wstore.read(keys[i])
+                        meter.add(len(c.windows), reused=True)
+                        continue
+                yield c, _payload(c, src, lean)
+
+        if engine == "local":
+            for c, payload in work():
+                done(c, _chunk_rows(plant, c, payload, options))
+        else:
+            client = _connect(scheduler)
+            cluster = None
+            try:
+                resolved = client or _resolve_scheduler(dask, scheduler)
+                if resolved is _OWN_CLUSTER:
+                    from distributed import Client
+
+                    cluster = local_cluster()
+                    client = resolved = Client(cluster)
+                _run_dask(dask, resolved, plant, work(), options, done)
+            finally:
+                if client is not None:
+                    client.close()
+                if cluster is not None:
+                    cluster.close()
+        meter.close()
+        if wstore is not None:
+            wstore.prune()
+        ordered = [frames[i] for i in range(len(chunks))]
+        return WindowTable(_finish(ordered, [c.run_number for c in chunks], options.results))
 
 
 def _window_coverage(run) -> float:

@@ -8,9 +8,11 @@ writes into the output folder:
   they finish; a rerun with the same inputs and options resumes from them;
 * ``windows.csv``      the whole table (one row per window), SI units;
 * ``monitor.json``     a short summary: windows by status, global-test failures,
-  how often each tag was suspect;
-* ``trend.png``        efficiency with its U95 band, Carnot bound and suspect
-  instruments over time (:func:`perftest.report.trend.trend_figure`).
+  how often each tag was suspect, and the median, range and median U95 of the
+  plant kind's headline results (power: efficiency, heat rate, Carnot bound ...;
+  refrigeration: capacity, COP, Carnot COP ...);
+* ``trend.png``        those headline results with their U95 bands, and the suspect
+  instruments, over time (:func:`perftest.report.trend.trend_figure`).
 
 The results support, and do not replace, the applicable test code, local
 regulations and licensed engineers' judgement.
@@ -33,11 +35,31 @@ from perftest.scale.store import StoreLock
 __all__ = ["monitor", "summary", "add_parser", "run_command"]
 
 
-def summary(table: pd.DataFrame) -> dict:
-    """The ``monitor.json`` summary of a :func:`perftest.reconcile_many` table."""
+def summary(table: pd.DataFrame, kind: str | None = None) -> dict:
+    """The ``monitor.json`` summary of a :func:`perftest.reconcile_many` table.
+
+    Parameters
+    ----------
+    table : pandas.DataFrame
+    kind : str, optional
+        Plant kind (``[performance] kind``) whose headline results are summarised
+        (:func:`perftest.report.trend.trend_results`); default: those the table holds.
+
+    Returns
+    -------
+    dict
+        Window counts, global-test failures, suspect windows per tag, failure
+        reasons, and ``results``: per headline result over the windows of status
+        "ok", ``median``, ``min``, ``max`` of the value, ``median_U95`` (1.96 u,
+        the trend figure's band), ``windows`` (how many had a value) and ``unit``
+        (SI).
+    """
+    from perftest.evaluation.results import RESULT_UNITS
+    from perftest.report.trend import COVERAGE_FACTOR, suspect_texts, trend_results
+
     status = table["status"].astype(str)
     counts: dict = {}
-    for text in table["suspects"].fillna(""):
+    for text in suspect_texts(table):
         for tag in [s.strip() for s in str(text).split(",") if s.strip()]:
             counts[tag] = counts.get(tag, 0) + 1
     passed = table["passed"].astype("boolean")
@@ -58,15 +80,22 @@ def summary(table: pd.DataFrame) -> dict:
         "global_test_failed": int((passed == False).sum()),  # noqa: E712
         "suspect_windows_by_tag": dict(sorted(counts.items(), key=lambda kv: (-kv[1], kv[0]))),
     }
-    if "first_law_efficiency" in table.columns:
-        good = table[status == "ok"]["first_law_efficiency"].astype(float)
-        good = good[good.notna()]
-        out["first_law_efficiency"] = {
-            "median": None if good.empty else float(good.median()),
-            "min": None if good.empty else float(good.min()),
-            "max": None if good.empty else float(good.max()),
-            "unit": "1",
+    results = {}
+    good_rows = table[status == "ok"]
+    for name in trend_results(table, kind):
+        v = good_rows[name].astype(float)
+        u = good_rows[f"u_{name}"].astype(float)
+        keep = v.notna()
+        v, u = v[keep], u[keep]
+        results[name] = {
+            "median": None if v.empty else float(v.median()),
+            "min": None if v.empty else float(v.min()),
+            "max": None if v.empty else float(v.max()),
+            "median_U95": None if u.empty else float(COVERAGE_FACTOR * u.median()),
+            "windows": int(len(v)),
+            "unit": RESULT_UNITS.get(name.removeprefix("corrected_"), "1"),
         }
+    out["results"] = results
     failed = table[status == "failed"]
     out["failure_reasons"] = {
         str(k): int(v)
@@ -216,13 +245,18 @@ def _monitor_locked(plant_obj, data, out, targets, *, every, engine, scheduler, 
     parts = sorted(targets["windows"].glob("*.parquet"))
     written = {"windows": f"{targets['windows']} ({len(parts)} part file(s))"}
     written["csv"] = str(write_atomic(targets["csv"], table.to_csv(index=False)))
-    info = summary(table)
-    if figure and "first_law_efficiency" in table.columns:
+    from perftest.evaluation.plant_keys import performance_kind
+    from perftest.report.trend import trend_results
+
+    kind = performance_kind(plant_obj)
+    info = summary(table, kind)
+    info["kind"] = kind
+    if figure and trend_results(table, kind):
         from perftest.report.figures import figure_png
         from perftest.report.trend import trend_figure
 
         fig = trend_figure(table, title=f"{plant_obj.name}: results by window",
-                           tz=plant_obj.site.timezone or "UTC")  # fmt: skip
+                           tz=plant_obj.site.timezone or "UTC", kind=kind)  # fmt: skip
         written["figure"] = str(write_atomic(targets["figure"], figure_png(fig)))
     info["plant"] = plant_obj.name
     info["every"] = str(every)
@@ -350,6 +384,16 @@ def run_command(args) -> int:
     if sus:
         top = ", ".join(f"{t} ({c})" for t, c in list(sus.items())[:5])
         w(f"  suspect tags      {top}\n")
+    from perftest.report.tables import result_display
+
+    for name, r in info.get("results", {}).items():
+        if r["median"] is None:
+            continue
+        unit, scale, offset = result_display(name, r["unit"], r["median"])
+        shown = "" if unit == "1" else f" {unit}"
+        w(f"  {name:<22} median {r['median'] * scale + offset:.5g}{shown} over "
+          f"{r['windows']} ok window(s), range {r['min'] * scale + offset:.5g} to "
+          f"{r['max'] * scale + offset:.5g}\n")  # fmt: skip
     for path in info["written"].values():
         w(f"  wrote             {path}\n")
     if n["ok"] + n["unstable"] == 0 and n["total"] > 0:

@@ -69,6 +69,7 @@ class WindowStore:
             p.name
             for p in self.folder.iterdir()
             if not (p.name.startswith(_PREFIX) and p.suffix in (".parquet", ".tmp"))
+            and p.name != StoreLock.NAME  # the job's lock (reconcile_many holds it)
         ]
         if strangers:
             raise InputError(
@@ -166,6 +167,12 @@ class StoreLock:
         return self._fh is not None
 
     def acquire(self) -> StoreLock:
+        if self.folder.exists() and not self.folder.is_dir():
+            raise PerftestError(
+                f"{self.folder}: this is a file; {self.job} needs a folder here. Give a "
+                "new or an empty folder.",
+                file=self.folder,
+            )
         self.folder.mkdir(parents=True, exist_ok=True)
         fh = open(self.path, "a+b")  # noqa: SIM115 - kept open while the lock is held
         try:

@@ -56,6 +56,12 @@ def files(tmp_path):
     write_text(tmp_path / "mon" / "windows.parquet", "old.csv", RUN)
     (tmp_path / "o").mkdir()
     write_text(tmp_path / "o", "summary.json", RUN)
+    # a report folder whose figures/ holds an input under a figure's name, and one
+    # whose figures/ is a file
+    (tmp_path / "f" / "figures").mkdir(parents=True)
+    write_text(tmp_path / "f" / "figures", "flows.png", RUN)
+    (tmp_path / "g").mkdir()
+    write_text(tmp_path / "g", "figures", RUN)
     return out
 
 
@@ -250,6 +256,22 @@ USER_ERRORS = [
         r"the outputs --html and --out \(summary\.json\) are one file",
         id="html-on-the-out-folder-summary",
     ),  # fmt: skip
+    pytest.param(
+        ["report", "{plant}", "--data", "{tmp}/f/figures/flows.png", "--out", "{tmp}/f"],
+        r"flows\.png: the output --out \(figures/\*\.png\) is the input --data",
+        id="report-figure-is-an-input",
+    ),
+    pytest.param(
+        ["report", "{plant}", "--data", "{run}", "--markdown", "{tmp}/m/r.md", "--json",
+         "{tmp}/m/figures/budget.png"],
+        r"the outputs --json and --markdown \(figures/\*\.png\) are one file",
+        id="report-json-on-a-figure",
+    ),  # fmt: skip
+    pytest.param(
+        ["report", "{plant}", "--data", "{tmp}/g/figures", "--out", "{tmp}/g"],
+        r"figures: the output folder of --out \(figures/\*\.png\) is a file",
+        id="report-figures-folder-is-an-input-file",
+    ),
     pytest.param(
         ["plan", "{plant}", "--json", "{plant}"],
         r"plant\.toml: the output --json is the input plant file",

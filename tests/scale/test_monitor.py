@@ -74,12 +74,14 @@ def test_monitor_summary(demo_out, direct):
 
 
 def test_monitor_resumes(demo_out, capsys):
-    before = {p.name: p.stat().st_mtime_ns for p in (demo_out / "windows.parquet").iterdir()}
+    # the part files (the store's lock file, .perftest.lock, names each job that holds it)
+    before = {p.name: p.stat().st_mtime_ns for p in (demo_out / "windows.parquet").glob("part-*")}
     argv = ["monitor", str(DEMO / "plant.toml"), "--data", str(FILES[0]), "--data",
             str(FILES[1]), "--every", "30min", "--out", str(demo_out), "-q",
             "--no-figures"]  # fmt: skip
     assert main(argv) == 0
-    after = {p.name: p.stat().st_mtime_ns for p in (demo_out / "windows.parquet").iterdir()}
+    after = {p.name: p.stat().st_mtime_ns for p in (demo_out / "windows.parquet").glob("part-*")}
+    assert before
     assert after == before  # nothing recomputed, nothing rewritten
 
 
@@ -127,12 +129,20 @@ def test_monitor_as_a_subprocess(tmp_path):
 
 
 def test_trend_figure_artists(direct):
+    from perftest.evaluation.plant_keys import KEY_RESULTS
+
     table = direct.copy()
     table.loc[2, "passed"] = False  # one global-test failure to mark
     table.loc[5, ["first_law_efficiency", "u_first_law_efficiency"]] = np.nan  # no result
-    fig = trend_figure(table, title="demo")
-    ax, axc, axs = fig.axes
+    fig = trend_figure(table, title="demo", kind="power")
+    *panels, axs = fig.axes
+    # one panel per headline result of a power plant, in the order of KEY_RESULTS
+    assert len(panels) == len(KEY_RESULTS["power"])
+    ax = panels[KEY_RESULTS["power"].index("first_law_efficiency")]
+    axc = panels[KEY_RESULTS["power"].index("carnot_efficiency")]
     assert "[%]" in ax.get_ylabel() and "[%]" in axc.get_ylabel()
+    assert "first law efficiency" in ax.get_ylabel()
+    assert "heat rate [kJ/kWh]" in panels[KEY_RESULTS["power"].index("heat_rate")].get_ylabel()
     assert "mid-time" in axs.get_xlabel()
     labels = ax.get_legend_handles_labels()[1]
     assert "global test failed" in labels and any(lab.startswith("U95 band") for lab in labels)
@@ -149,4 +159,39 @@ def test_trend_figure_artists(direct):
 
 def test_trend_figure_needs_results(direct):
     with pytest.raises(perftest.InputError, match="lacks columns"):
-        trend_figure(direct.drop(columns=["carnot_efficiency"]))
+        trend_figure(direct.drop(columns=["carnot_efficiency"]), results=["carnot_efficiency"])
+    heads = [c for c in direct.columns if not c.startswith("u_")]
+    with pytest.raises(perftest.InputError, match="headline result"):
+        trend_figure(
+            direct[[c for c in heads if c in ("start", "end", "status", "passed", "suspects")]]
+        )
+
+
+def test_monitor_refused_while_a_python_job_holds_its_store(tmp_path, capsys):
+    # reconcile_many(store=OUT/windows.parquet) from Python, running in another process
+    import os
+
+    out = tmp_path / "o"
+    store = out / "windows.parquet"
+    code = (
+        "import sys, time; from perftest.scale.store import StoreLock; "
+        "lock = StoreLock(sys.argv[1], job='reconcile_many').acquire(); "
+        "print('held', flush=True); time.sleep(120)"
+    )
+    env = dict(os.environ, OPENBLAS_NUM_THREADS="1", PYTHONDONTWRITEBYTECODE="1")
+    holder = subprocess.Popen([sys.executable, "-c", code, str(store)], stdout=subprocess.PIPE,
+                              text=True, env=env)  # fmt: skip
+    try:
+        assert holder.stdout.readline().strip() == "held"
+        argv = ["monitor", str(DEMO / "plant.toml"), "--data", str(FILES[0]), "--data",
+                str(FILES[1]), "--every", "2h", "--out", str(out), "-q",
+                "--no-figures"]  # fmt: skip
+        assert main(argv) == 2
+    finally:
+        holder.kill()
+        holder.wait()
+    line = capsys.readouterr().err.strip()
+    assert line.startswith("perftest: error:") and "in use by reconcile_many" in line
+    assert f"process {holder.pid} on host" in line
+    assert not (out / "windows.csv").exists()
+    assert not list(store.glob("part-*.parquet"))

@@ -204,12 +204,13 @@ def test_rows_equal_an_independent_loop(plant, faulty_run):
     assert bool(table.loc[0, "passed"]) and not bool(table.loc[3, "passed"])
     assert "FT-C" in table.loc[3, "suspects"]
     # windows 1 and 2 fail: the row carries the error the direct call raises
+    # (window 2: the cold stream reads as steam, refused against its declared phase)
     for i, stage, error in ((1, "average", DataError), (2, "reconcile", PropertyRangeError)):
         with pytest.raises(error) as info:
             direct(plant, faulty_run, starts[i], starts[i] + EVERY)
         row = table.iloc[i]
         assert row["status"] == "failed"
-        assert row["reason"] == f"{stage}: {error.__name__}: {info.value}"
+        assert row["reason"] == f"{stage}: {type(info.value).__name__}: {info.value}"
         assert pd.isna(row["chi2"]) and pd.isna(row["passed"])
     # the trailing single sample: reported, not reconciled
     last = table.iloc[4]
@@ -257,7 +258,8 @@ def test_explicit_windows_and_several_runs(plant, run, faulty_run):
         direct(plant, faulty_run, start, end)
     # 10:32-10:42 lies inside the stretch where the cold stream reads as steam
     assert table.loc[3, "status"] == "failed"
-    assert "PropertyRangeError" in table.loc[3, "reason"]
+    # refused before the solve: the measured state contradicts the declared phase
+    assert "DeclaredPhaseError" in table.loc[3, "reason"]
     # a list of runs is labelled by position, the whole run with every=None
     whole = reconcile_many(plant, [run, run], every=None, results=False)
     assert list(whole["run"]) == [0, 1] and list(whole["n_samples"]) == [60, 60]
@@ -715,6 +717,79 @@ def test_interrupted_job_resumes_to_the_same_table(plant, faulty_run, tmp_path):
     redo = []
     reconcile_many(plant, run2, store=store, on_window=redo.append, alpha=0.01, **kw)
     assert [r["window"] for r in redo] == [4]
+
+
+def _hold_store_lock(folder, job):
+    """A separate process holding the folder's lock, as a running job does."""
+    import os
+    import subprocess
+
+    code = (
+        "import sys, time; from perftest.scale.store import StoreLock; "
+        "lock = StoreLock(sys.argv[1], job=sys.argv[2]).acquire(); "
+        "print('held', flush=True); time.sleep(120)"
+    )
+    env = dict(os.environ, OPENBLAS_NUM_THREADS="1", PYTHONDONTWRITEBYTECODE="1")
+    proc = subprocess.Popen([sys.executable, "-c", code, str(folder), job],
+                            stdout=subprocess.PIPE, text=True, env=env)  # fmt: skip
+    assert proc.stdout.readline().strip() == "held"
+    return proc
+
+
+def test_store_locked_by_another_process_is_refused(plant, run, tmp_path):
+    store = tmp_path / "windows.parquet"
+    holder = _hold_store_lock(store, "perftest monitor")
+    try:
+        with pytest.raises(PerftestError, match="in use by perftest monitor") as info:
+            reconcile_many(plant, run, store=store, results=False)
+    finally:
+        holder.kill()
+        holder.wait()
+    assert f"process {holder.pid} on host" in str(info.value)
+    assert not list(store.glob("part-*.parquet"))  # nothing written beside the holder
+    # the operating system drops the lock with its process: the next job runs
+    table = reconcile_many(plant, run, store=store, results=False)
+    assert len(list(store.glob("part-*.parquet"))) >= 1 and len(table) == 4
+
+
+def test_two_python_jobs_on_one_store(plant, run, tmp_path):
+    # a second job while the first is inside its loop (another thread of the same
+    # process: its own open file, so the operating-system lock refuses it too)
+    import threading
+
+    store = tmp_path / "windows.parquet"
+    inside, go_on = threading.Event(), threading.Event()
+    errors = []
+
+    def pause(row):
+        inside.set()
+        go_on.wait(60)
+
+    def first():
+        try:
+            reconcile_many(plant, run, store=store, results=False, on_window=pause)
+        except BaseException as exc:  # noqa: BLE001 - reported to the test below
+            errors.append(exc)
+
+    t = threading.Thread(target=first)
+    t.start()
+    try:
+        assert inside.wait(60)
+        with pytest.raises(PerftestError, match="in use by reconcile_many"):
+            reconcile_many(plant, run, store=store, results=False)
+    finally:
+        go_on.set()
+        t.join(120)
+    assert not errors
+    assert sorted(pd.read_parquet(store)["window"]) == [0, 1, 2, 3]
+
+
+def test_store_that_is_a_file_is_refused(plant, run, tmp_path):
+    path = tmp_path / "windows.parquet"
+    path.write_text("not a folder")
+    with pytest.raises(PerftestError, match="this is a file"):
+        reconcile_many(plant, run, store=path, results=False)
+    assert path.read_text() == "not a folder"
 
 
 def test_store_refuses_a_foreign_folder(plant, run, tmp_path):
