@@ -153,9 +153,7 @@ def _without_package_reexports(graph):
     trimmed = {}
     for module, targets in graph.items():
         is_package = MODULES[module].name == "__init__.py"
-        trimmed[module] = {
-            t for t in targets if not (is_package and t.startswith(module + "."))
-        }
+        trimmed[module] = {t for t in targets if not (is_package and t.startswith(module + "."))}
     return trimmed
 
 

@@ -262,8 +262,16 @@ USER_ERRORS = [
         id="report-figure-is-an-input",
     ),
     pytest.param(
-        ["report", "{plant}", "--data", "{run}", "--markdown", "{tmp}/m/r.md", "--json",
-         "{tmp}/m/figures/budget.png"],
+        [
+            "report",
+            "{plant}",
+            "--data",
+            "{run}",
+            "--markdown",
+            "{tmp}/m/r.md",
+            "--json",
+            "{tmp}/m/figures/budget.png",
+        ],
         r"the outputs --json and --markdown \(figures/\*\.png\) are one file",
         id="report-json-on-a-figure",
     ),  # fmt: skip
@@ -377,8 +385,19 @@ USER_ERRORS = [
         id="one-run",
     ),  # fmt: skip
     pytest.param(
-        ["report", "{plant}", "--data", "{run}", "--run", "2031-05-04 10:00", "2031-05-04 10:02",
-         "--point", "a", "2031-05-04 10:00", "2031-05-04 10:02"],
+        [
+            "report",
+            "{plant}",
+            "--data",
+            "{run}",
+            "--run",
+            "2031-05-04 10:00",
+            "2031-05-04 10:02",
+            "--point",
+            "a",
+            "2031-05-04 10:00",
+            "2031-05-04 10:02",
+        ],
         r"--run and --point cannot be combined",
         id="runs-and-points",
     ),  # fmt: skip
@@ -388,8 +407,18 @@ USER_ERRORS = [
         id="point-without-end",
     ),  # fmt: skip
     pytest.param(
-        ["report", "{plant}", "--data", "{run}", "--point", "a", "2031-05-04 10:00",
-         "2031-05-04 10:02", "--window", "1h"],
+        [
+            "report",
+            "{plant}",
+            "--data",
+            "{run}",
+            "--point",
+            "a",
+            "2031-05-04 10:00",
+            "2031-05-04 10:02",
+            "--window",
+            "1h",
+        ],
         r"--point states the windows; it cannot be combined with --start, --end or --window",
         id="point-with-window",
     ),  # fmt: skip
