@@ -19,7 +19,9 @@ them to the water/steam side:
   then equal to the heat-loss efficiency at the reconciled values;
 * ``combustion:air`` (with ``combustion_air_flow``) — the metered combustion air
   equals the air the flue-gas analysis implies,
-  :math:`\\dot m_a - \\dot m_f k\\,(A + W A)(O_2, \\ldots) = 0` (humid air per kg fuel);
+  :math:`\\dot m_a - \\dot m_f k\\, A(O_2, \\ldots) = 0` with :math:`A` the dry air per
+  kg of fuel (the tag is the dry-air flow: the metered flow less its water, as a DCS
+  computes it from the air's humidity);
 * ``combustion:co2`` (with both ``flue_gas_o2`` and ``flue_gas_co2``) — the two
   analysers agree: :math:`x_{CO_2} - x_{CO_2}(O_2, \\ldots) = 0`.
 
@@ -159,11 +161,11 @@ class Combustion:
         )
 
     def _features(self, z: Mapping) -> np.ndarray:
-        """(indirect efficiency, humid air per kg fuel, predicted CO2) at ``z``."""
+        """(indirect efficiency, dry air per kg fuel, predicted CO2) at ``z``."""
         bl = self.losses(z)
         fg = bl.flue_gas
         co2 = (fg.dry if self.flue_gas_basis == "dry" else fg.wet)["CO2"]
-        return np.array([bl.efficiency, fg.dry_air + fg.air_moisture, co2])
+        return np.array([bl.efficiency, fg.dry_air, co2])
 
     @property
     def inputs(self) -> tuple:

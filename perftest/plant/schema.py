@@ -396,7 +396,7 @@ PERFORMANCE = Table(
             _TAG_OR_VALUE, _VALUE_UNIT, only=_FLUE),
         Key("air_relative_humidity", "combustion-air relative humidity", _TAG_OR_VALUE,
             _VALUE_UNIT, only=_FLUE, default="dry air (noted)"),
-        Key("combustion_air_flow", "mass flow of the combustion air as metered (humid); "
+        Key("combustion_air_flow", "mass flow of the dry combustion air (metered flow less its water); "
             "a second check of the fuel meter and the O2 analyser", _TAG_OR_VALUE, _VALUE_UNIT,
             only=_FLUE),
         Key("radiation_loss", "surface (radiation and convection) loss", _LOSS, _LOSS_FIELDS,

@@ -74,7 +74,7 @@ def truth() -> dict:
     )
     m_fuel = q / (lhv * bl.efficiency)
     fg = flue_gas(COMPOSITION, bl.excess_air, air_humidity_ratio=W, carbon_monoxide=CO_DRY)
-    m_air = m_fuel * (fg.dry_air + fg.air_moisture)
+    m_air = m_fuel * fg.dry_air
     return dict(
         lhv=lhv,
         h_fw=h_fw,
@@ -120,7 +120,7 @@ def main() -> None:
                    (0.5, "absolute"), 0.1, T_AIR - 273.15),
         "MT-401": ("Combustion-air relative humidity at the fan inlet", "%",
                    (3.0, "absolute"), 0.5, RH_AIR * 100.0),
-        "FT-401": ("Combustion-air flow (fan inlet airfoil)", "kg/s",
+        "FT-401": ("Combustion-air flow, dry air (fan inlet airfoil, humidity-corrected in the DCS)", "kg/s",
                    (3.0, "percent_of_reading"), 0.03, t["air_flow"]),
     }
     del M_FW_T
