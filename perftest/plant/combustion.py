@@ -42,13 +42,14 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field, replace
+from functools import lru_cache
 
 import numpy as np
 
 from perftest.errors import PerftestError
 from perftest.plant.spec import Source, _read_source
 
-__all__ = ["Combustion", "read_combustion", "FLUE_KEYS", "PREFIX"]
+__all__ = ["Combustion", "read_combustion", "humidity_ratio", "FLUE_KEYS", "PREFIX"]
 
 #: Prefix of the firing-side model variables (``combustion.fuel_flow`` ...).
 PREFIX = "combustion"
@@ -105,17 +106,19 @@ class Combustion:
     flue_gas_basis : {"dry", "wet"}
     given : dict
         Fractional losses ``radiation``, ``other`` [-].
-    absolute : float [W]
-        Losses stated as heat flows (summed).
+    absolute : dict
+        Losses ``radiation``, ``other`` stated as heat flows [W].
     loss_u : dict
-        Standard uncertainty of each given loss, as a fraction of the heat input [-]
-        (absolute losses are converted at evaluation).
+        Standard uncertainty of each given loss: ``<name>`` as a fraction of the heat
+        input [-], ``<name>_watts`` [W] for a loss stated as a heat flow.
     pressure : float [Pa]
         Atmospheric pressure (air humidity and dew point).
     sources : dict
         Model variable (without prefix) -> Source.
     useful_heat : tuple of str
         Model variables summed as the heat taken up by water and steam.
+    useful_refs : tuple of str
+        The same as written in the plant file (tags or model variables).
     """
 
     fuel: Mapping
@@ -124,22 +127,22 @@ class Combustion:
     flow_factor: float
     flue_gas_basis: str
     given: dict
-    absolute: float
+    absolute: dict
     loss_u: dict
     pressure: float
     sources: dict
     useful_heat: tuple
+    useful_refs: tuple = ()
     notes: tuple = field(default=())
 
     # ------------------------------------------------------------ physics
     def losses(self, z: Mapping):
         """:class:`~perftest.thermo.heat_loss.BoilerLosses` at the firing-side values ``z``."""
-        from perftest.thermo.combustion import air_humidity_ratio
         from perftest.thermo.heat_loss import boiler_losses
 
         Ta = float(z["air_temperature"])
         rh = float(z.get("air_relative_humidity", 0.0))
-        W = float(air_humidity_ratio(Ta, self.pressure, rh)) if rh > 0 else 0.0
+        W = humidity_ratio(Ta, self.pressure, rh)
         analysis = (
             {"oxygen": float(z["oxygen"])}
             if "oxygen" in z
@@ -178,6 +181,47 @@ class Combustion:
     def with_parameters(self, **changes) -> Combustion:
         """A copy with other parameters (``heating_value``, ``given``, ``absolute``)."""
         return replace(self, **changes)
+
+
+# Anchor grid of the humidity ratio: CoolProp's real-moist-air value at the nearest
+# (0.5 K, 5 %RH) node, carried to the point by the ideal-mixture ratio (see
+# humidity_ratio).
+_T_NODE, _RH_NODE = 0.5, 0.05
+
+
+@lru_cache(maxsize=256)
+def _anchor(T: float, p: float, rh: float) -> float:
+    from perftest.thermo.combustion import air_humidity_ratio
+
+    return float(air_humidity_ratio(T, p, rh))
+
+
+def _ideal(T: float, p: float, rh: float) -> float:
+    from perftest.thermo.if97 import if97_psat
+
+    pw = rh * float(if97_psat(T))
+    return pw / (p - pw)
+
+
+def humidity_ratio(temperature: float, pressure: float, relative_humidity: float) -> float:
+    """Humidity ratio of the combustion air [kg/kg], fast enough for every iterate.
+
+    CoolProp's ``HAPropsSI`` (through
+    :func:`perftest.thermo.combustion.air_humidity_ratio`) takes some 50 ms a call, too
+    slow for the reconciliation's finite differences and a Monte Carlo.  It is
+    evaluated at the nearest node of a grid (0.5 K, 5 %RH) and carried to the point by
+    the ratio of the ideal-mixture values
+    :math:`W \propto \varphi p_s(T) / (p - \varphi p_s(T))` (IAPWS-IF97 saturation
+    pressure); what the ratio leaves out (the enhancement factor's change over half a
+    kelvin) is of order 1e-5 of W.
+    """
+    if not relative_humidity > 0.0:
+        return 0.0
+    T_a = round(temperature / _T_NODE) * _T_NODE
+    rh_a = min(max(round(relative_humidity / _RH_NODE) * _RH_NODE, _RH_NODE), 1.0)
+    return _anchor(T_a, pressure, rh_a) * (
+        _ideal(temperature, pressure, relative_humidity) / _ideal(T_a, pressure, rh_a)
+    )
 
 
 # ------------------------------------------------------------ reading the plant file
@@ -404,16 +448,15 @@ def read_combustion(plant, spec, index: dict, tag_ids: list):
                 "gives the water and steam: a boiler unit in the model or 'cycle_heat'.",
                 "performance",
             )
-    given, u_given, absolute, u_abs = {}, {}, 0.0, 0.0
+    given, u_given, absolute = {}, {}, {}
     for key, name in (("radiation_loss", "radiation"), ("other_losses", "other")):
-        if key in table:
-            f, w, uf, uw = _loss(plant, table[key], key)
-            given[name], u_given[name] = f, uf
-            absolute += w
-            u_abs = math.hypot(u_abs, uw)
-        else:
-            given[name], u_given[name] = 0.0, 0.0
-    u_given["absolute_watts"] = u_abs
+        f, w, uf, uw = _loss(plant, table[key], key) if key in table else (0.0,) * 4
+        given[name], absolute[name], u_given[name], u_given[f"{name}_watts"] = f, w, uf, uw
+    if kind == "boiler":
+        refs = table["useful_heat"]
+    else:
+        refs = table.get("cycle_heat", list(useful))
+    refs = (refs,) if isinstance(refs, str) else tuple(refs)
     comb = Combustion(
         fuel=dict(fuel["composition"]),
         heating_value=hv,
@@ -426,6 +469,7 @@ def read_combustion(plant, spec, index: dict, tag_ids: list):
         pressure=float(plant.site.atmospheric_pressure or 101325.0),
         sources=sources,
         useful_heat=useful,
+        useful_refs=refs,
         notes=tuple(notes),
     )
     return comb, new
@@ -462,7 +506,7 @@ def evaluate_rows(comb: Combustion, rows: dict, index: dict, v: np.ndarray, jac:
     H = comb.heating_value
     q_slots = [index[n] for n in comb.useful_heat]
     q = float(sum(v[s] for s in q_slots))
-    res = {rows["energy"]: kf * H * eta - comb.absolute - q}
+    res = {rows["energy"]: kf * H * eta - sum(comb.absolute.values()) - q}
     if "air" in rows:
         res[rows["air"]] = float(v[slot["air_flow"]]) - kf * air
     if "co2" in rows:
@@ -508,7 +552,9 @@ def guess(comb: Combustion, index: dict, v: np.ndarray) -> None:
     eta, air, co2 = comb._features(z)
     q = float(sum(v[index[n]] for n in comb.useful_heat))
     if not math.isfinite(v[slot["fuel_flow"]]) and math.isfinite(q):
-        v[slot["fuel_flow"]] = (q + comb.absolute) / (comb.heating_value * eta) / comb.flow_factor
+        v[slot["fuel_flow"]] = (
+            (q + sum(comb.absolute.values())) / (comb.heating_value * eta) / comb.flow_factor
+        )
     if "air_flow" in slot and not math.isfinite(v[slot["air_flow"]]):
         v[slot["air_flow"]] = comb.flow_factor * v[slot["fuel_flow"]] * air
     if "carbon_dioxide" in slot and not math.isfinite(v[slot["carbon_dioxide"]]):
