@@ -125,12 +125,16 @@ def main() -> None:
     }
     del M_FW_T
     cols = {}
-    for tag, (_, _, _, sd, true) in tags.items():
-        # white noise plus a slow first-order wander of a third of its size
+    for tag, (_, _, (u95, kind), sd, true) in tags.items():
+        # each instrument reads off by a fixed error of about half its stated
+        # standard uncertainty (drawn once: the systematic part of a real test)
+        u_sys = (u95 / 100.0 * true if kind == "percent_of_reading" else u95) / 1.96
+        true = true + rng.normal(0.0, 0.5 * u_sys)
+        # white noise plus a slow first-order wander of a sixth of its size
         e = rng.normal(0.0, sd, n)
         w = np.zeros(n)
-        a = math.exp(-STEP_S / 300.0)
-        kick = rng.normal(0.0, sd / 3.0 * math.sqrt(1 - a * a), n)
+        a = math.exp(-STEP_S / 120.0)
+        kick = rng.normal(0.0, sd / 6.0 * math.sqrt(1 - a * a), n)
         for i in range(1, n):
             w[i] = a * w[i - 1] + kick[i]
         cols[tag] = true + e + w
