@@ -211,7 +211,7 @@ def humidity_ratio(temperature: float, pressure: float, relative_humidity: float
     slow for the reconciliation's finite differences and a Monte Carlo.  It is
     evaluated at the nearest node of a grid (0.5 K, 5 %RH) and carried to the point by
     the ratio of the ideal-mixture values
-    :math:`W \propto \varphi p_s(T) / (p - \varphi p_s(T))` (IAPWS-IF97 saturation
+    :math:`W \\propto \\varphi p_s(T) / (p - \\varphi p_s(T))` (IAPWS-IF97 saturation
     pressure); what the ratio leaves out (the enhancement factor's change over half a
     kelvin) is of order 1e-5 of W.
     """

@@ -88,7 +88,9 @@ def truth() -> dict:
     )
 
 
-def main() -> None:
+def main(out: Path = HERE) -> None:
+    """Write the scenario files into ``out`` (default: this folder)."""
+    out = Path(out)
     t = truth()
     rng = np.random.default_rng(SEED)
     n = int(HOURS * 3600 / STEP_S) + 1
@@ -142,8 +144,8 @@ def main() -> None:
     for i in range(n):
         stamp = str(times[i]).replace("T", " ")
         lines.append(stamp + "," + ",".join(f"{cols[tag][i]:.5g}" for tag in tags))
-    (HERE / "dcs.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
-    (HERE / "plant.toml").write_text(plant_toml(tags), encoding="utf-8")
+    (out / "dcs.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
+    (out / "plant.toml").write_text(plant_toml(tags), encoding="utf-8")
     bl = t["losses"]
     results = {
         "useful_heat": t["useful_heat"],
@@ -160,7 +162,7 @@ def main() -> None:
         "radiation_loss": bl.radiation,
         "other_losses": bl.other,
     }
-    out = {
+    doc = {
         "description": "True values of the invented Quellmoor boiler B-1 test (SI units).",
         "seed": SEED,
         "basis": "lhv",
@@ -184,7 +186,7 @@ def main() -> None:
         },
         "results": results,
     }
-    (HERE / "truth.json").write_text(json.dumps(out, indent=2) + "\n", encoding="utf-8")
+    (out / "truth.json").write_text(json.dumps(doc, indent=2) + "\n", encoding="utf-8")
 
 
 def plant_toml(tags: dict) -> str:
