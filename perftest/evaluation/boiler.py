@@ -171,6 +171,8 @@ def boiler_results(plant, rec, hv_u_rel: float, *, level=0.95, monte_carlo=True,
     comb = getattr(rec.model, "combustion", None)
     if comb is None:
         return None
+    if not hasattr(rec, "measurements"):
+        return _as_measured(rec, comb, hv_u_rel, level)
     notes = list(comb.notes)
     unc_rec = _uncoupled(plant, rec)
     fuel_tag = comb.sources["fuel_flow"].tag
@@ -203,14 +205,16 @@ def boiler_results(plant, rec, hv_u_rel: float, *, level=0.95, monte_carlo=True,
         add(f"measured:{n}", unc_rec.value(n), "measured")
     cov_sep = np.asarray(unc_rec.covariance(sep), dtype=float)
     # reconciled side
-    coupled = [*comb.useful_heat, "combustion.fuel_flow"]
+    fuel_name = fuel_tag or "combustion.fuel_flow"  # the reconciled fuel flow
+    coupled = [*comb.useful_heat, fuel_name]
     for n in coupled:
-        add(f"reconciled:{n}", rec.value(n), "reconciled")
+        add(n, rec.value(n), "reconciled")
     cov_rec = np.asarray(rec.covariance(coupled), dtype=float)
     # parameters: heating value, given losses
     H = comb.heating_value
-    add("fuel.heating_value", H, "heating_value")
-    params = [("fuel.heating_value", H * hv_u_rel)]
+    hv_name = f"fuel.{comb.basis}"
+    add(hv_name, H, "heating_value")
+    params = [(hv_name, H * hv_u_rel)]
     for name in ("radiation", "other"):
         if comb.given[name] or comb.loss_u[name]:
             add(f"given:{name}", comb.given[name], "given loss")
@@ -238,7 +242,7 @@ def boiler_results(plant, rec, hv_u_rel: float, *, level=0.95, monte_carlo=True,
     eta_rec0 = _reconciled_efficiency(rec, comb)
     sens = {}
     for pname, _ in params:
-        if pname == "fuel.heating_value":
+        if pname == hv_name:
             step = _H_STEP * H
             moved = comb.with_parameters(heating_value=H + step)
         else:
@@ -260,7 +264,7 @@ def boiler_results(plant, rec, hv_u_rel: float, *, level=0.95, monte_carlo=True,
                 f"The sensitivity of the reconciled boiler efficiency to {pname} could not "
                 f"be found (the reconciliation with it moved failed: {exc})."
             ) from None
-        if pname == "fuel.heating_value":
+        if pname == hv_name:
             # the whole change of the reconciled efficiency: the formula of the
             # propagation below holds H at its estimate
             sens[pname] = (eta_2 - eta_rec0) / step
@@ -286,7 +290,7 @@ def boiler_results(plant, rec, hv_u_rel: float, *, level=0.95, monte_carlo=True,
             z[var] = v[pos[f"measured:{flue_refs[var]}"]] if var in flue_refs else (
                 comb.sources[var].value
             )
-        hv = v[pos["fuel.heating_value"]]
+        hv = v[pos[hv_name]]
         q_sep = sum(v[pos[f"measured:{r}"]] for r in comb.useful_refs)
         m_sep = v[pos[f"measured:{fuel_ref}"]]
         heat_in = comb.flow_factor * m_sep * hv
@@ -320,8 +324,8 @@ def boiler_results(plant, rec, hv_u_rel: float, *, level=0.95, monte_carlo=True,
         rad = given["radiation"] + watts["radiation"] / heat_in
         oth = given["other"] + watts["other"] / heat_in
         eta_ind = bl.efficiency - rad - oth
-        q_rec = sum(v[pos[f"reconciled:{n}"]] for n in comb.useful_heat)
-        m_rec = v[pos["reconciled:combustion.fuel_flow"]]
+        q_rec = sum(v[pos[n]] for n in comb.useful_heat)
+        m_rec = v[pos[fuel_name]]
         eta_rec = q_rec / (comb.flow_factor * m_rec * H)
         for pname, _ in params:
             eta_rec = eta_rec + sens[pname] * (v[pos[pname]] - x[pos[pname]])
@@ -399,3 +403,42 @@ def boiler_results(plant, rec, hv_u_rel: float, *, level=0.95, monte_carlo=True,
     )
     cov_out = pd.DataFrame(prop.cov, index=outputs, columns=outputs)
     return BoilerBlock(results, budgets, mc_frame, cov_out, inputs, tuple(notes))
+
+
+def _as_measured(view, comb, hv_u_rel: float, level: float) -> BoilerBlock:
+    """The boiler efficiency without reconciliation (a planning view: ``value`` and
+    ``covariance`` of the plain calculation): the input-output efficiency."""
+    from perftest.evaluation import uncertainty as unc
+
+    # the fuel meter's tag: read as measured by the planning view
+    names = [*comb.useful_heat, comb.sources["fuel_flow"].tag or "combustion.fuel_flow"]
+    x = [view.value(n) for n in names]
+    cov = np.zeros((len(names) + 1, len(names) + 1))
+    cov[:-1, :-1] = np.asarray(view.covariance(names), dtype=float)
+    H = comb.heating_value
+    cov[-1, -1] = (H * hv_u_rel) ** 2
+    names.append(f"fuel.{comb.basis}")
+    x = np.asarray([*x, H], dtype=float)
+    k = len(comb.useful_heat)
+
+    def model(v):
+        return np.array([sum(v[:k]) / (comb.flow_factor * v[k] * v[k + 1])])
+
+    prop = unc.propagate(model, x, cov, names=names, output_names=["boiler_efficiency"],
+                         level=level)  # fmt: skip
+    results = pd.DataFrame(
+        {"value": prop.value, "u": prop.u, "U95": prop.U, "unit": ["1"], "k": prop.k,
+         "dof": prop.dof, "description": [BOILER_DESCRIPTIONS["boiler_efficiency"]],
+         "basis": [comb.basis]},
+        index=pd.Index(["boiler_efficiency"], name="name"),
+    )  # fmt: skip
+    b = prop.budget_for("boiler_efficiency")[
+        ["estimate", "u", "sensitivity", "u_contribution", "share"]
+    ]
+    inputs = pd.DataFrame(
+        {"value": x, "u": np.sqrt(np.diag(cov)),
+         "role": ["reconciled"] * (len(names) - 1) + ["heating_value"]},
+        index=pd.Index(names, name="input"),
+    )  # fmt: skip
+    cov_out = pd.DataFrame(prop.cov, index=["boiler_efficiency"], columns=["boiler_efficiency"])
+    return BoilerBlock(results, {"boiler_efficiency": b}, None, cov_out, inputs, ())

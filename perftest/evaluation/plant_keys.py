@@ -70,13 +70,7 @@ KEY_RESULTS = {
         "second_law_efficiency",
     ),
     "heat_pump": ("heating_capacity", "power_input", "cop", "carnot_cop", "second_law_efficiency"),
-    "boiler": (
-        "useful_heat",
-        "heat_input",
-        "boiler_efficiency_direct",
-        "boiler_efficiency_indirect",
-        "boiler_efficiency",
-    ),
+    "boiler": ("useful_heat", "heat_input", "boiler_efficiency"),
 }
 
 # Keys whose value names streams (not variables), and keys that may be lists.

@@ -542,7 +542,13 @@ def evaluate(
         index=pd.Index(names, name="input"),
     )
     if block is not None:
-        inputs = pd.concat([inputs, block.inputs])
+        # the boiler inputs that are reconciled variables or the heating value (the
+        # separate methods' measured inputs stay in the boiler budgets only)
+        extra = block.inputs[
+            block.inputs["role"].isin(("reconciled", "heating_value"))
+            & ~block.inputs.index.isin(inputs.index)
+        ]
+        inputs = pd.concat([inputs, extra])
     return Performance(
         results=results,
         budgets=budget_tables,

@@ -87,7 +87,7 @@ def test_every_boiler_result_has_value_uncertainty_basis_and_budget(perf):
         # shares of a budget add up to one (their definition)
         assert b["share"].sum() == pytest.approx(1.0, abs=1e-9)
     # the heating value and the radiation loss are inputs of the reconciled budget
-    assert {"fuel.heating_value", "given:radiation"} <= set(perf.budgets["boiler_efficiency"].index)
+    assert {"fuel.lhv", "given:radiation"} <= set(perf.budgets["boiler_efficiency"].index)
 
 
 def test_direct_efficiency_against_a_hand_calculation(plant, measurements, perf):
