@@ -125,3 +125,21 @@ def test_demo_measurements_need_no_instrument_dropped():
     plant, m = demo.demo_measurements("quellmoor")
     rec = perftest.reconcile(plant, m, eliminate=True)
     assert rec.eliminated == () and rec.global_test["passed"]
+
+
+def _doc_boiler_example() -> str:
+    text = (Path(__file__).resolve().parents[1] / "docs" / "plant-file.md").read_text("utf-8")
+    section = text.split("### The firing side of a boiler", 1)[1]
+    return section.split("```toml\n", 1)[1].split("```", 1)[0]
+
+
+def test_docs_boiler_example_loads_with_its_three_combustion_rows(tmp_path):
+    from perftest.plant.equations import build_model
+
+    path = tmp_path / "boiler.toml"
+    path.write_text(_doc_boiler_example(), encoding="utf-8")
+    plant = perftest.load_plant(path)
+    model = build_model(plant)
+    rows = {r.name for r in model.rows if r.owner == "combustion"}
+    assert rows == {"combustion:energy", "combustion:air", "combustion:co2"}
+    assert {"FT-F", "AT-O2", "AT-CO2", "TT-G", "FT-A"} <= set(model.spec.tag_ids)
