@@ -253,3 +253,45 @@ def test_bad_firing_side_entries_are_refused(tmp_path, measurements, old, new, m
     with pytest.raises(PlantFileError, match=match):
         plant = perftest.load_plant(path)
         perftest.reconcile(plant, measurements)
+
+
+def test_a_power_plant_with_flue_gas_keys_reports_the_boiler_results(tmp_path):
+    import shutil
+
+    from perftest import demo
+
+    src = FOLDER.parent / "brackenfold"
+    for f in ("plant.toml", *demo.get_scenario("brackenfold").files):
+        shutil.copy(src / f, tmp_path / f)
+    text = (tmp_path / "plant.toml").read_text(encoding="utf-8")
+    old = 'sink_temperature = "cw_in.temperature"\n'
+    assert old in text
+    # a flue-gas analysis stated as fixed values (a spot measurement); 195 degC puts
+    # the heat-loss efficiency near the input-output one of the invented unit
+    text = text.replace(old, old + '\n'.join([
+        'flue_gas_o2 = { value = 3.0, unit = "%" }',
+        'flue_gas_temperature = { value = 195, unit = "degC" }',
+        'air_temperature = { value = 15.0, unit = "degC" }',
+        "radiation_loss = 0.3",
+        "",
+    ]))  # fmt: skip
+    (tmp_path / "plant.toml").write_text(text, encoding="utf-8")
+    plant = perftest.load_plant(tmp_path / "plant.toml")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        run = perftest.read_run([tmp_path / f for f in demo.get_scenario("brackenfold").files],
+                                plant)  # fmt: skip
+        rec = perftest.reconcile(plant, run.average())
+        perf = perftest.evaluate(plant, rec, monte_carlo=False)
+    assert rec.global_test["passed"]
+    for n in (*EFFICIENCIES, "first_law_efficiency", "dry_flue_gas_loss"):
+        assert n in perf.results.index and perf.uncertainty(n) > 0, n
+    # the model's boiler heat is the useful heat: the reconciled efficiency is the
+    # reconciled boiler heat over the reconciled fuel heat input (1e-9: round-off)
+    comb = rec.model.combustion
+    assert comb.useful_heat == ("boiler.heat",)
+    eta = rec.value("boiler.heat") / (rec.value("FT-201") * comb.heating_value)
+    assert perf.value("boiler_efficiency") == pytest.approx(eta, rel=1e-9)
+    d, i = perf.value(EFFICIENCIES[0]), perf.value(EFFICIENCIES[1])
+    u = math.hypot(perf.uncertainty(EFFICIENCIES[0]), perf.uncertainty(EFFICIENCIES[1]))
+    assert abs(d - i) <= 2.0 * u  # k = 2, as above
