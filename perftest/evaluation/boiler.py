@@ -287,8 +287,10 @@ def boiler_results(plant, rec, hv_u_rel: float, *, level=0.95, monte_carlo=True,
     def model(v):
         z = {}
         for var in flue:
-            z[var] = v[pos[f"measured:{flue_refs[var]}"]] if var in flue_refs else (
-                comb.sources[var].value
+            z[var] = (
+                v[pos[f"measured:{flue_refs[var]}"]]
+                if var in flue_refs
+                else (comb.sources[var].value)
             )
         hv = v[pos[hv_name]]
         q_sep = sum(v[pos[f"measured:{r}"]] for r in comb.useful_refs)
@@ -356,7 +358,8 @@ def boiler_results(plant, rec, hv_u_rel: float, *, level=0.95, monte_carlo=True,
             "k": prop.k,
             "dof": prop.dof,
             "description": [
-                BOILER_DESCRIPTIONS[o] + (f" ({basis.upper()})" if o in HEATING_VALUE_RESULTS else "")
+                BOILER_DESCRIPTIONS[o]
+                + (f" ({basis.upper()})" if o in HEATING_VALUE_RESULTS else "")
                 for o in outputs
             ],
             "basis": [basis if o in HEATING_VALUE_RESULTS else "" for o in outputs],

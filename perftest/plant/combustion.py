@@ -47,7 +47,7 @@ from functools import lru_cache
 import numpy as np
 
 from perftest.errors import PerftestError
-from perftest.plant.spec import Source, _read_source
+from perftest.plant.spec import _read_source
 
 __all__ = ["Combustion", "read_combustion", "humidity_ratio", "FLUE_KEYS", "PREFIX"]
 
@@ -349,7 +349,7 @@ def _ref_slots(plant, refs, key, index: dict, tag_ids: list, new: dict) -> tuple
             raise _fail(
                 plant,
                 f"{ref!r} is neither a tag, a group nor a variable of the plant model "
-                "(the heat taken up by water and steam, e.g. \"boiler.heat\").",
+                '(the heat taken up by water and steam, e.g. "boiler.heat").',
                 "performance",
                 key,
             )
@@ -379,9 +379,7 @@ def read_combustion(plant, spec, index: dict, tag_ids: list):
         A missing fuel, flow, temperature or heating value, or a bad loss entry.
     """
     table = plant.sections.get("performance")
-    if not isinstance(table, Mapping) or not (
-        "flue_gas_o2" in table or "flue_gas_co2" in table
-    ):
+    if not isinstance(table, Mapping) or not ("flue_gas_o2" in table or "flue_gas_co2" in table):
         return None
     if any(uid == PREFIX for uid in spec.units):
         raise _fail(

@@ -396,9 +396,9 @@ PERFORMANCE = Table(
             _TAG_OR_VALUE, _VALUE_UNIT, only=_FLUE),
         Key("air_relative_humidity", "combustion-air relative humidity", _TAG_OR_VALUE,
             _VALUE_UNIT, only=_FLUE, default="dry air (noted)"),
-        Key("combustion_air_flow", "mass flow of the dry combustion air (metered flow less its water); "
-            "a second check of the fuel meter and the O2 analyser", _TAG_OR_VALUE, _VALUE_UNIT,
-            only=_FLUE),
+        Key("combustion_air_flow", "mass flow of the dry combustion air (metered flow less "
+            "its water); a second check of the fuel meter and the O2 analyser", _TAG_OR_VALUE,
+            _VALUE_UNIT, only=_FLUE),
         Key("radiation_loss", "surface (radiation and convection) loss", _LOSS, _LOSS_FIELDS,
             only=_FLUE, label="number [%] or `{ value, unit, kind, uncertainty }`"),
         Key("other_losses", "other losses of the indirect method", _LOSS, _LOSS_FIELDS,

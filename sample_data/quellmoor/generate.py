@@ -101,33 +101,98 @@ def main(out: Path = HERE) -> None:
     times = START + np.arange(n) * np.timedelta64(STEP_S, "s")
     tags = {
         # id: description, unit, uncertainty (95 %), noise sd, true value in unit
-        "FT-101": ("Feedwater flow (orifice, DP transmitter)", "t/h",
-                   (1.0, "percent_of_reading"), 0.03, M_FW_T := M_STEAM * 3.6),
-        "PT-101": ("Feedwater pressure at the economiser inlet", "bar",
-                   (0.1, "absolute"), 0.02, P_FW / 1e5),
-        "TT-101": ("Feedwater temperature at the economiser inlet", "degC",
-                   (0.3, "absolute"), 0.05, T_FW - 273.15),
-        "FT-102": ("Steam flow (vortex meter)", "t/h",
-                   (1.5, "percent_of_reading"), 0.04, M_STEAM * 3.6),
-        "PT-102": ("Steam pressure at the boiler outlet", "bar",
-                   (0.1, "absolute"), 0.02, P_ST / 1e5),
-        "TT-102": ("Steam temperature at the boiler outlet", "degC",
-                   (0.5, "absolute"), 0.15, T_ST - 273.15),
-        "FT-201": ("Fuel gas mass flow (Coriolis meter)", "kg/h",
-                   (1.0, "percent_of_reading"), 1.2, t["fuel_flow"] * 3600.0),
-        "AT-301": ("Flue-gas O2, dry (zirconia analyser after the economiser)", "%",
-                   (0.15, "absolute"), 0.05, O2_DRY * 100.0),
-        "AT-302": ("Flue-gas CO2, dry (infrared analyser, same sample line)", "%",
-                   (0.2, "absolute"), 0.04, t["co2_dry"] * 100.0),
+        "FT-101": (
+            "Feedwater flow (orifice, DP transmitter)",
+            "t/h",
+            (1.0, "percent_of_reading"),
+            0.03,
+            M_FW_T := M_STEAM * 3.6,
+        ),
+        "PT-101": (
+            "Feedwater pressure at the economiser inlet",
+            "bar",
+            (0.1, "absolute"),
+            0.02,
+            P_FW / 1e5,
+        ),
+        "TT-101": (
+            "Feedwater temperature at the economiser inlet",
+            "degC",
+            (0.3, "absolute"),
+            0.05,
+            T_FW - 273.15,
+        ),
+        "FT-102": (
+            "Steam flow (vortex meter)",
+            "t/h",
+            (1.5, "percent_of_reading"),
+            0.04,
+            M_STEAM * 3.6,
+        ),
+        "PT-102": (
+            "Steam pressure at the boiler outlet",
+            "bar",
+            (0.1, "absolute"),
+            0.02,
+            P_ST / 1e5,
+        ),
+        "TT-102": (
+            "Steam temperature at the boiler outlet",
+            "degC",
+            (0.5, "absolute"),
+            0.15,
+            T_ST - 273.15,
+        ),
+        "FT-201": (
+            "Fuel gas mass flow (Coriolis meter)",
+            "kg/h",
+            (1.0, "percent_of_reading"),
+            1.2,
+            t["fuel_flow"] * 3600.0,
+        ),
+        "AT-301": (
+            "Flue-gas O2, dry (zirconia analyser after the economiser)",
+            "%",
+            (0.15, "absolute"),
+            0.05,
+            O2_DRY * 100.0,
+        ),
+        "AT-302": (
+            "Flue-gas CO2, dry (infrared analyser, same sample line)",
+            "%",
+            (0.2, "absolute"),
+            0.04,
+            t["co2_dry"] * 100.0,
+        ),
         "AT-303": ("Flue-gas CO, dry", "ppm", (10.0, "absolute"), 4.0, CO_DRY * 1e6),
-        "TT-301": ("Flue-gas temperature after the economiser (grid average)", "degC",
-                   (2.0, "absolute"), 0.6, T_FLUE - 273.15),
-        "TT-401": ("Combustion-air temperature at the fan inlet", "degC",
-                   (0.5, "absolute"), 0.1, T_AIR - 273.15),
-        "MT-401": ("Combustion-air relative humidity at the fan inlet", "%",
-                   (3.0, "absolute"), 0.5, RH_AIR * 100.0),
-        "FT-401": ("Combustion-air flow, dry air (fan inlet airfoil, humidity-corrected in the DCS)", "kg/s",
-                   (3.0, "percent_of_reading"), 0.008, t["air_flow"]),
+        "TT-301": (
+            "Flue-gas temperature after the economiser (grid average)",
+            "degC",
+            (2.0, "absolute"),
+            0.6,
+            T_FLUE - 273.15,
+        ),
+        "TT-401": (
+            "Combustion-air temperature at the fan inlet",
+            "degC",
+            (0.5, "absolute"),
+            0.1,
+            T_AIR - 273.15,
+        ),
+        "MT-401": (
+            "Combustion-air relative humidity at the fan inlet",
+            "%",
+            (3.0, "absolute"),
+            0.5,
+            RH_AIR * 100.0,
+        ),
+        "FT-401": (
+            "Combustion-air flow, dry air (fan inlet airfoil, humidity-corrected in the DCS)",
+            "kg/s",
+            (3.0, "percent_of_reading"),
+            0.008,
+            t["air_flow"],
+        ),
     }
     del M_FW_T
     tags_design = dict(tags)  # true readings, before the instruments' offsets
@@ -194,6 +259,11 @@ def main(out: Path = HERE) -> None:
     (out / "truth.json").write_text(json.dumps(doc, indent=2) + "\n", encoding="utf-8")
 
 
+def _key(name: str) -> str:
+    """A TOML key: bare when it can be, else quoted (``"n-butane"``)."""
+    return name if name.isidentifier() else f'"{name}"'
+
+
 def plant_toml(tags: dict) -> str:
     parts = [
         "# Quellmoor creamery, steam boiler B-1: plant description for perftest.",
@@ -219,9 +289,7 @@ def plant_toml(tags: dict) -> str:
         "[fuel]",
         'mass_flow = "FT-201"',
         "# laboratory analysis of a spot sample taken during the test (mole fractions)",
-        "composition = { "
-        + ", ".join(f'{("" if k.isidentifier() else chr(34))}{k}{("" if k.isidentifier() else chr(34))} = {v}' for k, v in COMPOSITION.items())
-        + " }",
+        "composition = { " + ", ".join(f"{_key(k)} = {v}" for k, v in COMPOSITION.items()) + " }",
         'uncertainty = { value = 0.3, kind = "percent", level = 0.95 }',
         "",
         "# ---- water/steam side",
@@ -268,7 +336,9 @@ def plant_toml(tags: dict) -> str:
         "[design.tags]",
     ]
     for tag, (_, _, _, sd, true) in tags.items():
-        parts.append(f'"{tag}" = {{ value = {true:.6g}, scatter = {sd:.3g}, correlation_time = "20s" }}')
+        parts.append(
+            f'"{tag}" = {{ value = {true:.6g}, scatter = {sd:.3g}, correlation_time = "20s" }}'
+        )
     parts += [
         "",
         "[design.allowed]",
