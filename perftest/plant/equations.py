@@ -570,7 +570,11 @@ def build_model(plant) -> PlantModel:
       :math:`h_{out} = h_{in}`;
     * generator: :math:`\\sum P_{turbine} = P_e (1 + f) + L`;
     * state: :math:`h = h(p, T)` (single phase) or :math:`T = T_{sat}(p)` and, with
-      a known quality, :math:`h = h(p, x)` (wet).
+      a known quality, :math:`h = h(p, x)` (wet);
+    * firing side, when ``[performance]`` names a flue-gas analysis: the boiler
+      energy balance by the heat-loss method, the metered combustion air and the
+      agreement of two analysers (:mod:`perftest.plant.combustion`; variables
+      ``combustion.*``, rows ``combustion:*``).
     """
     cached = getattr(plant, "_perftest_model", None)
     if cached is not None:
