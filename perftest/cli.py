@@ -372,6 +372,9 @@ def _summary(outcome, out=None) -> None:
             ("COP", "cop", "kW/kW", 1.0, 0.0),
             ("Carnot COP", "carnot_cop", "kW/kW", 1.0, 0.0),
             ("second-law eff.", "second_law_efficiency", "%", 100.0, 0.0),
+            ("boiler (direct)", "boiler_efficiency_direct", "%", 100.0, 0.0),
+            ("boiler (losses)", "boiler_efficiency_indirect", "%", 100.0, 0.0),
+            ("boiler (reconc.)", "boiler_efficiency", "%", 100.0, 0.0),
         ]
         for label, name, unit, scale, off in rows:
             if name in perf.results.index:

@@ -117,6 +117,12 @@ SCENARIOS = {
         "chp",
         ("dcs.csv", "testlog.csv"),
     ),
+    "quellmoor": Scenario(
+        "quellmoor",
+        "8.5 MW gas-fired steam boiler, input-output and heat-loss methods reconciled",
+        "boiler",
+        ("dcs.csv",),
+    ),
 }
 
 #: The scenario ``perftest demo`` runs when none is named.

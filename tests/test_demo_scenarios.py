@@ -525,7 +525,8 @@ def test_demo_measurements_need_no_instrument_dropped(name):
 
 
 def test_unknown_scenario_is_refused_with_the_names():
-    with pytest.raises(InputError, match="brackenfold, ostrenby, wrenhollow. Got 'steam'"):
+    names = "brackenfold, ostrenby, wrenhollow, quellmoor"
+    with pytest.raises(InputError, match=f"{names}. Got .steam."):
         demo.run_demo("unused", scenario="steam")
 
 

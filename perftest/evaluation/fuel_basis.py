@@ -103,10 +103,10 @@ def _fuel_basis(plant, perf_table: dict) -> dict:
     if not isinstance(fuel, Mapping):
         raise _plant_error(
             plant,
-            '[performance] heat_input = "fuel" needs a [fuel] table with mass_flow and '
-            "either lhv/hhv or composition.",
+            '[performance] heat_input = "fuel" (and kind = "boiler") needs a [fuel] table '
+            "with mass_flow and either lhv/hhv or composition.",
             "performance",
-            "heat_input",
+            "heat_input" if "heat_input" in perf_table else "kind",
         )
     basis = str(perf_table.get("basis", "lhv")).lower()
     if basis not in ("lhv", "hhv"):

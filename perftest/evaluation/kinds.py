@@ -97,6 +97,8 @@ RESULT_UNITS = {
     "cooling_exergy": "W",
     "heating_exergy": "W",
     "heat_balance_closure": "1",
+    "useful_heat": "W",
+    "boiler_efficiency_direct": "1",
 }
 
 #: Short descriptions shown in reports.
@@ -138,6 +140,8 @@ DESCRIPTIONS = {
     "cooling_exergy": "Exergy of the cooling",
     "heating_exergy": "Exergy of the heating",
     "heat_balance_closure": "Heat-balance closure of the raw measurements",
+    "useful_heat": "Heat taken up by water and steam",
+    "boiler_efficiency_direct": "Boiler efficiency, input-output method",
 }
 
 #: Descriptions that differ by plant kind (the same name, another definition).
@@ -176,6 +180,7 @@ HEATING_VALUE_RESULTS = (
     "gross_heat_rate",
     "exergetic_efficiency",
     "fuel_utilisation",
+    "boiler_efficiency_direct",
 )
 
 
@@ -195,6 +200,7 @@ class Needs:
     export: dict = field(default_factory=dict)
     T0: float = math.nan
     notes: list = field(default_factory=list)
+    fired: bool = False  # the model has a firing side (perftest.plant.combustion)
 
     def names(self) -> list[str]:
         """Every reconciled variable the results use, each once."""
@@ -237,7 +243,11 @@ def gather(plant, table: dict, rec) -> Needs:
     """
     kind = table.get("kind", "power")
     needs = Needs(kind=kind, T0=float(rec.dead_state[0]))
+    needs.fired = getattr(getattr(rec, "model", None), "combustion", None) is not None
     spec = _spec(rec)
+    if kind == "boiler":
+        needs.refs["useful_heat"] = refs_of(table, "useful_heat")
+        return needs
     t0_tag = getattr(getattr(plant, "site", None), "dead_state_temperature_tag", None)
     if kind in ("refrigeration", "heat_pump") and t0_tag and _observable(rec, t0_tag):
         # The exergy of the cooling or heating depends on T0 as much as on the
@@ -318,6 +328,10 @@ def gather(plant, table: dict, rec) -> Needs:
 def output_names(needs: Needs, has_fuel: bool) -> list[str]:
     """Result names of a kind, in report order."""
     kind = needs.kind
+    if kind == "boiler":
+        # with a flue-gas analysis the three efficiencies come from
+        # perftest.evaluation.boiler; without, the input-output one from the balances
+        return ["useful_heat", "heat_input"] + ([] if needs.fired else ["boiler_efficiency_direct"])
     if kind in ("power", "chp"):
         out = ["gross_power", "auxiliary_power", "net_power", "heat_input"]
         if has_fuel:
@@ -402,6 +416,13 @@ def outputs(needs: Needs, val, fuel: dict | None) -> dict:
 
     kind = needs.kind
     out: dict = {}
+    if kind == "boiler":
+        q_u = S("useful_heat")
+        q_f = val(fuel["flow_name"]) * val(fuel["hv_name"])
+        out.update(useful_heat=q_u, heat_input=q_f)
+        if not needs.fired:
+            out["boiler_efficiency_direct"] = q_u / q_f
+        return out
     if kind in ("power", "chp"):
         g = S("gross_power")
         a = S("auxiliary_power") if "auxiliary_power" in needs.refs else 0.0 * g
@@ -516,6 +537,8 @@ def cross_check(kind: str, v: dict, T0: float) -> None:
     """The closed-form arithmetic of :func:`outputs` must match
     :mod:`perftest.evaluation.performance` (one function per published relation)."""
     pairs = []
+    if kind == "boiler":
+        return  # ratios of two sums; checked against a hand calculation in the tests
     if kind in ("power", "chp"):
         pairs += [
             (v["first_law_efficiency"], perf.first_law_efficiency(v["net_power"], v["heat_input"])),

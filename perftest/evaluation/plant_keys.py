@@ -16,7 +16,20 @@ from perftest.errors import PerftestError, PlantFileError
 __all__ = ["KINDS", "KIND_KEYS", "KEY_RESULTS", "performance_kind", "key_results"]
 
 _POWER_REQUIRED = ("gross_power", "heat_input", "source_temperature", "sink_temperature")
-_POWER_OPTIONAL = ("auxiliary_power", "cycle_heat", "basis")
+# The firing side (perftest.plant.combustion.FLUE_KEYS): a boiler's flue-gas analysis.
+_FLUE_KEYS = (
+    "flue_gas_o2",
+    "flue_gas_co2",
+    "flue_gas_oxygen_basis",
+    "flue_gas_co",
+    "flue_gas_temperature",
+    "air_temperature",
+    "air_relative_humidity",
+    "combustion_air_flow",
+    "radiation_loss",
+    "other_losses",
+)
+_POWER_OPTIONAL = ("auxiliary_power", "cycle_heat", "basis", *_FLUE_KEYS)
 
 #: Per kind: (required keys, optional keys) of ``[performance]`` besides ``kind``.
 KIND_KEYS = {
@@ -27,6 +40,7 @@ KIND_KEYS = {
         ("heat_rejected",),
     ),
     "heat_pump": (("power_input", "heating", "cold_temperature", "hot_temperature"), ()),
+    "boiler": (("useful_heat",), ("basis", *_FLUE_KEYS)),
 }
 KINDS = tuple(KIND_KEYS)
 
@@ -56,6 +70,7 @@ KEY_RESULTS = {
         "second_law_efficiency",
     ),
     "heat_pump": ("heating_capacity", "power_input", "cop", "carnot_cop", "second_law_efficiency"),
+    "boiler": ("useful_heat", "heat_input", "boiler_efficiency"),
 }
 
 # Keys whose value names streams (not variables), and keys that may be lists.
@@ -70,6 +85,7 @@ _LIST_KEYS = (
     "heat_rejected",
     "heat_export",
     "heat_return",
+    "useful_heat",
 )
 
 
@@ -133,8 +149,8 @@ def _performance_table(plant) -> dict:
                 "performance",
             )
     for key, v in table.items():
-        if key in ("kind", "basis"):
-            continue
+        if key in ("kind", "basis", *_FLUE_KEYS):
+            continue  # the firing side is read by perftest.plant.combustion
         ok = isinstance(v, str) and v != ""
         if key in _LIST_KEYS and isinstance(v, list):
             ok = len(v) > 0 and all(isinstance(s, str) and s for s in v) and len(set(v)) == len(v)

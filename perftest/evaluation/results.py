@@ -278,7 +278,7 @@ def evaluate(
             _check_name(rec, n, f"performance.{role}", plant)
             refs.setdefault(n, role)
     fuel = None
-    if table.get("heat_input") == "fuel":
+    if table.get("heat_input") == "fuel" or needs.kind == "boiler":
         fuel = _fuel_basis(plant, table)
         notes += fuel.pop("notes")
         _check_name(rec, fuel["flow"], f"fuel.{fuel['per']}_flow", plant)
@@ -402,6 +402,21 @@ def evaluate(
         ]
         budget_tables[o] = b.drop(index=unused).copy()
     cov_out = pd.DataFrame(prop.cov, index=outputs, columns=outputs)
+    block = None
+    if needs.fired:
+        from perftest.evaluation.boiler import boiler_results
+
+        fb = fuel if fuel is not None else _fuel_basis(plant, table)
+        block = boiler_results(
+            plant, rec, fb["u_hv"] / fb["hv"], level=level, monte_carlo=monte_carlo, seed=seed
+        )
+        notes += block.notes
+        results = pd.concat([results, block.results])
+        budget_tables.update(block.budgets if detail else {})
+        # the boiler block is propagated on its own: no correlation with the other
+        # results is claimed
+        cov_out = cov_out.reindex(index=results.index, columns=results.index, fill_value=0.0)
+        cov_out.loc[block.cov.index, block.cov.columns] = block.cov
     if cov_out_extra is not None:
         # The raw closure is kept apart from the reconciled results (no correlation
         # with them is claimed).
@@ -429,6 +444,8 @@ def evaluate(
                 mc_frame["ratio"] = mc_frame["u"] / mc_frame["u_linear"]
         except PerftestError as exc:
             notes.append(f"Monte Carlo check skipped: {exc}")
+        if mc_frame is not None and block is not None and block.monte_carlo is not None:
+            mc_frame = pd.concat([mc_frame, block.monte_carlo])
 
     # ---- corrections table
     corr_rows = []
@@ -524,6 +541,14 @@ def evaluate(
         {"value": x, "u": np.sqrt(np.diag(cov)), "role": [roles[n] for n in names]},
         index=pd.Index(names, name="input"),
     )
+    if block is not None:
+        # the boiler inputs that are reconciled variables or the heating value (the
+        # separate methods' measured inputs stay in the boiler budgets only)
+        extra = block.inputs[
+            block.inputs["role"].isin(("reconciled", "heating_value"))
+            & ~block.inputs.index.isin(inputs.index)
+        ]
+        inputs = pd.concat([inputs, extra])
     return Performance(
         results=results,
         budgets=budget_tables,
@@ -637,6 +662,17 @@ def _exergy_terms(needs, results: pd.DataFrame, fuel, rec) -> dict:
         if needs.kind == "chp":
             terms["products"] = tuple(s for k in needs.export for s in needs.export[k])
         return terms
+    if needs.kind == "boiler":
+        # the product is the exergy the water and steam take up (every stream of the
+        # model crosses the boundary of a stand-alone boiler)
+        spec = rec.model.spec if getattr(rec, "model", None) is not None else None
+        return dict(
+            fuel_exergy=val("heat_input") * fuel["ratio"],
+            net_power=0.0,
+            aux_power=0.0,
+            products=tuple(spec.streams) if spec is not None else (),
+            product_label="steam",
+        )
     p = val("power_input")
     terms = dict(fuel_exergy=math.nan, net_power=0.0, aux_power=p, supplied=p)
     spec = rec.model.spec if getattr(rec, "model", None) is not None else None

@@ -34,13 +34,14 @@ gives the unscaled residuals, which the balances satisfy in absolute terms.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from functools import cached_property
 
 import numpy as np
 import scipy.sparse as sp
 
 from perftest.errors import InputError
+from perftest.plant import combustion as firing
 from perftest.plant import states as thermo
 from perftest.plant.spec import STREAM_VARIABLES, ModelSpec, Source, read_model_spec
 
@@ -55,6 +56,9 @@ _SCALE = {
     "quality": 1.0e3,  # J/kg -> kJ/kg
     "equal_h": 1.0e3,  # J/kg -> kJ/kg
     "equal_p": 1.0e5,  # Pa -> bar
+    "combustion": 1.0e6,  # W -> MW (boiler energy balance by the heat-loss method)
+    "combustion_air": 1.0,  # kg/s
+    "analysis": 1.0e-3,  # mole fraction -> 0.1 %-point (two flue-gas analysers)
 }
 
 _UNIT_QUANTITY = {
@@ -102,6 +106,7 @@ class _Builder:
         self.state: list[tuple[int, str]] = []  # (row, stream) h - h(p, T)
         self.saturation: list[tuple[int, str]] = []  # (row, stream) T - Tsat(p)
         self.quality: list[tuple[int, str]] = []  # (row, stream) h - h(p, x)
+        self.combustion = None  # (Combustion, {row name: row index}) of a fired boiler
 
     def slot(self, name: str, source: Source, quantity: str) -> int:
         self.index[name] = len(self.names)
@@ -302,6 +307,7 @@ class PlantModel:
         self._xs = np.flatnonzero(self._slot_x >= 0)
         self._ys = np.flatnonzero(self._slot_y >= 0)
         self._scale = np.array([r.scale for r in self.rows])
+        self.combustion = builder.combustion[0] if builder.combustion else None
         self._prepare_terms()
 
     # ------------------------------------------------------------ structure
@@ -351,7 +357,16 @@ class PlantModel:
         measured : iterable of str
             Tag/group ids available (a subset of ``spec.tag_ids``).
         """
-        return PlantModel(self.plant, self.spec, self._b, measured=tuple(measured))
+        out = PlantModel(self.plant, self.spec, self._b, measured=tuple(measured))
+        out.combustion = self.combustion
+        return out
+
+    def with_combustion(self, combustion) -> PlantModel:
+        """The same model and binding with other firing-side parameters (a
+        :class:`~perftest.plant.combustion.Combustion`, e.g. another heating value)."""
+        out = self.bind(self.measured)
+        out.combustion = combustion
+        return out
 
     @property
     def n_x(self) -> int:
@@ -434,6 +449,17 @@ class PlantModel:
                 rows += [rr, rr]
                 cols += [p, q]
                 vals += [-dhdp, -dhdx]
+        if self._b.combustion is not None:
+            comb, crows = self._b.combustion
+            comb = self.combustion  # the bound parameters (see with_combustion)
+            res, ent = firing.evaluate_rows(comb, crows, self.index, v, jac)
+            for i, val in res.items():
+                r[i] += val
+            if jac and ent:
+                er, ec, ev = (np.array(z) for z in zip(*ent, strict=True))
+                rows.append(er.astype(int))
+                cols.append(ec.astype(int))
+                vals.append(ev.astype(float))
         if not jac:
             return r, None
         return r, (np.concatenate(rows), np.concatenate(cols), np.concatenate(vals))
@@ -544,7 +570,11 @@ def build_model(plant) -> PlantModel:
       :math:`h_{out} = h_{in}`;
     * generator: :math:`\\sum P_{turbine} = P_e (1 + f) + L`;
     * state: :math:`h = h(p, T)` (single phase) or :math:`T = T_{sat}(p)` and, with
-      a known quality, :math:`h = h(p, x)` (wet).
+      a known quality, :math:`h = h(p, x)` (wet);
+    * firing side, when ``[performance]`` names a flue-gas analysis: the boiler
+      energy balance by the heat-loss method, the metered combustion air and the
+      agreement of two analysers (:mod:`perftest.plant.combustion`; variables
+      ``combustion.*``, rows ``combustion:*``).
     """
     cached = getattr(plant, "_perftest_model", None)
     if cached is not None:
@@ -559,9 +589,17 @@ def build_model(plant) -> PlantModel:
     for uid, unit in spec.units.items():
         for var, src in unit.variables.items():
             b.slot(f"{uid}.{var}", src, _UNIT_QUANTITY[var])
+    tag_ids = list(spec.tag_ids)
+    fired = firing.read_combustion(plant, spec, b.index, tag_ids)
+    if fired is not None:
+        for name, (src, quantity) in fired[1].items():
+            b.slot(name, src, quantity)
+        spec = replace(spec, tag_ids=tuple(tag_ids))
     _mass_rows(spec, b)
     _unit_rows(spec, b)
     _state_rows(spec, b)
+    if fired is not None:
+        b.combustion = (fired[0], firing.add_rows(fired[0], b))
     model = PlantModel(plant, spec, b)
     # The model lives on the plant (which is frozen, hence object.__setattr__), so the
     # cache goes away with the plant; a plant type that refuses is simply not cached.

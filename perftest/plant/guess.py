@@ -232,6 +232,11 @@ def initial_guess(model, x) -> np.ndarray:
             for j, s in enumerate(free_h):
                 lo, hi = bounds[j]
                 v[s] = float(np.clip(v[s], lo, hi)) if np.isfinite(v[s]) else before[j]
+    if getattr(model, "combustion", None) is not None:
+        # 6. the firing side: unknown flows from the water side and the flue-gas analysis
+        from perftest.plant.combustion import guess as firing_guess
+
+        firing_guess(model.combustion, idx, v)
     return v[model._ys].copy() if model.n_y else np.zeros(0)
 
 

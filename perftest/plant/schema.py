@@ -331,13 +331,16 @@ _HEAT_ENGINE = ("power", "chp")
 _FLUE = ("power", "chp", "boiler")
 _REFS = ("text", "array")  # a reference, or a list of references (a sum)
 _REFS_LABEL = "reference or array of references (a sum)"
-_LOSS = ("text", "number", "table")
+_LOSS = ("number", "table")
 _LOSS_FIELDS = Table(
     "a loss",
     (
         Key("value", "the number", ("number",), required=True),
         Key("unit", "unit of a heat flow"),
-        Key("kind", "`percent` of the heat input or `absolute`", choices=("percent", "absolute")),
+        Key("kind", "`percent` of the heat input or `absolute`", choices=("percent", "absolute"),
+            default="`percent` without `unit`"),
+        Key("uncertainty", "standard uncertainty, same kind and unit as `value`", ("number",),
+            default="half the value"),
     ),
 )  # fmt: skip
 
@@ -392,11 +395,14 @@ PERFORMANCE = Table(
         Key("air_temperature", "combustion-air temperature (reference of the losses)",
             _TAG_OR_VALUE, _VALUE_UNIT, only=_FLUE),
         Key("air_relative_humidity", "combustion-air relative humidity", _TAG_OR_VALUE,
+            _VALUE_UNIT, only=_FLUE, default="dry air (noted)"),
+        Key("combustion_air_flow", "mass flow of the dry combustion air (metered flow less "
+            "its water); a second check of the fuel meter and the O2 analyser", _TAG_OR_VALUE,
             _VALUE_UNIT, only=_FLUE),
         Key("radiation_loss", "surface (radiation and convection) loss", _LOSS, _LOSS_FIELDS,
-            only=_FLUE, label="text, number or `{ value, unit, kind }`"),
+            only=_FLUE, label="number [%] or `{ value, unit, kind, uncertainty }`"),
         Key("other_losses", "other losses of the indirect method", _LOSS, _LOSS_FIELDS,
-            only=_FLUE, label="text, number or `{ value, unit, kind }`"),
+            only=_FLUE, label="number [%] or `{ value, unit, kind, uncertainty }`"),
     ),
     switch="kind",
     switch_default="power",

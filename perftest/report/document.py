@@ -134,6 +134,8 @@ _HEADLINE = (
     "heat_export",
     "fuel_utilisation",
     "boiler_efficiency",
+    "boiler_efficiency_direct",
+    "boiler_efficiency_indirect",
     "carnot_efficiency",
     "second_law_efficiency",
 )

@@ -370,6 +370,7 @@ def budget_table(data: ReportData, name: str, top: int | None = None) -> pd.Data
 def budget_results(data: ReportData) -> list:
     """Results that get a budget table: the headline results and every guaranteed one."""
     names = ["first_law_efficiency", "heat_rate", "cop", "fuel_utilisation"]
+    names += ["boiler_efficiency_direct", "boiler_efficiency_indirect", "boiler_efficiency"]
     for g in data.guarantees.get("quantity", pd.Series(dtype=str)).tolist():
         names.append(str(g))
     out = []

@@ -43,8 +43,44 @@ def mutate(old: str, new: str, text: str = DEMO_TEXT) -> str:
     return text.replace(old, new, 1)
 
 
+_SINK = 'sink_temperature = "cw_in.temperature"\n'
+_FLUE = (
+    'flue_gas_o2 = { value = 3.0, unit = "%" }\n'
+    'flue_gas_temperature = { value = 130, unit = "degC" }\n'
+    'air_temperature = { value = 15, unit = "degC" }\n'
+)
+
 # (old text, new text, error class, fragment)
 MUTATIONS = [
+    # --- the firing side of the boiler ([performance] flue-gas keys)
+    pytest.param(
+        _SINK,
+        _SINK + _FLUE.replace('{ value = 3.0, unit = "%" }', '"AT-9"'),
+        PlantFileError,
+        r"performance\.flue_gas_o2.*'AT-9' is neither a tag",
+        id="flue-gas-unknown-tag",
+    ),
+    pytest.param(
+        _SINK,
+        _SINK + _FLUE.replace('air_temperature = { value = 15, unit = "degC" }\n', ""),
+        PlantFileError,
+        r"needs 'air_temperature'",
+        id="flue-gas-without-air-temperature",
+    ),
+    pytest.param(
+        _SINK,
+        _SINK + _FLUE + 'radiation_loss = "0.5 %"\n',
+        PlantFileError,
+        r"performance\.radiation_loss",
+        id="flue-gas-loss-as-text",
+    ),
+    pytest.param(
+        _SINK,
+        _SINK + _FLUE + 'radiation_loss = { value = -0.2, kind = "percent" }\n',
+        PlantFileError,
+        r"performance\.radiation_loss.*>= 0",
+        id="flue-gas-negative-loss",
+    ),
     # --- streams
     pytest.param(
         '[streams.main_steam]\nfluid = "water"',
