@@ -561,18 +561,6 @@ def read_parts(
                     parameter="sheet",
                 )
             plain.append(p)
-    if not staged:
-        return _read_parts(
-            plain,
-            plant,
-            time_column=time_column,
-            timezone=timezone,
-            sep=sep,
-            decimal=decimal,
-            units=units,
-            every=every,
-            sentinels=sentinels,
-        )
     try:
         parts = _read_parts(
             plain,
@@ -586,7 +574,11 @@ def read_parts(
             sentinels=sentinels,
         )
     except PerftestError as exc:
+        if not staged:
+            raise
         raise sources.relabel(exc, staged) from None
+    if not staged:
+        return parts
     by_path = {s.path: s for s in staged}
     raw = parts["raw"]
     for stem in list(raw):
