@@ -41,6 +41,7 @@ import pandas as pd
 
 from perftest.errors import InputError, PerftestError
 from perftest.evaluation import kinds
+from perftest.evaluation.boiler import BOILER_UNITS
 from perftest.evaluation.exergy_account import _exergy_analysis
 from perftest.evaluation.fuel_basis import (  # noqa: F401 - re-exported
     DEFAULT_FUEL_EXERGY_RATIO,
@@ -325,14 +326,19 @@ def evaluate(
     for c in curves:
         corrected_of.setdefault(c.result, []).append(c)
     base_outputs = kinds.output_names(needs, fuel is not None)
+    # The boiler results (a fired plant) come from their own block below; a
+    # correction of one of them is applied to that block's value.
+    boiler_names = list(BOILER_UNITS) if needs.fired else []
     for result in corrected_of:
-        if result not in base_outputs:
+        if result not in base_outputs and result not in boiler_names:
             raise _plant_error(
                 plant,
                 f"[[corrections]] result = {result!r} is not a result of this plant "
-                f"(kind = {needs.kind!r}: {', '.join(base_outputs)}).",
+                f"(kind = {needs.kind!r}: {', '.join(base_outputs + boiler_names)}).",
                 "corrections",
             )
+    boiler_corrected = {r: cs for r, cs in corrected_of.items() if r not in base_outputs}
+    corrected_of = {r: cs for r, cs in corrected_of.items() if r in base_outputs}
     outputs = base_outputs + [f"corrected_{r}" for r in corrected_of]
 
     def model(v):
@@ -417,6 +423,11 @@ def evaluate(
         # results is claimed
         cov_out = cov_out.reindex(index=results.index, columns=results.index, fill_value=0.0)
         cov_out.loc[block.cov.index, block.cov.columns] = block.cov
+        if boiler_corrected:
+            results, cov_out, extra = _corrected_boiler_results(
+                boiler_corrected, results, cov_out, x, cov, pos, level
+            )
+            budget_tables.update(extra if detail else {})
     if cov_out_extra is not None:
         # The raw closure is kept apart from the reconciled results (no correlation
         # with them is claimed).
@@ -455,7 +466,11 @@ def evaluate(
         f = float(c(*xc))
         if c.kind == "multiplicative":
             check_factor(plant, ci, f, c.result)
-        measured = float(y0[outputs.index(c.result)])
+        measured = (
+            float(y0[outputs.index(c.result)])
+            if c.result in outputs
+            else float(results.loc[c.result, "value"])
+        )
         # size of this correction alone: change of the result it makes [SI] and relative
         change = measured / f - measured if c.kind == "multiplicative" else -f
         corr_rows.append(
@@ -565,6 +580,76 @@ def evaluate(
         notes=tuple(notes),
         exergy_products=products,
     )
+
+
+def _corrected_boiler_results(corrected, results, cov_out, x, cov, pos, level):
+    """``corrected_<boiler result>`` rows: the block's value corrected to reference.
+
+    The boiler block is propagated on its own (no correlation with the other inputs is
+    claimed), so the corrected value's variance is the linear sum of the block's
+    variance and the conditions' covariance, weighted by the correction's partial
+    derivatives (GUM Eq. 13, the two parts taken as uncorrelated).
+    """
+    from perftest.evaluation import uncertainty as unc
+    from perftest.evaluation.corrections import apply_corrections, correction_sensitivities
+
+    rows, extra = [], {}
+    new_cov = {}
+    for result, cs in corrected.items():
+        value = float(results.loc[result, "value"])
+        u_b = float(results.loc[result, "u"])
+        variables = list(dict.fromkeys(v for c in cs for v in c.variables))
+        conditions = {v: float(x[pos[v]]) for v in variables}
+        corrected_value = float(apply_corrections(value, cs, conditions))
+        sens = correction_sensitivities(value, cs, conditions)
+        g = np.array([float(sens[v]) for v in variables])
+        idx = [pos[v] for v in variables]
+        c_cond = cov[np.ix_(idx, idx)]
+        dv = float(sens["value"])
+        var = (dv * u_b) ** 2 + float(g @ c_cond @ g)
+        u = math.sqrt(max(var, 0.0))
+        dof = float(results.loc[result, "dof"]) if "dof" in results else math.inf
+        U = float(unc.expanded(u, dof, level))
+        name = f"corrected_{result}"
+        rows.append(
+            {
+                "name": name,
+                "value": corrected_value,
+                "u": u,
+                "U95": U,
+                "unit": results.loc[result, "unit"],
+                "k": U / u if u > 0 else math.nan,
+                "dof": dof,
+                "description": f"{results.loc[result, 'description']}, corrected to "
+                "reference conditions",
+                "basis": results.loc[result, "basis"] if "basis" in results else "",
+            }
+        )
+        new_cov[name] = (result, dv, var)
+        budget = pd.DataFrame(
+            {
+                "estimate": [value, *[conditions[v] for v in variables]],
+                "u": [u_b, *[math.sqrt(max(c_cond[i, i], 0.0)) for i in range(len(idx))]],
+                "sensitivity": [dv, *g],
+            },
+            index=pd.Index([result, *variables], name="input"),
+        )
+        budget["u_contribution"] = (budget["sensitivity"] * budget["u"]).abs()
+        total = float((budget["u_contribution"] ** 2).sum())
+        budget["share"] = budget["u_contribution"] ** 2 / total if total > 0 else 0.0
+        extra[name] = budget
+    add = pd.DataFrame(rows).set_index("name")
+    add.index.name = results.index.name
+    results = pd.concat([results, add[[c for c in results.columns if c in add.columns]]])
+    cov_out = cov_out.reindex(index=results.index, columns=results.index, fill_value=0.0)
+    for name, (result, dv, var) in new_cov.items():
+        cov_out.loc[name, name] = var
+        # the block's own part is shared with the uncorrected result
+        row = dv * cov_out.loc[result, :].drop(index=name)
+        cov_out.loc[name, row.index] = row.to_numpy()
+        cov_out.loc[row.index, name] = row.to_numpy()
+        cov_out.loc[name, name] = var
+    return results, cov_out, extra
 
 
 def _unit_of(name: str) -> str:

@@ -351,3 +351,37 @@ def test_a_guarantee_on_the_boiler_efficiency_gets_a_verdict(tmp_path, measureme
     assert g["quantity"] == "boiler_efficiency"
     # 92.1 % with U95 0.3 % against at least 91 %: met without doubt
     assert g["verdict"] == "met"
+
+
+def test_a_boiler_result_can_be_corrected_to_reference_conditions(tmp_path, rec):
+    # Contract (DESIGN "Plant kinds"): corrections may name any result of the kind,
+    # the boiler's among them. An additive correction of 0.1 %-points per K of
+    # combustion-air temperature (a curve shape of the trade, common practice, no
+    # source) is checked against the hand calculation corrected = measured - g(T_air),
+    # u^2 = u_b^2 + (dg/dT u_T)^2 (GUM Eq. 10, block and condition uncorrelated).
+    t_air = rec.value("TT-401") - 273.15
+    ref = round(t_air) - 3.0  # a reference about 3 K from the test condition
+    text = (FOLDER / "plant.toml").read_text(encoding="utf-8")
+    text += (
+        "\n[[corrections]]\n"
+        'result = "boiler_efficiency"\n'
+        'variable = "TT-401"\n'
+        f'reference = {{ value = {ref}, unit = "degC" }}\n'
+        'kind = "additive"\n'
+        f"curve = {{ x = [{ref - 20.0}, {ref}, {ref + 20.0}], y = [-0.02, 0.0, 0.02], "
+        'x_unit = "degC" }\n'
+    )
+    (tmp_path / "plant.toml").write_text(text, encoding="utf-8")
+    plant2 = perftest.load_plant(tmp_path / "plant.toml")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        p2 = perftest.evaluate(plant2, rec)
+    res = p2.results
+    base = res.loc["boiler_efficiency"]
+    got = res.loc["corrected_boiler_efficiency"]
+    slope = 0.001  # per K, from the curve above
+    # 1e-9: the same closed-form arithmetic on both sides
+    assert got["value"] == pytest.approx(base["value"] - slope * (t_air - ref), rel=1e-9)
+    u_t = math.sqrt(float(np.asarray(rec.covariance(["TT-401"]))[0, 0]))
+    assert got["u"] == pytest.approx(math.hypot(base["u"], slope * u_t), rel=1e-9)
+    assert "corrected_boiler_efficiency" in p2.budgets
