@@ -195,8 +195,10 @@ def main() -> None:
                 print("    workers (memory limit [MiB], spilled keys): " + ", ".join(
                     f"{m / 2**20:.0f}, {s}" for m, s in mem.values()))  # fmt: skip
                 cpu_eff = (len(table) / cpu) / (plain["windows"] / plain["cpu"])
-                print(f"    windows per CPU-second, workers / plain process: {cpu_eff:.2f} "
-                      "(Dask's own cost per window, whatever the machine's load)")
+                print(
+                    f"    windows per CPU-second, workers / plain process: {cpu_eff:.2f} "
+                    "(Dask's own cost per window, whatever the machine's load)"
+                )
                 print(f"    parallel efficiency {eff:.2f} (target >= {TARGET}) "
                       f"{'PASS' if eff >= TARGET else 'FAIL'}; against two plain processes "
                       f"{rate_d / rate2p:.2f}")  # fmt: skip

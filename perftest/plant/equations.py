@@ -427,10 +427,11 @@ class PlantModel:
             if k == key:
                 return out
         state = tuple(
-            thermo.h_pT(fl, ph, v[p], v[T], sids)
-            for fl, ph, _, sids, p, T, _ in self._state_groups
+            thermo.h_pT(fl, ph, v[p], v[T], sids) for fl, ph, _, sids, p, T, _ in self._state_groups
         )
-        sat = tuple(thermo.saturation(fl, v[p], sids) for fl, _, _, sids, p, _, _ in self._sat_groups)
+        sat = tuple(
+            thermo.saturation(fl, v[p], sids) for fl, _, _, sids, p, _, _ in self._sat_groups
+        )
         qual = tuple(
             thermo.h_px(fl, v[p], v[q], sids) for fl, _, _, sids, p, _, q in self._quality_groups
         )

@@ -90,8 +90,11 @@ def loopback_cluster(n_workers: int = 2, *, start_timeout: float = 60.0, log_dir
             logs.append(out)
         procs.append(
             subprocess.Popen(
-                [sys.executable, "-m", "dask", *args], env=env, stdout=out,
-                stderr=subprocess.STDOUT, start_new_session=True,
+                [sys.executable, "-m", "dask", *args],
+                env=env,
+                stdout=out,
+                stderr=subprocess.STDOUT,
+                start_new_session=True,
             )  # fmt: skip
         )
 
@@ -106,7 +109,9 @@ def loopback_cluster(n_workers: int = 2, *, start_timeout: float = 60.0, log_dir
         while True:
             try:
                 with Client(address, timeout="5s") as client:
-                    client.wait_for_workers(n_workers, timeout=max(1.0, deadline - time.monotonic()))
+                    client.wait_for_workers(
+                        n_workers, timeout=max(1.0, deadline - time.monotonic())
+                    )
                 break
             except (OSError, TimeoutError):
                 if time.monotonic() > deadline or any(p.poll() is not None for p in procs):
