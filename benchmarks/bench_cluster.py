@@ -144,6 +144,13 @@ def main() -> None:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--days", type=int, default=365, help="days of logs (default 365)")
     p.add_argument("--repeat", type=int, default=1, help="measurements of each figure")
+    p.add_argument(
+        "--worker-arg",
+        action="append",
+        default=[],
+        metavar="OPT",
+        help="a further 'dask worker' option, e.g. --worker-arg=--memory-limit=0",
+    )
     p.add_argument("--child", action="store_true", help=argparse.SUPPRESS)
     p.add_argument("--plant", help=argparse.SUPPRESS)
     p.add_argument("--table", help=argparse.SUPPRESS)
@@ -179,7 +186,7 @@ def main() -> None:
             print(f"    two plain processes at once: {rate2p:.2f} windows/s "
                   f"({rate2p / (2 * rate1):.2f} of 2x one), {per_cpu:.2f} windows per "
                   f"CPU-second  [{by._load()}]")  # fmt: skip
-            with loopback_cluster(2, log_dir=tmp) as address:
+            with loopback_cluster(2, log_dir=tmp, worker_args=args.worker_arg) as address:
                 table, seconds, cpu, parts, tasks, mem = _cluster_run(address, plant, full, short)
                 rate_d = len(table) / seconds
                 eff = rate_d / (2 * rate1)
