@@ -70,10 +70,23 @@ def project_out_unmeasured(Bt: np.ndarray) -> Projection:
     # R1 with the column permutation undone: Bt = Q1 @ R1p.
     R1p = np.empty((r, k))
     R1p[:, piv] = R[:r, :]
-    if r:
-        U, s, Vt = scipy.linalg.svd(R1p, full_matrices=True, check_finite=False)
-        G = (Vt[:r].T / s[:r]) @ (U.T @ Q[:, :r].T)
-        null = Vt[r:].T
+    if r == k:
+        # Every unmeasured variable observable: R1p is square and regular, its
+        # pseudo-inverse its inverse, from the triangular factor (R with its columns
+        # permuted) in a fraction of the time of an SVD.
+        Ri = scipy.linalg.solve_triangular(R[:r, :r], Q[:, :r].T, check_finite=False)
+        G = np.empty((k, m))
+        G[piv] = Ri
+        null = np.zeros((k, 0))
+    elif r:
+        # Complete orthogonal decomposition R1p^T = Z [T; 0] (T upper triangular,
+        # regular: R1p has full row rank r): the minimum-norm pseudo-inverse is
+        # Z1 T^-T and Z2 spans the null space of R1p; the same quantities an SVD
+        # gives, in a fraction of its time.
+        Z, T = scipy.linalg.qr(R1p.T, mode="full", check_finite=False)
+        W = scipy.linalg.solve_triangular(T[:r], Q[:, :r].T, trans="T", check_finite=False)
+        G = Z[:, :r] @ W
+        null = Z[:, r:]
     else:
         G = np.zeros((k, m))
         null = np.eye(k)

@@ -45,6 +45,10 @@ from perftest.plant import combustion as firing
 from perftest.plant import states as thermo
 from perftest.plant.spec import STREAM_VARIABLES, ModelSpec, Source, read_model_spec
 
+# Property sets kept by a model (see PlantModel._properties): the accepted point and
+# a trial or two around it.
+_PROPERTY_CACHE = 4
+
 __all__ = ["PlantModel", "Row", "build_model"]
 
 # Divisors of the residual rows (see module docstring).
@@ -348,6 +352,11 @@ class PlantModel:
         self._state_groups = groups(b.state)
         self._sat_groups = groups(b.saturation, need_phase=False)
         self._quality_groups = groups(b.quality, need_phase=False)
+        used = [np.zeros(0, int)]
+        for _, _, _, _, p, T, q in self._state_groups + self._sat_groups + self._quality_groups:
+            used += [p, T[T >= 0], q[q >= 0]]
+        self._prop_idx = np.unique(np.concatenate(used))
+        self._prop_cache = ()
 
     def bind(self, measured) -> PlantModel:
         """The same model with only ``measured`` tags in ``x``; the rest become unmeasured.
@@ -417,33 +426,60 @@ class PlantModel:
         return pd.DataFrame(src, columns=cols)
 
     # ------------------------------------------------------------ equations
+    def _properties(self, v: np.ndarray):
+        """Property values and derivatives of every state, saturation and quality row.
+
+        The residual and the Jacobian at one point need the same property calls: the
+        engines evaluate the residual at a trial point and, once it is accepted, the
+        Jacobian there (and scipy's optimisers call both at each iterate).  The last
+        few sets are kept, keyed by the exact bytes of the property inputs
+        (pressures, temperatures, qualities), so the second call repeats no property
+        call and returns the very same numbers.  The entries are never modified.
+        """
+        key = v[self._prop_idx].tobytes()
+        cache = self._prop_cache
+        for k, out in cache:
+            if k == key:
+                return out
+        state = tuple(
+            thermo.h_pT(fl, ph, v[p], v[T], sids) for fl, ph, _, sids, p, T, _ in self._state_groups
+        )
+        sat = tuple(
+            thermo.saturation(fl, v[p], sids) for fl, _, _, sids, p, _, _ in self._sat_groups
+        )
+        qual = tuple(
+            thermo.h_px(fl, v[p], v[q], sids) for fl, _, _, sids, p, _, q in self._quality_groups
+        )
+        out = (state, sat, qual)
+        # a new tuple, assigned at once: threads sharing the model see either list
+        self._prop_cache = ((key, out), *cache[: _PROPERTY_CACHE - 1])
+        return out
+
     def _evaluate(self, v: np.ndarray, jac: bool):
         """Unscaled residuals and (optionally) COO Jacobian entries over model variables."""
         m = len(self.rows)
         r = self._L @ v
         br, bm, bh, bc = self._bil
         r += np.bincount(br, bc * v[bm] * v[bh], minlength=m)
+        state, sat, qual = self._properties(v)
         rows, cols, vals = [], [], []
         if jac:
             rows += [self._lin[0], br, br]
             cols += [self._lin[1], bm, bh]
             vals += [self._lin[2], bc * v[bh], bc * v[bm]]
-        for fl, ph, rr, sids, p, T, _ in self._state_groups:
-            h, dhdT, dhdp = thermo.h_pT(fl, ph, v[p], v[T], sids)
+        for (_, _, rr, _, p, T, _), (h, dhdT, dhdp) in zip(self._state_groups, state, strict=True):
             r[rr] -= h
             if jac:
                 rows += [rr, rr]
                 cols += [p, T]
                 vals += [-dhdp, -dhdT]
-        for fl, _, rr, sids, p, _, _ in self._sat_groups:
-            Ts, dTdp = thermo.saturation(fl, v[p], sids)
+        for (_, _, rr, _, p, _, _), (Ts, dTdp) in zip(self._sat_groups, sat, strict=True):
             r[rr] -= Ts
             if jac:
                 rows.append(rr)
                 cols.append(p)
                 vals.append(-dTdp)
-        for fl, _, rr, sids, p, _, q in self._quality_groups:
-            h, dhdp, dhdx = thermo.h_px(fl, v[p], v[q], sids)
+        for (_, _, rr, _, p, _, q), (h, dhdp, dhdx) in zip(self._quality_groups, qual, strict=True):
             r[rr] -= h
             if jac:
                 rows += [rr, rr]

@@ -1,0 +1,128 @@
+"""A Dask scheduler and workers as separate processes on the loopback interface.
+
+Used by tests/scale/test_cluster.py and benchmarks/bench_cluster.py: the same
+commands a user types on a real cluster (``dask scheduler``, ``dask worker``), here
+on 127.0.0.1, so that the job crosses real sockets and process boundaries (not the
+in-process shortcuts of a LocalCluster).  Every process is started in its own
+session and stopped at the end, also when the job fails; the scheduler stops by
+itself after ``idle_timeout`` without work and the workers after ``death_timeout``
+without a scheduler, should this process be killed before it can stop them.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import signal
+import socket
+import subprocess
+import sys
+import time
+
+
+def free_port() -> int:
+    """A TCP port free on 127.0.0.1 now (the OS's choice)."""
+    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+def worker_env(extra: dict | None = None) -> dict:
+    """Environment of the cluster's processes: one BLAS thread (one task thread per
+    worker on a small machine), Dask's worker profiler off (it samples every thread
+    ten times a second, a cost the plain process does not pay)."""
+    env = dict(os.environ)
+    env.update(
+        OPENBLAS_NUM_THREADS="1",
+        OMP_NUM_THREADS="1",
+        DASK_DISTRIBUTED__WORKER__PROFILE__ENABLED="False",
+    )
+    env.update(extra or {})
+    return env
+
+
+def _stop(procs, grace: float = 10.0) -> None:
+    for p in procs:
+        if p.poll() is None:
+            with contextlib.suppress(ProcessLookupError):
+                os.killpg(p.pid, signal.SIGTERM)
+    deadline = time.monotonic() + grace
+    for p in procs:
+        try:
+            p.wait(timeout=max(0.1, deadline - time.monotonic()))
+        except subprocess.TimeoutExpired:
+            with contextlib.suppress(ProcessLookupError):
+                os.killpg(p.pid, signal.SIGKILL)
+            p.wait(timeout=grace)
+
+
+@contextlib.contextmanager
+def loopback_cluster(n_workers: int = 2, *, start_timeout: float = 60.0, log_dir=None,
+                     worker_args=(), env_extra=None):  # fmt: skip
+    """Context: ``tcp://127.0.0.1:P`` of a scheduler with ``n_workers`` one-thread workers.
+
+    Parameters
+    ----------
+    n_workers : int
+        Worker processes (``dask worker --nthreads 1``).
+    start_timeout : float [s]
+        Time allowed for the scheduler to answer and every worker to join.
+    log_dir : path, optional
+        Folder for the processes' output (discarded when None).
+    worker_args : sequence of str
+        Further ``dask worker`` options (e.g. ``--memory-limit``).
+    env_extra : dict, optional
+        Further environment variables of the cluster's processes.
+    """
+    from distributed import Client
+
+    port = free_port()
+    address = f"tcp://127.0.0.1:{port}"
+    env = worker_env(env_extra)
+    procs = []
+    logs = []
+
+    def start(args, name):
+        if log_dir is None:
+            out = subprocess.DEVNULL
+        else:
+            out = open(os.path.join(log_dir, f"{name}.log"), "w")  # noqa: SIM115
+            logs.append(out)
+        procs.append(
+            subprocess.Popen(
+                [sys.executable, "-m", "dask", *args],
+                env=env,
+                stdout=out,
+                stderr=subprocess.STDOUT,
+                start_new_session=True,
+            )  # fmt: skip
+        )
+
+    try:
+        start(["scheduler", "--host", "127.0.0.1", "--port", str(port), "--no-dashboard",
+               "--idle-timeout", "600s"], "scheduler")  # fmt: skip
+        for i in range(n_workers):
+            start(["worker", address, "--nthreads", "1", "--nworkers", "1", "--no-dashboard",
+                   "--death-timeout", "60s", "--name", f"w{i}", *worker_args],
+                  f"worker{i}")  # fmt: skip
+        deadline = time.monotonic() + start_timeout
+        while True:
+            try:
+                with Client(address, timeout="5s") as client:
+                    client.wait_for_workers(
+                        n_workers, timeout=max(1.0, deadline - time.monotonic())
+                    )
+                break
+            except (OSError, TimeoutError):
+                if time.monotonic() > deadline or any(p.poll() is not None for p in procs):
+                    raise RuntimeError(
+                        f"the loopback cluster at {address} did not start within "
+                        f"{start_timeout:.0f} s (exit codes {[p.poll() for p in procs]})"
+                    ) from None
+                time.sleep(0.5)
+        yield address
+    finally:
+        _stop(procs[1:])  # workers first, so that none reconnects to a new scheduler
+        _stop(procs[:1])
+        for f in logs:
+            f.close()
