@@ -10,8 +10,9 @@ scatter, and writes one CSV row a minute for 3 hours.
 
 Outside checks: the true heating capacity, power and COP (CoolProp heat balance); the
 Carnot COP of a heat pump, T_hot / (T_hot - T_cold), and the second-law efficiency
-COP / Carnot COP (Cengel & Boles, Thermodynamics, 8th ed., eq. 6-21 and section 6-11,
-from memory); the exergy of heat Q delivered at T, Q (1 - T0 / T).
+COP / Carnot COP (Cengel & Boles, Thermodynamics: An Engineering Approach, ch. 6 for
+the reversible heat pump and ch. 8 for the second-law efficiency, from memory); the
+exergy of heat Q delivered at T, Q (1 - T0 / T).
 """
 
 from __future__ import annotations
@@ -67,11 +68,11 @@ def _stated_u(spec: dict, value_file: float) -> float:
 def write_run(path: Path, seed: int = 20261205) -> dict:
     """Write 3 h of 1-min readings of the heat pump to ``path``; return the truth.
 
-    The load wanders as one whole sine period over the run plus a slower half-period
-    term of zero mean over the run, so the run's mean readings sit at the true point
-    at ``POWER``.  Between the points at ``POWER`` and ``POWER (1 + WANDER)`` the
-    readings are interpolated linearly (the curvature over 0.5 % of load is of order
-    1e-5 relative, far inside every uncertainty here).
+    The load wanders by up to ``WANDER`` as one plus two whole sine periods over the
+    run (zero mean over the run), so each window's mean readings sit at the true point
+    of the window's mean load (``true_results``).  Between the points at ``POWER``
+    and ``POWER (1 + WANDER)`` the readings are interpolated linearly (the curvature
+    over 0.5 % of load is of order 1e-5 relative, far inside every uncertainty here).
     """
     spec = tomllib.loads(PLANT.read_text(encoding="utf-8"))["tags"]
     base, truth = heat_pump_truth(POWER)
@@ -101,10 +102,15 @@ def write_run(path: Path, seed: int = 20261205) -> dict:
             e[i] = phi * e[i - 1] + w[i]
         columns[tag] = v0 + (v1 - v0) * f + offset + e
     stamps = pd.date_range("2026-11-03 09:00", periods=n, freq="1min")
-    lines = ["Timestamp," + ",".join(columns), "units," + ",".join(spec[t]["unit"] for t in columns)]
+    lines = [
+        "Timestamp," + ",".join(columns),
+        "units," + ",".join(spec[t]["unit"] for t in columns),
+    ]
     for i, s in enumerate(stamps):
         lines.append(
-            s.strftime("%Y-%m-%d %H:%M:%S") + "," + ",".join(f"{columns[c][i]:.6g}" for c in columns)
+            s.strftime("%Y-%m-%d %H:%M:%S")
+            + ","
+            + ",".join(f"{columns[c][i]:.6g}" for c in columns)
         )
     path.write_text("\n".join(lines) + "\n", encoding="utf-8")
     return {
@@ -164,11 +170,34 @@ def commands(tmp_path_factory):
     truth = write_run(run)
     summary, html, plan = tmp / "summary.json", tmp / "report.html", tmp / "plan.json"
     codes = {
-        "report": _run(["report", str(PLANT), "--data", str(run), "--json", str(summary),
-                        "--html", str(html), "--quiet"]),  # fmt: skip
-        "plan": _run(["plan", str(PLANT), "--no-what-if", "--json", str(plan)]),
-        "monitor": _run(["monitor", str(PLANT), "--data", str(run), "--every", "30min",
-                         "--out", str(tmp / "monitor"), "--no-figures", "-q"]),  # fmt: skip
+        "report": _run(
+            [
+                "report",
+                str(PLANT),
+                "--data",
+                str(run),
+                "--json",
+                str(summary),
+                "--html",
+                str(html),
+                "--quiet",
+            ]
+        ),  # fmt: skip
+        "plan": _run(["plan", str(PLANT), "--json", str(plan)]),
+        "monitor": _run(
+            [
+                "monitor",
+                str(PLANT),
+                "--data",
+                str(run),
+                "--every",
+                "30min",
+                "--out",
+                str(tmp / "monitor"),
+                "--no-figures",
+                "-q",
+            ]
+        ),  # fmt: skip
     }
     return tmp, truth, codes
 
@@ -241,7 +270,9 @@ def test_monitor_lists_the_heat_pump_results_and_windows(commands):
     info = json.loads((tmp / "monitor" / "monitor.json").read_text(encoding="utf-8"))
     assert info["kind"] == "heat_pump"
     assert list(info["results"]) == list(KEY_RESULTS["heat_pump"])
-    assert {"heating_capacity", "cop", "carnot_cop", "second_law_efficiency"} <= set(info["results"])
+    assert {"heating_capacity", "cop", "carnot_cop", "second_law_efficiency"} <= set(
+        info["results"]
+    )
     table = pd.read_csv(tmp / "monitor" / "windows.csv")
     assert len(table) == 6  # 3 h in 30-min windows
     ok = table[table["status"] == "ok"]
