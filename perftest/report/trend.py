@@ -21,6 +21,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from perftest.display.format import COLOURS
 from perftest.report.figures import _BAD, _GREY, _OK, _figure
 
 __all__ = ["trend_figure", "trend_results", "COVERAGE_FACTOR"]
@@ -76,6 +77,7 @@ def trend_figure(
     tz: str | None = None,
     kind: str | None = None,
     results=None,
+    spans=(),
 ):
     """Headline results and suspect instruments of each window over time.
 
@@ -91,6 +93,9 @@ def trend_figure(
         Plant kind whose headline results are drawn (:func:`trend_results`).
     results : sequence of str, optional
         The results to draw instead (each needs its value and ``u_`` column).
+    spans : sequence of (label, start, end), optional
+        The test's repeated runs or load points (the plant file's ``[[runs]]`` or
+        ``[[points]]``), shaded and labelled on every result axis.
 
     Returns
     -------
@@ -173,6 +178,13 @@ def trend_figure(
             ax.axvline(xi, color=_GREY, alpha=0.25, linewidth=0.8)
         if (~has).any():
             ax.plot([], [], "|", color=_GREY, label="no result (skipped or failed)")
+        for i, (label, t0, t1) in enumerate(spans):
+            a, b = (pd.Timestamp(s).tz_convert(zone).tz_localize(None) for s in (t0, t1))
+            ax.axvspan(a, b, color=COLOURS["window"], alpha=0.35, linewidth=0,
+                       label="run or load point of the test" if i == 0 else None)  # fmt: skip
+            if ax is axes[0]:
+                ax.annotate(label, xy=(a + (b - a) / 2, 1.0), xycoords=("data", "axes fraction"),
+                            ha="center", va="bottom", fontsize=8)  # fmt: skip
         shown_unit = "–" if unit == "1" else unit_label(unit)
         ax.set_ylabel(f"{_label(name)} [{shown_unit}]", fontsize="small")
 

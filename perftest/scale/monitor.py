@@ -25,6 +25,7 @@ import math
 import sys
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
 from perftest.defaults import CHECK_STABILITY, ELIMINATE
@@ -102,6 +103,64 @@ def summary(table: pd.DataFrame, kind: str | None = None) -> dict:
         for k, v in failed["reason"].astype(str).str.split(":").str[:2].str.join(":")
         .value_counts().items()
     }  # fmt: skip
+    return out
+
+
+def test_windows(plant) -> tuple:
+    """The plant file's ``[[runs]]`` or ``[[points]]`` as ``(mode, [(label, start, end)])``.
+
+    Times are UTC Timestamps (a stamp without offset is read in the site's time zone);
+    ``(None, [])`` when the file lists neither.
+    """
+    from perftest.evaluation.multirun import plant_windows
+
+    mode, entries = plant_windows(plant)
+    if mode is None:
+        return None, []
+    zone = getattr(getattr(plant, "site", None), "timezone", None) or "UTC"
+
+    def utc(value):
+        ts = pd.Timestamp(value)
+        ts = ts.tz_localize(zone) if ts.tz is None else ts
+        return ts.tz_convert("UTC")
+
+    spans = []
+    for i, e in enumerate(entries):
+        label = str(e.get("label") or (f"run {i + 1}" if mode == "runs" else f"point {i + 1}"))
+        spans.append((label, utc(e["start"]), utc(e["end"])))
+    return mode, spans
+
+
+def span_summary(table: pd.DataFrame, spans, kind: str | None = None) -> list:
+    """Per run or load point: the windows that lie inside it and their headline results.
+
+    A window counts when it starts and ends inside the span; the results are the
+    medians over its windows of status "ok" (a screening view of the test: the test
+    result itself is ``perftest report --run/--point``).
+    """
+    from perftest.report.trend import trend_results
+
+    start = pd.DatetimeIndex(table["start"]).tz_convert("UTC")
+    end = pd.DatetimeIndex(table["end"]).tz_convert("UTC")
+    ok = table["status"].astype(str).to_numpy() == "ok"
+    out = []
+    for label, t0, t1 in spans:
+        inside = np.asarray((start >= t0) & (end <= t1))
+        rows = table[inside & ok]
+        results = {}
+        for name in trend_results(table, kind):
+            v = rows[name].astype(float).dropna()
+            results[name] = None if v.empty else float(v.median())
+        out.append(
+            {
+                "label": label,
+                "start": t0.isoformat(),
+                "end": t1.isoformat(),
+                "windows": int(inside.sum()),
+                "windows_ok": int((inside & ok).sum()),
+                "median_results": results,
+            }
+        )
     return out
 
 
@@ -251,12 +310,16 @@ def _monitor_locked(plant_obj, data, out, targets, *, every, engine, scheduler, 
     kind = performance_kind(plant_obj)
     info = summary(table, kind)
     info["kind"] = kind
+    mode, spans = test_windows(plant_obj)
+    if mode is not None:
+        info[mode] = span_summary(table, spans, kind)
     if figure and trend_results(table, kind):
         from perftest.report.figures import figure_png
         from perftest.report.trend import trend_figure
 
         fig = trend_figure(table, title=f"{plant_obj.name}: results by window",
-                           tz=plant_obj.site.timezone or "UTC", kind=kind)  # fmt: skip
+                           tz=plant_obj.site.timezone or "UTC", kind=kind,
+                           spans=spans)  # fmt: skip
         written["figure"] = str(write_atomic(targets["figure"], figure_png(fig)))
     info["plant"] = plant_obj.name
     info["every"] = str(every)

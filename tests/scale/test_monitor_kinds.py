@@ -130,3 +130,54 @@ def test_command_prints_each_headline_result(monitored):
     else:
         heat = next(ln for ln in lines if ln.strip().startswith("heat_export "))
         assert f"median {info['results']['heat_export']['median'] / 1e6:.5g} MW" in heat
+
+
+def test_monitor_understands_the_load_points_of_the_plant_file(tmp_path):
+    # A chiller plant file that lists its three load points ([[points]], times from the
+    # scenario's truth.json): monitor.json gives, per point, the windows inside it and
+    # the median of their headline results, and the trend figure shades the points.
+    # Outside check: each point's median COP against the truth of that point, within
+    # the windows' U95 (truth.json is the generator's CoolProp heat balance).
+    import matplotlib
+
+    matplotlib.use("Agg")
+    name = "ostrenby"
+    truth = json.loads((DATA / name / "truth.json").read_text(encoding="utf-8"))
+    text = (DATA / name / "plant.toml").read_text(encoding="utf-8")
+    for p in truth["points"]:
+        text += (
+            f'\n[[points]]\nlabel = "{p["label"]}"\nstart = "{p["start"]}"\nend = "{p["end"]}"\n'
+        )
+    plant = tmp_path / "plant.toml"
+    plant.write_text(text, encoding="utf-8")
+    out = tmp_path / "out"
+    argv = ["monitor", str(plant), "--data", str(DATA / name / "bms.csv"),
+            "--data", str(DATA / name / "testlog.csv"),
+            "--every", "30min", "--out", str(out), "-q"]  # fmt: skip
+    with contextlib.redirect_stdout(io.StringIO()):
+        assert main(argv) == 0
+    info = json.loads((out / "monitor.json").read_text(encoding="utf-8"))
+    table = pd.read_csv(out / "windows.csv", parse_dates=["start", "end"])
+    points = info["points"]
+    assert [p["label"] for p in points] == [p["label"] for p in truth["points"]]
+    for p, t in zip(points, truth["points"], strict=True):
+        assert p["windows"] == 2  # a one-hour point holds two 30-min windows
+        inside = table[
+            (table["start"] >= pd.Timestamp(p["start"]))
+            & (table["end"] <= pd.Timestamp(p["end"]))
+            & (table["status"] == "ok")
+        ]
+        assert p["windows_ok"] == len(inside)
+        if len(inside):
+            cop = p["median_results"]["cop"]
+            assert cop == pytest.approx(float(inside["cop"].median()), rel=1e-12)
+            U = COVERAGE_FACTOR * float(inside["u_cop"].max())
+            assert abs(cop - t["results"]["cop"]) <= U, (p["label"], cop, t["results"]["cop"], U)
+    fig = trend_figure(table, kind="refrigeration",
+                       spans=[(p["label"], pd.Timestamp(p["start"]), pd.Timestamp(p["end"]))
+                              for p in points])  # fmt: skip
+    spans = [a for a in fig.axes[0].patches if type(a).__name__ == "Polygon" or
+             type(a).__name__ == "Rectangle"]  # fmt: skip
+    labels = [t.get_text() for t in fig.axes[0].texts]
+    assert all(p["label"] in labels for p in points)
+    assert len(spans) >= 3
