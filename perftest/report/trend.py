@@ -67,7 +67,8 @@ def trend_results(table: pd.DataFrame, kind: str | None = None) -> list[str]:
 
 
 def _label(name: str) -> str:
-    return name.replace("_", " ").replace("cop", "COP")
+    text = name.replace("_", " ").replace("cop", "COP").replace("second law", "second-law")
+    return text.replace("carnot", "Carnot").replace("first law", "first-law")
 
 
 def trend_figure(
@@ -183,8 +184,10 @@ def trend_figure(
             ax.axvspan(a, b, color=COLOURS["window"], alpha=0.35, linewidth=0,
                        label="run or load point of the test" if i == 0 else None)  # fmt: skip
             if ax is axes[0]:
-                ax.annotate(label, xy=(a + (b - a) / 2, 1.0), xycoords=("data", "axes fraction"),
-                            ha="center", va="bottom", fontsize=8)  # fmt: skip
+                ax.annotate(label, xy=(a + (b - a) / 2, 0.97), xycoords=("data", "axes fraction"),
+                            ha="center", va="top", fontsize=8,
+                            bbox={"boxstyle": "round,pad=0.2", "fc": "white", "ec": "none",
+                                  "alpha": 0.8})  # fmt: skip
         shown_unit = "–" if unit == "1" else unit_label(unit)
         ax.set_ylabel(f"{_label(name)} [{shown_unit}]", fontsize="small")
 
