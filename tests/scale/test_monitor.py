@@ -141,7 +141,7 @@ def test_trend_figure_artists(direct):
     ax = panels[KEY_RESULTS["power"].index("first_law_efficiency")]
     axc = panels[KEY_RESULTS["power"].index("carnot_efficiency")]
     assert "[%]" in ax.get_ylabel() and "[%]" in axc.get_ylabel()
-    assert "first law efficiency" in ax.get_ylabel()
+    assert "first-law efficiency" in ax.get_ylabel()
     assert "heat rate [kJ/kWh]" in panels[KEY_RESULTS["power"].index("heat_rate")].get_ylabel()
     assert "mid-time" in axs.get_xlabel()
     labels = ax.get_legend_handles_labels()[1]
