@@ -187,12 +187,16 @@ def effective_sample_size(samples, *, max_lag: int | None = None):
 
 
 # Sokal's window constant: the sum of the autocorrelation runs to the first window M
-# with M >= c tau_int(M).  Sokal recommends c of about 4 for a nearly exponential
-# autocorrelation and about 6 in general ([5], section 3); 5 lies between.  With
-# c = 4, 5, 6 the spread of 120-sample AR(1) means over the mean reported u was
-# 0.98-1.08, 0.97-1.10 and 0.97-1.13 at correlation times 1 to 12 samples
-# (numpy Monte Carlo, 3000 records each).
-SOKAL_C = 5.0
+# with M >= c tau_int(M).  Sokal recommends c of about 4 for an autocorrelation that
+# is nearly a single exponential and about 6 where slower modes may hide ([5],
+# section 3).  On records of 120 samples the noise of the far lags costs more than
+# the tail a short window leaves out: with c = 4, 5 and 6 the spread of the means
+# of AR(1) records (time constants 1 to 12 samples) over the mean reported u was
+# 0.967-1.082, 0.971-1.104 and 0.964-1.127 (numpy Monte Carlo, 20000 records each,
+# benchmarks/bench_mean_uncertainty.py); on 1200 samples (time constants 1 to 120)
+# 0.966-1.040 with c = 4 against 0.957-1.060 with c = 5.  c = 4 keeps the ratio
+# inside 0.95-1.10 up to a time constant of a tenth of the record.
+SOKAL_C = 4.0
 
 
 def _acov_columns(arr: np.ndarray, max_lag: int):
@@ -294,18 +298,23 @@ def random_uncertainty_of_mean(samples, *, autocorrelation: bool = True, max_lag
         \\hat\\tau(M) = \\frac{m \\hat V(M)}{2(\\hat\\gamma_0 + \\hat V(M))}
 
     (for independent samples and M = 0 this is :math:`s^2/m`).  The window is the
-    first :math:`M` with :math:`M \\ge c\\,\\hat\\tau(M)`, :math:`c` = 5 (Sokal's
-    rule: long enough to hold the correlation, short enough to keep the noise of
-    the far lags out), at most ``max_lag`` and only while the denominator stays
-    positive.  :math:`u = \\sqrt{\\hat V}`, never below :math:`s/\\sqrt{2m}` (an
-    alternating record earns at most twice its sample count).
+    first :math:`M` with :math:`M \\ge c\\,\\hat\\tau(M)`, :math:`c` = 4 (Sokal's
+    rule with his choice for a nearly exponential autocorrelation: long enough to
+    hold the correlation, short enough to keep the noise of the far lags out), at
+    most ``max_lag`` and only while the denominator stays positive.
+    :math:`u = \\sqrt{\\hat V}`, never below :math:`s/\\sqrt{2m}` (an alternating
+    record earns at most twice its sample count).
 
-    Checked by simulation (tests/run/test_stats.py): first-order autoregressive
-    records of 120 samples with correlation times of 1, 5, 10 and 12 samples give a
-    spread of the means within about 0.97-1.10 of the mean reported u, where the
-    plain truncated sum (stop at the first negative lag, no bias correction) gave
-    1.14 at 5 and 1.34 at 10.  Beyond a correlation time of about a tenth of the
-    record the window reaches its limit and u is low again: choose a longer window.
+    Checked by simulation (tests/run/test_stats.py,
+    benchmarks/bench_mean_uncertainty.py): first-order autoregressive records
+    :math:`x_t = \\phi x_{t-1} + e_t`, :math:`\\phi = e^{-1/T}` with time constant T
+    (the e-folding lag of the autocorrelation; the integrated time
+    :math:`(1+\\phi)/(1-\\phi)` is about 2T) of 1, 5, 10 and 12 samples in records of
+    120 samples give a spread of the means of 0.97-1.08 times the mean reported u
+    (20000 records each), where the plain truncated sum (stop at the first
+    negative lag, no bias correction) gave 0.99, 1.13, 1.32 and 1.38.  Beyond a
+    time constant of about a tenth of the record the window reaches its limit and u
+    is low again (1.12 at T = 15): choose a longer window.
 
     References
     ----------
