@@ -81,7 +81,7 @@ def bare_random_part(x: np.ndarray) -> np.ndarray:
     denom = n - 1.0 - 2.0 * np.cumsum(w * np.ones_like(gamma[1:]), axis=0)
     V = np.where(denom > 0, S / denom, np.nan)
     tau = n * V / (2.0 * (gamma[0] + V))
-    ok = (lags[1:, None] >= 5.0 * tau) & (denom > 0)
+    ok = (lags[1:, None] >= 4.0 * tau) & (denom > 0)
     last = k_max - 1 - np.argmax((denom > 0)[::-1], axis=0)
     first = np.where(ok.any(axis=0), np.argmax(ok, axis=0), last)
     v = V[first, np.arange(x.shape[1])]

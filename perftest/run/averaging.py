@@ -88,8 +88,10 @@ def average(
     Per tag, from the :math:`m` valid samples:
 
     - value: :math:`\\bar x`; random part
-      :math:`u_r = s/\\sqrt{n_{eff}}` with :math:`\\nu_r = n_{eff} - 1` (at
-      least 1) (:func:`perftest.run.stats.random_uncertainty_of_mean`);
+      :math:`u_r = s/\\sqrt{n_{eff}}`
+      (:func:`perftest.run.stats.random_uncertainty_of_mean`) with
+      :math:`\\nu_r = m/(2M+1)` in [1, m - 1], M the lag window the estimate used
+      (:func:`perftest.run.stats.mean_dof`; m - 1 without ``autocorrelation``);
     - systematic part :math:`u_s` from the plant's
       ``TagSpec.systematic_standard_uncertainty(mean)``, taken with infinite
       degrees of freedom (a stated instrument uncertainty is treated as
@@ -145,8 +147,7 @@ def average(
                 "trend inside the window beyond the scatter for "
                 + ", ".join(f"{tg} (p {_p_text(tt.loc[tg, 'p_value'])})" for tg in hit)
             )
-    _, mean, _, neff, u_r = stats.mean_statistics(x, autocorrelation)
-    dof_r = np.maximum(neff - 1.0, 1.0)
+    _, mean, _, _, u_r, dof_r = stats.mean_statistics(x, autocorrelation, with_dof=True)
     single = [tg for tg, k in zip(tags, n_valid, strict=True) if k == 1]
     if single:
         u_r = np.where(n_valid == 1, 0.0, u_r)

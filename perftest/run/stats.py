@@ -20,6 +20,8 @@ References
 .. [5] A. D. Sokal, "Monte Carlo Methods in Statistical Mechanics: Foundations and
    New Algorithms", 1997 (the automatic window for the integrated autocorrelation
    time; from memory).
+.. [7] M. B. Priestley, "Spectral Analysis and Time Series", Academic Press, 1981
+   (equivalent degrees of freedom of lag-window estimates; from memory).
 """
 
 from __future__ import annotations
@@ -39,6 +41,7 @@ __all__ = [
     "modified_thompson_tau",
     "thompson_tau_outliers",
     "mean_statistics",
+    "mean_dof",
     "mean_covariance",
     "welch_satterthwaite",
     "coverage_factor",
@@ -187,12 +190,16 @@ def effective_sample_size(samples, *, max_lag: int | None = None):
 
 
 # Sokal's window constant: the sum of the autocorrelation runs to the first window M
-# with M >= c tau_int(M).  Sokal recommends c of about 4 for a nearly exponential
-# autocorrelation and about 6 in general ([5], section 3); 5 lies between.  With
-# c = 4, 5, 6 the spread of 120-sample AR(1) means over the mean reported u was
-# 0.98-1.08, 0.97-1.10 and 0.97-1.13 at correlation times 1 to 12 samples
-# (numpy Monte Carlo, 3000 records each).
-SOKAL_C = 5.0
+# with M >= c tau_int(M).  Sokal recommends c of about 4 for an autocorrelation that
+# is nearly a single exponential and about 6 where slower modes may hide ([5],
+# section 3).  On records of 120 samples the noise of the far lags costs more than
+# the tail a short window leaves out: with c = 4, 5 and 6 the spread of the means
+# of AR(1) records (time constants 1 to 12 samples) over the mean reported u was
+# 0.967-1.082, 0.971-1.104 and 0.964-1.127 (numpy Monte Carlo, 20000 records each,
+# benchmarks/bench_mean_uncertainty.py); on 1200 samples (time constants 1 to 120)
+# 0.966-1.040 with c = 4 against 0.957-1.060 with c = 5.  c = 4 keeps the ratio
+# inside 0.95-1.10 up to a time constant of a tenth of the record.
+SOKAL_C = 4.0
 
 
 def _acov_columns(arr: np.ndarray, max_lag: int):
@@ -202,11 +209,17 @@ def _acov_columns(arr: np.ndarray, max_lag: int):
 
 
 def _mean_variance_columns(
-    arr: np.ndarray, max_lag: int | None, c: float = SOKAL_C, *, with_gamma: bool = False
+    arr: np.ndarray,
+    max_lag: int | None,
+    c: float = SOKAL_C,
+    *,
+    with_gamma: bool = False,
+    with_dof: bool = False,
 ):
     """``(V, n_eff, M)`` per column: variance of the mean, effective size, window.
 
-    With ``with_gamma`` also the autocovariances (lags x columns) it used.
+    With ``with_gamma`` also the autocovariances (lags x columns) it used; with
+    ``with_dof`` (instead) the degrees of freedom of V (:func:`mean_dof`).
     """
     n, k = arr.shape
     m = np.isfinite(arr).sum(axis=0).astype(float)
@@ -214,6 +227,8 @@ def _mean_variance_columns(
     neff = np.where(m > 0, m, np.nan)
     M_sel = np.zeros(k, dtype=int)
     if n < 3:
+        if with_dof:
+            return V, neff, M_sel, np.maximum(m - 1.0, 1.0)
         return (V, neff, M_sel, None) if with_gamma else (V, neff, M_sel)
     K = n // 2 if max_lag is None else int(max_lag)
     K = max(1, min(K, n - 1))
@@ -226,7 +241,9 @@ def _mean_variance_columns(
         denom = m - W
         Vm = np.where(denom > 0, S / denom, np.nan)
         tau = m * Vm / (2.0 * (g0 + Vm))  # bias-corrected integrated autocorrelation time
-    lags = np.arange(1, K + 1, dtype=float)[:, None]
+    # the window length in lags that hold pairs: M itself without gaps; a record
+    # logged every j-th row of a finer time base counts every j-th lag only
+    lags = np.cumsum(pairs[1:] > 0, axis=0)
     ok = (lags >= c * tau) & (denom > 0)
     usable = denom > 0
     # first window that satisfies Sokal's rule, else the widest usable one
@@ -247,6 +264,12 @@ def _mean_variance_columns(
     neff = np.where(flat, m, neff)
     V = np.where(m >= 2, V, np.nan)
     neff = np.where(m > 0, neff, np.nan)
+    if with_dof:
+        # m / (1 + 2 sum_{k<=M} P_k/m): m/(2M+1) less the lags the record is too short
+        # for, and gap-aware (a lag without pairs adds no noise)
+        dof = np.clip(m / W[first, cols], 1.0, np.maximum(m - 1.0, 1.0))
+        dof = np.where(np.isfinite(dof), dof, np.maximum(m - 1.0, 1.0))
+        return V, neff, M_sel, dof
     if with_gamma:
         return V, neff, M_sel, gamma
     return V, neff, M_sel
@@ -294,18 +317,23 @@ def random_uncertainty_of_mean(samples, *, autocorrelation: bool = True, max_lag
         \\hat\\tau(M) = \\frac{m \\hat V(M)}{2(\\hat\\gamma_0 + \\hat V(M))}
 
     (for independent samples and M = 0 this is :math:`s^2/m`).  The window is the
-    first :math:`M` with :math:`M \\ge c\\,\\hat\\tau(M)`, :math:`c` = 5 (Sokal's
-    rule: long enough to hold the correlation, short enough to keep the noise of
-    the far lags out), at most ``max_lag`` and only while the denominator stays
-    positive.  :math:`u = \\sqrt{\\hat V}`, never below :math:`s/\\sqrt{2m}` (an
-    alternating record earns at most twice its sample count).
+    first :math:`M` with :math:`M \\ge c\\,\\hat\\tau(M)`, :math:`c` = 4 (Sokal's
+    rule with his choice for a nearly exponential autocorrelation: long enough to
+    hold the correlation, short enough to keep the noise of the far lags out), at
+    most ``max_lag`` and only while the denominator stays positive.
+    :math:`u = \\sqrt{\\hat V}`, never below :math:`s/\\sqrt{2m}` (an alternating
+    record earns at most twice its sample count).
 
-    Checked by simulation (tests/run/test_stats.py): first-order autoregressive
-    records of 120 samples with correlation times of 1, 5, 10 and 12 samples give a
-    spread of the means within about 0.97-1.10 of the mean reported u, where the
-    plain truncated sum (stop at the first negative lag, no bias correction) gave
-    1.14 at 5 and 1.34 at 10.  Beyond a correlation time of about a tenth of the
-    record the window reaches its limit and u is low again: choose a longer window.
+    Checked by simulation (tests/run/test_stats.py,
+    benchmarks/bench_mean_uncertainty.py): first-order autoregressive records
+    :math:`x_t = \\phi x_{t-1} + e_t`, :math:`\\phi = e^{-1/T}` with time constant T
+    (the e-folding lag of the autocorrelation; the integrated time
+    :math:`(1+\\phi)/(1-\\phi)` is about 2T) of 1, 5, 10 and 12 samples in records of
+    120 samples give a spread of the means of 0.97-1.08 times the mean reported u
+    (20000 records each), where the plain truncated sum (stop at the first
+    negative lag, no bias correction) gave 0.99, 1.13, 1.32 and 1.38.  Beyond a
+    time constant of about a tenth of the record the window reaches its limit and u
+    is low again (1.12 at T = 15): choose a longer window.
 
     References
     ----------
@@ -328,14 +356,18 @@ def random_uncertainty_of_mean(samples, *, autocorrelation: bool = True, max_lag
     return _out(mean_statistics(arr, autocorrelation, max_lag)[4], was_1d, columns)
 
 
-def mean_statistics(arr: np.ndarray, autocorrelation: bool = True, max_lag=None):
+def mean_statistics(
+    arr: np.ndarray, autocorrelation: bool = True, max_lag=None, *, with_dof: bool = False
+):
     """Column statistics in one pass: ``(m, mean, s, n_eff, u_mean)``.
 
     ``arr`` is 2-D (samples x columns), NaN = masked.  ``m`` valid counts, ``s``
     with ``ddof=1`` (NaN when m < 2), ``n_eff`` from :func:`effective_sample_size`
     (or m without autocorrelation) and ``u_mean`` from
-    :func:`random_uncertainty_of_mean`.  Used by :func:`perftest.run.averaging.average`
-    so that the autocorrelation is computed once.
+    :func:`random_uncertainty_of_mean`.  With ``with_dof`` a sixth item: the
+    degrees of freedom of ``u_mean`` (:func:`mean_dof`; m - 1 without
+    autocorrelation).  Used by :func:`perftest.run.averaging.average` so that the
+    autocorrelation is computed once.
     """
     arr = np.asarray(arr, dtype=float)
     m = np.isfinite(arr).sum(axis=0)
@@ -344,13 +376,66 @@ def mean_statistics(arr: np.ndarray, autocorrelation: bool = True, max_lag=None)
         mean = np.nanmean(arr, axis=0)
         s = np.where(m >= 2, np.nanstd(arr, axis=0, ddof=1), np.nan)
     if autocorrelation:
-        V, neff, _ = _mean_variance_columns(arr, max_lag)
+        V, neff, _, dof = _mean_variance_columns(arr, max_lag, with_dof=True)
         u = np.sqrt(V)
     else:
         neff = np.where(m > 0, m, np.nan)
         with np.errstate(invalid="ignore", divide="ignore"):
             u = s / np.sqrt(neff)
+        dof = np.maximum(m - 1.0, 1.0)
+    if with_dof:
+        return m, mean, s, neff.astype(float), u, dof
     return m, mean, s, neff.astype(float), u
+
+
+def mean_dof(samples, *, max_lag: int | None = None):
+    """Degrees of freedom of the random uncertainty of a mean of autocorrelated samples.
+
+    Parameters
+    ----------
+    samples : array_like or Series or DataFrame
+        Equally spaced samples of one tag (1-D) or several tags (2-D) [any unit];
+        NaN marks a masked sample.
+    max_lag : int, optional
+        As in :func:`random_uncertainty_of_mean`.
+
+    Returns
+    -------
+    float or ndarray or Series
+        :math:`\\nu = m / (1 + 2\\sum_{k=1}^{M} P_k/m)` within :math:`[1, m-1]`,
+        about :math:`m/(2M+1)`; M the summation window
+        :func:`random_uncertainty_of_mean` chose, :math:`P_k` the pairs at lag k, m
+        the valid samples.  m - 1 for fewer than 3 samples.
+
+    Notes
+    -----
+    :math:`\\hat V` of :func:`random_uncertainty_of_mean` is a truncated (rectangular
+    lag window) estimate of the spectral density at frequency zero.  Such an
+    estimate is distributed about as :math:`\\chi^2_\\nu/\\nu` with equivalent degrees
+    of freedom :math:`\\nu = 2m/\\sum_{|k| \\le M}\\lambda_k^2 = 2m/(2M+1)` away from
+    frequency zero, half of that at zero for a real record ([7]_, section 6.2.4 and
+    its table of lag windows; from memory).  Here each lag counts with its share of
+    pairs :math:`P_k/m`, so that lags a gappy record holds no pairs for add no
+    degrees of freedom.  The dof of a mean is thus set by the window its
+    correlation needs, not by :math:`n_{eff} - 1`: with :math:`n_{eff} - 1` the 95 %
+    intervals :math:`\\bar x \\pm t_{0.975,\\nu}\\,u` of AR(1) records of 120 samples
+    (time constants 1, 5, 10, 12 samples) held the true mean in 93.8, 91.4, 88.5
+    and 87.5 % of 20000 records; with this :math:`\\nu` in 95.4, 95.4, 94.4 and
+    93.7 % (white noise 95.0 %).
+
+    References
+    ----------
+    .. [7] M. B. Priestley, Spectral Analysis and Time Series, Academic Press, 1981,
+       section 6.2.4 (from memory).
+
+    Examples
+    --------
+    >>> x = [1.0, 2.0, 1.5, 2.5, 2.0, 3.0, 2.5, 3.5]
+    >>> 1.0 <= mean_dof(x) <= 7.0
+    True
+    """
+    arr, was_1d, columns = _as_2d(samples, "mean_dof")
+    return _out(mean_statistics(arr, True, max_lag, with_dof=True)[5], was_1d, columns)
 
 
 def mean_covariance(arr: np.ndarray, max_lag=None) -> np.ndarray:
