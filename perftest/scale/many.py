@@ -49,6 +49,7 @@ from perftest.scale.windows import (
     _check_min_samples,
     _Chunk,
     _chunks,
+    _Cutter,
     _cut,
     _duration,
     _Source,
@@ -327,9 +328,10 @@ def _chunk_rows(plant, chunk: _Chunk, run: Run | None, options: _Options) -> lis
         run, notes = read_piece(chunk.piece, plant, dict(chunk.read_kw))
     rows = []
     previous = None
+    cutter = None if run is None else _Cutter(run)
     for spec in chunk.windows:
-        w = None if run is None else _cut(run, spec.start, spec.end, lean=False)
-        row, rec = _window_row(plant, w, spec, options, previous)
+        w, share = (None, 1.0) if cutter is None else cutter(spec.start, spec.end)
+        row, rec = _window_row(plant, w, spec, options, previous, share)
         if rec is not None and options.warm_start:
             previous = rec
         rows.append(row)
@@ -340,14 +342,14 @@ def _chunk_rows(plant, chunk: _Chunk, run: Run | None, options: _Options) -> lis
     return rows
 
 
-def _window_row(plant, run: Run | None, spec: _Window, options: _Options, start=None):
-    """``(row, reconciliation or None)`` of one window."""
+def _window_row(plant, run: Run | None, spec: _Window, options: _Options, start=None, share=None):
+    """``(row, reconciliation or None)`` of one window (``share``: its coverage, if known)."""
     with _WINDOW_LOCK, warnings.catch_warnings(record=True) as caught:
         # "always": every warning of this window is recorded, whatever the
         # process's warning registry has already seen, so the row does not depend
         # on which window a process happened to compute first.
         warnings.simplefilter("always")
-        row, rec = _compute_row(plant, run, spec, options, start)
+        row, rec = _compute_row(plant, run, spec, options, start, share)
     seen = []
     for w in caught:
         text = f"{w.category.__name__}: {w.message}"
@@ -357,7 +359,7 @@ def _window_row(plant, run: Run | None, spec: _Window, options: _Options, start=
     return row, rec
 
 
-def _compute_row(plant, run, spec, options, start=None):
+def _compute_row(plant, run, spec, options, start=None, share=None):
     from perftest.balance.plant import reconcile
 
     row = {
@@ -377,7 +379,8 @@ def _compute_row(plant, run, spec, options, start=None):
             f"{row['n_samples']} sample(s) in the window, fewer than min_samples={spec.min_samples}"
         )
         return row, None
-    share = _window_coverage(run)
+    if share is None:
+        share = _window_coverage(run)
     if share < MIN_COVERAGE:
         row["reason"] = f"coverage {share:.0%} of the window, below the minimum {MIN_COVERAGE:.0%}"
         return row, None
@@ -401,8 +404,7 @@ def _compute_row(plant, run, spec, options, start=None):
             plant, measurements, eliminate=options.eliminate, alpha=options.alpha, start=start
         )
         gt = rec.global_test
-        table = rec.to_frame(units="si")
-        suspects = [str(t) for t in table.loc[table["suspect"].astype(bool), "tag"]]
+        suspects = _suspects(rec)
         row.update(
             chi2=gt["chi2"],
             dof=gt["dof"],
@@ -443,6 +445,22 @@ def _compute_row(plant, run, spec, options, start=None):
             row["reason"] += f"; stability: {unstable} of the permissible variation"
         rec = None
     return row, rec
+
+
+def _suspects(rec) -> list[str]:
+    """The tags ``rec.to_frame()`` marks suspect, in its row order, without the table.
+
+    A tag the solver kept is suspect when the measurement test flags it; a tag it
+    does not hold is suspect when elimination dropped it.
+    """
+    pos = {t: i for i, t in enumerate(rec.solver_tags)}
+    flagged = {int(i) for i in rec.result.suspects(rec.alpha)}
+    elim = set(rec.eliminated_tags)
+    return [
+        str(t)
+        for t in rec.measurements.tags
+        if (pos[t] in flagged if t in pos else t in elim)
+    ]
 
 
 # --------------------------------------------------------------------------- table
