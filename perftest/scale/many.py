@@ -42,19 +42,19 @@ from perftest.defaults import CHECK_STABILITY, ELIMINATE, MIN_COVERAGE, RECONCIL
 from perftest.display.views import WindowTable
 from perftest.errors import InputError, PerftestError
 from perftest.run.core import Run
-from perftest.run.windows import sampling_interval
 from perftest.scale.store import Progress, StoreLock, WindowStore, fingerprint
 from perftest.scale.windows import (
     _as_runs,
     _check_min_samples,
     _Chunk,
     _chunks,
-    _Cutter,
     _cut,
+    _Cutter,
     _duration,
     _Source,
     _sources,
     _Window,
+    _window_coverage,
 )
 
 __all__ = ["reconcile_many", "local_cluster", "ENGINES", "KEY_RESULTS", "TABLE_COLUMNS"]
@@ -361,6 +361,7 @@ def _window_row(plant, run: Run | None, spec: _Window, options: _Options, start=
 
 def _compute_row(plant, run, spec, options, start=None, share=None):
     from perftest.balance.plant import reconcile
+    from perftest.run.stability import judge
 
     row = {
         "run": spec.run,
@@ -392,11 +393,14 @@ def _compute_row(plant, run, spec, options, start=None, share=None):
             run = run.screen_outliers()
         if options.stability:
             stage = "stability"
-            st = run.stability(warn=False)
-            bad = st.index[(st["passed"] == False).to_numpy(dtype=bool, na_value=False)]  # noqa: E712
-            row["stable"] = not len(bad)
-            unstable = ", ".join(f"{t} ({float(st.loc[t, 'ratio']):.2g}x)" for t in bad)
-            row["unstable"] = ", ".join(str(t) for t in bad)
+            # run.stability(warn=False)'s verdicts, without its table
+            tags = list(run.data.columns)
+            st = judge(run, tags)
+            failed = (st["passed"] == False).to_numpy(dtype=bool, na_value=False)  # noqa: E712
+            bad = [(t, float(r)) for t, r, f in zip(tags, st["ratio"], failed, strict=True) if f]
+            row["stable"] = not bad
+            unstable = ", ".join(f"{t} ({r:.2g}x)" for t, r in bad)
+            row["unstable"] = ", ".join(str(t) for t, _ in bad)
             stage = "average"
         measurements = run.average()
         stage = "reconcile"
@@ -428,10 +432,13 @@ def _compute_row(plant, run, spec, options, start=None, share=None):
                 *_headline(plant),
                 *(n for n in perf.results.index if str(n).startswith("corrected_")),
             )
+            res = perf.results
+            at = {str(n): i for i, n in reversed(list(enumerate(res.index)))}
+            value, u = res["value"].to_numpy(dtype=float), res["u"].to_numpy(dtype=float)
             for name in names:
-                if name in perf.results.index:
-                    row[name] = float(perf.results.loc[name, "value"])
-                    row[f"u_{name}"] = float(perf.results.loc[name, "u"])
+                if name in at:
+                    row[name] = float(value[at[name]])
+                    row[f"u_{name}"] = float(u[at[name]])
         row["status"] = "ok"
         if unstable:
             row["status"] = "unstable"
@@ -456,11 +463,7 @@ def _suspects(rec) -> list[str]:
     pos = {t: i for i, t in enumerate(rec.solver_tags)}
     flagged = {int(i) for i in rec.result.suspects(rec.alpha)}
     elim = set(rec.eliminated_tags)
-    return [
-        str(t)
-        for t in rec.measurements.tags
-        if (pos[t] in flagged if t in pos else t in elim)
-    ]
+    return [str(t) for t in rec.measurements.tags if (pos[t] in flagged if t in pos else t in elim)]
 
 
 # --------------------------------------------------------------------------- table
@@ -926,13 +929,3 @@ def reconcile_many(
             wstore.prune()
         ordered = [frames[i] for i in range(len(chunks))]
         return WindowTable(_finish(ordered, [c.run_number for c in chunks], options.results))
-
-
-def _window_coverage(run) -> float:
-    """Sample times holding a valid value over those a window of its length expects."""
-    dt = sampling_interval(run.data.index)
-    if not (np.isfinite(dt) and dt > 0) or run.start is None or run.end is None:
-        return 1.0
-    expected = (run.end - run.start) / pd.Timedelta(seconds=1) / dt
-    valid = int((~run.mask.to_numpy().all(axis=1)).sum())
-    return valid / expected if expected > 0 else 1.0

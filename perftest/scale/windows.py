@@ -22,6 +22,7 @@ import pandas as pd
 
 from perftest.errors import InputError
 from perftest.run.core import Run
+from perftest.run.windows import sampling_interval as _sampling_interval
 
 
 @dataclasses.dataclass(frozen=True)
@@ -377,6 +378,16 @@ def _cut(run: Run, start, end, lean: bool) -> Run | None:
     )
 
 
+def _window_coverage(run) -> float:
+    """Sample times holding a valid value over those a window of its length expects."""
+    dt = _sampling_interval(run.data.index)
+    if not (np.isfinite(dt) and dt > 0) or run.start is None or run.end is None:
+        return 1.0
+    expected = (run.end - run.start) / pd.Timedelta(seconds=1) / dt
+    valid = int((~run.mask.to_numpy().all(axis=1)).sum())
+    return valid / expected if expected > 0 else 1.0
+
+
 # The attributes a Run holds; a run with others (a later addition to Run) is cut the
 # slow way, so that nothing of it is lost.
 _RUN_FIELDS = frozenset(
@@ -424,8 +435,6 @@ class _Cutter:
             w = _cut(run, start, end, lean=False)
             if w is None:
                 return None, 1.0
-            from perftest.scale.many import _window_coverage
-
             return w, _window_coverage(w)
         i0, i1 = np.searchsorted(self.ns, [self._ns(start), self._ns(end)], side="left")
         i0, i1 = int(i0), int(i1)
