@@ -22,6 +22,7 @@ import pandas as pd
 
 from perftest.errors import InputError
 from perftest.run.core import Run
+from perftest.run.windows import _median_step
 from perftest.run.windows import sampling_interval as _sampling_interval
 
 
@@ -395,13 +396,6 @@ _RUN_FIELDS = frozenset(
 )
 
 
-def _interval_seconds(ns: np.ndarray) -> float:
-    """:func:`perftest.run.windows.sampling_interval` of int64 times [ns], same float."""
-    if len(ns) < 2:
-        return float("nan")
-    return float(np.median(np.diff((ns - ns[0]) / 1_000_000_000)))
-
-
 class _Cutter:
     """The windows of one chunk's run, each equal to ``_cut(run, start, end, lean=False)``.
 
@@ -420,8 +414,10 @@ class _Cutter:
         idx = run.data.index
         # int64 [ns] since the epoch (UTC for zoned times), whatever the index's unit
         self.ns = idx.as_unit("ns").asi8
+        # the index's own ticks and unit, for sampling intervals as sampling_interval
+        self.ticks, self.unit = idx.asi8, idx.unit
         self.fast = set(vars(run)) <= _RUN_FIELDS
-        self.dt = _interval_seconds(self.ns)
+        self.dt = _median_step(self.ticks, self.unit)
         self.masked = run.mask.to_numpy()
         self.any_valid = ~self.masked.all(axis=1)
 
@@ -464,7 +460,7 @@ class _Cutter:
         w.units = dict(run.units)
         w.start, w.end = t0, t1
         # the window's own coverage: its own sampling interval, as _window_coverage
-        own = _interval_seconds(self.ns[i0:i1])
+        own = _median_step(self.ticks[i0:i1], self.unit)
         if not (np.isfinite(own) and own > 0):
             return w, 1.0
         expected = (t1 - t0) / pd.Timedelta(seconds=1) / own
