@@ -421,13 +421,15 @@ def _compute_row(plant, run, spec, options, start=None, share=None):
             eliminated=", ".join(e.tag for e in rec.eliminated),
         )
         if options.results is not None:
-            from perftest.evaluation.results import evaluate
+            from perftest.evaluation.results import evaluate, results_only
 
             stage = "evaluate"
             # Linear propagation only: the Monte Carlo check, the budgets and the
             # exergy analysis belong to the detailed evaluation of a chosen window,
             # not to a trend table (the results are the same either way).
-            perf = evaluate(plant, rec, monte_carlo=False, detail=False)
+            # (results_only: nor the corrections, guarantees and inputs tables)
+            with results_only():
+                perf = evaluate(plant, rec, monte_carlo=False, detail=False)
             names = options.results or (
                 *_headline(plant),
                 *(n for n in perf.results.index if str(n).startswith("corrected_")),
