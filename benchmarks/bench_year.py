@@ -46,12 +46,14 @@ import sys  # noqa: E402
 from pathlib import Path  # noqa: E402
 
 # The perftest of this source tree, in this process, the child processes and the
-# Dask workers (ahead of an installed copy); --compare-with puts another one first.
+# Dask workers (ahead of an installed copy); a child takes the one its PYTHONPATH
+# names first (--compare-with puts another tree there).
 ROOT = Path(__file__).resolve().parents[1]
-sys.path.insert(0, str(ROOT))
-os.environ["PYTHONPATH"] = os.pathsep.join(
-    p for p in (str(ROOT), os.environ.get("PYTHONPATH", "")) if p
-)
+if "--child" not in sys.argv:
+    sys.path.insert(0, str(ROOT))
+    os.environ["PYTHONPATH"] = os.pathsep.join(
+        p for p in (str(ROOT), os.environ.get("PYTHONPATH", "")) if p
+    )
 
 import argparse  # noqa: E402
 import importlib.util  # noqa: E402
