@@ -15,7 +15,13 @@ Measured in the same run, printed with the load average beside them:
   on a 2-core machine;
 * peak resident memory of the local engine for a short job (``--days`` / 12) and
   the full one; target: full / short <= 1.3 (memory does not grow with the length
-  of the logs).
+  of the logs);
+* the local engine's windows per second against :data:`REFERENCE_RATE` (issue 20:
+  34.8 windows/s measured before the window loop was made faster; target 3x), and,
+  with ``--compare-with DIR`` (a perftest source tree of an earlier commit, e.g.
+  ``git worktree add /tmp/before <commit>``), against that code measured in the same
+  run: the two are run alternately ``--repeats`` times on the same logs, the ratio
+  of each pair printed with its spread, and their tables compared.
 
 The logs are generated here, vectorised, from the demo's consistent heat balance
 (``sample_data/brackenfold/generate.py``: design point, instruments, noise
@@ -36,24 +42,39 @@ import os
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 os.environ.setdefault("OMP_NUM_THREADS", "1")
 
+import sys  # noqa: E402
+from pathlib import Path  # noqa: E402
+
+# The perftest of this source tree, in this process, the child processes and the
+# Dask workers (ahead of an installed copy); a child takes the one its PYTHONPATH
+# names first (--compare-with puts another tree there).
+ROOT = Path(__file__).resolve().parents[1]
+if "--child" not in sys.argv:
+    sys.path.insert(0, str(ROOT))
+    os.environ["PYTHONPATH"] = os.pathsep.join(
+        p for p in (str(ROOT), os.environ.get("PYTHONPATH", "")) if p
+    )
+
 import argparse  # noqa: E402
 import importlib.util  # noqa: E402
 import json  # noqa: E402
 import resource  # noqa: E402
 import shutil  # noqa: E402
 import subprocess  # noqa: E402
-import sys  # noqa: E402
 import tempfile  # noqa: E402
 import time  # noqa: E402
 import warnings  # noqa: E402
-from pathlib import Path  # noqa: E402
 
 import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
 
-DEMO = Path(__file__).resolve().parents[1] / "sample_data" / "brackenfold"
+DEMO = ROOT / "sample_data" / "brackenfold"
 EVERY = "15min"
 RATIO_TARGET = 1.6
+# windows/s of the local engine on this job before issue 20 (one core, one BLAS
+# thread), and the speed-up asked for
+REFERENCE_RATE = 34.8
+SPEEDUP_TARGET = 3.0
 MEMORY_TARGET = 1.3
 DRIFT_TAG, DRIFT_PER_YEAR = "FT-201", 0.015
 
@@ -128,15 +149,55 @@ def child(args) -> None:
     seconds = time.perf_counter() - t
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
     ok = int((table["status"].isin(["ok", "unstable"])).sum())
-    print(json.dumps({"seconds": seconds, "windows": len(table), "ok": ok, "peak_mib": peak}))
+    import perftest
+
+    where = str(Path(perftest.__file__).parents[1])
+    print(json.dumps({"seconds": seconds, "windows": len(table), "ok": ok, "peak_mib": peak,
+                      "tree": where}))  # fmt: skip
     table.to_parquet(args.table)
 
 
-def _local(plant, files, table_path):
+def _local(plant, files, table_path, source=None):
+    """One local job in a child process; ``source``: a perftest tree to import instead."""
     cmd = [sys.executable, __file__, "--child", "--plant", str(plant), "--table",
            str(table_path), "--files", *map(str, files)]  # fmt: skip
-    out = subprocess.run(cmd, capture_output=True, text=True, check=True)
+    env = None
+    if source is not None:
+        env = dict(os.environ)
+        env["PYTHONPATH"] = os.pathsep.join([str(source), env.get("PYTHONPATH", "")])
+    out = subprocess.run(cmd, capture_output=True, text=True, check=True, env=env)
     return json.loads(out.stdout.strip().splitlines()[-1])
+
+
+def _spread(values) -> str:
+    v = np.asarray(values, dtype=float)
+    return f"median {np.median(v):.2f} (min {v.min():.2f}, max {v.max():.2f}, n={v.size})"
+
+
+def compare(plant, files, tmp: Path, source: Path, repeats: int) -> None:
+    """This tree's local engine against the tree ``source``, alternately, same logs."""
+    here = ROOT
+    rates: dict = {"before": [], "now": []}
+    ratios = []
+    for k in range(repeats):
+        pair = {}
+        order = ("before", "now") if k % 2 == 0 else ("now", "before")
+        for which in order:
+            tree = source if which == "before" else here
+            res = _local(plant, files, tmp / f"{which}.parquet", source=tree)
+            if Path(res["tree"]) != tree:
+                raise SystemExit(f"the {which} job imported perftest from {res['tree']}")
+            pair[which] = res["windows"] / res["seconds"]
+            rates[which].append(pair[which])
+        ratios.append(pair["now"] / pair["before"])
+        print(f"  pair {k + 1}: before {pair['before']:.2f}, now {pair['now']:.2f} "
+              f"windows/s, ratio {ratios[-1]:.2f}  [{_load()}]")  # fmt: skip
+    same = _compare(pd.read_parquet(tmp / "now.parquet"), pd.read_parquet(tmp / "before.parquet"))
+    print(f"before ({source}): {_spread(rates['before'])} windows/s")
+    print(f"now: {_spread(rates['now'])} windows/s")
+    verdict = "PASS" if np.median(ratios) >= SPEEDUP_TARGET else "FAIL"
+    print(f"ratio now/before {_spread(ratios)}; tables identical: {same}  "
+          f"(target >= {SPEEDUP_TARGET})  {verdict}")  # fmt: skip
 
 
 def _compare(table: pd.DataFrame, local: pd.DataFrame) -> str:
@@ -166,6 +227,14 @@ def main() -> None:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--days", type=int, default=365, help="days of logs (default 365)")
     p.add_argument("--workers", type=int, default=2)
+    p.add_argument(
+        "--compare-with",
+        type=Path,
+        metavar="DIR",
+        help="a perftest source tree (an earlier commit) to time alternately",
+    )
+    p.add_argument("--repeats", type=int, default=3, help="pairs of runs for --compare-with")
+    p.add_argument("--no-dask", action="store_true", help="time the local engine only")
     p.add_argument("--child", action="store_true", help=argparse.SUPPRESS)
     p.add_argument("--plant", help=argparse.SUPPRESS)
     p.add_argument("--table", help=argparse.SUPPRESS)
@@ -189,11 +258,19 @@ def main() -> None:
               f"{short_days} days in {time.perf_counter() - t:.0f} s")  # fmt: skip
         print(_load())
 
+        if args.compare_with is not None:
+            compare(plant, full, tmp, args.compare_with.resolve(), args.repeats)
         res_short = _local(plant, short, tmp / "short.parquet")
         res_full = _local(plant, full, tmp / "local.parquet")
         local_rate = res_full["windows"] / res_full["seconds"]
         print(f"local engine: {res_full['windows']} windows ({res_full['ok']} reconciled) in "
               f"{res_full['seconds']:.1f} s = {local_rate:.2f} windows/s  [{_load()}]")  # fmt: skip
+        speedup = local_rate / REFERENCE_RATE
+        verdict = "PASS" if speedup >= SPEEDUP_TARGET else "FAIL"
+        print(f"against the stated reference of {REFERENCE_RATE} windows/s (before issue 20): "
+              f"{speedup:.2f}x (target >= {SPEEDUP_TARGET})  {verdict}")  # fmt: skip
+        if args.no_dask:
+            return
 
         from distributed import Client
 

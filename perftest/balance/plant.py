@@ -14,7 +14,7 @@ import scipy.sparse as sp
 
 from perftest.balance._threads import one_blas_thread_when_small
 from perftest.balance.ambiguity import TIE_RTOL  # noqa: F401 - kept importable here
-from perftest.balance.plant_elimination import EliminatedTag, choice_table, trusted_tags
+from perftest.balance.plant_elimination import EliminatedTag, bound, choice_table, trusted_tags
 from perftest.balance.plant_elimination import eliminate as _eliminate_tags
 from perftest.defaults import RECONCILIATION_ALPHA
 from perftest.errors import ConvergenceError, InputError, ReconciliationWarning
@@ -788,7 +788,7 @@ def reconcile(
     check_declared_phases(
         plant, model.spec, {t: (measurements[t].value, measurements[t].u) for t in present}
     )
-    model = model.bind(present)
+    model = bound(model, present)
     in_model = set(present)
     cov = np.asarray(measurements.cov, dtype=float)
     mi = [measurements.index(t) for t in present]

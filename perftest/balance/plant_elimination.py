@@ -13,8 +13,10 @@ Layer: below :mod:`perftest.balance.plant`, which passes in its solve function.
 
 from __future__ import annotations
 
+import threading
 import tomllib
 import warnings
+import weakref
 from dataclasses import dataclass
 
 import numpy as np
@@ -166,6 +168,33 @@ def _start(model, previous, measurements):
     return y
 
 
+# bind() results per model and tag set: a trend reconciles window after window with
+# the same tags, and binding builds the model's index arrays again each time.  A
+# bound model is never changed after binding (its property cache only keeps exact
+# repeats), so windows may share it.  Weak keys: the cache goes with its model.
+_BOUND: weakref.WeakKeyDictionary = weakref.WeakKeyDictionary()
+_BOUND_LOCK = threading.Lock()
+_BOUND_PER_MODEL = 64  # tag sets kept per model (elimination makes a few per window)
+
+
+def bound(model, measured):
+    """``model.bind(measured)``, reused for a model and tag set bound before."""
+    key = tuple(measured)
+    with _BOUND_LOCK:
+        per = _BOUND.get(model)
+        if per is None:
+            per = _BOUND[model] = {}
+        out = per.get(key)
+    if out is not None and out.combustion is model.combustion:
+        return out
+    out = model.bind(key)
+    with _BOUND_LOCK:
+        if len(per) >= _BOUND_PER_MODEL:
+            per.pop(next(iter(per)))
+        per[key] = out
+    return out
+
+
 def eliminate(model, result, tags, measurements, alpha, trusted, solve):
     """Serial elimination, the rule of :func:`perftest.balance.serial_elimination`.
 
@@ -220,7 +249,7 @@ def eliminate(model, result, tags, measurements, alpha, trusted, solve):
         previous = model.slot_values(result.x[:nx], result.y)
         before = result
         if len(group) == 1:
-            model = model.bind([t for t in model.measured if t != group[0]])
+            model = bound(model, [t for t in model.measured if t != group[0]])
             result, tags = _quiet(solve, model, _start(model, previous, measurements), shared)
             steps.append(
                 EliminatedTag(
@@ -235,7 +264,7 @@ def eliminate(model, result, tags, measurements, alpha, trusted, solve):
             )
             continue
         for g, tag in zip(positions, group, strict=True):
-            alt_model = model.bind([t for t in model.measured if t != tag])
+            alt_model = bound(model, [t for t in model.measured if t != tag])
             alt, alt_tags = _quiet(
                 solve, alt_model, _start(alt_model, previous, measurements), shared
             )

@@ -33,6 +33,8 @@ References
 
 from __future__ import annotations
 
+import contextlib
+import contextvars
 import math
 from dataclasses import dataclass, field
 
@@ -67,6 +69,26 @@ __all__ = ["Performance", "evaluate", "RESULT_UNITS", "fuel_exergy_ratio"]
 # uncertainty to about 0.5 % (relative standard error 1/sqrt(2M)), plenty for a
 # check of the linear propagation, and take well under a second.
 _MC_TRIALS = 20_000
+
+# True inside results_only() (see there)
+_RESULTS_ONLY: contextvars.ContextVar[bool] = contextvars.ContextVar(
+    "perftest_results_only", default=False
+)
+
+
+@contextlib.contextmanager
+def results_only():
+    """Within the block, :func:`evaluate` builds only its ``results`` table (and ``cov``).
+
+    For loops over many windows that read the results' values and uncertainties:
+    the corrections, guarantees and inputs tables come back empty, every check that
+    can raise still runs, and the results are the same.
+    """
+    token = _RESULTS_ONLY.set(True)
+    try:
+        yield
+    finally:
+        _RESULTS_ONLY.reset(token)
 
 
 # --------------------------------------------------------------------------- result
@@ -268,6 +290,7 @@ def evaluate(
             parameter="level",
         )
     rec = reconciliation
+    bare = _RESULTS_ONLY.get()
     table = _performance_table(plant)
     needs = kinds.gather(plant, table, rec)
     notes: list[str] = list(needs.notes)
@@ -466,6 +489,8 @@ def evaluate(
         f = float(c(*xc))
         if c.kind == "multiplicative":
             check_factor(plant, ci, f, c.result)
+        if bare:
+            continue
         measured = (
             float(y0[outputs.index(c.result)])
             if c.result in outputs
@@ -485,18 +510,22 @@ def evaluate(
                 relative_change=change / measured if measured else math.nan,
             )
         )
-    corrections = pd.DataFrame(
-        corr_rows,
-        columns=[
-            "result",
-            "variable",
-            "condition",
-            "reference",
-            "kind",
-            "factor",
-            "change",
-            "relative_change",
-        ],
+    corrections = (
+        pd.DataFrame()
+        if bare
+        else pd.DataFrame(
+            corr_rows,
+            columns=[
+                "result",
+                "variable",
+                "condition",
+                "reference",
+                "kind",
+                "factor",
+                "change",
+                "relative_change",
+            ],
+        )
     )
 
     # ---- guarantees
@@ -510,6 +539,8 @@ def evaluate(
                 f"({', '.join(results.index)}).",
                 "guarantees",
             )
+        if bare:
+            continue
         val = float(results.loc[g.quantity, "value"])
         U = float(results.loc[g.quantity, "U95"])
         g_rows.append(
@@ -526,20 +557,24 @@ def evaluate(
                 rule_statement=g.statement(),
             )
         )
-    guarantees = pd.DataFrame(
-        g_rows,
-        columns=[
-            "quantity",
-            "corrected_value",
-            "U95",
-            "guaranteed",
-            "direction",
-            "verdict",
-            "unit",
-            "margin",
-            "rule",
-            "rule_statement",
-        ],
+    guarantees = (
+        pd.DataFrame()
+        if bare
+        else pd.DataFrame(
+            g_rows,
+            columns=[
+                "quantity",
+                "corrected_value",
+                "U95",
+                "guaranteed",
+                "direction",
+                "verdict",
+                "unit",
+                "margin",
+                "rule",
+                "rule_statement",
+            ],
+        )
     )
 
     # ---- exergy per unit
@@ -552,11 +587,14 @@ def evaluate(
     else:
         exergy, losses, closure = pd.DataFrame(), {}, None
 
-    inputs = pd.DataFrame(
-        {"value": x, "u": np.sqrt(np.diag(cov)), "role": [roles[n] for n in names]},
-        index=pd.Index(names, name="input"),
-    )
-    if block is not None:
+    if bare:
+        inputs = pd.DataFrame()
+    else:
+        inputs = pd.DataFrame(
+            {"value": x, "u": np.sqrt(np.diag(cov)), "role": [roles[n] for n in names]},
+            index=pd.Index(names, name="input"),
+        )
+    if block is not None and not bare:
         # the boiler inputs that are reconciled variables or the heating value (the
         # separate methods' measured inputs stay in the boiler budgets only)
         extra = block.inputs[

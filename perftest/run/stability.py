@@ -133,7 +133,49 @@ def stability(run, limits=None, *, tags=None, warn: bool = True) -> pd.DataFrame
     are a percentage of the window mean.
     """
     tags = run._check_tags(tags, "stability")
-    x = run.data[tags].to_numpy(dtype=float)
+    a = judge(run, tags, limits)
+    table = pd.DataFrame(
+        {
+            "quantity": [run.quantities.get(tg, "") for tg in tags],
+            "n": a["n"],
+            "mean": a["mean"],
+            "std": a["std"],
+            "min": a["min"],
+            "max": a["max"],
+            "max_deviation": a["max_deviation"],
+            "drift": a["drift"],
+            "permissible": a["permissible"],
+            "ratio": a["ratio"],
+            "passed": a["passed"],
+            "basis": a["basis"],
+        },
+        index=pd.Index(tags, name="tag"),
+    )
+    failing = table.index[table["passed"].fillna(True).to_numpy() == False].tolist()  # noqa: E712
+    if warn and failing:
+        worst = table.loc[failing, "ratio"].sort_values(ascending=False)
+        shown = ", ".join(f"{tg} ({r:.2f})" for tg, r in worst.items())
+        warnings.warn(
+            f"{len(failing)} tag(s) vary more than permitted in the window "
+            f"{fmt_time(run.data.index[0])} to {fmt_time(run.data.index[-1])} "
+            f"(ratio to the permissible variation): {shown}.",
+            StabilityWarning,
+            stacklevel=3,
+        )
+    return table
+
+
+def judge(run, tags: list[str], limits=None) -> dict:
+    """The columns of :func:`stability`'s table as arrays, in the order of ``tags``.
+
+    ``tags`` must be tags of the run (checked by the caller).  The table's columns
+    are computed here, so that a loop over many windows that needs only a few of
+    them (``ratio``, ``passed``) builds no table.
+    """
+    if list(run.data.columns) == list(tags):
+        x = run.data.to_numpy(dtype=float)  # every tag in order: no column selection
+    else:
+        x = run.data[tags].to_numpy(dtype=float)
     n = np.isfinite(x).sum(axis=0)
     t = (run.data.index - run.data.index[0]) / pd.Timedelta(seconds=1)
     t = np.asarray(t, dtype=float)[:, None] * np.ones((1, len(tags)))
@@ -157,32 +199,16 @@ def stability(run, limits=None, *, tags=None, warn: bool = True) -> pd.DataFrame
     passed = pd.array(
         [pd.NA if not np.isfinite(r) else bool(r <= 1.0) for r in ratio], dtype="boolean"
     )
-    table = pd.DataFrame(
-        {
-            "quantity": [run.quantities.get(tg, "") for tg in tags],
-            "n": n,
-            "mean": mean,
-            "std": std,
-            "min": lo,
-            "max": hi,
-            "max_deviation": maxdev,
-            "drift": drift,
-            "permissible": perm,
-            "ratio": ratio,
-            "passed": passed,
-            "basis": basis,
-        },
-        index=pd.Index(tags, name="tag"),
-    )
-    failing = table.index[table["passed"].fillna(True).to_numpy() == False].tolist()  # noqa: E712
-    if warn and failing:
-        worst = table.loc[failing, "ratio"].sort_values(ascending=False)
-        shown = ", ".join(f"{tg} ({r:.2f})" for tg, r in worst.items())
-        warnings.warn(
-            f"{len(failing)} tag(s) vary more than permitted in the window "
-            f"{fmt_time(run.data.index[0])} to {fmt_time(run.data.index[-1])} "
-            f"(ratio to the permissible variation): {shown}.",
-            StabilityWarning,
-            stacklevel=3,
-        )
-    return table
+    return {
+        "n": n,
+        "mean": mean,
+        "std": std,
+        "min": lo,
+        "max": hi,
+        "max_deviation": maxdev,
+        "drift": drift,
+        "permissible": perm,
+        "ratio": ratio,
+        "passed": passed,
+        "basis": basis,
+    }

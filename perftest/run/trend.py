@@ -95,7 +95,10 @@ def trend_test(
             f"The 'alpha' parameter of Run.trend must lie in (0, 1). Got {alpha!r}.",
             parameter="alpha",
         )
-    x = run.data[tags].to_numpy(dtype=float)
+    if list(run.data.columns) == tags:
+        x = run.data.to_numpy(dtype=float)  # every tag in order: no column selection
+    else:
+        x = run.data[tags].to_numpy(dtype=float)
     idx = run.data.index
     t = np.asarray((idx - idx[0]) / pd.Timedelta(seconds=1), dtype=float)
     slope, u, dof, n, stt = _slope_statistics(x, t)
@@ -124,7 +127,7 @@ def trend_test(
         },
         index=pd.Index(tags, name="tag"),
     )
-    hit = table.index[table["trending"].fillna(False).to_numpy(dtype=bool)].tolist()
+    hit = [tg for tg, f in zip(tags, flagged.fillna(False).to_numpy(dtype=bool), strict=True) if f]
     if warn and hit:
         shown = ", ".join(
             f"{tg} ({table.loc[tg, 'trend']:+.4g} over the window, p = "

@@ -33,7 +33,23 @@ def sampling_interval(times) -> float:
     times = pd.DatetimeIndex(times)
     if len(times) < 2:
         return float("nan")
-    t = np.asarray((times - times[0]) / pd.Timedelta(seconds=1), dtype=float)
+    return _median_step(times.asi8, times.unit)
+
+
+# ticks of one second in each unit a DatetimeIndex may have
+_PER_SECOND = {"s": 1, "ms": 1_000, "us": 1_000_000, "ns": 1_000_000_000}
+
+
+def _median_step(ticks: np.ndarray, unit: str) -> float:
+    """Median step [s] of int64 times ``ticks`` in ``unit`` ("s", "ms", "us", "ns").
+
+    The same float as ``np.median(np.diff((times - times[0]) / pd.Timedelta(seconds=1)))``
+    (which divides the integer ticks, as doubles, by the ticks of a second) without
+    building the intermediate index.
+    """
+    if len(ticks) < 2:
+        return float("nan")
+    t = (ticks - ticks[0]) / _PER_SECOND[unit]
     return float(np.median(np.diff(t)))
 
 
@@ -66,7 +82,10 @@ def coverage(run, tags=None, *, interval=None) -> pd.Series:
     tags = list(run.data.columns) if tags is None else list(tags)
     idx = run.data.index
     run_dt = sampling_interval(idx)
-    valid = ~run.mask[tags].to_numpy()
+    if list(run.mask.columns) == tags:
+        valid = ~run.mask.to_numpy()  # every tag in order: no column selection
+    else:
+        valid = ~run.mask[tags].to_numpy()
     counts = valid.sum(axis=0)
     out = {}
     for j, tg in enumerate(tags):

@@ -42,7 +42,6 @@ from perftest.defaults import CHECK_STABILITY, ELIMINATE, MIN_COVERAGE, RECONCIL
 from perftest.display.views import WindowTable
 from perftest.errors import InputError, PerftestError
 from perftest.run.core import Run
-from perftest.run.windows import sampling_interval
 from perftest.scale.store import Progress, StoreLock, WindowStore, fingerprint
 from perftest.scale.windows import (
     _as_runs,
@@ -50,10 +49,12 @@ from perftest.scale.windows import (
     _Chunk,
     _chunks,
     _cut,
+    _Cutter,
     _duration,
     _Source,
     _sources,
     _Window,
+    _window_coverage,
 )
 
 __all__ = ["reconcile_many", "local_cluster", "ENGINES", "KEY_RESULTS", "TABLE_COLUMNS"]
@@ -327,9 +328,10 @@ def _chunk_rows(plant, chunk: _Chunk, run: Run | None, options: _Options) -> lis
         run, notes = read_piece(chunk.piece, plant, dict(chunk.read_kw))
     rows = []
     previous = None
+    cutter = None if run is None else _Cutter(run)
     for spec in chunk.windows:
-        w = None if run is None else _cut(run, spec.start, spec.end, lean=False)
-        row, rec = _window_row(plant, w, spec, options, previous)
+        w, share = (None, 1.0) if cutter is None else cutter(spec.start, spec.end)
+        row, rec = _window_row(plant, w, spec, options, previous, share)
         if rec is not None and options.warm_start:
             previous = rec
         rows.append(row)
@@ -340,14 +342,14 @@ def _chunk_rows(plant, chunk: _Chunk, run: Run | None, options: _Options) -> lis
     return rows
 
 
-def _window_row(plant, run: Run | None, spec: _Window, options: _Options, start=None):
-    """``(row, reconciliation or None)`` of one window."""
+def _window_row(plant, run: Run | None, spec: _Window, options: _Options, start=None, share=None):
+    """``(row, reconciliation or None)`` of one window (``share``: its coverage, if known)."""
     with _WINDOW_LOCK, warnings.catch_warnings(record=True) as caught:
         # "always": every warning of this window is recorded, whatever the
         # process's warning registry has already seen, so the row does not depend
         # on which window a process happened to compute first.
         warnings.simplefilter("always")
-        row, rec = _compute_row(plant, run, spec, options, start)
+        row, rec = _compute_row(plant, run, spec, options, start, share)
     seen = []
     for w in caught:
         text = f"{w.category.__name__}: {w.message}"
@@ -357,8 +359,9 @@ def _window_row(plant, run: Run | None, spec: _Window, options: _Options, start=
     return row, rec
 
 
-def _compute_row(plant, run, spec, options, start=None):
+def _compute_row(plant, run, spec, options, start=None, share=None):
     from perftest.balance.plant import reconcile
+    from perftest.run.stability import judge
 
     row = {
         "run": spec.run,
@@ -377,7 +380,8 @@ def _compute_row(plant, run, spec, options, start=None):
             f"{row['n_samples']} sample(s) in the window, fewer than min_samples={spec.min_samples}"
         )
         return row, None
-    share = _window_coverage(run)
+    if share is None:
+        share = _window_coverage(run)
     if share < MIN_COVERAGE:
         row["reason"] = f"coverage {share:.0%} of the window, below the minimum {MIN_COVERAGE:.0%}"
         return row, None
@@ -389,11 +393,14 @@ def _compute_row(plant, run, spec, options, start=None):
             run = run.screen_outliers()
         if options.stability:
             stage = "stability"
-            st = run.stability(warn=False)
-            bad = st.index[(st["passed"] == False).to_numpy(dtype=bool, na_value=False)]  # noqa: E712
-            row["stable"] = not len(bad)
-            unstable = ", ".join(f"{t} ({float(st.loc[t, 'ratio']):.2g}x)" for t in bad)
-            row["unstable"] = ", ".join(str(t) for t in bad)
+            # run.stability(warn=False)'s verdicts, without its table
+            tags = list(run.data.columns)
+            st = judge(run, tags)
+            failed = (st["passed"] == False).to_numpy(dtype=bool, na_value=False)  # noqa: E712
+            bad = [(t, float(r)) for t, r, f in zip(tags, st["ratio"], failed, strict=True) if f]
+            row["stable"] = not bad
+            unstable = ", ".join(f"{t} ({r:.2g}x)" for t, r in bad)
+            row["unstable"] = ", ".join(str(t) for t, _ in bad)
             stage = "average"
         measurements = run.average()
         stage = "reconcile"
@@ -401,8 +408,7 @@ def _compute_row(plant, run, spec, options, start=None):
             plant, measurements, eliminate=options.eliminate, alpha=options.alpha, start=start
         )
         gt = rec.global_test
-        table = rec.to_frame(units="si")
-        suspects = [str(t) for t in table.loc[table["suspect"].astype(bool), "tag"]]
+        suspects = _suspects(rec)
         row.update(
             chi2=gt["chi2"],
             dof=gt["dof"],
@@ -415,21 +421,26 @@ def _compute_row(plant, run, spec, options, start=None):
             eliminated=", ".join(e.tag for e in rec.eliminated),
         )
         if options.results is not None:
-            from perftest.evaluation.results import evaluate
+            from perftest.evaluation.results import evaluate, results_only
 
             stage = "evaluate"
             # Linear propagation only: the Monte Carlo check, the budgets and the
             # exergy analysis belong to the detailed evaluation of a chosen window,
             # not to a trend table (the results are the same either way).
-            perf = evaluate(plant, rec, monte_carlo=False, detail=False)
+            # (results_only: nor the corrections, guarantees and inputs tables)
+            with results_only():
+                perf = evaluate(plant, rec, monte_carlo=False, detail=False)
             names = options.results or (
                 *_headline(plant),
                 *(n for n in perf.results.index if str(n).startswith("corrected_")),
             )
+            res = perf.results
+            at = {str(n): i for i, n in reversed(list(enumerate(res.index)))}
+            value, u = res["value"].to_numpy(dtype=float), res["u"].to_numpy(dtype=float)
             for name in names:
-                if name in perf.results.index:
-                    row[name] = float(perf.results.loc[name, "value"])
-                    row[f"u_{name}"] = float(perf.results.loc[name, "u"])
+                if name in at:
+                    row[name] = float(value[at[name]])
+                    row[f"u_{name}"] = float(u[at[name]])
         row["status"] = "ok"
         if unstable:
             row["status"] = "unstable"
@@ -443,6 +454,18 @@ def _compute_row(plant, run, spec, options, start=None):
             row["reason"] += f"; stability: {unstable} of the permissible variation"
         rec = None
     return row, rec
+
+
+def _suspects(rec) -> list[str]:
+    """The tags ``rec.to_frame()`` marks suspect, in its row order, without the table.
+
+    A tag the solver kept is suspect when the measurement test flags it; a tag it
+    does not hold is suspect when elimination dropped it.
+    """
+    pos = {t: i for i, t in enumerate(rec.solver_tags)}
+    flagged = {int(i) for i in rec.result.suspects(rec.alpha)}
+    elim = set(rec.eliminated_tags)
+    return [str(t) for t in rec.measurements.tags if (pos[t] in flagged if t in pos else t in elim)]
 
 
 # --------------------------------------------------------------------------- table
@@ -908,13 +931,3 @@ def reconcile_many(
             wstore.prune()
         ordered = [frames[i] for i in range(len(chunks))]
         return WindowTable(_finish(ordered, [c.run_number for c in chunks], options.results))
-
-
-def _window_coverage(run) -> float:
-    """Sample times holding a valid value over those a window of its length expects."""
-    dt = sampling_interval(run.data.index)
-    if not (np.isfinite(dt) and dt > 0) or run.start is None or run.end is None:
-        return 1.0
-    expected = (run.end - run.start) / pd.Timedelta(seconds=1) / dt
-    valid = int((~run.mask.to_numpy().all(axis=1)).sum())
-    return valid / expected if expected > 0 else 1.0

@@ -22,6 +22,8 @@ import pandas as pd
 
 from perftest.errors import InputError
 from perftest.run.core import Run
+from perftest.run.windows import _median_step
+from perftest.run.windows import sampling_interval as _sampling_interval
 
 
 @dataclasses.dataclass(frozen=True)
@@ -375,3 +377,91 @@ def _cut(run: Run, start, end, lean: bool) -> Run | None:
         start=w.start,
         end=w.end,
     )
+
+
+def _window_coverage(run) -> float:
+    """Sample times holding a valid value over those a window of its length expects."""
+    dt = _sampling_interval(run.data.index)
+    if not (np.isfinite(dt) and dt > 0) or run.start is None or run.end is None:
+        return 1.0
+    expected = (run.end - run.start) / pd.Timedelta(seconds=1) / dt
+    valid = int((~run.mask.to_numpy().all(axis=1)).sum())
+    return valid / expected if expected > 0 else 1.0
+
+
+# The attributes a Run holds; a run with others (a later addition to Run) is cut the
+# slow way, so that nothing of it is lost.
+_RUN_FIELDS = frozenset(
+    ("plant", "data", "mask", "raw", "exclusions", "log", "quantities", "units", "start", "end")
+)
+
+
+class _Cutter:
+    """The windows of one chunk's run, each equal to ``_cut(run, start, end, lean=False)``.
+
+    ``run.window`` checks its bounds, scans the whole chunk for each window and
+    builds the window through :class:`Run`'s checks; here the chunk's times are read
+    once, each window is a slice of the (sorted) samples, and the window's Run is
+    assembled from the chunk's already checked parts.  The window holds the same
+    samples, mask, exclusions, plant, units, quantities, bounds and log line.
+    """
+
+    def __init__(self, run: Run):
+        from perftest.run.common import fmt_time
+
+        self.run = run
+        self._fmt = fmt_time
+        idx = run.data.index
+        # int64 [ns] since the epoch (UTC for zoned times), whatever the index's unit
+        self.ns = idx.as_unit("ns").asi8
+        # the index's own ticks and unit, for sampling intervals as sampling_interval
+        self.ticks, self.unit = idx.asi8, idx.unit
+        self.fast = set(vars(run)) <= _RUN_FIELDS
+        self.dt = _median_step(self.ticks, self.unit)
+        self.masked = run.mask.to_numpy()
+        self.any_valid = ~self.masked.all(axis=1)
+
+    def _ns(self, t: pd.Timestamp) -> int:
+        return pd.Timestamp(t).as_unit("ns").value
+
+    def __call__(self, start, end) -> tuple[Run | None, float]:
+        """``(window or None, coverage)``; coverage as ``_window_coverage`` gives it."""
+        run = self.run
+        if not self.fast:
+            w = _cut(run, start, end, lean=False)
+            if w is None:
+                return None, 1.0
+            return w, _window_coverage(w)
+        i0, i1 = np.searchsorted(self.ns, [self._ns(start), self._ns(end)], side="left")
+        i0, i1 = int(i0), int(i1)
+        if i1 <= i0:
+            return None, 1.0
+        t0, t1 = pd.Timestamp(start), pd.Timestamp(end)
+        dt = self.dt
+        n_valid = int(self.any_valid[i0:i1].sum())
+        if np.isfinite(dt) and dt > 0:
+            expected = (t1 - t0) / pd.Timedelta(seconds=1) / dt
+            share = float(n_valid / expected) if expected > 0 else 1.0
+        else:
+            share = 1.0
+        fmt = self._fmt
+        w = object.__new__(Run)
+        w.plant = run.plant
+        w.data = run.data.iloc[i0:i1]
+        w.mask = run.mask.iloc[i0:i1]
+        w.raw = run.raw
+        w.exclusions = run.exclusions
+        w.log = [
+            *run.log,
+            f"window {fmt(t0)} to {fmt(t1)} (coverage {share:.1%}): {i1 - i0} of "
+            f"{len(self.ns)} samples kept, {int(self.masked[i0:i1].sum())} masked in the window",
+        ]
+        w.quantities = dict(run.quantities)
+        w.units = dict(run.units)
+        w.start, w.end = t0, t1
+        # the window's own coverage: its own sampling interval, as _window_coverage
+        own = _median_step(self.ticks[i0:i1], self.unit)
+        if not (np.isfinite(own) and own > 0):
+            return w, 1.0
+        expected = (t1 - t0) / pd.Timedelta(seconds=1) / own
+        return w, (n_valid / expected if expected > 0 else 1.0)
