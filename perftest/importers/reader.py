@@ -543,6 +543,14 @@ def read_parts(
         constructor takes them, plus ``warnings`` (messages not yet issued).
     """
     given = _as_paths(paths)
+    if sheet is not None and not any(
+        not isinstance(p, sources.StagedSource) and sources.is_workbook(p) for p in given
+    ):
+        raise InputError(
+            "The 'sheet' parameter of read_run applies to workbooks (.xlsx, .xlsm); none of "
+            f"the run files is one. Got sheet={sheet!r} for {', '.join(map(str, given))}.",
+            parameter="sheet",
+        )
     staged = []
     plain = []
     for p in given:
@@ -550,16 +558,10 @@ def read_parts(
             staged.append(p)
             plain.append(p.path)
         elif sources.is_staged_kind(p):
-            s = sources.stage_file(p, sheet=sheet)
+            s = sources.stage_file(p, sheet=sheet if sources.is_workbook(p) else None)
             staged.append(s)
             plain.append(s.path)
         else:
-            if sheet is not None and len(given) == 1:
-                raise InputError(
-                    f"The 'sheet' parameter of read_run applies to workbooks (.xlsx); "
-                    f"{p} is not one.",
-                    parameter="sheet",
-                )
             plain.append(p)
     try:
         parts = _read_parts(
@@ -579,13 +581,15 @@ def read_parts(
         raise sources.relabel(exc, staged) from None
     if not staged:
         return parts
-    by_path = {s.path: s for s in staged}
+    origin = {s.path: s.origin for s in staged}
     raw = parts["raw"]
-    for stem in list(raw):
-        src = raw.source(stem)
-        s = by_path.get(src.layout.path)
-        if s is not None:
-            raw._sources[stem] = dataclasses.replace(src, origin=s.origin)
+    parts["raw"] = RawTables(
+        {
+            stem: dataclasses.replace(src, origin=origin.get(src.layout.path))
+            for stem in raw
+            for src in (raw.source(stem),)
+        }
+    )
     notes = [
         f"{s.path.stem}: read from {s.origin.label}"
         + (f" (SHA-256 {s.origin.sha256[:16]}...)" if s.origin.path is not None else "")

@@ -116,6 +116,11 @@ def is_staged_kind(path) -> bool:
     return _split_sheet(Path(str(path)))[0].suffix.lower() in _KINDS
 
 
+def is_workbook(path) -> bool:
+    """Whether ``path`` names an Excel workbook (by its ending)."""
+    return _KINDS.get(_split_sheet(Path(str(path)))[0].suffix.lower()) == "workbook"
+
+
 def _stage_dir() -> Path:
     global _STAGE_DIR
     if _STAGE_DIR is None or not _STAGE_DIR.is_dir():
@@ -155,8 +160,6 @@ def _cell(v) -> str:
         return v.isoformat()
     if isinstance(v, _dt.time):
         return v.isoformat()
-    if hasattr(v, "isoformat") and hasattr(v, "tzinfo"):  # pandas Timestamp
-        return v.isoformat(sep=" ")
     return str(v)
 
 
@@ -241,7 +244,6 @@ def _stage_workbook(path: Path, sheet: str | None) -> StagedSource:
         ws = book[sheet]
         target = _target(path.stem)
         rows = 0
-        width = 0
         with target.open("w", newline="", encoding="utf-8") as fh:
             writer = csv.writer(fh, lineterminator="\n")
             pending_blank = 0
@@ -257,7 +259,6 @@ def _stage_workbook(path: Path, sheet: str | None) -> StagedSource:
                 for _ in range(pending_blank):
                     fh.write("\n")
                 pending_blank = 0
-                width = max(width, len(cells))
                 writer.writerow(cells)
                 rows += 1
     finally:
@@ -279,7 +280,6 @@ def _stage_workbook(path: Path, sheet: str | None) -> StagedSource:
 
 
 def _stage_parquet(path: Path) -> StagedSource:
-    import pyarrow as pa
     import pyarrow.parquet as pq
 
     try:
@@ -308,14 +308,7 @@ def _stage_parquet(path: Path) -> StagedSource:
             writer.writerow(units)
             shift = -2
         for batch in pf.iter_batches(batch_size=CHUNK_ROWS):
-            cols = []
-            for col in batch.columns:
-                if pa.types.is_timestamp(col.type) or pa.types.is_date(col.type):
-                    cols.append([_cell(v) for v in col.to_pylist()])
-                elif pa.types.is_floating(col.type):
-                    cols.append([_cell(v) for v in col.to_pylist()])
-                else:
-                    cols.append([_cell(v) for v in col.to_pylist()])
+            cols = [[_cell(v) for v in col.to_pylist()] for col in batch.columns]
             writer.writerows(zip(*cols, strict=True))
             n += batch.num_rows
     if n == 0:

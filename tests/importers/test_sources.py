@@ -345,3 +345,14 @@ def test_postgresql_historian_gives_the_csv_measurements(postgres, plant, csv_me
     _same(csv_measurements, _averaged(run))
     text = "\n".join(run.log)
     assert "Plant-Pw-77" not in text and "***" in text
+
+
+def test_sheet_without_a_workbook_is_refused(plant):
+    # A sheet named for CSV files alone would be ignored: say so instead.
+    with pytest.raises(InputError, match="applies to workbooks"):
+        perftest.read_run([DEMO / "historian.csv", DEMO / "logger.csv"], plant, sheet="Log")
+
+
+def test_sheet_applies_to_the_workbook_among_other_files(plant, csv_measurements):
+    run = _read([DEMO / "historian.xlsx", DEMO / "logger.csv"], plant, sheet="Historian")
+    _same(csv_measurements, _averaged(run))
