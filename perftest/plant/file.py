@@ -64,7 +64,7 @@ def load_plant(path) -> Plant:
     Raises
     ------
     PlantFileError
-        Missing file, TOML syntax error (with tomllib's line and column), or an
+        Missing or unreadable file, TOML syntax error (with tomllib's line and column), or an
         invalid key; the message names the file, line and dotted key and says
         what to write instead.
 
@@ -87,6 +87,12 @@ def load_plant(path) -> Plant:
     except IsADirectoryError:
         raise PlantFileError(
             f"{path}: is a directory; give the plant .toml file.", file=path
+        ) from None
+    except OSError as exc:  # no permission, a broken link, a device error ...
+        raise PlantFileError(
+            f"{path}: the plant file cannot be read ({exc.strerror or exc}). Check the "
+            "path and the file's permissions.",
+            file=path,
         ) from None
     except UnicodeDecodeError as exc:
         raise PlantFileError(

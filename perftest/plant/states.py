@@ -48,6 +48,11 @@ def _per_stream(call, streams, *arrays):
         raise PropertyRangeError(f"streams {', '.join(streams)}: {exc}") from None
 
 
+def _saturated(f, p, where):
+    """Saturated-liquid and saturated-vapour states of fluid `f` at pressures `p`."""
+    return f.state_px(p, np.zeros_like(p), where=where), f.state_px(p, np.ones_like(p), where=where)
+
+
 def h_pT(name: str, phase, p, T, streams=()):
     """Enthalpy and its partial derivatives from pressure and temperature.
 
@@ -96,13 +101,7 @@ def saturation(name: str, p, streams=()):
     """
     f = fluid(name)
     p = np.asarray(p, dtype=float)
-
-    def call(pp, where):
-        return f.state_px(pp, np.zeros_like(pp), where=where), f.state_px(
-            pp, np.ones_like(pp), where=where
-        )
-
-    liq, vap = _per_stream(call, streams, p)
+    liq, vap = _per_stream(lambda pp, where: _saturated(f, pp, where), streams, p)
     T = np.asarray(liq.T, dtype=float)
     dv = 1.0 / np.asarray(vap.rho, dtype=float) - 1.0 / np.asarray(liq.rho, dtype=float)
     dh = np.asarray(vap.h, dtype=float) - np.asarray(liq.h, dtype=float)
@@ -126,10 +125,8 @@ def h_px(name: str, p, x, streams=()):
     x = np.asarray(x, dtype=float)
 
     def sat_h(pp, where):
-        return (
-            np.asarray(f.state_px(pp, np.zeros_like(pp), where=where).h, dtype=float),
-            np.asarray(f.state_px(pp, np.ones_like(pp), where=where).h, dtype=float),
-        )
+        liq, vap = _saturated(f, pp, where)
+        return np.asarray(liq.h, dtype=float), np.asarray(vap.h, dtype=float)
 
     hf, hg = _per_stream(sat_h, streams, p)
     dp = p * _DP_REL

@@ -93,8 +93,14 @@ def saturation_p(fluid, T, *, where=None):
     return args.out(out)
 
 
-def saturated_or_wet(fluid, pair, a, b, pp_or_none, func, where, label):
-    """Evaluate saturated or wet states; a state off the saturation line raises."""
+def wet_state(fluid, pair, a, b, xx, given, args, where, label) -> State:
+    """Saturated or wet :class:`State`; a state off the saturation line raises.
+
+    `pair` is CoolProp's input pair for the flat inputs `a`, `b`; `xx` the qualities;
+    `given` the input pressure or temperature (``{"p": ...}`` or ``{"T": ...}``),
+    returned as given; `label(i)` names the i-th input in messages.  ``cp`` and the
+    derivatives are NaN.
+    """
     res, ok, err = loop(fluid, pair, a, b, ["T", "p", "h", "s", "rho"])
     valid = ~np.isnan(a) & ~np.isnan(b)
     failed = valid & ~ok
@@ -106,27 +112,10 @@ def saturated_or_wet(fluid, pair, a, b, pp_or_none, func, where, label):
             f"the saturation line ends at the critical point "
             f"({fluid.p_critical / 1e6:.6g} MPa, {fluid.T_critical:.3f} K).{detail}" + more(failed)
         )
-    return res
-
-
-def state_px(fluid, p, x, *, where=None) -> State:
-    """Work of :meth:`Fluid.state_px <perftest.thermo.fluid.Fluid.state_px>` for `fluid`."""
-    args = Args("state_px", p=p, x=x)
-    pp, xx = args.flat
-    check_quality(xx, "state_px", where)
-    res = saturated_or_wet(
-        fluid,
-        fluid._CP.PQ_INPUTS,
-        pp,
-        xx,
-        pp,
-        "state_px",
-        where,
-        lambda i: fmt_state(pp[i], x=xx[i]),
-    )
-    nan = np.full(pp.size, np.nan)
+    res.update(given)
+    nan = np.full(xx.size, np.nan)
     return State(
-        p=args.out(pp),
+        p=args.out(res["p"]),
         T=args.out(res["T"]),
         h=args.out(res["h"]),
         s=args.out(res["s"]),
@@ -138,30 +127,37 @@ def state_px(fluid, p, x, *, where=None) -> State:
     )
 
 
+def state_px(fluid, p, x, *, where=None) -> State:
+    """Work of :meth:`Fluid.state_px <perftest.thermo.fluid.Fluid.state_px>` for `fluid`."""
+    args = Args("state_px", p=p, x=x)
+    pp, xx = args.flat
+    check_quality(xx, "state_px", where)
+    return wet_state(
+        fluid,
+        fluid._CP.PQ_INPUTS,
+        pp,
+        xx,
+        xx,
+        {"p": pp},
+        args,
+        where,
+        lambda i: fmt_state(pp[i], x=xx[i]),
+    )
+
+
 def state_Tx(fluid, T, x, *, where=None) -> State:
     """Work of :meth:`Fluid.state_Tx <perftest.thermo.fluid.Fluid.state_Tx>` for `fluid`."""
     args = Args("state_Tx", T=T, x=x)
     TT, xx = args.flat
     check_quality(xx, "state_Tx", where)
-    res = saturated_or_wet(
+    return wet_state(
         fluid,
         fluid._CP.QT_INPUTS,
         xx,
         TT,
-        None,
-        "state_Tx",
+        xx,
+        {"T": TT},
+        args,
         where,
         lambda i: f"T = {TT[i]:.2f} K, x = {xx[i]:.4g}",
-    )
-    nan = np.full(TT.size, np.nan)
-    return State(
-        p=args.out(res["p"]),
-        T=args.out(TT),
-        h=args.out(res["h"]),
-        s=args.out(res["s"]),
-        cp=args.out(nan),
-        rho=args.out(res["rho"]),
-        x=args.out(xx),
-        dh_dT_p=args.out(nan),
-        dh_dp_T=args.out(nan),
     )

@@ -22,6 +22,7 @@ import CoolProp.CoolProp as CP
 import numpy as np
 import pytest
 import scipy.optimize
+from cycle_truth import IF97, T_ph, h_pT, steam_cycle
 
 import perftest
 from perftest.errors import InputError, PlantFileError, ReconciliationWarning
@@ -30,28 +31,9 @@ from perftest.plant.guess import initial_guess
 from perftest.run.measurements import Measurements
 
 DATA = Path(__file__).resolve().parents[1] / "data" / "model"
-IF97 = "IF97::Water"
 
 
 # --------------------------------------------------------------------------- truth
-def h_pT(p, T):
-    return CP.PropsSI("H", "P", p, "T", T, IF97)
-
-
-def T_ph(p, h):
-    """T(p, h) consistent with the forward equation h(p, T).
-
-    CoolProp's IF97 (p, h) input uses the backward equations, which agree with the
-    forward ones only to some 10 mK (IAPWS R7-97(2012), consistency of the backward
-    equations, from memory); Newton steps on the forward equation remove that, so
-    that synthesised data are consistent to rounding.
-    """
-    T = CP.PropsSI("T", "P", p, "H", h, IF97)
-    for _ in range(4):
-        T -= (h_pT(p, T) - h) / CP.PropsSI("C", "P", p, "T", T, IF97)
-    return T
-
-
 def water_network_truth():
     """Consistent true values of tests/data/model/water_network.toml."""
     ma, mb, m1, m2 = 30.0, 20.0, 35.0, 15.0
@@ -72,45 +54,22 @@ def water_network_truth():
 
 
 def steam_cycle_truth():
-    """Consistent true values of tests/data/model/steam_cycle.toml.
-
-    Turbine sections at an isentropic efficiency of 0.85, pump at 0.80 (invented).
-    """
-    m = 100.0
-    p_ms, T_ms = 100e5, 813.15
-    h_ms = h_pT(p_ms, T_ms)
-    s_ms = CP.PropsSI("S", "P", p_ms, "T", T_ms, IF97)
-    p_ex = 10e5
-    h_ex = h_ms - 0.85 * (h_ms - CP.PropsSI("H", "P", p_ex, "S", s_ms, IF97))
-    p_exh = 0.08e5
-    h_exh = h_ms - 0.85 * (h_ms - CP.PropsSI("H", "P", p_exh, "S", s_ms, IF97))
-    p_cd, T_cd = 0.08e5, 312.15
-    h_cd = h_pT(p_cd, T_cd)
-    p_po = 110e5
-    v_cd = 1.0 / CP.PropsSI("D", "P", p_cd, "T", T_cd, IF97)
-    h_po = h_cd + v_cd * (p_po - p_cd) / 0.80
-    p_fw, T_fw = 105e5, 448.15
-    h_fw = h_pT(p_fw, T_fw)
-    p_dr, T_dr = 9.5e5, 443.15
-    h_dr = h_pT(p_dr, T_dr)
-    m_ex = m * (h_fw - h_po) / (h_ex - h_dr)
-    P_t = m * h_ms - m_ex * h_ex - (m - m_ex) * h_exh
-    Q_c = (m - m_ex) * h_exh + m_ex * h_dr - m * h_cd
-    p_cwi, T_cwi, p_cwo, T_cwo = 2.5e5, 293.15, 2.0e5, 303.15
-    m_cw = Q_c / (h_pT(p_cwo, T_cwo) - h_pT(p_cwi, T_cwi))
+    """Consistent true values of tests/data/model/steam_cycle.toml (dry extraction)."""
+    c = steam_cycle(p_ex=10e5, p_fw=105e5, T_fw=448.15, p_dr=9.5e5, T_dr=443.15)
     tags = {
-        "FT-MS": m, "FT-FW": m, "FT-CD": m, "FT-CW": m_cw,
-        "PT-MS": p_ms, "TT-MS": T_ms, "PT-EX": p_ex, "TT-EX": T_ph(p_ex, h_ex),
-        "PT-EXH": p_exh, "PT-CD": p_cd, "TT-CD": T_cd, "PT-PO": p_po,
-        "TT-PO": T_ph(p_po, h_po), "PT-FW": p_fw, "TT-FW": T_fw, "PT-DR": p_dr,
-        "TT-DR": T_dr, "TT-CWI": T_cwi, "TT-CWO": T_cwo, "PT-CWI": p_cwi, "PT-CWO": p_cwo,
-        "JT-GEN": P_t / 1.015, "JT-CP": m * (h_po - h_cd),
+        "FT-MS": c.m, "FT-FW": c.m, "FT-CD": c.m, "FT-CW": c.m_cw,
+        "PT-MS": c.p_ms, "TT-MS": c.T_ms, "PT-EX": c.p_ex, "TT-EX": T_ph(c.p_ex, c.h_ex),
+        "PT-EXH": c.p_exh, "PT-CD": c.p_cd, "TT-CD": c.T_cd, "PT-PO": c.p_po,
+        "TT-PO": T_ph(c.p_po, c.h_po), "PT-FW": c.p_fw, "TT-FW": c.T_fw, "PT-DR": c.p_dr,
+        "TT-DR": c.T_dr, "TT-CWI": c.T_cwi, "TT-CWO": c.T_cwo, "PT-CWI": c.p_cwi,
+        "PT-CWO": c.p_cwo, "JT-GEN": c.P_t / 1.015, "JT-CP": c.m * (c.h_po - c.h_cd),
     }  # fmt: skip
     hidden = {
-        "extraction.mass_flow": m_ex, "exhaust.mass_flow": m - m_ex,
-        "exhaust.enthalpy": h_exh, "turbine.power": P_t, "boiler.heat": m * (h_ms - h_fw),
-        "condenser.heat": Q_c, "drain_flash.enthalpy": h_dr,
-        "feed_heater.heat": m * (h_fw - h_po), "cw_out.mass_flow": m_cw,
+        "extraction.mass_flow": c.m_ex, "exhaust.mass_flow": c.m - c.m_ex,
+        "exhaust.enthalpy": c.h_exh, "turbine.power": c.P_t,
+        "boiler.heat": c.m * (c.h_ms - c.h_fw), "condenser.heat": c.Q_c,
+        "drain_flash.enthalpy": c.h_dr, "feed_heater.heat": c.m * (c.h_fw - c.h_po),
+        "cw_out.mass_flow": c.m_cw,
     }  # fmt: skip
     return tags, hidden
 

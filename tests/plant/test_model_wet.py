@@ -24,6 +24,7 @@ import CoolProp.CoolProp as CP
 import numpy as np
 import pytest
 import scipy.optimize
+from cycle_truth import IF97, T_ph, h_pT, steam_cycle
 
 import perftest
 from perftest.balance import reconcile_nonlinear
@@ -32,21 +33,7 @@ from perftest.plant.guess import initial_guess
 from perftest.run.measurements import Measurements
 
 PLANT = Path(__file__).resolve().parents[1] / "data" / "model" / "wet_extraction.toml"
-IF97 = "IF97::Water"
 SEED = 20250302
-
-
-def h_pT(p, T):
-    return CP.PropsSI("H", "P", p, "T", T, IF97)
-
-
-def T_ph(p, h):
-    """T(p, h) refined by Newton steps on the forward equation h(p, T) (the IF97 (p, h)
-    route uses backward equations, consistent with the forward ones only to ~10 mK)."""
-    T = CP.PropsSI("T", "P", p, "H", h, IF97)
-    for _ in range(4):
-        T -= (h_pT(p, T) - h) / CP.PropsSI("C", "P", p, "T", T, IF97)
-    return T
 
 
 def sat(p, q):
@@ -54,45 +41,25 @@ def sat(p, q):
 
 
 def truth():
-    """Consistent true values; turbine isentropic efficiency 0.85, pump 0.80 (invented).
+    """Consistent true values of the cycle in tests/plant/cycle_truth.py.
 
     The extraction at 0.5 bar comes out at a quality of about 0.94, the exhaust at
     0.08 bar at about 0.88: both wet.
     """
-    m = 100.0
-    p_ms, T_ms = 100e5, 813.15
-    h_ms = h_pT(p_ms, T_ms)
-    s_ms = CP.PropsSI("S", "P", p_ms, "T", T_ms, IF97)
-    p_ex = 0.5e5
-    h_ex = h_ms - 0.85 * (h_ms - CP.PropsSI("H", "P", p_ex, "S", s_ms, IF97))
-    p_exh = 0.08e5
-    h_exh = h_ms - 0.85 * (h_ms - CP.PropsSI("H", "P", p_exh, "S", s_ms, IF97))
-    p_cd, T_cd = 0.08e5, 312.15
-    h_cd = h_pT(p_cd, T_cd)
-    p_po = 110e5
-    v_cd = 1.0 / CP.PropsSI("D", "P", p_cd, "T", T_cd, IF97)
-    h_po = h_cd + v_cd * (p_po - p_cd) / 0.80
-    p_fw, T_fw = 105e5, 345.15
-    h_fw = h_pT(p_fw, T_fw)
-    p_dr, T_dr = 0.45e5, 325.15
-    h_dr = h_pT(p_dr, T_dr)
-    m_ex = m * (h_fw - h_po) / (h_ex - h_dr)
-    P_t = m * h_ms - m_ex * h_ex - (m - m_ex) * h_exh
-    Q_c = (m - m_ex) * h_exh + m_ex * h_dr - m * h_cd
-    p_cwi, T_cwi, p_cwo, T_cwo = 2.5e5, 293.15, 2.0e5, 303.15
-    m_cw = Q_c / (h_pT(p_cwo, T_cwo) - h_pT(p_cwi, T_cwi))
+    c = steam_cycle(p_ex=0.5e5, p_fw=105e5, T_fw=345.15, p_dr=0.45e5, T_dr=325.15)
     tags = {
-        "FT-MS": m, "FT-FW": m, "FT-CD": m, "FT-DR": m_ex, "FT-CW": m_cw,
-        "PT-MS": p_ms, "TT-MS": T_ms, "PT-EX": p_ex, "PT-EXH": p_exh, "PT-CD": p_cd,
-        "TT-CD": T_cd, "PT-PO": p_po, "TT-PO": T_ph(p_po, h_po), "PT-FW": p_fw,
-        "TT-FW": T_fw, "PT-DR": p_dr, "TT-DR": T_dr, "TT-CWI": T_cwi, "TT-CWO": T_cwo,
-        "PT-CWI": p_cwi, "PT-CWO": p_cwo, "JT-GEN": P_t / 1.015, "JT-CP": m * (h_po - h_cd),
+        "FT-MS": c.m, "FT-FW": c.m, "FT-CD": c.m, "FT-DR": c.m_ex, "FT-CW": c.m_cw,
+        "PT-MS": c.p_ms, "TT-MS": c.T_ms, "PT-EX": c.p_ex, "PT-EXH": c.p_exh,
+        "PT-CD": c.p_cd, "TT-CD": c.T_cd, "PT-PO": c.p_po, "TT-PO": T_ph(c.p_po, c.h_po),
+        "PT-FW": c.p_fw, "TT-FW": c.T_fw, "PT-DR": c.p_dr, "TT-DR": c.T_dr,
+        "TT-CWI": c.T_cwi, "TT-CWO": c.T_cwo, "PT-CWI": c.p_cwi, "PT-CWO": c.p_cwo,
+        "JT-GEN": c.P_t / 1.015, "JT-CP": c.m * (c.h_po - c.h_cd),
     }  # fmt: skip
     hidden = {
-        "extraction.mass_flow": m_ex,
-        "extraction.enthalpy": h_ex,
-        "exhaust.enthalpy": h_exh,
-        "exhaust.mass_flow": m - m_ex,
+        "extraction.mass_flow": c.m_ex,
+        "extraction.enthalpy": c.h_ex,
+        "exhaust.enthalpy": c.h_exh,
+        "exhaust.mass_flow": c.m - c.m_ex,
     }
     return tags, hidden
 

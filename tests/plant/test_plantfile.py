@@ -314,6 +314,19 @@ def test_missing_file(tmp_path):
     assert info.value.file.endswith("nope.toml")
 
 
+def test_unreadable_file(tmp_path):
+    # a link that points to itself cannot be opened (ELOOP); root may read any file,
+    # so file permissions would not make a check that fails everywhere
+    path = tmp_path / "plant.toml"
+    try:
+        path.symlink_to(path)
+    except OSError:
+        pytest.skip("symbolic links are not available here")
+    with pytest.raises(PlantFileError, match="plant file cannot be read") as info:
+        load_plant(path)
+    assert info.value.file.endswith("plant.toml")
+
+
 def test_not_toml(tmp_path):
     text = BASE + "\n[tags.TT-2]\nquantity = = 'temperature'\n"
     with pytest.raises(PlantFileError, match=r"plant.toml, line \d+, column \d+: not valid TOML"):
