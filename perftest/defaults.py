@@ -32,7 +32,8 @@ OUTLIER_WINDOW = 11
 #: Drop suspect instruments one by one while the global test fails (serial elimination).
 ELIMINATE = True
 
-#: Significance level of the global and measurement tests of the reconciliation.
+#: Significance level of the global and measurement tests of the reconciliation
+#: (5 %, the usual level of these tests: common practice, no source).
 RECONCILIATION_ALPHA = 0.05
 
 #: Judge the stability of every window of a many-window evaluation.

@@ -776,8 +776,10 @@ def reconcile(
             ReconciliationWarning,
             stacklevel=3,
         )
-    for t in present:
-        if not measurements[t].u > 0:
+    # one record per tag: the zero-uncertainty check and the phase check share them
+    records = {t: measurements[t] for t in present}
+    for t, r in records.items():
+        if not r.u > 0:
             raise InputError(
                 f"Tag '{t}' has a zero uncertainty, which the reconciliation cannot weigh. "
                 "State its uncertainty in the plant file or make the variable a fixed value.",
@@ -786,7 +788,7 @@ def reconcile(
     # A declared phase the measurements contradict would make its thermometer a
     # gross error (a superheated stream declared wet): refuse it before solving.
     check_declared_phases(
-        plant, model.spec, {t: (measurements[t].value, measurements[t].u) for t in present}
+        plant, model.spec, {t: (r.value, r.u) for t, r in records.items()}
     )
     model = bound(model, present)
     in_model = set(present)

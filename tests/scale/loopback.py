@@ -12,19 +12,13 @@ without a scheduler, should this process be killed before it can stop them.
 from __future__ import annotations
 
 import contextlib
+import json
 import os
 import signal
-import socket
 import subprocess
 import sys
+import tempfile
 import time
-
-
-def free_port() -> int:
-    """A TCP port free on 127.0.0.1 now (the OS's choice)."""
-    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
 
 
 def worker_env(extra: dict | None = None) -> dict:
@@ -76,8 +70,6 @@ def loopback_cluster(n_workers: int = 2, *, start_timeout: float = 60.0, log_dir
     """
     from distributed import Client
 
-    port = free_port()
-    address = f"tcp://127.0.0.1:{port}"
     env = worker_env(env_extra)
     procs = []
     logs = []
@@ -98,14 +90,31 @@ def loopback_cluster(n_workers: int = 2, *, start_timeout: float = 60.0, log_dir
             )  # fmt: skip
         )
 
+    # The scheduler binds a port of the system's choice (port 0) and writes its address
+    # to a file the workers read: no port is picked here that another program on a
+    # shared machine could take before the scheduler binds it.
+    folder = tempfile.TemporaryDirectory(prefix="perftest-loopback-")
+    info = os.path.join(folder.name, "scheduler.json")
     try:
-        start(["scheduler", "--host", "127.0.0.1", "--port", str(port), "--no-dashboard",
-               "--idle-timeout", "600s"], "scheduler")  # fmt: skip
+        start(["scheduler", "--host", "127.0.0.1", "--port", "0", "--no-dashboard",
+               "--scheduler-file", info, "--idle-timeout", "600s"], "scheduler")  # fmt: skip
         for i in range(n_workers):
-            start(["worker", address, "--nthreads", "1", "--nworkers", "1", "--no-dashboard",
-                   "--death-timeout", "60s", "--name", f"w{i}", *worker_args],
-                  f"worker{i}")  # fmt: skip
+            start(["worker", "--scheduler-file", info, "--nthreads", "1", "--nworkers", "1",
+                   "--no-dashboard", "--death-timeout", "60s", "--name", f"w{i}",
+                   *worker_args], f"worker{i}")  # fmt: skip
         deadline = time.monotonic() + start_timeout
+        while True:
+            try:
+                with open(info) as f:
+                    address = json.load(f)["address"]
+                break
+            except (OSError, ValueError, KeyError):  # not (fully) written yet
+                if time.monotonic() > deadline or procs[0].poll() is not None:
+                    raise RuntimeError(
+                        f"the loopback scheduler did not write {info} within "
+                        f"{start_timeout:.0f} s (exit code {procs[0].poll()})"
+                    ) from None
+                time.sleep(0.2)
         while True:
             try:
                 with Client(address, timeout="5s") as client:
@@ -126,3 +135,4 @@ def loopback_cluster(n_workers: int = 2, *, start_timeout: float = 60.0, log_dir
         _stop(procs[:1])
         for f in logs:
             f.close()
+        folder.cleanup()

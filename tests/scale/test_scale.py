@@ -732,7 +732,11 @@ def _hold_store_lock(folder, job):
     env = dict(os.environ, OPENBLAS_NUM_THREADS="1", PYTHONDONTWRITEBYTECODE="1")
     proc = subprocess.Popen([sys.executable, "-c", code, str(folder), job],
                             stdout=subprocess.PIPE, text=True, env=env)  # fmt: skip
-    assert proc.stdout.readline().strip() == "held"
+    line = proc.stdout.readline().strip()
+    if line != "held":  # the holder failed: do not leave it behind
+        proc.kill()
+        proc.wait()
+        pytest.fail(f"the lock holder did not start (said {line!r})")
     return proc
 
 
