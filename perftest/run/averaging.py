@@ -16,7 +16,7 @@ from perftest.errors import DataError, DataQualityWarning
 from perftest.run import stats
 from perftest.run.common import PERCENT_KINDS, field, fmt_time
 from perftest.run.measurements import Measurements
-from perftest.run.trend import trend_test
+from perftest.run.trend import _p_text, trend_test
 from perftest.run.windows import check_min_coverage, coverage
 
 __all__ = ["average", "check_agreement", "atmospheric_pressure"]
@@ -394,8 +394,3 @@ def _member_text(run, tag: str, value: float) -> str:
 
     shown, unit = convert(value, run.units.get(tag), quantity=run.quantities.get(tag) or None)
     return f"{tag} = {fmt_number(float(shown), 6)} {unit_label(unit)}".rstrip()
-
-
-def _p_text(p: float) -> str:
-    """A p-value for a note, without e-notation ("= 0.012", "< 0.001")."""
-    return "< 0.001" if p < 0.001 else f"= {p:.2g}"

@@ -130,8 +130,8 @@ def trend_test(
     hit = [tg for tg, f in zip(tags, flagged.fillna(False).to_numpy(dtype=bool), strict=True) if f]
     if warn and hit:
         shown = ", ".join(
-            f"{tg} ({table.loc[tg, 'trend']:+.4g} over the window, p = "
-            f"{table.loc[tg, 'p_value']:.2g})"
+            f"{tg} ({_change_text(run, tg, table.loc[tg, 'trend'])} over the window, "
+            f"p {_p_text(table.loc[tg, 'p_value'])})"
             for tg in hit
         )
         warnings.warn(
@@ -186,3 +186,22 @@ def _slope_statistics(x: np.ndarray, t: np.ndarray):
         u = np.sqrt(np.where(var_b > 0, var_b, np.nan))
         dof = np.maximum(n / (2.0 * M + 1.0) - 2.0, 1.0)
     return slope, u, dof, n, stt
+
+
+def _change_text(run, tag: str, change: float) -> str:
+    """A change of ``tag`` [SI] in its logged unit, signed, without e-notation."""
+    from perftest.display import convert, fmt_number, unit_label
+
+    units = getattr(run, "units", {}) or {}
+    quantities = getattr(run, "quantities", {}) or {}
+    shown, unit = convert(
+        change, units.get(tag), quantity=quantities.get(tag) or None, difference=True
+    )
+    value = float(shown)
+    sign = "+" if value >= 0 else "-"
+    return f"{sign}{fmt_number(abs(value), 4)} {unit_label(unit)}".rstrip()
+
+
+def _p_text(p: float) -> str:
+    """A p-value for a message, without e-notation ("= 0.012", "< 0.001")."""
+    return "< 0.001" if p < 0.001 else f"= {p:.2g}"

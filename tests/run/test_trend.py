@@ -59,7 +59,9 @@ def test_settling_ramp_is_found_and_reported():
     n = 120
     x = 500.0 + 0.5 * np.arange(n) / n + 0.1 * rng.normal(size=n)
     run = _run(x)
-    with pytest.warns(StabilityWarning, match=r"TT-1 \(\+0\.\d+ over the window"):
+    # the change is shown as a temperature difference in a display unit (K and °C
+    # intervals are equal), never as a bare SI number in e-notation
+    with pytest.warns(StabilityWarning, match=r"TT-1 \(\+0\.\d+ °C over the window, p [<=] "):
         table = run.trend()
     assert bool(table.loc["TT-1", "trending"])
     # the slope against numpy's least squares (an independent fit)
