@@ -344,22 +344,13 @@ def boiler_results(plant, rec, hv_u_rel: float, *, level=0.95, monte_carlo=True,
 
     prop = unc.propagate(model, x, cov, names=names, output_names=outputs, level=level)
     basis = comb.basis
-    results = pd.DataFrame(
-        {
-            "value": prop.value,
-            "u": prop.u,
-            "U95": prop.U,
-            "unit": [BOILER_UNITS[o] for o in outputs],
-            "k": prop.k,
-            "dof": prop.dof,
-            "description": [
-                BOILER_DESCRIPTIONS[o]
-                + (f" ({basis.upper()})" if o in HEATING_VALUE_RESULTS else "")
-                for o in outputs
-            ],
-            "basis": [basis if o in HEATING_VALUE_RESULTS else "" for o in outputs],
-        },
-        index=pd.Index(outputs, name="name"),
+    results = prop.results_table(
+        [BOILER_UNITS[o] for o in outputs],
+        [
+            BOILER_DESCRIPTIONS[o] + (f" ({basis.upper()})" if o in HEATING_VALUE_RESULTS else "")
+            for o in outputs
+        ],
+        [basis if o in HEATING_VALUE_RESULTS else "" for o in outputs],
     )
     budgets = {}
     for o in outputs:
@@ -418,12 +409,7 @@ def _as_measured(view, comb, hv_u_rel: float, level: float) -> BoilerBlock:
 
     prop = unc.propagate(model, x, cov, names=names, output_names=["boiler_efficiency"],
                          level=level)  # fmt: skip
-    results = pd.DataFrame(
-        {"value": prop.value, "u": prop.u, "U95": prop.U, "unit": ["1"], "k": prop.k,
-         "dof": prop.dof, "description": [BOILER_DESCRIPTIONS["boiler_efficiency"]],
-         "basis": [comb.basis]},
-        index=pd.Index(["boiler_efficiency"], name="name"),
-    )  # fmt: skip
+    results = prop.results_table(["1"], [BOILER_DESCRIPTIONS["boiler_efficiency"]], [comb.basis])
     b = prop.budget_for("boiler_efficiency")[
         ["estimate", "u", "sensitivity", "u_contribution", "share"]
     ]

@@ -394,29 +394,17 @@ def evaluate(
         dof=dof_in,
     )
     basis = fuel["basis"] if fuel is not None else ""
-    results = pd.DataFrame(
-        {
-            "value": prop.value,
-            "u": prop.u,
-            "U95": prop.U,
-            "unit": [_unit_of(o) for o in outputs],
-            "k": prop.k,
-            "dof": prop.dof,
-            "description": [
-                kinds.describe(o, needs.kind)
-                + (
-                    f" ({basis.upper()})"
-                    if basis and o.removeprefix("corrected_") in kinds.HEATING_VALUE_RESULTS
-                    else ""
-                )
-                for o in outputs
-            ],
-            "basis": [
-                basis if o.removeprefix("corrected_") in kinds.HEATING_VALUE_RESULTS else ""
-                for o in outputs
-            ],
-        },
-        index=pd.Index(outputs, name="name"),
+    bases = [
+        basis if o.removeprefix("corrected_") in kinds.HEATING_VALUE_RESULTS else ""
+        for o in outputs
+    ]
+    results = prop.results_table(
+        [_unit_of(o) for o in outputs],
+        [
+            kinds.describe(o, needs.kind) + (f" ({b.upper()})" if b else "")
+            for o, b in zip(outputs, bases, strict=True)
+        ],
+        bases,
     )
     if needs.kind == "refrigeration" and "heat_rejected" in needs.refs:
         results, cov_out_extra = _with_heat_balance(rec, needs, results, notes, level)
