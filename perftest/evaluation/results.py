@@ -593,7 +593,7 @@ def _corrected_boiler_results(corrected, results, cov_out, x, cov, pos, level):
         dv = float(sens["value"])
         var = (dv * u_b) ** 2 + float(g @ c_cond @ g)
         u = math.sqrt(max(var, 0.0))
-        dof = float(results.loc[result, "dof"]) if "dof" in results else math.inf
+        dof = float(results.loc[result, "dof"])
         U = float(unc.expanded(u, dof, level))
         name = f"corrected_{result}"
         rows.append(
@@ -607,7 +607,7 @@ def _corrected_boiler_results(corrected, results, cov_out, x, cov, pos, level):
                 "dof": dof,
                 "description": f"{results.loc[result, 'description']}, corrected to "
                 "reference conditions",
-                "basis": results.loc[result, "basis"] if "basis" in results else "",
+                "basis": results.loc[result, "basis"],
             }
         )
         new_cov[name] = (result, dv, var)
