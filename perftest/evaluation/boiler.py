@@ -188,10 +188,8 @@ def boiler_results(plant, rec, hv_u_rel: float, *, level=0.95, monte_carlo=True,
 
     # separate methods: measured values (the uncoupled reconciliation carries the
     # firing side's tags unchanged and reconciles the water/steam side alone)
-    sep = []
-    for ref in comb.useful_refs:
-        sep.append(ref)
-    fuel_ref = fuel_tag if fuel_tag is not None else None
+    sep = list(comb.useful_refs)
+    fuel_ref = fuel_tag
     if fuel_ref is not None:
         sep.append(fuel_ref)
     flue_refs = {}
@@ -264,12 +262,9 @@ def boiler_results(plant, rec, hv_u_rel: float, *, level=0.95, monte_carlo=True,
                 f"The sensitivity of the reconciled boiler efficiency to {pname} could not "
                 f"be found (the reconciliation with it moved failed: {exc})."
             ) from None
-        if pname == hv_name:
-            # the whole change of the reconciled efficiency: the formula of the
-            # propagation below holds H at its estimate
-            sens[pname] = (eta_2 - eta_rec0) / step
-        else:
-            sens[pname] = (eta_2 - eta_rec0) / step
+        # the whole change of the reconciled efficiency: the formula of the
+        # propagation below holds H at its estimate
+        sens[pname] = (eta_2 - eta_rec0) / step
 
     def humidity(Ta, rh):
         return humidity_ratio(Ta, comb.pressure, rh)
@@ -349,22 +344,13 @@ def boiler_results(plant, rec, hv_u_rel: float, *, level=0.95, monte_carlo=True,
 
     prop = unc.propagate(model, x, cov, names=names, output_names=outputs, level=level)
     basis = comb.basis
-    results = pd.DataFrame(
-        {
-            "value": prop.value,
-            "u": prop.u,
-            "U95": prop.U,
-            "unit": [BOILER_UNITS[o] for o in outputs],
-            "k": prop.k,
-            "dof": prop.dof,
-            "description": [
-                BOILER_DESCRIPTIONS[o]
-                + (f" ({basis.upper()})" if o in HEATING_VALUE_RESULTS else "")
-                for o in outputs
-            ],
-            "basis": [basis if o in HEATING_VALUE_RESULTS else "" for o in outputs],
-        },
-        index=pd.Index(outputs, name="name"),
+    results = prop.results_table(
+        [BOILER_UNITS[o] for o in outputs],
+        [
+            BOILER_DESCRIPTIONS[o] + (f" ({basis.upper()})" if o in HEATING_VALUE_RESULTS else "")
+            for o in outputs
+        ],
+        [basis if o in HEATING_VALUE_RESULTS else "" for o in outputs],
     )
     budgets = {}
     for o in outputs:
@@ -377,13 +363,7 @@ def boiler_results(plant, rec, hv_u_rel: float, *, level=0.95, monte_carlo=True,
                 model, x, cov, n=MC_TRIALS, seed=seed, level=level, vectorized=False,
                 output_names=outputs,
             )  # fmt: skip
-            mc_frame = pd.DataFrame(
-                {"value": mc.value, "u": mc.u, "low": mc.low, "high": mc.high,
-                 "u_linear": prop.u},
-                index=pd.Index(outputs, name="name"),
-            )  # fmt: skip
-            with np.errstate(divide="ignore", invalid="ignore"):
-                mc_frame["ratio"] = mc_frame["u"] / mc_frame["u_linear"]
+            mc_frame = mc.against_linear(prop.u)
         except PerftestError as exc:
             notes.append(f"Monte Carlo check of the boiler results skipped: {exc}")
     d, i_, r_ = (results.loc[n] for n in outputs[:3])
@@ -429,12 +409,7 @@ def _as_measured(view, comb, hv_u_rel: float, level: float) -> BoilerBlock:
 
     prop = unc.propagate(model, x, cov, names=names, output_names=["boiler_efficiency"],
                          level=level)  # fmt: skip
-    results = pd.DataFrame(
-        {"value": prop.value, "u": prop.u, "U95": prop.U, "unit": ["1"], "k": prop.k,
-         "dof": prop.dof, "description": [BOILER_DESCRIPTIONS["boiler_efficiency"]],
-         "basis": [comb.basis]},
-        index=pd.Index(["boiler_efficiency"], name="name"),
-    )  # fmt: skip
+    results = prop.results_table(["1"], [BOILER_DESCRIPTIONS["boiler_efficiency"]], [comb.basis])
     b = prop.budget_for("boiler_efficiency")[
         ["estimate", "u", "sensitivity", "u_contribution", "share"]
     ]

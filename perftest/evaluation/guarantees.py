@@ -37,6 +37,19 @@ __all__ = [
 
 DIRECTIONS = ("at_least", "at_most")
 VERDICTS = ("met", "not met", "inconclusive")
+#: Columns of a table of verdicts, one row per guarantee (:meth:`Guarantee.judge`).
+VERDICT_COLUMNS = (
+    "quantity",
+    "corrected_value",
+    "U95",
+    "guaranteed",
+    "direction",
+    "verdict",
+    "unit",
+    "margin",
+    "rule",
+    "rule_statement",
+)
 
 Converter = Callable[..., object]
 
@@ -234,6 +247,33 @@ class Guarantee:
         """
         y, _ = self._inputs(corrected_value)
         return y - self.guaranteed if self.direction == "at_least" else self.guaranteed - y
+
+    def judge(self, corrected_value, U95) -> dict:
+        """The verdict with what it rests on: one row of a table of verdicts.
+
+        Parameters
+        ----------
+        corrected_value : float [SI]
+        U95 : float [SI]
+            Expanded uncertainty of ``corrected_value``.
+
+        Returns
+        -------
+        dict
+            Keyed by :data:`VERDICT_COLUMNS`.
+        """
+        return dict(
+            quantity=self.quantity,
+            corrected_value=corrected_value,
+            U95=U95,
+            guaranteed=self.guaranteed,
+            direction=self.direction,
+            verdict=self.verdict(corrected_value, U95),
+            unit=self.unit,
+            margin=self.margin(corrected_value),
+            rule=self.rule,
+            rule_statement=self.statement(),
+        )
 
     def statement(self) -> str:
         """One sentence stating the verdict rule, for reports.

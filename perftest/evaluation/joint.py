@@ -178,7 +178,8 @@ def variance_split(performance, reconciliation) -> VarianceSplit:
 
 def _aligned(split: VarianceSplit, sources: list, names: list):
     """Gradient (results x all sources) and systematic covariance on all sources."""
-    pos = [sources.index(s) for s in split.sources]
+    at = {s: i for i, s in enumerate(sources)}
+    pos = [at[s] for s in split.sources]
     G = np.zeros((len(names), len(sources)))
     g = split.gradient.reindex(index=names).to_numpy(float)
     G[:, pos] = np.nan_to_num(g)
@@ -222,9 +223,7 @@ def joint_covariance(splits, covs, names) -> np.ndarray:
     between windows.
     """
     names = list(names)
-    sources: list = []
-    for sp in splits:
-        sources += [s for s in sp.sources if s not in sources]
+    sources = list(dict.fromkeys(s for sp in splits for s in sp.sources))
     W, R = len(splits), len(names)
     parts = [_aligned(sp, sources, names) for sp in splits]
     D = [np.sqrt(np.maximum(np.diag(Cs), 0.0)) for _, Cs, _ in parts]
@@ -233,10 +232,11 @@ def joint_covariance(splits, covs, names) -> np.ndarray:
         with np.errstate(divide="ignore", invalid="ignore"):
             rho = Cs / np.outer(d, d)
         corr.append(np.where(np.outer(d, d) > 0, rho, 0.0))
-    u = [np.sqrt(np.diag(c.loc[names, names].to_numpy(float))) for c in covs]
+    own = [c.loc[names, names].to_numpy(float) for c in covs]
+    u = [np.sqrt(np.diag(c)) for c in own]
     out = np.zeros((W * R, W * R))
     for i in range(W):
-        out[i * R : (i + 1) * R, i * R : (i + 1) * R] = covs[i].loc[names, names].to_numpy(float)
+        out[i * R : (i + 1) * R, i * R : (i + 1) * R] = own[i]
         for j in range(i + 1, W):
             Gi, _, fi = parts[i]
             Gj, _, fj = parts[j]

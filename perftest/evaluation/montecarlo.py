@@ -73,6 +73,29 @@ class MonteCarlo:
             index=pd.Index(self.output_names, name="output"),
         )
 
+    def against_linear(self, u_linear) -> pd.DataFrame:
+        """The check of a linear propagation: one row per output (index ``name``).
+
+        Parameters
+        ----------
+        u_linear : array_like (m,)
+            Standard uncertainties of the same outputs by the law of propagation.
+
+        Returns
+        -------
+        DataFrame
+            ``value, u, low, high, u_linear`` and ``ratio`` = u / u_linear (NaN or
+            inf where ``u_linear`` is zero).
+        """
+        frame = pd.DataFrame(
+            {"value": self.value, "u": self.u, "low": self.low, "high": self.high,
+             "u_linear": u_linear},
+            index=pd.Index(self.output_names, name="name"),
+        )  # fmt: skip
+        with np.errstate(divide="ignore", invalid="ignore"):
+            frame["ratio"] = frame["u"] / frame["u_linear"]
+        return frame
+
 
 def _factor(c: np.ndarray, func: str) -> np.ndarray:
     """L with L L^T = cov; Cholesky, or eigen-decomposition for singular matrices."""

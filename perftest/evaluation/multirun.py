@@ -25,6 +25,7 @@ import pandas as pd
 
 from perftest import defaults
 from perftest.errors import InputError, PerftestError
+from perftest.evaluation.guarantees import VERDICT_COLUMNS
 from perftest.evaluation.joint import (
     HEADLINE_RESULTS,
     VarianceSplit,
@@ -35,19 +36,6 @@ from perftest.evaluation.joint import (
 )
 
 __all__ = ["Campaign", "WindowResult", "evaluate_test", "plant_windows"]
-
-_GUARANTEE_COLUMNS = [
-    "quantity",
-    "corrected_value",
-    "U95",
-    "guaranteed",
-    "direction",
-    "verdict",
-    "unit",
-    "margin",
-    "rule",
-    "rule_statement",
-]
 
 
 @dataclass(frozen=True, eq=False)
@@ -588,20 +576,7 @@ def _judge(plant, results: pd.DataFrame) -> pd.DataFrame:
     for g in guarantees_from_plant(plant):
         if g.quantity not in results.index:
             continue  # evaluate() of every run has already refused an unknown quantity
-        val = float(results.loc[g.quantity, "value"])
-        U = float(results.loc[g.quantity, "U95"])
         rows.append(
-            dict(
-                quantity=g.quantity,
-                corrected_value=val,
-                U95=U,
-                guaranteed=g.guaranteed,
-                direction=g.direction,
-                verdict=g.verdict(val, U),
-                unit=g.unit,
-                margin=g.margin(val),
-                rule=g.rule,
-                rule_statement=g.statement(),
-            )
+            g.judge(float(results.loc[g.quantity, "value"]), float(results.loc[g.quantity, "U95"]))
         )
-    return pd.DataFrame(rows, columns=_GUARANTEE_COLUMNS)
+    return pd.DataFrame(rows, columns=list(VERDICT_COLUMNS))

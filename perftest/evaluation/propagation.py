@@ -156,6 +156,35 @@ class Propagation:
             index=pd.Index(self.output_names, name="output"),
         )
 
+    def results_table(self, units, descriptions, bases) -> pd.DataFrame:
+        """One row per output, as a table of plant results (index ``name``).
+
+        Parameters
+        ----------
+        units, descriptions, bases : sequence of str
+            Per output: its SI unit, its description and its heating-value basis
+            (``""`` where none applies).
+
+        Returns
+        -------
+        DataFrame
+            ``value, u, U95, unit, k, dof, description, basis`` (``U95`` is ``U``,
+            at this propagation's level).
+        """
+        return pd.DataFrame(
+            {
+                "value": self.value,
+                "u": self.u,
+                "U95": self.U,
+                "unit": list(units),
+                "k": self.k,
+                "dof": self.dof,
+                "description": list(descriptions),
+                "basis": list(bases),
+            },
+            index=pd.Index(self.output_names, name="name"),
+        )
+
     def ufloats(self) -> list:
         """Outputs as correlated ``uncertainties`` numbers."""
         return to_ufloats(self.value, self.cov, self.output_names)

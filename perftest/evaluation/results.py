@@ -51,6 +51,7 @@ from perftest.evaluation.fuel_basis import (  # noqa: F401 - re-exported
     _metering_conditions,
     fuel_exergy_ratio,
 )
+from perftest.evaluation.guarantees import VERDICT_COLUMNS
 from perftest.evaluation.kinds import DESCRIPTIONS, RESULT_UNITS  # noqa: F401 - re-exported
 from perftest.evaluation.plant_keys import (  # noqa: F401 - re-exported
     _check_name,
@@ -393,29 +394,17 @@ def evaluate(
         dof=dof_in,
     )
     basis = fuel["basis"] if fuel is not None else ""
-    results = pd.DataFrame(
-        {
-            "value": prop.value,
-            "u": prop.u,
-            "U95": prop.U,
-            "unit": [_unit_of(o) for o in outputs],
-            "k": prop.k,
-            "dof": prop.dof,
-            "description": [
-                kinds.describe(o, needs.kind)
-                + (
-                    f" ({basis.upper()})"
-                    if basis and o.removeprefix("corrected_") in kinds.HEATING_VALUE_RESULTS
-                    else ""
-                )
-                for o in outputs
-            ],
-            "basis": [
-                basis if o.removeprefix("corrected_") in kinds.HEATING_VALUE_RESULTS else ""
-                for o in outputs
-            ],
-        },
-        index=pd.Index(outputs, name="name"),
+    bases = [
+        basis if o.removeprefix("corrected_") in kinds.HEATING_VALUE_RESULTS else ""
+        for o in outputs
+    ]
+    results = prop.results_table(
+        [_unit_of(o) for o in outputs],
+        [
+            kinds.describe(o, needs.kind) + (f" ({b.upper()})" if b else "")
+            for o, b in zip(outputs, bases, strict=True)
+        ],
+        bases,
     )
     if needs.kind == "refrigeration" and "heat_rejected" in needs.refs:
         results, cov_out_extra = _with_heat_balance(rec, needs, results, notes, level)
@@ -464,18 +453,7 @@ def evaluate(
             mc = unc.monte_carlo(
                 model, x, cov, n=_MC_TRIALS, seed=seed, level=level, output_names=outputs
             )
-            mc_frame = pd.DataFrame(
-                {
-                    "value": mc.value,
-                    "u": mc.u,
-                    "low": mc.low,
-                    "high": mc.high,
-                    "u_linear": prop.u,
-                },
-                index=pd.Index(outputs, name="name"),
-            )
-            with np.errstate(divide="ignore", invalid="ignore"):
-                mc_frame["ratio"] = mc_frame["u"] / mc_frame["u_linear"]
+            mc_frame = mc.against_linear(prop.u)
         except PerftestError as exc:
             notes.append(f"Monte Carlo check skipped: {exc}")
         if mc_frame is not None and block is not None and block.monte_carlo is not None:
@@ -541,41 +519,10 @@ def evaluate(
             )
         if bare:
             continue
-        val = float(results.loc[g.quantity, "value"])
-        U = float(results.loc[g.quantity, "U95"])
         g_rows.append(
-            dict(
-                quantity=g.quantity,
-                corrected_value=val,
-                U95=U,
-                guaranteed=g.guaranteed,
-                direction=g.direction,
-                verdict=g.verdict(val, U),
-                unit=g.unit,
-                margin=g.margin(val),
-                rule=g.rule,
-                rule_statement=g.statement(),
-            )
+            g.judge(float(results.loc[g.quantity, "value"]), float(results.loc[g.quantity, "U95"]))
         )
-    guarantees = (
-        pd.DataFrame()
-        if bare
-        else pd.DataFrame(
-            g_rows,
-            columns=[
-                "quantity",
-                "corrected_value",
-                "U95",
-                "guaranteed",
-                "direction",
-                "verdict",
-                "unit",
-                "margin",
-                "rule",
-                "rule_statement",
-            ],
-        )
-    )
+    guarantees = pd.DataFrame() if bare else pd.DataFrame(g_rows, columns=list(VERDICT_COLUMNS))
 
     # ---- exergy per unit
     products: dict = {}
@@ -646,7 +593,7 @@ def _corrected_boiler_results(corrected, results, cov_out, x, cov, pos, level):
         dv = float(sens["value"])
         var = (dv * u_b) ** 2 + float(g @ c_cond @ g)
         u = math.sqrt(max(var, 0.0))
-        dof = float(results.loc[result, "dof"]) if "dof" in results else math.inf
+        dof = float(results.loc[result, "dof"])
         U = float(unc.expanded(u, dof, level))
         name = f"corrected_{result}"
         rows.append(
@@ -660,7 +607,7 @@ def _corrected_boiler_results(corrected, results, cov_out, x, cov, pos, level):
                 "dof": dof,
                 "description": f"{results.loc[result, 'description']}, corrected to "
                 "reference conditions",
-                "basis": results.loc[result, "basis"] if "basis" in results else "",
+                "basis": results.loc[result, "basis"],
             }
         )
         new_cov[name] = (result, dv, var)
@@ -681,7 +628,6 @@ def _corrected_boiler_results(corrected, results, cov_out, x, cov, pos, level):
     results = pd.concat([results, add[[c for c in results.columns if c in add.columns]]])
     cov_out = cov_out.reindex(index=results.index, columns=results.index, fill_value=0.0)
     for name, (result, dv, var) in new_cov.items():
-        cov_out.loc[name, name] = var
         # the block's own part is shared with the uncorrected result
         row = dv * cov_out.loc[result, :].drop(index=name)
         cov_out.loc[name, row.index] = row.to_numpy()

@@ -186,7 +186,8 @@ def test_chiller_dof_and_coverage_factor_from_t(chiller):
     r = perf.results
     # Every tag has 30 dof: Welch-Satterthwaite over a combination of them gives at
     # least 30 (GUM G.4, Eq. G.2b), and k from Student's t at those dof is above
-    # the normal 1.96 (t_0.975(30) = 2.042, the largest it can be).
+    # the normal 1.96 (t_0.975(30) = 2.042, the largest it can be; GUM Table G.2
+    # prints 2.04 for 95 % at 30 dof, from memory).
     from scipy import stats
 
     for name in ("cop", "cooling_capacity"):
@@ -371,6 +372,8 @@ def test_chp_exergy_account_closes_with_the_export(chp):
     # tolerance) and no loss stands in for it.
     assert perf.exergy_closure is not None and perf.exergy_closure.closed
     assert abs(perf.exergy_closure.relative_imbalance) < 1e-3
+    # the account's product and the result are the same exergy reached by two paths
+    # of arithmetic, only round-off apart: 1e-6 is ample
     assert perf.exergy_products["heat export"] == pytest.approx(
         perf.value("heat_export_exergy"), rel=1e-6
     )
@@ -395,7 +398,8 @@ def test_mean_temperature_of_heat_addition_against_its_definition(chp):
     # 4001 points: the trapezoid error is ~1e-7 relative; IF97's backward T(p, h)
     # adds up to ~25 mK, averaged out over the path.  0.05 K covers both.
     assert perf.value("heat_addition_mean_temperature") == pytest.approx(t_m, abs=0.05)
-    # The split of the gap to Carnot adds up, and each part is positive here.
+    # The split of the gap to Carnot adds up, and each part is positive here (the
+    # two parts are a difference of the same four numbers: round-off only, 1e-9).
     r = perf.results["value"]
     assert r["carnot_gap_heat_transfer"] + r["carnot_gap_irreversibility"] == pytest.approx(
         r["carnot_efficiency"] - r["cycle_efficiency"], rel=1e-9
@@ -481,6 +485,22 @@ def test_heat_pump_results_against_truth_and_hand_calculation():
 
 # --------------------------------------------------------------------------- textbook bounds
 
+# A bench plant of four tags (work and heat in kW, two temperatures in K); its
+# [performance] keys follow.
+_BENCH_TAGS = """
+[site]
+name = "Bench"
+[tags.JT]
+unit = "kW"
+[tags.QT]
+unit = "kW"
+[tags.TC]
+unit = "K"
+[tags.TH]
+unit = "K"
+[performance]
+"""
+
 
 def test_carnot_cop_textbook_examples(tmp_path):
     # Reversible machines between stated temperatures, computed through evaluate().
@@ -496,19 +516,8 @@ def test_carnot_cop_textbook_examples(tmp_path):
     ):
         path = tmp_path / f"{kind}.toml"
         path.write_text(
-            f"""
-[site]
-name = "Bench"
-[tags.JT]
-unit = "kW"
-[tags.QT]
-unit = "kW"
-[tags.TC]
-unit = "K"
-[tags.TH]
-unit = "K"
-[performance]
-kind = "{kind}"
+            _BENCH_TAGS
+            + f"""kind = "{kind}"
 power_input = "JT"
 {load} = "QT"
 cold_temperature = "TC"
@@ -569,11 +578,7 @@ def test_performance_keys_of_each_kind(tmp_path, performance, match):
     from standin import StandIn
 
     path = tmp_path / "plant.toml"
-    path.write_text(
-        '[site]\nname = "Bench"\n[tags.JT]\nunit = "kW"\n[tags.QT]\nunit = "kW"\n'
-        '[tags.TC]\nunit = "K"\n[tags.TH]\nunit = "K"\n[performance]\n' + performance + "\n",
-        encoding="utf-8",
-    )
+    path.write_text(_BENCH_TAGS + performance + "\n", encoding="utf-8")
     values = {"JT": 1e5, "QT": 4e5, "TC": 280.0, "TH": 300.0}
     with pytest.raises(PlantFileError, match=match) as info:
         evaluate(load_plant(path), StandIn(values, {k: 1.0 for k in values}))
@@ -584,24 +589,15 @@ def test_performance_keys_of_each_kind(tmp_path, performance, match):
 # --------------------------------------------------------------------------- guarantees
 
 
-_BENCH = """
-[site]
-name = "Bench"
-[tags.JT]
-unit = "kW"
-[tags.QT]
-unit = "kW"
-[tags.TC]
-unit = "K"
-[tags.TH]
-unit = "K"
-[performance]
-kind = "refrigeration"
+_BENCH = (
+    _BENCH_TAGS
+    + """kind = "refrigeration"
 power_input = "JT"
 cooling = "QT"
 cold_temperature = "TC"
 hot_temperature = "TH"
 """
+)
 _BENCH_VALUES = {"JT": 100e3, "QT": 500e3, "TC": 280.0, "TH": 303.0}
 
 
