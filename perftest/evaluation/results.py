@@ -610,7 +610,7 @@ def _corrected_boiler_results(corrected, results, cov_out, x, cov, pos, level):
                 "basis": results.loc[result, "basis"],
             }
         )
-        new_cov[name] = (result, dv, var)
+        new_cov[name] = (result, dv, var, g, idx)
         budget = pd.DataFrame(
             {
                 "estimate": [value, *[conditions[v] for v in variables]],
@@ -627,12 +627,21 @@ def _corrected_boiler_results(corrected, results, cov_out, x, cov, pos, level):
     add.index.name = results.index.name
     results = pd.concat([results, add[[c for c in results.columns if c in add.columns]]])
     cov_out = cov_out.reindex(index=results.index, columns=results.index, fill_value=0.0)
-    for name, (result, dv, var) in new_cov.items():
+    for name, (result, dv, var, _, _) in new_cov.items():
         # the block's own part is shared with the uncorrected result
         row = dv * cov_out.loc[result, :].drop(index=name)
         cov_out.loc[name, row.index] = row.to_numpy()
         cov_out.loc[row.index, name] = row.to_numpy()
         cov_out.loc[name, name] = var
+    # two corrected results that share a condition share its part as well
+    names = list(new_cov)
+    for i, a in enumerate(names):
+        for b in names[i + 1 :]:
+            _, _, _, g_a, idx_a = new_cov[a]
+            _, _, _, g_b, idx_b = new_cov[b]
+            shared = float(g_a @ cov[np.ix_(idx_a, idx_b)] @ g_b)
+            cov_out.loc[a, b] += shared
+            cov_out.loc[b, a] += shared
     return results, cov_out, extra
 
 

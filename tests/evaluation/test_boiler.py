@@ -385,3 +385,35 @@ def test_a_boiler_result_can_be_corrected_to_reference_conditions(tmp_path, rec)
     u_t = math.sqrt(float(np.asarray(rec.covariance(["TT-401"]))[0, 0]))
     assert got["u"] == pytest.approx(math.hypot(base["u"], slope * u_t), rel=1e-9)
     assert "corrected_boiler_efficiency" in p2.budgets
+
+
+def test_corrected_boiler_results_share_the_condition_they_are_corrected_for(tmp_path, rec):
+    # Two boiler results corrected with the same additive curve of the air
+    # temperature: their covariance holds the block's own part and the shared
+    # condition's, cov = cov(a, b) + g^2 u_T^2 (GUM Eq. 16 for the two linear
+    # combinations, the block and the condition uncorrelated).
+    t_air = rec.value("TT-401") - 273.15
+    ref = round(t_air) - 3.0
+    text = (FOLDER / "plant.toml").read_text(encoding="utf-8")
+    for result in ("boiler_efficiency", "boiler_efficiency_indirect"):
+        text += (
+            "\n[[corrections]]\n"
+            f'result = "{result}"\n'
+            'variable = "TT-401"\n'
+            f'reference = {{ value = {ref}, unit = "degC" }}\n'
+            'kind = "additive"\n'
+            f"curve = {{ x = [{ref - 20.0}, {ref}, {ref + 20.0}], y = [-0.02, 0.0, 0.02], "
+            'x_unit = "degC" }\n'
+        )
+    (tmp_path / "plant.toml").write_text(text, encoding="utf-8")
+    plant2 = perftest.load_plant(tmp_path / "plant.toml")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        p2 = perftest.evaluate(plant2, rec)
+    c = p2.cov
+    a, b = "corrected_boiler_efficiency", "corrected_boiler_efficiency_indirect"
+    u_t2 = float(np.asarray(rec.covariance(["TT-401"]))[0, 0])
+    expected = c.loc["boiler_efficiency", "boiler_efficiency_indirect"] + 0.001**2 * u_t2
+    # 1e-9: the same closed-form arithmetic on both sides
+    assert c.loc[a, b] == pytest.approx(expected, rel=1e-9)
+    assert c.loc[b, a] == c.loc[a, b]
