@@ -343,6 +343,28 @@ def test_plant_file_points_with_reference_and_guarantees(tmp_path, chiller):
     assert out.test.mode == "points"
 
 
+def test_plant_file_point_reference_of_a_polynomial_correction_is_refused(tmp_path):
+    # A point can move the reference of a table curve only; a polynomial correction
+    # is refused with its key and line, not with a bare KeyError.
+    folder = data_dir("ostrenby")
+    text = (folder / "plant.toml").read_text()
+    text = text.replace(
+        "curve = { x = [20.0, 24.0, 27.0, 29.5, 32.0, 35.0], y = [1.215, 1.122, 1.056, 1.0, "
+        '0.946, 0.884], x_unit = "degC" }',
+        "polynomial = [1.0, -0.02]",
+    )
+    assert "polynomial = [1.0, -0.02]" in text
+    plant_path, files = _chiller_copy(tmp_path, POINTS_TOML)
+    plant_path.write_text(text + POINTS_TOML)
+    plant = perftest.load_plant(plant_path)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        run = perftest.read_run(files, plant)
+    with pytest.raises(PlantFileError, match="polynomial or a surface") as info:
+        evaluate_test(plant, run)
+    assert info.value.line is not None
+
+
 def test_plant_file_point_reference_to_unknown_variable(tmp_path):
     bad = POINTS_TOML.replace('"cw_in.temperature"', '"cw_out.temperature"')
     plant_path, files = _chiller_copy(tmp_path, bad)
