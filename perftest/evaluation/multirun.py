@@ -317,15 +317,6 @@ def _move_reference(plant, table: dict, value, where) -> None:
             )
         )
 
-    if not isinstance(table.get("curve"), Mapping):
-        raise _plant(
-            plant,
-            f"[[points]] reference {where[1]!r}: a load point can move the reference of a "
-            "correction given as a 'curve' table only; this correction of "
-            f"{table.get('result')!r} is a polynomial or a surface. Give it as a curve, or "
-            "leave the point's reference out.",
-            "points", *where,
-        )  # fmt: skip
     old = table["reference"]
     old_unit = old.get("unit") if isinstance(old, Mapping) else None
     new_v, new_unit = (value.get("value"), value.get("unit")) if isinstance(

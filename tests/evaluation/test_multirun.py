@@ -345,7 +345,7 @@ def test_plant_file_points_with_reference_and_guarantees(tmp_path, chiller):
 
 def test_plant_file_point_reference_of_a_polynomial_correction_is_refused(tmp_path):
     # A point can move the reference of a table curve only; a polynomial correction
-    # is refused with its key and line, not with a bare KeyError.
+    # is refused with its key and line.
     folder = data_dir("ostrenby")
     text = (folder / "plant.toml").read_text()
     text = text.replace(
