@@ -330,7 +330,8 @@ def _fmt_result(perf, name: str, unit: str, scale: float = 1.0, offset: float = 
 
     r = perf.results.loc[name]
     v, U = fmt_uncertain(r["value"] * scale + offset, r["U95"] * abs(scale))
-    return f"{v} {unit} +- {U} {unit}"
+    sp = f" {unit}" if unit else ""
+    return f"{v}{sp} +- {U}{sp}"
 
 
 def _summary(outcome, out=None) -> None:
@@ -415,8 +416,12 @@ def _test_lines(test, w):
         for g in win.performance.guarantees.itertuples(index=False):
             w(f"  guarantee         {win.label}: {g.quantity} {g.direction.replace('_', ' ')}: "
               f"{g.verdict}\n")  # fmt: skip
-    for name in test.results.index:
-        w(f"  {name:<17} {_fmt_result(test, name, '', 1.0)} (U95)\n")
+    from perftest.display.format import result_unit, unit_label
+
+    for name, r in test.results.iterrows():
+        unit, scale, off = result_unit(name, r["unit"], r["value"])
+        label = unit_label(unit) if unit not in ("1", "") else ""
+        w(f"  {name:<17} {_fmt_result(test, name, label, scale, off)} (U95)\n")
     return None
 
 

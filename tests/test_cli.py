@@ -247,3 +247,29 @@ def test_plan_without_design_table_names_the_file(tmp_path, capsys):
     assert "plant.toml" in line and "[design]" in line
     assert main(["plan", str(tmp_path / "missing.toml")]) == 2
     assert "not found" in _one_error_line(capsys.readouterr().err)
+
+
+def test_weighted_part_load_lines_are_in_display_units():
+    """The weighted figures of a load-point test print in the units of the
+    single-window lines (kJ/kWh, %), not as bare SI ratios."""
+    import io
+    from types import SimpleNamespace
+
+    import pandas as pd
+
+    from perftest.cli import _test_lines
+
+    results = pd.DataFrame(
+        {"value": [3.0, 0.25, 5.0], "u": [0.01, 0.001, 0.05], "U95": [0.02, 0.002, 0.1],
+         "unit": ["J/J", "1", "1"]},
+        index=["weighted_heat_rate", "weighted_first_law_efficiency", "weighted_cop"],
+    )  # fmt: skip
+    test = SimpleNamespace(mode="points", windows=[], results=results)
+    buf = io.StringIO()
+    assert _test_lines(test, buf.write) is None
+    lines = {ln.split()[0]: ln for ln in buf.getvalue().splitlines()}
+    # 1 J/J = 3600 kJ/kWh (1 kWh = 3600 kJ by definition of the kilowatt hour)
+    assert "10800 kJ/kWh +- 72 kJ/kWh" in lines["weighted_heat_rate"]
+    assert "25.00 % +- 0.20 %" in lines["weighted_first_law_efficiency"]
+    # a COP is a plain ratio: no unit and no stray spaces
+    assert "5.00 +- 0.10 (U95)" in lines["weighted_cop"]
