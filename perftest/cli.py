@@ -340,24 +340,16 @@ def _summary(outcome, out=None) -> None:
     rec = outcome.reconciliation
     plant = outcome.plant
     w(f"{getattr(plant, 'name', 'plant')}\n")
-    m = outcome.measurements
-    if m is not None and m.start is not None:
-        w(f"  window            {m.start} to {m.end}\n")
-    if rec is not None:
-        gt = rec.global_test
-        w(
-            f"  global test       chi2 = {gt['chi2']:.2f}, dof = {gt['dof']}, "
-            f"p = {gt['p_value']:.3f} ({'passed' if gt['passed'] else 'failed'})\n"
-        )
-        for e in rec.eliminated:
-            w(f"  dropped           {e.tag} (|z| = {abs(e.z):.2f})\n")
-        frame = rec.to_frame(units="si")
-        sus = [t for t, s in zip(frame["tag"], frame["suspect"], strict=True) if s]
-        if sus:
-            w(f"  suspects          {', '.join(sus)}\n")
     test = getattr(outcome, "test", None)
     if test is not None:
+        # each window has its own reconciliation: its lines follow its label
         perf = _test_lines(test, w)
+    else:
+        m = outcome.measurements
+        if m is not None and m.start is not None:
+            w(f"  window            {m.start} to {m.end}\n")
+        if rec is not None:
+            _reconciliation_lines(rec, w)
     if perf is not None:
         rows = [
             ("net power", "net_power", "MW", 1e-6, 0.0),
@@ -399,12 +391,30 @@ def _summary(outcome, out=None) -> None:
         )
 
 
+def _reconciliation_lines(rec, w, indent: str = "  ") -> None:
+    """Global test, dropped instruments and suspects of one reconciliation."""
+    width = 19 - len(indent)  # the values start in one column whatever the indent
+    gt = rec.global_test
+    w(
+        f"{indent}{'global test':<{width}} chi2 = {gt['chi2']:.2f}, dof = {gt['dof']}, "
+        f"p = {gt['p_value']:.3f} ({'passed' if gt['passed'] else 'failed'})\n"
+    )
+    for e in rec.eliminated:
+        w(f"{indent}{'dropped':<{width}} {e.tag} (|z| = {abs(e.z):.2f})\n")
+    frame = rec.to_frame(units="si")
+    sus = [t for t, s in zip(frame["tag"], frame["suspect"], strict=True) if s]
+    if sus:
+        w(f"{indent}{'suspects':<{width}} {', '.join(sus)}\n")
+
+
 def _test_lines(test, w):
     """Lines of a test of several windows; returns what the result lines should show."""
     from types import SimpleNamespace
 
     for win in test.windows:
         w(f"  {win.label:<17} {win.start:%Y-%m-%d %H:%M} to {win.end:%H:%M}\n")
+        if getattr(win, "reconciliation", None) is not None:
+            _reconciliation_lines(win.reconciliation, w, indent="    ")
     if test.mode == "runs":
         rep = test.repeatability
         bad = [str(n) for n, r in rep.iterrows() if r["passed"] is False]

@@ -273,3 +273,51 @@ def test_weighted_part_load_lines_are_in_display_units():
     assert "25.00 % +- 0.20 %" in lines["weighted_first_law_efficiency"]
     # a COP is a plain ratio: no unit and no stray spaces
     assert "5.00 +- 0.10 (U95)" in lines["weighted_cop"]
+
+
+def test_each_run_shows_its_own_reconciliation():
+    """A test of several runs prints each run's global test and dropped
+    instruments under that run, not the first run's alone as if for the test."""
+    import io
+    from types import SimpleNamespace
+
+    import pandas as pd
+
+    from perftest.cli import _summary
+
+    def rec(p, tag):
+        return SimpleNamespace(
+            global_test={"chi2": 1.0, "dof": 2, "p_value": p, "passed": p >= 0.05},
+            eliminated=[SimpleNamespace(tag=tag, z=-4.5)],
+            to_frame=lambda units: pd.DataFrame({"tag": [tag], "suspect": [True]}),
+        )
+
+    wins = [
+        SimpleNamespace(label="run 1", start=pd.Timestamp("2031-05-04 09:00"),
+                        end=pd.Timestamp("2031-05-04 10:00"), reconciliation=rec(0.8, "FT-1")),
+        SimpleNamespace(label="run 2", start=pd.Timestamp("2031-05-04 10:00"),
+                        end=pd.Timestamp("2031-05-04 11:00"), reconciliation=rec(0.01, "FT-2")),
+    ]  # fmt: skip
+    empty = pd.DataFrame(columns=["value", "U95", "unit"])
+    test = SimpleNamespace(
+        mode="runs", windows=wins, results=empty, guarantees=pd.DataFrame(columns=["quantity"]),
+        repeatability=pd.DataFrame(columns=["passed"]),
+    )  # fmt: skip
+    outcome = SimpleNamespace(
+        performance=None, reconciliation=wins[0].reconciliation, plant=None,
+        measurements=None, test=test, missing=[], written={}, timings={},
+    )  # fmt: skip
+    buf = io.StringIO()
+    _summary(outcome, buf)
+    lines = buf.getvalue().splitlines()
+    at: dict = {}
+    for i, ln in enumerate(lines):
+        at.setdefault(" ".join(ln.split()[:2]), i)  # the first line of each label
+    assert at["run 1"] < at["global test"] < at["run 2"]
+    run2 = "\n".join(lines[at["run 2"] :])
+    assert "p = 0.010 (failed)" in run2
+    assert any(ln.split() == ["dropped", "FT-2", "(|z|", "=", "4.50)"] for ln in run2.splitlines())
+    # the values of the indented lines start in the column of the run's times
+    assert lines[at["global test"]].index("chi2") == lines[at["run 1"]].index("2031")
+    assert "FT-2" not in "\n".join(lines[: at["run 2"]])
+    assert not any(ln.lstrip().startswith("window ") for ln in lines)
