@@ -42,6 +42,8 @@ def test_record_shows_its_value_in_the_unit_it_names():
     ((value, U),) = _numbers_before("t/h", text)
     assert value == pytest.approx(36.0, abs=0.05)  # rounded to U95's digits
     # U95 = 1.96 u for infinite dof; 0.05 kg/s = 0.18 t/h (exact factor 3.6)
+    # 0.006: U95 is printed to two significant digits (0.35 for 0.3528); a few
+    # thousandths more than that rounding, no more
     assert U == pytest.approx(1.96 * 0.18, abs=0.006)
     assert "10 kg/s inside" in text
 
