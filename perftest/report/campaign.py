@@ -304,10 +304,12 @@ def part_load_figure(data: ReportData):
     from perftest.report.figures import _figure
 
     first = c["windows"][0]["results"]
+    # results computed at every point (a point may lack one, e.g. out of a curve's range)
+    common = set.intersection(*(set(w["results"].index) for w in c["windows"]))
     load = next((n for n in ("cooling_capacity", "heating_capacity", "net_power",
-                             "heat_export") if n in first.index), None)  # fmt: skip
+                             "heat_export") if n in common), None)  # fmt: skip
     ys = [n for n in ("cop", "corrected_cop", "first_law_efficiency", "corrected_heat_rate",
-                      "heat_rate") if n in first.index][:2]  # fmt: skip
+                      "heat_rate") if n in common][:2]  # fmt: skip
     if load is None or not ys:
         return None
     units = {n: result_unit(n, first.loc[n, "unit"], first.loc[n, "value"]) for n in ys}

@@ -170,3 +170,32 @@ def test_progress_bar_uses_tqdm_when_asked(capsys):
     quiet = Progress(3, enabled=False)
     quiet.close()
     assert quiet._tqdm is None and capsys.readouterr().err == ""
+
+
+def test_campaign_table_of_runs_with_a_result_one_run_lacks():
+    """A result computed in the first run only has no mean: its mean cells are
+    '–', not an error."""
+    from types import SimpleNamespace
+
+    from perftest.display.views import campaign_text
+
+    def perf(names):
+        res = pd.DataFrame(
+            {"value": [30e6, 31e6], "U95": [0.1e6, 0.1e6], "unit": ["W", "W"]},
+            index=["net_power", "corrected_net_power"],
+        )
+        return SimpleNamespace(results=res.loc[names])
+
+    wins = [
+        SimpleNamespace(label="run 1", start=pd.Timestamp("2031-05-04 09:00"),
+                        end=pd.Timestamp("2031-05-04 10:00"),
+                        performance=perf(["net_power", "corrected_net_power"])),
+        SimpleNamespace(label="run 2", start=pd.Timestamp("2031-05-04 10:00"),
+                        end=pd.Timestamp("2031-05-04 11:00"), performance=perf(["net_power"])),
+    ]  # fmt: skip
+    combined = pd.DataFrame({"value": [30e6], "U95": [0.07e6], "unit": ["W"]}, index=["net_power"])
+    test = SimpleNamespace(mode="runs", windows=wins, results=combined, level=0.95,
+                           repeatability=pd.DataFrame(), guarantees=pd.DataFrame())  # fmt: skip
+    text = campaign_text(test)
+    row = next(ln for ln in text.splitlines() if ln.startswith("corrected_net_power"))
+    assert row.split()[1:] == ["31.00", "–", "–", "–", "MW"]

@@ -422,3 +422,27 @@ def test_part_load_figure_keeps_one_unit_on_its_y_axis():
     labels = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
     assert labels == ["cop [–]", "corrected_cop [–]"]
     plt.close(fig)
+
+
+def test_part_load_figure_skips_a_result_one_point_lacks():
+    from types import SimpleNamespace
+
+    import matplotlib.pyplot as plt
+
+    from perftest.report.campaign import part_load_figure
+
+    def res(names, cop):
+        full = pd.DataFrame(
+            {"value": [800e3, cop, cop * 0.98], "U95": [5e3, 0.1, 0.1], "unit": ["W", "1", "1"]},
+            index=["cooling_capacity", "cop", "corrected_cop"],
+        )
+        return full.loc[names]
+
+    wins = [
+        {"label": "100 %", "results": res(["cooling_capacity", "cop", "corrected_cop"], 5.0)},
+        {"label": "50 %", "results": res(["cooling_capacity", "cop"], 5.6)},
+    ]
+    fig = part_load_figure(SimpleNamespace(campaign={"mode": "points", "windows": wins}))
+    labels = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
+    assert labels == ["cop [–]"]
+    plt.close(fig)
