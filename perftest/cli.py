@@ -463,7 +463,8 @@ def _run(args) -> int:
         check_outputs(
             report_paths(args.out, json_path=args.json, markdown_path=args.markdown,
                          html_path=args.html, figures=not args.no_figures),
-            {"--data": [Path(f) for f in args.data or ()], "plant file": [plant]},
+            {"--data": [Path(f) for f in args.data or ()], "plant file": [plant],
+             "--sql": _sqlite_file(args.sql)},
         )  # fmt: skip
         start, end, window = _window_options(args)
         runs, points = _test_options(args)
@@ -492,6 +493,15 @@ def _run(args) -> int:
         kept = f" Written with the stages computed before it: {', '.join(wrote)}." if wrote else ""
         raise PerftestError(f"{failure}{kept}")
     return 0
+
+
+def _sqlite_file(url) -> list:
+    """The database file an ``--sql sqlite:///FILE`` URL reads ([] for other URLs)."""
+    prefix = "sqlite:///"
+    if not url or not str(url).startswith(prefix):
+        return []
+    path = str(url)[len(prefix) :].split("?", 1)[0]
+    return [Path(path)] if path and path != ":memory:" else []
 
 
 def _test_options(args) -> tuple:
