@@ -330,7 +330,8 @@ def _fmt_result(perf, name: str, unit: str, scale: float = 1.0, offset: float = 
 
     r = perf.results.loc[name]
     v, U = fmt_uncertain(r["value"] * scale + offset, r["U95"] * abs(scale))
-    return f"{v} {unit} +- {U} {unit}"
+    sp = f" {unit}" if unit else ""
+    return f"{v}{sp} +- {U}{sp}"
 
 
 def _summary(outcome, out=None) -> None:
@@ -339,24 +340,16 @@ def _summary(outcome, out=None) -> None:
     rec = outcome.reconciliation
     plant = outcome.plant
     w(f"{getattr(plant, 'name', 'plant')}\n")
-    m = outcome.measurements
-    if m is not None and m.start is not None:
-        w(f"  window            {m.start} to {m.end}\n")
-    if rec is not None:
-        gt = rec.global_test
-        w(
-            f"  global test       chi2 = {gt['chi2']:.2f}, dof = {gt['dof']}, "
-            f"p = {gt['p_value']:.3f} ({'passed' if gt['passed'] else 'failed'})\n"
-        )
-        for e in rec.eliminated:
-            w(f"  dropped           {e.tag} (|z| = {abs(e.z):.2f})\n")
-        frame = rec.to_frame(units="si")
-        sus = [t for t, s in zip(frame["tag"], frame["suspect"], strict=True) if s]
-        if sus:
-            w(f"  suspects          {', '.join(sus)}\n")
     test = getattr(outcome, "test", None)
     if test is not None:
+        # each window has its own reconciliation: its lines follow its label
         perf = _test_lines(test, w)
+    else:
+        m = outcome.measurements
+        if m is not None and m.start is not None:
+            w(f"  window            {m.start} to {m.end}\n")
+        if rec is not None:
+            _reconciliation_lines(rec, w)
     if perf is not None:
         rows = [
             ("net power", "net_power", "MW", 1e-6, 0.0),
@@ -398,12 +391,30 @@ def _summary(outcome, out=None) -> None:
         )
 
 
+def _reconciliation_lines(rec, w, indent: str = "  ") -> None:
+    """Global test, dropped instruments and suspects of one reconciliation."""
+    width = 19 - len(indent)  # the values start in one column whatever the indent
+    gt = rec.global_test
+    w(
+        f"{indent}{'global test':<{width}} chi2 = {gt['chi2']:.2f}, dof = {gt['dof']}, "
+        f"p = {gt['p_value']:.3f} ({'passed' if gt['passed'] else 'failed'})\n"
+    )
+    for e in rec.eliminated:
+        w(f"{indent}{'dropped':<{width}} {e.tag} (|z| = {abs(e.z):.2f})\n")
+    frame = rec.to_frame(units="si")
+    sus = [t for t, s in zip(frame["tag"], frame["suspect"], strict=True) if s]
+    if sus:
+        w(f"{indent}{'suspects':<{width}} {', '.join(sus)}\n")
+
+
 def _test_lines(test, w):
     """Lines of a test of several windows; returns what the result lines should show."""
     from types import SimpleNamespace
 
     for win in test.windows:
         w(f"  {win.label:<17} {win.start:%Y-%m-%d %H:%M} to {win.end:%H:%M}\n")
+        if getattr(win, "reconciliation", None) is not None:
+            _reconciliation_lines(win.reconciliation, w, indent="    ")
     if test.mode == "runs":
         rep = test.repeatability
         bad = [str(n) for n, r in rep.iterrows() if r["passed"] is False]
@@ -415,8 +426,12 @@ def _test_lines(test, w):
         for g in win.performance.guarantees.itertuples(index=False):
             w(f"  guarantee         {win.label}: {g.quantity} {g.direction.replace('_', ' ')}: "
               f"{g.verdict}\n")  # fmt: skip
-    for name in test.results.index:
-        w(f"  {name:<17} {_fmt_result(test, name, '', 1.0)} (U95)\n")
+    from perftest.display.format import result_unit, unit_label
+
+    for name, r in test.results.iterrows():
+        unit, scale, off = result_unit(name, r["unit"], r["value"])
+        label = unit_label(unit) if unit not in ("1", "") else ""
+        w(f"  {name:<17} {_fmt_result(test, name, label, scale, off)} (U95)\n")
     return None
 
 
@@ -448,7 +463,8 @@ def _run(args) -> int:
         check_outputs(
             report_paths(args.out, json_path=args.json, markdown_path=args.markdown,
                          html_path=args.html, figures=not args.no_figures),
-            {"--data": [Path(f) for f in args.data or ()], "plant file": [plant]},
+            {"--data": [Path(f) for f in args.data or ()], "plant file": [plant],
+             "--sql": _sqlite_file(args.sql)},
         )  # fmt: skip
         start, end, window = _window_options(args)
         runs, points = _test_options(args)
@@ -477,6 +493,15 @@ def _run(args) -> int:
         kept = f" Written with the stages computed before it: {', '.join(wrote)}." if wrote else ""
         raise PerftestError(f"{failure}{kept}")
     return 0
+
+
+def _sqlite_file(url) -> list:
+    """The database file an ``--sql sqlite:///FILE`` URL reads ([] for other URLs)."""
+    prefix = "sqlite:///"
+    if not url or not str(url).startswith(prefix):
+        return []
+    path = str(url)[len(prefix) :].split("?", 1)[0]
+    return [Path(path)] if path and path != ":memory:" else []
 
 
 def _test_options(args) -> tuple:

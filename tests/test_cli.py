@@ -247,3 +247,77 @@ def test_plan_without_design_table_names_the_file(tmp_path, capsys):
     assert "plant.toml" in line and "[design]" in line
     assert main(["plan", str(tmp_path / "missing.toml")]) == 2
     assert "not found" in _one_error_line(capsys.readouterr().err)
+
+
+def test_weighted_part_load_lines_are_in_display_units():
+    """The weighted figures of a load-point test print in the units of the
+    single-window lines (kJ/kWh, %), not as bare SI ratios."""
+    import io
+    from types import SimpleNamespace
+
+    import pandas as pd
+
+    from perftest.cli import _test_lines
+
+    results = pd.DataFrame(
+        {"value": [3.0, 0.25, 5.0], "u": [0.01, 0.001, 0.05], "U95": [0.02, 0.002, 0.1],
+         "unit": ["J/J", "1", "1"]},
+        index=["weighted_heat_rate", "weighted_first_law_efficiency", "weighted_cop"],
+    )  # fmt: skip
+    test = SimpleNamespace(mode="points", windows=[], results=results)
+    buf = io.StringIO()
+    assert _test_lines(test, buf.write) is None
+    lines = {ln.split()[0]: ln for ln in buf.getvalue().splitlines()}
+    # 1 J/J = 3600 kJ/kWh (1 kWh = 3600 kJ by definition of the kilowatt hour)
+    assert "10800 kJ/kWh +- 72 kJ/kWh" in lines["weighted_heat_rate"]
+    assert "25.00 % +- 0.20 %" in lines["weighted_first_law_efficiency"]
+    # a COP is a plain ratio: no unit and no stray spaces
+    assert "5.00 +- 0.10 (U95)" in lines["weighted_cop"]
+
+
+def test_each_run_shows_its_own_reconciliation():
+    """A test of several runs prints each run's global test and dropped
+    instruments under that run, not the first run's alone as if for the test."""
+    import io
+    from types import SimpleNamespace
+
+    import pandas as pd
+
+    from perftest.cli import _summary
+
+    def rec(p, tag):
+        return SimpleNamespace(
+            global_test={"chi2": 1.0, "dof": 2, "p_value": p, "passed": p >= 0.05},
+            eliminated=[SimpleNamespace(tag=tag, z=-4.5)],
+            to_frame=lambda units: pd.DataFrame({"tag": [tag], "suspect": [True]}),
+        )
+
+    wins = [
+        SimpleNamespace(label="run 1", start=pd.Timestamp("2031-05-04 09:00"),
+                        end=pd.Timestamp("2031-05-04 10:00"), reconciliation=rec(0.8, "FT-1")),
+        SimpleNamespace(label="run 2", start=pd.Timestamp("2031-05-04 10:00"),
+                        end=pd.Timestamp("2031-05-04 11:00"), reconciliation=rec(0.01, "FT-2")),
+    ]  # fmt: skip
+    empty = pd.DataFrame(columns=["value", "U95", "unit"])
+    test = SimpleNamespace(
+        mode="runs", windows=wins, results=empty, guarantees=pd.DataFrame(columns=["quantity"]),
+        repeatability=pd.DataFrame(columns=["passed"]),
+    )  # fmt: skip
+    outcome = SimpleNamespace(
+        performance=None, reconciliation=wins[0].reconciliation, plant=None,
+        measurements=None, test=test, missing=[], written={}, timings={},
+    )  # fmt: skip
+    buf = io.StringIO()
+    _summary(outcome, buf)
+    lines = buf.getvalue().splitlines()
+    at: dict = {}
+    for i, ln in enumerate(lines):
+        at.setdefault(" ".join(ln.split()[:2]), i)  # the first line of each label
+    assert at["run 1"] < at["global test"] < at["run 2"]
+    run2 = "\n".join(lines[at["run 2"] :])
+    assert "p = 0.010 (failed)" in run2
+    assert any(ln.split() == ["dropped", "FT-2", "(|z|", "=", "4.50)"] for ln in run2.splitlines())
+    # the values of the indented lines start in the column of the run's times
+    assert lines[at["global test"]].index("chi2") == lines[at["run 1"]].index("2031")
+    assert "FT-2" not in "\n".join(lines[: at["run 2"]])
+    assert not any(ln.lstrip().startswith("window ") for ln in lines)

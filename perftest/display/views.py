@@ -537,10 +537,12 @@ def _campaign_rows(test):
                 if r is None
                 else fmt_uncertain(r["value"] * scale + off, r["U95"] * abs(scale))[0]
             )
-        if test.mode == "runs":
+        if test.mode == "runs" and n in test.results.index:
             c = test.results.loc[n]
             v, U = fmt_uncertain(c["value"] * scale + off, c["U95"] * abs(scale))
             row += [v, U]
+        elif test.mode == "runs":  # not computed in every run: no mean
+            row += ["–", "–"]
         row.append(_label(unit) or NO_UNIT)
         rows.append(row)
     for n, c in test.results.iterrows() if test.mode == "points" else ():

@@ -304,16 +304,22 @@ def part_load_figure(data: ReportData):
     from perftest.report.figures import _figure
 
     first = c["windows"][0]["results"]
+    # results computed at every point (a point may lack one, e.g. out of a curve's range)
+    common = set.intersection(*(set(w["results"].index) for w in c["windows"]))
     load = next((n for n in ("cooling_capacity", "heating_capacity", "net_power",
-                             "heat_export") if n in first.index), None)  # fmt: skip
+                             "heat_export") if n in common), None)  # fmt: skip
     ys = [n for n in ("cop", "corrected_cop", "first_law_efficiency", "corrected_heat_rate",
-                      "heat_rate") if n in first.index][:2]  # fmt: skip
+                      "heat_rate") if n in common][:2]  # fmt: skip
     if load is None or not ys:
         return None
+    units = {n: result_unit(n, first.loc[n, "unit"], first.loc[n, "value"]) for n in ys}
+    # one y axis: a second result only when it is shown in the first one's unit
+    # (an efficiency in % beside a heat rate in kJ/kWh would flatten one of them)
+    ys = [n for n in ys if units[n][0] == units[ys[0]][0]]
     fig, ax = _figure(size=(7.0, 4.2))
     lu, ls, lo = result_unit(load, first.loc[load, "unit"], first.loc[load, "value"])
     for n, marker in zip(ys, ("o", "s"), strict=False):
-        yu, ysc, yo = result_unit(n, first.loc[n, "unit"], first.loc[n, "value"])
+        yu, ysc, yo = units[n]
         x = [w["results"].loc[load, "value"] * ls + lo for w in c["windows"]]
         xe = [w["results"].loc[load, "U95"] * abs(ls) for w in c["windows"]]
         y = [w["results"].loc[n, "value"] * ysc + yo for w in c["windows"]]
@@ -323,7 +329,8 @@ def part_load_figure(data: ReportData):
         for xi, yi, w in zip(x, y, c["windows"], strict=True):
             ax.annotate(w["label"], (xi, yi), textcoords="offset points", xytext=(6, 6))
     ax.set_xlabel(f"{load} [{unit_label(lu)}]")
-    ax.set_ylabel("result")
+    yu = units[ys[0]][0]
+    ax.set_ylabel(f"result [{unit_label(yu) if yu != '1' else '–'}]")
     ax.set_title("Part load: result against load (bars: U95)")
     ax.legend()
     ax.grid(True, alpha=0.3)

@@ -156,7 +156,8 @@ def check_outputs(
         None values are skipped; an :class:`OutputPattern` stands for the files a
         job names as it goes (figures).
     inputs : mapping label -> iterable of paths, optional
-        Files read by the job (e.g. ``{"--data": [...], "plant file": [...]}``).
+        Files read by the job (e.g. ``{"--data": [...], "plant file": [...]}``); a
+        workbook named with its sheet (``book.xlsx#Log``) stands for the workbook.
     folders : mapping label -> path, optional
         Output folders the job owns whole (a window store, ``figures/``): an input
         inside one is refused too, and so is a folder that is a file.
@@ -172,7 +173,12 @@ def check_outputs(
         for label, p in outputs.items()
         if p is not None and not isinstance(p, OutputPattern)
     ]
-    ins = [(label, Path(p)) for label, paths in (inputs or {}).items() for p in paths]
+    from perftest.importers.sources import _split_sheet
+
+    # a run file "book.xlsx#Sheet" is read from book.xlsx: that is the input to protect
+    ins = [
+        (label, _split_sheet(Path(p))[0]) for label, paths in (inputs or {}).items() for p in paths
+    ]
     for p_label, pattern in patterns:
         folder = Path(pattern.folder)
         if folder.exists() and not folder.is_dir():

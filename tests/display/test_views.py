@@ -42,6 +42,8 @@ def test_record_shows_its_value_in_the_unit_it_names():
     ((value, U),) = _numbers_before("t/h", text)
     assert value == pytest.approx(36.0, abs=0.05)  # rounded to U95's digits
     # U95 = 1.96 u for infinite dof; 0.05 kg/s = 0.18 t/h (exact factor 3.6)
+    # 0.006: U95 is printed to two significant digits (0.35 for 0.3528); a few
+    # thousandths more than that rounding, no more
     assert U == pytest.approx(1.96 * 0.18, abs=0.006)
     assert "10 kg/s inside" in text
 
@@ -168,3 +170,32 @@ def test_progress_bar_uses_tqdm_when_asked(capsys):
     quiet = Progress(3, enabled=False)
     quiet.close()
     assert quiet._tqdm is None and capsys.readouterr().err == ""
+
+
+def test_campaign_table_of_runs_with_a_result_one_run_lacks():
+    """A result computed in the first run only has no mean: its mean cells are
+    '–', not an error."""
+    from types import SimpleNamespace
+
+    from perftest.display.views import campaign_text
+
+    def perf(names):
+        res = pd.DataFrame(
+            {"value": [30e6, 31e6], "U95": [0.1e6, 0.1e6], "unit": ["W", "W"]},
+            index=["net_power", "corrected_net_power"],
+        )
+        return SimpleNamespace(results=res.loc[names])
+
+    wins = [
+        SimpleNamespace(label="run 1", start=pd.Timestamp("2031-05-04 09:00"),
+                        end=pd.Timestamp("2031-05-04 10:00"),
+                        performance=perf(["net_power", "corrected_net_power"])),
+        SimpleNamespace(label="run 2", start=pd.Timestamp("2031-05-04 10:00"),
+                        end=pd.Timestamp("2031-05-04 11:00"), performance=perf(["net_power"])),
+    ]  # fmt: skip
+    combined = pd.DataFrame({"value": [30e6], "U95": [0.07e6], "unit": ["W"]}, index=["net_power"])
+    test = SimpleNamespace(mode="runs", windows=wins, results=combined, level=0.95,
+                           repeatability=pd.DataFrame(), guarantees=pd.DataFrame())  # fmt: skip
+    text = campaign_text(test)
+    row = next(ln for ln in text.splitlines() if ln.startswith("corrected_net_power"))
+    assert row.split()[1:] == ["31.00", "–", "–", "–", "MW"]

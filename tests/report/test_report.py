@@ -386,3 +386,63 @@ def test_written_pngs_are_the_embedded_pngs(tmp_path):
     files = {p.read_bytes() for p in written["figures"].values()}
     # one rendering serves both: byte-identical files and data URIs
     assert files == embedded and len(files) >= 4
+
+
+def test_part_load_figure_keeps_one_unit_on_its_y_axis():
+    """An efficiency [%] and a heat rate [kJ/kWh] are not drawn on one y axis;
+    two COPs (both plain ratios) are."""
+    from types import SimpleNamespace
+
+    import matplotlib.pyplot as plt
+
+    from perftest.report.campaign import part_load_figure
+
+    def window(label, power, eff, hr, cop):
+        res = pd.DataFrame(
+            {"value": [power, eff, hr, cop, cop * 0.98], "U95": [1e5, 0.002, 0.02, 0.1, 0.1],
+             "unit": ["W", "1", "J/J", "1", "1"]},
+            index=["net_power", "first_law_efficiency", "corrected_heat_rate", "cop",
+                   "corrected_cop"],
+        )  # fmt: skip
+        return {"label": label, "results": res}
+
+    def figure(drop):
+        wins = [window("A", 34e6, 0.31, 3.2, 5.0), window("B", 25e6, 0.30, 3.3, 5.5)]
+        for w in wins:
+            w["results"] = w["results"].drop(index=drop)
+        return part_load_figure(SimpleNamespace(campaign={"mode": "points", "windows": wins}))
+
+    fig = figure(["cop", "corrected_cop"])
+    ax = fig.axes[0]
+    labels = [t.get_text() for t in ax.get_legend().get_texts()]
+    assert labels == ["first_law_efficiency [%]"]
+    assert ax.get_ylabel() == "result [%]"
+    plt.close(fig)
+    fig = figure(["first_law_efficiency", "corrected_heat_rate"])
+    labels = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
+    assert labels == ["cop [–]", "corrected_cop [–]"]
+    plt.close(fig)
+
+
+def test_part_load_figure_skips_a_result_one_point_lacks():
+    from types import SimpleNamespace
+
+    import matplotlib.pyplot as plt
+
+    from perftest.report.campaign import part_load_figure
+
+    def res(names, cop):
+        full = pd.DataFrame(
+            {"value": [800e3, cop, cop * 0.98], "U95": [5e3, 0.1, 0.1], "unit": ["W", "1", "1"]},
+            index=["cooling_capacity", "cop", "corrected_cop"],
+        )
+        return full.loc[names]
+
+    wins = [
+        {"label": "100 %", "results": res(["cooling_capacity", "cop", "corrected_cop"], 5.0)},
+        {"label": "50 %", "results": res(["cooling_capacity", "cop"], 5.6)},
+    ]
+    fig = part_load_figure(SimpleNamespace(campaign={"mode": "points", "windows": wins}))
+    labels = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
+    assert labels == ["cop [–]"]
+    plt.close(fig)

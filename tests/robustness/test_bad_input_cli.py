@@ -38,6 +38,9 @@ def files(tmp_path):
             tmp_path, "nocol.csv", "time,TT-1\n2031-05-04 10:00:00,150\n2031-05-04 10:01:00,151\n"
         ),
         "a_file": write_text(tmp_path, "a_file", "x"),
+        # read only after the output check, so their contents need not be valid
+        "book": write_bytes(tmp_path, "book.xlsx", b"PK not a workbook"),
+        "db": write_bytes(tmp_path, "run.db", b"not a database"),
         "dst_plant": write_text(tmp_path, "dst.toml", DST_PLANT),
         "time_tag_plant": write_text(
             tmp_path, "timetag.toml", PLANT + '\n[tags.XT-1]\nunit = "bar"\ncolumn = "time"\n'
@@ -231,6 +234,16 @@ USER_ERRORS = [
         ["report", "{plant}", "--data", "{run}", "--json", "{tmp}/hard.csv"],
         r"hard\.csv: the output --json is the input --data",
         id="json-is-a-hard-link-to-the-run",
+    ),
+    pytest.param(
+        ["report", "{plant}", "--data", "{book}#Log", "--json", "{book}"],
+        r"book\.xlsx: the output --json is the input --data",
+        id="json-is-the-workbook-of-a-sheet",
+    ),
+    pytest.param(
+        ["report", "{plant}", "--sql", "sqlite:///{db}", "--query", "SELECT 1", "--html", "{db}"],
+        r"run\.db: the output --html is the input --sql",
+        id="html-is-the-sqlite-database",
     ),
     pytest.param(
         ["report", "{plant}", "--data", "{tmp}/o/summary.json", "--out", "{tmp}/o"],
