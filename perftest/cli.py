@@ -464,7 +464,7 @@ def _run(args) -> int:
             report_paths(args.out, json_path=args.json, markdown_path=args.markdown,
                          html_path=args.html, figures=not args.no_figures),
             {"--data": [Path(f) for f in args.data or ()], "plant file": [plant],
-             "--sql": _sqlite_file(args.sql)},
+             "--sql": _database_files(args.sql)},
         )  # fmt: skip
         start, end, window = _window_options(args)
         runs, points = _test_options(args)
@@ -495,13 +495,12 @@ def _run(args) -> int:
     return 0
 
 
-def _sqlite_file(url) -> list:
-    """The database file an ``--sql sqlite:///FILE`` URL reads ([] for other URLs)."""
-    prefix = "sqlite:///"
-    if not url or not str(url).startswith(prefix):
-        return []
-    path = str(url)[len(prefix) :].split("?", 1)[0]
-    return [Path(path)] if path and path != ":memory:" else []
+def _database_files(url) -> list:
+    """The database file behind ``--sql`` ([] for a server or none)."""
+    from perftest.importers.sources import database_file
+
+    path = database_file(url)
+    return [path] if path is not None else []
 
 
 def _test_options(args) -> tuple:

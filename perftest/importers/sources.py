@@ -48,6 +48,8 @@ __all__ = [
     "is_staged_kind",
     "safe_url",
     "sources_from_options",
+    "database_file",
+    "split_sheet",
     "stage_file",
     "stage_query",
 ]
@@ -113,12 +115,12 @@ class StagedSource:
 
 def is_staged_kind(path) -> bool:
     """Whether ``path`` is read through staging (by its ending)."""
-    return _split_sheet(Path(str(path)))[0].suffix.lower() in _KINDS
+    return split_sheet(Path(str(path)))[0].suffix.lower() in _KINDS
 
 
 def is_workbook(path) -> bool:
     """Whether ``path`` names an Excel workbook (by its ending)."""
-    return _KINDS.get(_split_sheet(Path(str(path)))[0].suffix.lower()) == "workbook"
+    return _KINDS.get(split_sheet(Path(str(path)))[0].suffix.lower()) == "workbook"
 
 
 def _stage_dir() -> Path:
@@ -163,7 +165,7 @@ def _cell(v) -> str:
     return str(v)
 
 
-def _split_sheet(path: Path) -> tuple[Path, str | None]:
+def split_sheet(path: Path) -> tuple[Path, str | None]:
     """``book.xlsx#Log`` -> (book.xlsx, "Log"); a file that exists is taken whole."""
     text = str(path)
     if "#" in text and not path.exists():
@@ -171,6 +173,24 @@ def _split_sheet(path: Path) -> tuple[Path, str | None]:
         if Path(base).suffix.lower() in (".xlsx", ".xlsm"):
             return Path(base), sheet
     return path, None
+
+
+def database_file(source) -> Path | None:
+    """The file an SQLite URL reads (``sqlite:///historian.db``), else None.
+
+    Commands protect it from their outputs as they protect run files.
+    """
+    if not isinstance(source, str) or not source.strip():
+        return None
+    try:
+        from sqlalchemy.engine import make_url
+
+        url = make_url(source)
+    except Exception:
+        return None
+    if url.get_backend_name() != "sqlite" or url.database in (None, "", ":memory:"):
+        return None
+    return Path(url.database)
 
 
 # --- files -------------------------------------------------------------------------------
@@ -195,7 +215,7 @@ def stage_file(path, *, sheet: str | None = None) -> StagedSource:
     DataError
         Missing or unreadable file, unknown sheet, empty sheet or table.
     """
-    path, named = _split_sheet(Path(path))
+    path, named = split_sheet(Path(path))
     sheet = sheet if sheet is not None else named
     if not path.is_file():
         raise DataError(f"{path}: run file not found.", file=path)
@@ -637,7 +657,7 @@ def sources_from_options(data, sql, queries) -> list:
     """Run files of ``--data`` (checked) and staged queries of ``--sql``/``--query``."""
     out = []
     for f in data or ():
-        path = _split_sheet(Path(f))[0]
+        path = split_sheet(Path(f))[0]
         if not path.is_file():
             raise DataError(f"{f}: run file not found.", file=f)
         out.append(f)

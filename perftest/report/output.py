@@ -173,11 +173,11 @@ def check_outputs(
         for label, p in outputs.items()
         if p is not None and not isinstance(p, OutputPattern)
     ]
-    from perftest.importers.sources import _split_sheet
+    from perftest.importers.sources import split_sheet
 
     # a run file "book.xlsx#Sheet" is read from book.xlsx: that is the input to protect
     ins = [
-        (label, _split_sheet(Path(p))[0]) for label, paths in (inputs or {}).items() for p in paths
+        (label, split_sheet(Path(p))[0]) for label, paths in (inputs or {}).items() for p in paths
     ]
     for p_label, pattern in patterns:
         folder = Path(pattern.folder)

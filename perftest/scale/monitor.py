@@ -217,6 +217,7 @@ def monitor(
     resume: bool = True,
     progress=None,
     figure: bool = True,
+    inputs=None,
 ) -> dict:
     """Reconcile every window of run files and write the monitoring outputs.
 
@@ -239,6 +240,9 @@ def monitor(
         As for :func:`perftest.reconcile_many`.
     figure : bool, default True
         Write ``trend.png``.
+    inputs : dict, optional
+        Further input files by the option that named them (an SQLite database behind
+        ``--sql``), protected from the outputs like the run files.
 
     Returns
     -------
@@ -251,11 +255,8 @@ def monitor(
     if not plant_path.is_file():
         raise PerftestError(f"{plant_path}: plant file not found.", file=plant_path)
     out = Path(out)
-    targets = output_paths(out)
-    check_outputs(
-        {f"--out ({p.name})": p for k, p in targets.items() if k != "windows"},
-        {"--data": [Path(d) for d in data], "plant file": [plant_path]},
-        folders={"--out (windows.parquet)": targets["windows"]},
+    targets = _check_paths(
+        out, {"--data": [Path(d) for d in data], "plant file": [plant_path], **(inputs or {})}
     )
     plant_obj = load_plant(plant_path)
     with StoreLock(out, job="perftest monitor"):
@@ -263,6 +264,17 @@ def monitor(
                                scheduler=scheduler, workers=workers, results=results,
                                eliminate=eliminate, stability=stability, resume=resume,
                                progress=progress, figure=figure)  # fmt: skip
+
+
+def _check_paths(out, inputs: dict) -> dict:
+    """Refuse outputs in ``out`` that are one of ``inputs``; the output paths by kind."""
+    targets = output_paths(out)
+    check_outputs(
+        {f"--out ({p.name})": p for k, p in targets.items() if k != "windows"},
+        inputs,
+        folders={"--out (windows.parquet)": targets["windows"]},
+    )
+    return targets
 
 
 def output_paths(out) -> dict:
@@ -410,9 +422,21 @@ def add_parser(sub, common, *, duration=str) -> None:
                    help="reuse windows already in DIR (default: yes)")  # fmt: skip
 
 
+def _source_files(args) -> dict:
+    """The files behind the sources that are not plain run files (a workbook's sheet
+    name is handled by check_outputs; an SQLite database is named here)."""
+    from perftest.importers.sources import database_file
+
+    db = database_file(getattr(args, "sql", None))
+    return {"--sql": [db]} if db is not None else {}
+
+
 def run_command(args) -> int:
     """Carry out a parsed ``perftest monitor`` command; returns the exit status."""
     from perftest.importers.sources import sources_from_options
+
+    # the database is checked before its rows are staged (which reads it)
+    _check_paths(args.out, _source_files(args))
 
     data = [
         s if isinstance(s, str) else s.path
@@ -436,6 +460,7 @@ def run_command(args) -> int:
         resume=args.resume,
         progress=False if args.quiet else None,
         figure=not args.no_figures,
+        inputs=_source_files(args),
     )
     w = sys.stdout.write
     n = info["windows"]

@@ -246,6 +246,12 @@ USER_ERRORS = [
         id="html-is-the-sqlite-database",
     ),
     pytest.param(
+        ["monitor", "{plant}", "--sql", "sqlite:///{tmp}/mon/windows.csv", "--query",
+         "SELECT 1", "--out", "{tmp}/mon"],
+        r"windows\.csv: the output --out \(windows\.csv\) is the input --sql",
+        id="monitor-out-holds-the-sqlite-database",
+    ),  # fmt: skip
+    pytest.param(
         ["report", "{plant}", "--data", "{tmp}/o/summary.json", "--out", "{tmp}/o"],
         r"summary\.json: the output --out \(summary\.json\) is the input --data",
         id="out-folder-file-is-an-input",
