@@ -216,6 +216,7 @@ def _window_list(runs, points, plant) -> tuple[str, list]:
             f"A test of repeated runs needs at least two runs (for a single window, evaluate "
             f"that window). Got {len(out)} in {where}."
         )
+    _refuse_overlaps(out, plant, where, fail)
     weights = [e.get("weight") for e in out]
     if any(w is not None for w in weights) and any(w is None for w in weights):
         missing = weights.index(None)
@@ -231,6 +232,33 @@ def _window_list(runs, points, plant) -> tuple[str, list]:
     for e in out:
         e["from_plant"] = from_plant
     return mode, out
+
+
+def _refuse_overlaps(entries, plant, where, fail) -> None:
+    """Refuse windows that share samples: the same samples in two runs would be
+    counted as independent random parts (too small a u of the mean), and two load
+    points on one stretch of the log are one point."""
+    zone = getattr(getattr(plant, "site", None), "timezone", None) or "UTC"
+    spans = []
+    for i, e in enumerate(entries):
+        try:
+            a, b = (pd.Timestamp(e[k]) for k in ("start", "end"))
+        except (TypeError, ValueError):
+            return  # not a time: Run.window names the parameter later
+        a, b = (s.tz_localize(zone) if s.tz is None else s for s in (a, b))
+        if not a < b:
+            raise fail(f"Entry {i + 1} of {where} ends before it starts ({e['start']} to "
+                       f"{e['end']}).", i, "end")  # fmt: skip
+        spans.append((a, b, i))
+    spans.sort()
+    for (_a0, b0, i0), (a1, _b1, i1) in zip(spans, spans[1:], strict=False):
+        if a1 < b0:
+            raise fail(
+                f"Entries {min(i0, i1) + 1} and {max(i0, i1) + 1} of {where} overlap "
+                f"({entries[i0]['start']} to {entries[i0]['end']} and {entries[i1]['start']} "
+                f"to {entries[i1]['end']}): windows of one test must not share samples.",
+                max(i0, i1), "start",
+            )  # fmt: skip
 
 
 def plant_windows(plant) -> tuple[str | None, list]:

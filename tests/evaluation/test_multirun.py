@@ -382,6 +382,18 @@ def test_plant_file_point_reference_to_unknown_variable(tmp_path):
         (dict(runs=STEAM_RUNS, points=[("a", "2026-05-14 09:00", "2026-05-14 10:00")]), "both"),
         (dict(runs=STEAM_RUNS[:1]), "at least two runs"),
         (dict(runs=[STEAM_RUNS[0] + ("x",), STEAM_RUNS[1] + ("x",)]), "must differ"),
+        # the same window twice would count its random part twice as independent
+        (dict(runs=[STEAM_RUNS[0], STEAM_RUNS[0]]), "overlap"),
+        (
+            dict(
+                points=[
+                    ("a", "2026-05-14 09:00", "2026-05-14 10:00"),
+                    ("b", "2026-05-14 09:30", "2026-05-14 10:30"),
+                ]
+            ),
+            "overlap",
+        ),
+        (dict(runs=[("2026-05-14 10:00", "2026-05-14 09:00"), STEAM_RUNS[1]]), "ends before"),
         (dict(points=[("a", "2026-05-14 09:00")]), "label, start, end"),
         (
             dict(
