@@ -568,13 +568,18 @@ def _solve(model: PlantModel, extra: tuple, measurements, y0, shared=()):
     dense = len(tags) + model.n_y <= _DENSE_LIMIT
 
     def jacobian(xx, yy):
+        if dense:
+            Jx, Jy = model.dense_jacobian(true_x(xx, yy), yy[:k])
+            if extra:
+                Jx = np.hstack([Jx, np.zeros((Jx.shape[0], len(extra)))])
+            if q:
+                Jy = np.hstack([Jy, -(Jx @ D)])
+            return Jx, Jy
         Jx, Jy = model.jacobian(true_x(xx, yy), yy[:k])
         if extra:
             Jx = sp.hstack([Jx, sp.csr_matrix((Jx.shape[0], len(extra)))], format="csr")
         if q:
             Jy = sp.hstack([Jy, sp.csr_matrix(-(Jx @ D))], format="csr")
-        if dense:
-            return Jx.toarray(), Jy.toarray()
         return Jx, Jy
 
     # y sizes for the step test: the engineering size of each quantity, so that a

@@ -51,6 +51,16 @@ _PROPERTY_CACHE = 4
 
 __all__ = ["PlantModel", "Row", "build_model"]
 
+
+@dataclass(frozen=True)
+class _Assembly:
+    """Kept plan of :meth:`PlantModel._assembly` for one entry pattern."""
+
+    r: np.ndarray
+    c: np.ndarray
+    blocks: tuple
+    flat: tuple
+
 # Divisors of the residual rows (see module docstring).
 _SCALE = {
     "mass": 1.0,  # kg/s
@@ -357,6 +367,7 @@ class PlantModel:
             used += [p, T[T >= 0], q[q >= 0]]
         self._prop_idx = np.unique(np.concatenate(used))
         self._prop_cache = ()
+        self._plan = None
 
     def bind(self, measured) -> PlantModel:
         """The same model with only ``measured`` tags in ``x``; the rest become unmeasured.
@@ -527,16 +538,60 @@ class PlantModel:
             property layer (``dh/dT`` at constant p, ``dh/dp`` at constant T, the
             Clausius-Clapeyron slope of the saturation line).
         """
-        _, (r, c, a) = self._evaluate(self.slot_values(x, y), jac=True)
-        a = a / self._scale[r]
+        r, c, a = self._scaled_entries(self.slot_values(x, y))
+        plan = self._assembly(r, c)
         m = len(self.rows)
-        to_x = self._slot_x[c]
-        to_y = self._slot_y[c]
-        kx = to_x >= 0
-        ky = to_y >= 0
-        Jx = sp.csr_matrix((a[kx], (r[kx], to_x[kx])), shape=(m, self.n_x))
-        Jy = sp.csr_matrix((a[ky], (r[ky], to_y[ky])), shape=(m, self.n_y))
-        return Jx, Jy
+        out = []
+        for sel, inv, indices, indptr, cols in plan.blocks:
+            data = np.bincount(inv, weights=a[sel], minlength=indices.size)
+            out.append(sp.csr_matrix((data, indices.copy(), indptr.copy()), shape=(m, cols)))
+        return out[0], out[1]
+
+    def dense_jacobian(self, x, y):
+        """:meth:`jacobian` as dense arrays ``(Jx, Jy)`` (the same numbers).
+
+        For the small systems of a plant the balance engine works on dense arrays;
+        assembling them directly skips the sparse format.
+        """
+        r, c, a = self._scaled_entries(self.slot_values(x, y))
+        plan = self._assembly(r, c)
+        m = len(self.rows)
+        out = []
+        for (sel, _, _, _, cols), flat in zip(plan.blocks, plan.flat, strict=True):
+            out.append(np.bincount(flat, weights=a[sel], minlength=m * cols).reshape(m, cols))
+        return out[0], out[1]
+
+    def _scaled_entries(self, v):
+        _, (r, c, a) = self._evaluate(v, jac=True)
+        return r, c, a / self._scale[r]
+
+    def _assembly(self, r, c):
+        """How the COO entries ``(r, c)`` of :meth:`_evaluate` become ``Jx`` and ``Jy``.
+
+        The pattern is the same at every point (the firing side may add entries), so
+        the plan is kept and reused while the pattern is unchanged: per block the
+        selected entries, where each lands among the block's sorted unique
+        positions (duplicates are summed), the CSR indices and pointers, and the
+        flat positions in a dense array.
+        """
+        plan = self._plan
+        if plan is not None and np.array_equal(plan.r, r) and np.array_equal(plan.c, c):
+            return plan
+        m = len(self.rows)
+        blocks, flat = [], []
+        for slot, cols in ((self._slot_x, self.n_x), (self._slot_y, self.n_y)):
+            to = slot[c]
+            sel = np.flatnonzero(to >= 0)
+            keys = r[sel] * cols + to[sel]
+            uniq, inv = np.unique(keys, return_inverse=True)
+            indices = (uniq % cols).astype(np.int32) if cols else uniq.astype(np.int32)
+            counts = np.bincount(uniq // cols if cols else uniq, minlength=m)
+            indptr = np.concatenate([[0], np.cumsum(counts)]).astype(np.int32)
+            blocks.append((sel, inv.ravel(), indices, indptr, cols))
+            flat.append(keys)
+        plan = _Assembly(r.copy(), c.copy(), tuple(blocks), tuple(flat))
+        self._plan = plan
+        return plan
 
     def slot_jacobian(self, v: np.ndarray) -> sp.csr_matrix:
         """Jacobian of the scaled residuals with respect to every model variable."""
