@@ -2,9 +2,10 @@
 
 Run:  python benchmarks/bench_nonlinear.py [--quick]
 
-The script runs its measurements twice, in child processes: once under the BLAS
+The script runs its measurements in child processes, alternately under the BLAS
 thread setting the user has (OPENBLAS_NUM_THREADS / OMP_NUM_THREADS as inherited;
-unset means the library's default) and once with one BLAS thread, and prints both.
+unset means the library's default) and with one BLAS thread, ``--pairs`` times (3),
+and prints the best figure of each setting.
 
 Targets (PASS/FAIL printed for each):
 1. The 42-stream regenerative cycle of benchmarks/bench_model.py:
@@ -272,6 +273,18 @@ def _run(env_update, repeat):
     return json.loads(proc.stdout.strip().splitlines()[-1])
 
 
+def _best_of(results):
+    """Per case, the best time of each figure over several child runs."""
+    out = []
+    for cases in zip(*results, strict=True):
+        best = dict(cases[0])
+        for c in cases[1:]:
+            for key in ("ours", "slsqp", "eval", "fact"):
+                best[key] = min(best[key], c[key])
+        out.append(best)
+    return out
+
+
 def verdict(ok):
     return "PASS" if ok else "FAIL"
 
@@ -281,6 +294,9 @@ def main():
     parser.add_argument("--quick", action="store_true", help="fewer repetitions")
     parser.add_argument("--child", action="store_true", help=argparse.SUPPRESS)
     parser.add_argument("--repeat", type=int, default=5, help=argparse.SUPPRESS)
+    parser.add_argument(
+        "--pairs", type=int, default=3, help="alternating runs of the two BLAS settings (3)"
+    )
     args = parser.parse_args()
     repeat = 2 if args.quick else args.repeat
     if args.child:
@@ -288,8 +304,13 @@ def main():
         return
     inherited = {k: os.environ.get(k) for k in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS")}
     label = ", ".join(f"{k}={v}" for k, v in inherited.items() if v) or "unset: library default"
-    default = _run({}, repeat)
-    one = _run({"OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1"}, repeat)
+    # The two settings alternate in child processes, ``--pairs`` times, and each figure
+    # is the best over its runs: a shared machine's load then hits both alike.
+    runs: dict = {"default": [], "one": []}
+    for _ in range(args.pairs):
+        runs["default"].append(_run({}, repeat))
+        runs["one"].append(_run({"OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1"}, repeat))
+    default, one = _best_of(runs["default"]), _best_of(runs["one"])
     ok = True
     for setting, cases in (
         (f"inherited BLAS setting ({label})", default),
