@@ -190,22 +190,34 @@ class PlantReconciliation:
                 out[sid] = dict(T=T[i], s=s[i], rho=rho[i], e=h[i] - h0 - T0 * (s[i] - s0), s0=s0)
         return out
 
+    @cached_property
+    def _direct(self) -> dict:
+        """Name -> ``(joint index, None)`` or ``(None, model slot)`` of every tag and
+        model variable :meth:`_linear` reads directly, in its order of precedence."""
+        model = self.model
+        out: dict = {}
+        # A tag not in x (dropped or never measured): its estimate is the model
+        # variable it measures (the first one, when it measures several).
+        tags = set(self.eliminated_tags) | set(model.spec.tag_ids)
+        for slot, var in reversed(list(enumerate(model.variables))):
+            tag = model.sources[var].tag
+            if tag in tags:
+                out[tag] = (None, slot)
+        for name, slot in model.index.items():
+            out[name] = (None, slot)
+        for name, i in self._joint[2].items():
+            out[name] = (i, None)
+        return out
+
     def _linear(self, name: str) -> tuple[float, dict]:
         """Value and gradient (over the joint vector) of a tag or model variable."""
-        _, _, where = self._joint
         model = self.model
-        if name in where:
-            i = where[name]
-            return float(self._joint[0][i]), {i: 1.0}
-        if name in model.index:
-            return self._slot_gradient(model.index[name])
-        elim = set(self.eliminated_tags)
-        if name in elim or name in model.spec.tag_ids:
-            # A tag not in x (dropped or never measured): its estimate is the model
-            # variable it measures.
-            for slot, var in enumerate(model.variables):
-                if model.sources[var].tag == name:
-                    return self._slot_gradient(slot)
+        hit = self._direct.get(name)
+        if hit is not None:
+            i, slot = hit
+            if i is not None:
+                return float(self._joint[0][i]), {i: 1.0}
+            return self._slot_gradient(slot)
         stream, _, var = name.rpartition(".")
         if stream in model.spec.streams and var in _DERIVED:
             d = self._derived[stream]
