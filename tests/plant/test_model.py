@@ -366,6 +366,10 @@ def test_cycle_gross_error_found_by_serial_elimination(cycle):
     # the balance's estimate of the condensate flow is back near the truth
     # (within 3 of its standard uncertainties)
     assert abs(row["reconciled"] - truth["FT-CD"]) < 3 * row["u_reconciled"]
+    # a dropped tag reads the model variable it measured, with its uncertainty
+    var = next(v for v in rec.model.variables if rec.model.sources[v].tag == "FT-CD")
+    assert rec.value("FT-CD") == rec.value(var)
+    assert rec.uncertainty("FT-CD") == rec.uncertainty(var)
 
 
 def test_cycle_covariance_is_the_reconciled_one(cycle_noisy):
