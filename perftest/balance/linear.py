@@ -119,7 +119,6 @@ def solve_dense(p: Problem) -> Core:
         xhat = x - AS.T @ lam_r
         W = _trsolve(L, AS)
         vdiag = np.einsum("ij,ij->j", W, W)
-        x_cov = (np.diag(s) if p.is_diag else S.copy()) - W.T @ W
         if proj.P is None:
             lam_eq = np.zeros(A.shape[0])
             lam_eq[idx] = lam_r
@@ -130,17 +129,27 @@ def solve_dense(p: Problem) -> Core:
         chi2 = 0.0
         xhat = x.copy()
         vdiag = np.zeros(n)
-        x_cov = np.diag(s) if p.is_diag else S.copy()
+        W = np.zeros((0, n))
         lam = np.zeros(A.shape[0])
     redundant = vdiag > _dense.REDUNDANCY_RTOL * s
     k = B.shape[1]
     # Unmeasured: the scaled unknowns are colB * y, so y = G (bt - At xhat) / colB.
     T = (proj.G @ At) / colB[:, None] if k else np.zeros((0, n))
     y = (proj.G @ bt) / colB - T @ xhat if k else np.zeros(0)
-    y_cov = T @ x_cov @ T.T
-    xy_cov = -x_cov @ T.T
-    y_var = np.diag(y_cov).copy()
-    cov_tuple = (x_cov, y_cov, xy_cov)
+    # The covariances are dense (n, n) products, formed on first request (an iterate's
+    # solve or a replaced result never asks).  The variances of y come without them:
+    # diag(T x_cov T^T) with x_cov = S - W^T W is diag(T S T^T) - |W T^T|^2 per column.
+    covariances = _Covariances(S, s, p.is_diag, W, T)
+    if k:
+        TS = T * s if p.is_diag else T @ S
+        prior = np.einsum("ij,ij->i", TS, T)
+        WT = W @ T.T
+        y_var = prior - np.einsum("ij,ij->j", WT, WT)
+        if np.any(y_var < _CANCEL * prior):
+            # most of the prior variance taken out: the difference would lose digits
+            y_var = np.diag(covariances()[1]).copy()
+    else:
+        y_var = np.zeros(0)
     return Core(
         xhat=xhat,
         y=y,
@@ -150,12 +159,35 @@ def solve_dense(p: Problem) -> Core:
         dof=int(r),
         vdiag=vdiag,
         redundant=redundant,
-        covariances=lambda: cov_tuple,
+        covariances=covariances,
         y_var=y_var,
         constraint_residual=constraint_residual,
         constraint_u=constraint_u,
         inconsistent=sel.inconsistent,
     )
+
+
+# y variances from the difference diag(T S T^T) - |W T^T|^2 keep about
+# -log10(_CANCEL) fewer digits than the rounding; below that share of the prior
+# variance they are read from the formed covariance instead.
+_CANCEL = 1e-3
+
+
+class _Covariances:
+    """``(x_cov, y_cov, xy_cov)`` of a dense solve, formed on the first call and kept:
+    ``x_cov = S - W^T W``, ``y_cov = T x_cov T^T``, ``xy_cov = -x_cov T^T``."""
+
+    def __init__(self, S, s, is_diag, W, T):
+        self._args = (S, s, is_diag, W, T)
+        self._out = None
+
+    def __call__(self):
+        if self._out is None:
+            S, s, is_diag, W, T = self._args
+            x_cov = (np.diag(s) if is_diag else S.copy()) - W.T @ W
+            self._out = (x_cov, T @ x_cov @ T.T, -x_cov @ T.T)
+            self._args = None
+        return self._out
 
 
 # Closure check of a solution: |A xhat + B y - b| of a row against the size of its

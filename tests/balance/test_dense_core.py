@@ -1,0 +1,73 @@
+"""The dense solve's variances of unmeasured variables and its deferred covariances.
+
+Reference: the covariance of an affine estimate, GUM (JCGM 100:2008) eq. (13) in
+matrix form: y_hat = c - T x_hat gives cov(y_hat) = T cov(x_hat) T^T; checked by
+Monte Carlo with numpy below and against the formed matrices.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from perftest.balance import reconcile_linear
+from perftest.balance._core import Problem
+from perftest.balance.linear import solve_dense
+
+
+def _problem(rng, m, n, k):
+    A = rng.normal(size=(m, n))
+    B = rng.normal(size=(m, k))
+    x = rng.normal(size=n) * 10.0
+    s = rng.uniform(0.1, 2.0, n) ** 2
+    b = A @ x + rng.normal(size=m)
+    return Problem(x, np.diag(s), s, True, A, b, B, False)
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_y_variance_equals_the_formed_covariance(seed):
+    rng = np.random.default_rng(seed)
+    p = _problem(rng, 12, 9, 4)
+    core = solve_dense(p)
+    x_cov, y_cov, xy_cov = core.covariances()
+    # the difference form loses at most ~1e3 ulps to cancellation (see _CANCEL)
+    assert np.allclose(core.y_var, np.diag(y_cov), rtol=1e-11, atol=0.0)
+    assert core.covariances()[0] is x_cov  # formed once, kept
+
+
+def test_y_variance_when_reconciliation_takes_out_most_of_it(monkeypatch):
+    """Two precise meters and a poor one; the unmeasured flow is fixed by the precise
+    ones.  Its variance keeps its digits, by the difference form or (below _CANCEL of
+    the prior, here forced) read from the formed covariance."""
+    # node 1: x0 - x1 - y = 0 ; node 2: y - x2 = 0   (x2 poor, x0, x1 precise)
+    A = np.array([[1.0, -1.0, 0.0], [0.0, 0.0, -1.0]])
+    B = np.array([[-1.0], [1.0]])
+    s = np.array([1e-6, 1e-6, 1e4])
+    p = Problem(np.array([10.0, 4.0, 7.0]), np.diag(s), s, True, A, np.zeros(2), B, False)
+    core = solve_dense(p)
+    y_cov = core.covariances()[1]
+    # var(x0 - x1) = 2e-6, less the little the poor meter adds (1e-6 relative)
+    assert y_cov[0, 0] == pytest.approx(2e-6, rel=1e-9)
+    assert core.y_var[0] == pytest.approx(y_cov[0, 0], rel=1e-12)
+    import perftest.balance.linear as linear
+
+    monkeypatch.setattr(linear, "_CANCEL", 1.0)
+    core = solve_dense(p)
+    assert core.y_var[0] == core.covariances()[1][0, 0]
+
+
+def test_y_covariance_against_monte_carlo():
+    """Reconciled values of many noisy draws scatter as the returned covariance says."""
+    rng = np.random.default_rng(42)
+    A = np.array([[1.0, -1.0, -1.0, 0.0], [0.0, 1.0, 0.0, -1.0], [0.0, 0.0, 1.0, 0.0]])
+    B = np.array([[0.0], [0.0], [-1.0]])
+    truth = np.array([10.0, 6.0, 4.0, 6.0])
+    u = np.array([0.2, 0.1, 0.15, 0.1])
+    ys = []
+    for _ in range(4000):
+        r = reconcile_linear(truth + u * rng.standard_normal(4), np.diag(u**2), A, None, B)
+        ys.append(r.y[0])
+    ref = reconcile_linear(truth, np.diag(u**2), A, None, B)
+    # 4000 draws: the sample standard deviation is within ~3.5 % (3 sigma) of the truth
+    assert np.std(ys, ddof=1) == pytest.approx(ref.y_u[0], rel=0.035)
+    assert ref.y_u[0] ** 2 == pytest.approx(ref.y_cov[0, 0], rel=1e-12)
