@@ -13,6 +13,10 @@ Measured in the same run, printed with the load average beside them:
   (2 worker processes with one thread each, Dask's worker profiler off), started
   and warmed (the short job computed) before timing; target: Dask / local >= 1.6
   on a 2-core machine;
+* the short job of the local engine under the BLAS thread setting the user has
+  (OPENBLAS_NUM_THREADS / OMP_NUM_THREADS as inherited; unset: the library's
+  default) against one BLAS thread, alternately ``--repeats`` times; target: at
+  most 1.2x;
 * peak resident memory of the local engine for a short job (``--days`` / 12) and
   the full one; target: full / short <= 1.3 (memory does not grow with the length
   of the logs);
@@ -39,6 +43,9 @@ import os
 
 # One BLAS thread per process: two worker processes each running a multi-threaded
 # BLAS would oversubscribe the 2 cores and time the load, not the engines.
+# The setting the user has, for the run under the default BLAS threads (below).
+_BLAS_KEYS = ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS")
+INHERITED_BLAS = {k: os.environ.get(k) for k in _BLAS_KEYS}
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 os.environ.setdefault("OMP_NUM_THREADS", "1")
 
@@ -76,6 +83,8 @@ RATIO_TARGET = 1.6
 REFERENCE_RATE = 34.8
 SPEEDUP_TARGET = 3.0
 MEMORY_TARGET = 1.3
+# the local engine under the default BLAS threads against one thread (issue 20)
+BLAS_TARGET = 1.2
 DRIFT_TAG, DRIFT_PER_YEAR = "FT-201", 0.015
 
 
@@ -157,14 +166,22 @@ def child(args) -> None:
     table.to_parquet(args.table)
 
 
-def _local(plant, files, table_path, source=None):
-    """One local job in a child process; ``source``: a perftest tree to import instead."""
+def _local(plant, files, table_path, source=None, blas=None):
+    """One local job in a child process; ``source``: a perftest tree to import instead;
+    ``blas``: BLAS thread variables for the child (None: unset, the library default)."""
     cmd = [sys.executable, __file__, "--child", "--plant", str(plant), "--table",
            str(table_path), "--files", *map(str, files)]  # fmt: skip
     env = None
-    if source is not None:
+    if source is not None or blas is not None:
         env = dict(os.environ)
+    if source is not None:
         env["PYTHONPATH"] = os.pathsep.join([str(source), env.get("PYTHONPATH", "")])
+    if blas is not None:
+        for key, value in blas.items():
+            if value is None:
+                env.pop(key, None)
+            else:
+                env[key] = value
     out = subprocess.run(cmd, capture_output=True, text=True, check=True, env=env)
     return json.loads(out.stdout.strip().splitlines()[-1])
 
@@ -269,6 +286,20 @@ def main() -> None:
         verdict = "PASS" if speedup >= SPEEDUP_TARGET else "FAIL"
         print(f"against the stated reference of {REFERENCE_RATE} windows/s (before issue 20): "
               f"{speedup:.2f}x (target >= {SPEEDUP_TARGET})  {verdict}")  # fmt: skip
+        # The short job under the user's BLAS setting (unset: the library's default)
+        # and under one thread, alternately, best of each.
+        label = ", ".join(f"{k}={v}" for k, v in INHERITED_BLAS.items() if v) or "unset"
+        one = {k: "1" for k in _BLAS_KEYS}
+        times: dict = {"inherited": [], "one": []}
+        for _ in range(args.repeats):
+            for which, blas in (("inherited", INHERITED_BLAS), ("one", one)):
+                res = _local(plant, short, tmp / f"blas_{which}.parquet", blas=blas)
+                times[which].append(res["seconds"])
+        ratio = min(times["inherited"]) / min(times["one"])
+        verdict = "PASS" if ratio <= BLAS_TARGET else "FAIL"
+        print(f"short job under the inherited BLAS setting ({label}) against one thread: "
+              f"{min(times['inherited']):.2f} s / {min(times['one']):.2f} s = {ratio:.2f}x "
+              f"(target <= {BLAS_TARGET})  {verdict}  [{_load()}]")  # fmt: skip
         if args.no_dask:
             return
 
