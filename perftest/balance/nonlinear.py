@@ -262,10 +262,11 @@ def reconcile_nonlinear(
                 d = xk - xm
                 return 0.5 * float(d @ S_lu.solve(d))
         else:
-            import scipy.linalg
+            from scipy.linalg.lapack import dtrtrs
 
             def objective(xk):
-                d = scipy.linalg.solve_triangular(chol, xk - xm, lower=True, check_finite=False)
+                # LAPACK directly: the routine scipy.linalg.solve_triangular calls
+                d = dtrtrs(chol, xk - xm, lower=1)[0]
                 return 0.5 * float(d @ d)
 
     xk = xm.copy()
@@ -608,9 +609,10 @@ def _obj_grad(xk, xm, S, sdiag, is_diag, chol):
         import scipy.sparse.linalg as spla
 
         return spla.spsolve(sp.csc_matrix(S), d)
-    import scipy.linalg
+    from scipy.linalg.lapack import dpotrs
 
-    return scipy.linalg.cho_solve((chol, True), d, check_finite=False)
+    # LAPACK directly: the routine scipy.linalg.cho_solve calls
+    return dpotrs(chol, d, lower=1)[0]
 
 
 # ------------------------------------------------------------ decoupled unmeasured
