@@ -12,7 +12,7 @@ import numpy as np
 from perftest.errors import PropertyRangeError
 from perftest.thermo.backend import fast, loop
 from perftest.thermo.checks import Args, check_quality, fmt_state, more, prefix
-from perftest.thermo.if97 import if97_psat, if97_tsat
+from perftest.thermo.if97 import P_CRITICAL, P_TRIPLE, if97_psat, if97_tsat
 from perftest.thermo.states import State
 
 
@@ -32,6 +32,68 @@ def tsat_or_nan(fluid, p):
         res, ok, _ = loop(fluid, fluid._CP.PQ_INPUTS, p[inside], np.zeros(inside.sum()), ["T"])
         out[inside] = res["T"]
     return out
+
+
+# Grid of the quick saturation test (see if97_screen): 4096 pressures evenly spaced in
+# log p between the triple and the critical point bracket Tsat to ~0.1 K or better;
+# the slack of 1e-6 K covers the round-off of Eq. 31 (~1e-13 K) a million times.
+_SCREEN_POINTS = 4096
+_SCREEN_SLACK = 1e-6
+
+
+def if97_screen(margin):
+    """Bounds of the saturation temperature of water around any pressure, for a cheap test.
+
+    Returns ``grid, lo, hi``: with ``k = grid.searchsorted(p, "right")``, a state
+    with ``T < lo[k]`` lies more than `margin` below the saturation temperature at
+    `p` (or `p` is off the saturation line: below the triple or at or above the
+    critical pressure, or NaN), and one with ``T > hi[k]`` more than `margin` above
+    it (or off the line).  ``lo`` and ``hi`` are NaN for ``p <= 0``, so such states
+    pass neither test.  Tsat from Eq. 31 rises with p, so between two grid
+    pressures it lies between their saturation temperatures; the bounds widen that
+    bracket by `margin` and a slack.
+    """
+    q = np.geomspace(P_TRIPLE, P_CRITICAL, _SCREEN_POINTS)
+    q[0], q[-1] = P_TRIPLE, P_CRITICAL
+    ts = if97_tsat(q)
+    grid = np.concatenate(([np.nextafter(0.0, 1.0)], q))
+    d = margin + _SCREEN_SLACK
+    lo = np.concatenate(([np.nan, np.inf], ts[:-1] - d, [np.inf]))
+    hi = np.concatenate(([np.nan, -np.inf], ts[1:] + d, [-np.inf]))
+    return grid, lo, hi
+
+
+def saturated_arrays(fluid, p):
+    """Saturated liquid and vapour at flat pressures `p`, or None if any point fails.
+
+    Returns ``T, h_f, rho_f, h_g, rho_g`` (NaN where `p` is NaN).  The same CoolProp
+    updates in the same order as :func:`state_px` at x = 0 and then at x = 1, read
+    through the same getters, without building the two :class:`State` records;
+    callers redo the call through :func:`state_px` to raise its error when this
+    returns None.
+    """
+    AS, pair = fluid._as, fluid._CP.PQ_INPUTS
+    get_T, get_p, get_h, get_s, get_rho = (
+        fluid._getters[k] for k in ("T", "p", "h", "s", "rho")
+    )
+    nan = np.nan
+    T, hf, rf, hg, rg = [], [], [], [], []
+    try:
+        for pi in p.tolist():
+            if pi != pi:
+                T.append(nan), hf.append(nan), rf.append(nan)
+                continue
+            AS.update(pair, pi, 0.0)
+            T.append(get_T()), get_p(), hf.append(get_h()), get_s(), rf.append(get_rho())
+        for pi in p.tolist():
+            if pi != pi:
+                hg.append(nan), rg.append(nan)
+                continue
+            AS.update(pair, pi, 1.0)
+            get_T(), get_p(), hg.append(get_h()), get_s(), rg.append(get_rho())
+    except (ValueError, IndexError, RuntimeError):
+        return None
+    return np.array(T), np.array(hf), np.array(rf), np.array(hg), np.array(rg)
 
 
 def sat_side_values(fluid, p, key):
