@@ -36,7 +36,7 @@ def fast(fluid, pair, a, b, keys):
     status = np.empty(a.size, dtype=np.int32)
     fluid._as.fast_evaluate(pair, a, b, outs, out, status)
     res = {k: out[:, i] for i, k in enumerate(keys)}
-    if not status.any():  # the usual case: every point evaluated
+    if not np.count_nonzero(status):  # the usual case: every point evaluated
         return res, np.ones(a.size, dtype=bool)
     ok = status == 0
     # The array path of CoolProp 8 rejects IF97 region 5 (T > 1073.15 K) as out of
@@ -51,20 +51,6 @@ def fast(fluid, pair, a, b, keys):
     for k in keys:
         res[k][~ok] = np.nan
     return res, ok
-
-
-def fast_clean(fluid, pair, a, b, keys):
-    """``fast_evaluate`` at every point, or None when any point fails.
-
-    The lean path of the callers that redo the whole call through :func:`fast` (and
-    their checks) as soon as anything is out of the ordinary.  Returns the ``(n, k)``
-    output array, one column per key.
-    """
-    outs = out_keys(fluid, keys)
-    out = np.empty((a.size, outs.size))
-    status = np.empty(a.size, dtype=np.int32)
-    fluid._as.fast_evaluate(pair, a, b, outs, out, status)
-    return None if status.any() else out
 
 
 def loop(fluid, pair, a, b, keys):

@@ -66,31 +66,46 @@ def if97_screen(margin):
 def saturated_arrays(fluid, p):
     """Saturated liquid and vapour at flat pressures `p`, or None if any point fails.
 
-    Returns ``T, h_f, rho_f, h_g, rho_g`` (NaN where `p` is NaN).  The same CoolProp
-    updates in the same order as :func:`state_px` at x = 0 and then at x = 1, read
-    through the same getters, without building the two :class:`State` records;
-    callers redo the call through :func:`state_px` to raise its error when this
-    returns None.
+    Returns ``T, h_f, rho_f, h_g, rho_g`` (NaN where `p` is NaN): the values of
+    :func:`state_px` at x = 0 and x = 1, from the same CoolProp updates in the same
+    order, without building the two :class:`State` records.  Callers redo the call
+    through :func:`state_px` to raise its error when this returns None.
+
+    :func:`state_px` also reads p and s.  For IF97 water h, rho and s after a
+    saturation update are the region 1 (x = 0) or region 2 (x = 1) equation at
+    (Tsat(p), p), under one range check, so s cannot fail where h did not; it is
+    skipped there (it costs as much as h).  Other backends read all five, as
+    :func:`state_px` does.
     """
     AS, pair = fluid._as, fluid._CP.PQ_INPUTS
     get_T, get_p, get_h, get_s, get_rho = (
         fluid._getters[k] for k in ("T", "p", "h", "s", "rho")
     )
+    full = not fluid.is_if97
     nan = np.nan
-    T, hf, rf, hg, rg = [], [], [], [], []
+    pl = p.tolist()
+    n = len(pl)
+    T, hf, rf, hg, rg = [nan] * n, [nan] * n, [nan] * n, [nan] * n, [nan] * n
     try:
-        for pi in p.tolist():
-            if pi != pi:
-                T.append(nan), hf.append(nan), rf.append(nan)
-                continue
-            AS.update(pair, pi, 0.0)
-            T.append(get_T()), get_p(), hf.append(get_h()), get_s(), rf.append(get_rho())
-        for pi in p.tolist():
-            if pi != pi:
-                hg.append(nan), rg.append(nan)
-                continue
-            AS.update(pair, pi, 1.0)
-            get_T(), get_p(), hg.append(get_h()), get_s(), rg.append(get_rho())
+        for i, pi in enumerate(pl):
+            if pi == pi:
+                AS.update(pair, pi, 0.0)
+                T[i] = get_T()
+                if full:
+                    get_p()
+                hf[i] = get_h()
+                if full:
+                    get_s()
+                rf[i] = get_rho()
+        for i, pi in enumerate(pl):
+            if pi == pi:
+                AS.update(pair, pi, 1.0)
+                if full:
+                    get_T(), get_p()
+                hg[i] = get_h()
+                if full:
+                    get_s()
+                rg[i] = get_rho()
     except (ValueError, IndexError, RuntimeError):
         return None
     return np.array(T), np.array(hf), np.array(rf), np.array(hg), np.array(rg)

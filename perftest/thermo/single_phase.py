@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 
 from perftest.errors import PropertyRangeError
-from perftest.thermo.backend import _FD_REL_STEP, fast_clean, raw_pT, stencil
+from perftest.thermo.backend import _FD_REL_STEP, out_keys, raw_pT, stencil
 from perftest.thermo.checks import Args, check_phase, fmt_state, more, prefix, range_hint
 from perftest.thermo.saturation import if97_screen, tsat_or_nan
 from perftest.thermo.states import State
@@ -41,9 +41,8 @@ def far_from_saturation(fluid, p, T, phase) -> bool:
     evaluating Eq. 31 at every state.
     """
     if phase == "supercritical":
-        return bool(
-            (((p >= fluid.p_critical) | (T >= fluid.T_critical)) & (p > 0) & (T > 0)).all()
-        )
+        ok = ((p >= fluid.p_critical) | (T >= fluid.T_critical)) & (p > 0) & (T > 0)
+        return np.count_nonzero(ok) == ok.size
     if phase is not None and phase not in ("liquid", "vapour", "gas"):
         return False  # "wet" or an unknown name: the rules raise
     margin = fluid.saturation_margin
@@ -58,7 +57,8 @@ def far_from_saturation(fluid, p, T, phase) -> bool:
         ok = (T < lo[k]) | (T > hi[k])
     else:
         ok = T > hi[k]
-    return bool(ok.all() and (T > 0).all())
+    ok &= T > 0
+    return np.count_nonzero(ok) == ok.size  # (count_nonzero: cheaper than .all())
 
 
 def if97_plain(fluid, p, T, keys):
@@ -69,20 +69,25 @@ def if97_plain(fluid, p, T, keys):
     both sides of the (dh/dp)_T stencil.  Any failed point (out of range, NaN,
     region 5) returns None and the caller takes the full path, which handles it.
     """
-    CP = fluid._CP
     want_dhdp = "dhdp" in keys
     base = [k for k in keys if k != "dhdp"]
     if want_dhdp and "h" not in base:
         base.append("h")
-    out = fast_clean(fluid, CP.PT_INPUTS, p, T, base)
-    if out is None:
+    n = p.size
+    pair, evaluate = fluid._CP.PT_INPUTS, fluid._as.fast_evaluate
+    out = np.empty((n, len(base)))
+    status = np.empty(n, dtype=np.int32)
+    evaluate(pair, p, T, out_keys(fluid, base), out, status)
+    if np.count_nonzero(status):  # (cheaper than status.any())
+        # before the stencil: a NaN or infinite p would make it warn here as well
         return None
     res = {k: out[:, i] for i, k in enumerate(base)}
     if want_dhdp:
-        n = p.size
         dp = _FD_REL_STEP * p
-        hpm = fast_clean(fluid, CP.PT_INPUTS, *stencil(p, dp, T), ("h",))
-        if hpm is None:
+        hpm = np.empty((2 * n, 1))
+        status = np.empty(2 * n, dtype=np.int32)
+        evaluate(pair, *stencil(p, dp, T), out_keys(fluid, ("h",)), hpm, status)
+        if np.count_nonzero(status):
             return None
         res["dhdp"] = (hpm[:n, 0] - hpm[n:, 0]) / (2.0 * dp)
     return res
