@@ -34,10 +34,10 @@ def tsat_or_nan(fluid, p):
     return out
 
 
-# Grid of the quick saturation test (see if97_screen): 4096 pressures evenly spaced in
-# log p between the triple and the critical point bracket Tsat to ~0.1 K or better;
+# Grid of the quick saturation test (see if97_screen): 16384 pressures evenly spaced in
+# log p between the triple and the critical point bracket Tsat to 0.06 K or better;
 # the slack of 1e-6 K covers the round-off of Eq. 31 (~1e-13 K) a million times.
-_SCREEN_POINTS = 4096
+_SCREEN_POINTS = 16384
 _SCREEN_SLACK = 1e-6
 
 
