@@ -78,9 +78,8 @@ def saturated_arrays(fluid, p):
     :func:`state_px` does.
     """
     AS, pair = fluid._as, fluid._CP.PQ_INPUTS
-    get_T, get_p, get_h, get_s, get_rho = (
-        fluid._getters[k] for k in ("T", "p", "h", "s", "rho")
-    )
+    # the getters of Fluid._getters for T, p, h, s and rho
+    get_T, get_p, get_h, get_s, get_rho = AS.T, AS.p, AS.hmass, AS.smass, AS.rhomass
     full = not fluid.is_if97
     nan = np.nan
     pl = p.tolist()
@@ -108,7 +107,7 @@ def saturated_arrays(fluid, p):
                 rg[i] = get_rho()
     except (ValueError, IndexError, RuntimeError):
         return None
-    return np.array(T), np.array(hf), np.array(rf), np.array(hg), np.array(rg)
+    return tuple(np.array([T, hf, rf, hg, rg]))  # five rows of one array
 
 
 def sat_side_values(fluid, p, key):
