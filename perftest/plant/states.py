@@ -1,8 +1,15 @@
 """The few property calls the balance model needs, with their derivatives.
 
-Everything goes through :mod:`perftest.thermo.properties`; this module only shapes the
-calls for the model (arrays in, arrays out, derivatives for the Jacobian) and
-makes a property-range failure name the stream it happened in.
+Everything goes through the property layer, :mod:`perftest.thermo`; this module only
+shapes the calls for the model (arrays in, arrays out, derivatives for the Jacobian)
+and makes a property-range failure name the stream it happened in.
+
+A model calls these functions at every new point, with flat float arrays of a few
+to a few dozen streams, so they take the short way in: the (p, T) rules of
+:func:`perftest.thermo.single_phase.pT` directly (no argument shaping) and the
+saturated values of :func:`perftest.thermo.saturation.saturated_arrays` (no State
+records).  Other inputs (scalars, 2-D arrays) go through the public :class:`Fluid`
+methods; the numbers and the messages are the same either way.
 """
 
 from __future__ import annotations

@@ -32,8 +32,7 @@ class Args:
             # the usual case inside the library: float arrays of one shape already
             shape = first.shape
             if all(
-                type(v) is np.ndarray and v.dtype == np.float64 and v.shape == shape
-                for v in values
+                type(v) is np.ndarray and v.dtype == np.float64 and v.shape == shape for v in values
             ):
                 self.shape = shape
                 self.scalar = shape == ()

@@ -143,8 +143,14 @@ def test_screen_brackets_the_saturation_temperature():
 
 @pytest.mark.parametrize(
     ("p", "expect"),
-    [(-1.0, "nan"), (0.0, "nan"), (100.0, "off"), (P_CRITICAL, "off"), (5e7, "off"),
-     (np.nan, "off")],
+    [
+        (-1.0, "nan"),
+        (0.0, "nan"),
+        (100.0, "off"),
+        (P_CRITICAL, "off"),
+        (5e7, "off"),
+        (np.nan, "off"),
+    ],
 )
 def test_screen_off_the_saturation_line(p, expect):
     grid, lo, hi = if97_screen(MARGIN)
@@ -174,8 +180,9 @@ def test_states_near_the_line_take_the_full_rules(monkeypatch):
     state = CP.AbstractState("IF97", "Water")
     state.update(CP.PT_INPUTS, 1e6, ts - MARGIN)
     # cp (T - Ta) over 0.02 K: exact arithmetic apart from the rounding of T - Ta
-    assert h[1] == pytest.approx(state.hmass() + state.cpmass() * (ts - 0.03 - (ts - MARGIN)),
-                                 rel=1e-15, abs=1e-9)
+    assert h[1] == pytest.approx(
+        state.hmass() + state.cpmass() * (ts - 0.03 - (ts - MARGIN)), rel=1e-15, abs=1e-9
+    )
 
 
 def test_changed_margin_rebuilds_the_bracket():
