@@ -1,8 +1,15 @@
 """The few property calls the balance model needs, with their derivatives.
 
-Everything goes through :mod:`perftest.thermo.properties`; this module only shapes the
-calls for the model (arrays in, arrays out, derivatives for the Jacobian) and
-makes a property-range failure name the stream it happened in.
+Everything goes through the property layer, :mod:`perftest.thermo`; this module only
+shapes the calls for the model (arrays in, arrays out, derivatives for the Jacobian)
+and makes a property-range failure name the stream it happened in.
+
+A model calls these functions at every new point, with flat float arrays of a few
+to a few dozen streams, so they take the short way in: the (p, T) rules of
+:func:`perftest.thermo.single_phase.pT` directly (no argument shaping) and the
+saturated values of :func:`perftest.thermo.saturation.saturated_arrays` (no State
+records).  Other inputs (scalars, 2-D arrays) go through the public :class:`Fluid`
+methods; the numbers and the messages are the same either way.
 """
 
 from __future__ import annotations
@@ -10,6 +17,9 @@ from __future__ import annotations
 import numpy as np
 
 from perftest.errors import PerftestError, PropertyRangeError
+from perftest.thermo.properties import get_fluid
+from perftest.thermo.saturation import saturated_arrays
+from perftest.thermo.single_phase import pT
 
 __all__ = ["h_pT", "saturation", "h_px", "state_ph", "dead_state", "fluid"]
 
@@ -19,12 +29,28 @@ __all__ = ["h_pT", "saturation", "h_px", "state_ph", "dead_state", "fluid"]
 # the saturation functions.
 _DP_REL = 1e-6
 
+# outputs of a (p, T) state row
+_H_KEYS = ("h", "cp", "dhdp")
+
+
+# Fluid objects by the name the plant file gives (get_fluid caches them too; this
+# skips its argument checks on every property call of a model).
+_FLUIDS: dict = {}
+
 
 def fluid(name: str):
     """The cached property object of a fluid name."""
-    from perftest.thermo.properties import get_fluid
+    f = _FLUIDS.get(name) if isinstance(name, str) else None
+    if f is None:
+        f = get_fluid(name)
+        _FLUIDS[name] = f
+    return f
 
-    return get_fluid(name)
+
+def _flat(a):
+    """`a` as a flat float array if it is one already (or a copy of one), else None."""
+    a = np.asarray(a, dtype=float)
+    return np.ascontiguousarray(a) if a.ndim == 1 else None
 
 
 def _per_stream(call, streams, *arrays):
@@ -53,6 +79,19 @@ def _saturated(f, p, where):
     return f.state_px(p, np.zeros_like(p), where=where), f.state_px(p, np.ones_like(p), where=where)
 
 
+def _sat_values(f, p, where):
+    """``T, h_f, rho_f, h_g, rho_g`` on the saturation line at flat pressures `p`.
+
+    The values of :func:`_saturated` without its two State records; when a point
+    fails, :func:`_saturated` runs to raise the property layer's message.
+    """
+    out = saturated_arrays(f, p)
+    if out is None:
+        liq, vap = _saturated(f, p, where)
+        out = liq.T, liq.h, liq.rho, vap.h, vap.rho  # reached only if it did not raise
+    return out
+
+
 def h_pT(name: str, phase, p, T, streams=()):
     """Enthalpy and its partial derivatives from pressure and temperature.
 
@@ -76,6 +115,15 @@ def h_pT(name: str, phase, p, T, streams=()):
         At constant temperature.
     """
     f = fluid(name)
+    pf, Tf = _flat(p), _flat(T)
+    if pf is not None and Tf is not None and pf.shape == Tf.shape:
+        # flat arrays (the model's case): straight to the (p, T) rules of the
+        # property layer, which Fluid.h_pT reaches after shaping its arguments
+        def call(pp, TT, where):
+            r = pT(f, pp, TT, phase, _H_KEYS, where)
+            return r["h"], r["cp"], r["dhdp"]
+
+        return _per_stream(call, streams, pf, Tf)
     p = np.asarray(p, dtype=float)
     T = np.asarray(T, dtype=float)
     h, dhdT, dhdp = _per_stream(
@@ -100,6 +148,10 @@ def saturation(name: str, p, streams=()):
     .. math:: \\frac{dT_{sat}}{dp} = \\frac{T_{sat} (v_g - v_f)}{h_g - h_f}
     """
     f = fluid(name)
+    pf = _flat(p)
+    if pf is not None:
+        T, hf, rf, hg, rg = _per_stream(lambda pp, where: _sat_values(f, pp, where), streams, pf)
+        return T, T * (1.0 / rg - 1.0 / rf) / (hg - hf)
     p = np.asarray(p, dtype=float)
     liq, vap = _per_stream(lambda pp, where: _saturated(f, pp, where), streams, p)
     T = np.asarray(liq.T, dtype=float)
@@ -121,12 +173,21 @@ def h_px(name: str, p, x, streams=()):
         The latent heat :math:`h_g - h_f`.
     """
     f = fluid(name)
-    p = np.asarray(p, dtype=float)
-    x = np.asarray(x, dtype=float)
+    pf, xf = _flat(p), _flat(x)
+    if pf is not None and xf is not None and pf.shape == xf.shape:
+        p, x = pf, xf
 
-    def sat_h(pp, where):
-        liq, vap = _saturated(f, pp, where)
-        return np.asarray(liq.h, dtype=float), np.asarray(vap.h, dtype=float)
+        def sat_h(pp, where):
+            _, hf, _, hg, _ = _sat_values(f, pp, where)
+            return hf, hg
+
+    else:
+        p = np.asarray(p, dtype=float)
+        x = np.asarray(x, dtype=float)
+
+        def sat_h(pp, where):
+            liq, vap = _saturated(f, pp, where)
+            return np.asarray(liq.h, dtype=float), np.asarray(vap.h, dtype=float)
 
     hf, hg = _per_stream(sat_h, streams, p)
     dp = p * _DP_REL

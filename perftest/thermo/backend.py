@@ -19,13 +19,25 @@ import numpy as np
 _FD_REL_STEP = 1e-5
 
 
+def out_keys(fluid, keys):
+    """CoolProp output codes of `keys` as the int32 array fast_evaluate takes (cached)."""
+    key = tuple(keys)
+    outs = fluid._out_codes.get(key)
+    if outs is None:
+        outs = np.array([int(fluid._keys[k]) for k in key], dtype=np.int32)
+        fluid._out_codes[key] = outs
+    return outs
+
+
 def fast(fluid, pair, a, b, keys):
     """IF97 array path: CoolProp's ``fast_evaluate``; failed points are NaN."""
-    outs = np.array([int(fluid._keys[k]) for k in keys], dtype=np.int32)
+    outs = out_keys(fluid, keys)
     out = np.empty((a.size, outs.size))
     status = np.empty(a.size, dtype=np.int32)
     fluid._as.fast_evaluate(pair, a, b, outs, out, status)
     res = {k: out[:, i] for i, k in enumerate(keys)}
+    if not np.count_nonzero(status):  # the usual case: every point evaluated
+        return res, np.ones(a.size, dtype=bool)
     ok = status == 0
     # The array path of CoolProp 8 rejects IF97 region 5 (T > 1073.15 K) as out of
     # range although the point update supports it: retry such points one by one.
@@ -83,14 +95,25 @@ def raw_pT(fluid, p, T, keys):
         res, ok = fast(fluid, CP.PT_INPUTS, p, T, base) if base else ({}, np.ones(p.size, bool))
         err = None
         if want_dhdp:
-            # The IF97 backend has no first_partial_deriv; central difference in p.
+            # The IF97 backend has no first_partial_deriv; central difference in p,
+            # both sides of the stencil in one call (every point is evaluated on its
+            # own, so the values are those of two separate calls).
+            n = p.size
             dp = _FD_REL_STEP * p
-            # a non-finite p gives nan steps, which _fast marks not ok
+            # a non-finite p gives nan steps, which fast() marks not ok
             with np.errstate(invalid="ignore"):
-                hp, okp = fast(fluid, CP.PT_INPUTS, p + dp, T, ["h"])
-                hm, okm = fast(fluid, CP.PT_INPUTS, p - dp, T, ["h"])
-                res["dhdp"] = (hp["h"] - hm["h"]) / (2.0 * dp)
-            ok = ok & okp & okm
+                hpm, okpm = fast(fluid, CP.PT_INPUTS, *stencil(p, dp, T), ["h"])
+                res["dhdp"] = (hpm["h"][:n] - hpm["h"][n:]) / (2.0 * dp)
+            ok = ok & okpm[:n] & okpm[n:]
     else:
         res, ok, err = loop(fluid, CP.PT_INPUTS, p, T, keys)
     return res, ok, err
+
+
+def stencil(p, dp, T):
+    """Inputs of the central difference: ``(p + dp, p - dp)`` stacked, `T` twice."""
+    n = p.size
+    pp = np.empty(2 * n)
+    np.add(p, dp, out=pp[:n])
+    np.subtract(p, dp, out=pp[n:])
+    return pp, np.concatenate((T, T))

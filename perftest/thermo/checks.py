@@ -26,6 +26,18 @@ class Args:
 
     def __init__(self, func: str, **named):
         self.index = None
+        values = list(named.values())
+        first = values[0]
+        if type(first) is np.ndarray and first.dtype == np.float64:
+            # the usual case inside the library: float arrays of one shape already
+            shape = first.shape
+            if all(
+                type(v) is np.ndarray and v.dtype == np.float64 and v.shape == shape for v in values
+            ):
+                self.shape = shape
+                self.scalar = shape == ()
+                self.flat = [np.ascontiguousarray(v).ravel() for v in values]
+                return
         arrays = []
         for name, value in named.items():
             if isinstance(value, pd.Series):

@@ -213,6 +213,10 @@ class Fluid:
             "T": CP.iT,
             "x": CP.iQ,
         }
+        # fast_evaluate output codes per tuple of keys (backend.out_keys) and the
+        # bounds of the quick saturation test (single_phase.far_from_saturation)
+        self._out_codes = {}
+        self._screen = None
         self._getters = {
             "h": self._as.hmass,
             "s": self._as.smass,

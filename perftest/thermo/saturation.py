@@ -12,7 +12,7 @@ import numpy as np
 from perftest.errors import PropertyRangeError
 from perftest.thermo.backend import fast, loop
 from perftest.thermo.checks import Args, check_quality, fmt_state, more, prefix
-from perftest.thermo.if97 import if97_psat, if97_tsat
+from perftest.thermo.if97 import P_CRITICAL, P_TRIPLE, if97_psat, if97_tsat
 from perftest.thermo.states import State
 
 
@@ -32,6 +32,82 @@ def tsat_or_nan(fluid, p):
         res, ok, _ = loop(fluid, fluid._CP.PQ_INPUTS, p[inside], np.zeros(inside.sum()), ["T"])
         out[inside] = res["T"]
     return out
+
+
+# Grid of the quick saturation test (see if97_screen): 16384 pressures evenly spaced in
+# log p between the triple and the critical point bracket Tsat to 0.06 K or better;
+# the slack of 1e-6 K covers the round-off of Eq. 31 (~1e-13 K) a million times.
+_SCREEN_POINTS = 16384
+_SCREEN_SLACK = 1e-6
+
+
+def if97_screen(margin):
+    """Bounds of the saturation temperature of water around any pressure, for a cheap test.
+
+    Returns ``grid, lo, hi``: with ``k = grid.searchsorted(p, "right")``, a state
+    with ``T < lo[k]`` lies more than `margin` below the saturation temperature at
+    `p` (or `p` is off the saturation line: below the triple or at or above the
+    critical pressure, or NaN), and one with ``T > hi[k]`` more than `margin` above
+    it (or off the line).  ``lo`` and ``hi`` are NaN for ``p <= 0``, so such states
+    pass neither test.  Tsat from Eq. 31 rises with p, so between two grid
+    pressures it lies between their saturation temperatures; the bounds widen that
+    bracket by `margin` and a slack.
+    """
+    q = np.geomspace(P_TRIPLE, P_CRITICAL, _SCREEN_POINTS)
+    q[0], q[-1] = P_TRIPLE, P_CRITICAL
+    ts = if97_tsat(q)
+    grid = np.concatenate(([np.nextafter(0.0, 1.0)], q))
+    d = margin + _SCREEN_SLACK
+    lo = np.concatenate(([np.nan, np.inf], ts[:-1] - d, [np.inf]))
+    hi = np.concatenate(([np.nan, -np.inf], ts[1:] + d, [-np.inf]))
+    return grid, lo, hi
+
+
+def saturated_arrays(fluid, p):
+    """Saturated liquid and vapour at flat pressures `p`, or None if any point fails.
+
+    Returns ``T, h_f, rho_f, h_g, rho_g`` (NaN where `p` is NaN): the values of
+    :func:`state_px` at x = 0 and x = 1, from the same CoolProp updates in the same
+    order, without building the two :class:`State` records.  Callers redo the call
+    through :func:`state_px` to raise its error when this returns None.
+
+    :func:`state_px` also reads p and s.  For IF97 water h, rho and s after a
+    saturation update are the region 1 (x = 0) or region 2 (x = 1) equation at
+    (Tsat(p), p), under one range check, so s cannot fail where h did not; it is
+    skipped there (it costs as much as h).  Other backends read all five, as
+    :func:`state_px` does.
+    """
+    AS, pair = fluid._as, fluid._CP.PQ_INPUTS
+    # the getters of Fluid._getters for T, p, h, s and rho
+    get_T, get_p, get_h, get_s, get_rho = AS.T, AS.p, AS.hmass, AS.smass, AS.rhomass
+    full = not fluid.is_if97
+    nan = np.nan
+    pl = p.tolist()
+    n = len(pl)
+    T, hf, rf, hg, rg = [nan] * n, [nan] * n, [nan] * n, [nan] * n, [nan] * n
+    try:
+        for i, pi in enumerate(pl):
+            if pi == pi:
+                AS.update(pair, pi, 0.0)
+                T[i] = get_T()
+                if full:
+                    get_p()
+                hf[i] = get_h()
+                if full:
+                    get_s()
+                rf[i] = get_rho()
+        for i, pi in enumerate(pl):
+            if pi == pi:
+                AS.update(pair, pi, 1.0)
+                if full:
+                    get_T(), get_p()
+                hg[i] = get_h()
+                if full:
+                    get_s()
+                rg[i] = get_rho()
+    except (ValueError, IndexError, RuntimeError):
+        return None
+    return tuple(np.array([T, hf, rf, hg, rg]))  # five rows of one array
 
 
 def sat_side_values(fluid, p, key):

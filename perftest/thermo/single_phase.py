@@ -11,9 +11,9 @@ from __future__ import annotations
 import numpy as np
 
 from perftest.errors import PropertyRangeError
-from perftest.thermo.backend import raw_pT
+from perftest.thermo.backend import _FD_REL_STEP, out_keys, raw_pT, stencil
 from perftest.thermo.checks import Args, check_phase, fmt_state, more, prefix, range_hint
-from perftest.thermo.saturation import tsat_or_nan
+from perftest.thermo.saturation import if97_screen, tsat_or_nan
 from perftest.thermo.states import State
 
 
@@ -22,6 +22,79 @@ def pT(fluid, p, T, phase, keys, where):
 
     Returns a dict of flat arrays for `keys` (subset of h, s, cp, rho, dhdp).
     """
+    if fluid.is_if97 and far_from_saturation(fluid, p, T, phase):
+        res = if97_plain(fluid, p, T, keys)
+        if res is not None:
+            return res
+    return pT_rules(fluid, p, T, phase, keys, where)
+
+
+def far_from_saturation(fluid, p, T, phase) -> bool:
+    """True when no (p, T) state of the call meets a saturation rule (IF97 water).
+
+    True means: every p and T is positive and, for the declared `phase` (liquid,
+    vapour, gas or None), every state lies on its side of the line and outside the
+    margin, so :func:`pT_rules` would neither raise nor move a state to an anchor.
+    False means "not sure": the caller then applies the rules in full.  The test
+    brackets Tsat(p) between the saturation temperatures of the nearest grid
+    pressures (:func:`~perftest.thermo.saturation.if97_screen`) instead of
+    evaluating Eq. 31 at every state.
+    """
+    if phase == "supercritical":
+        ok = ((p >= fluid.p_critical) | (T >= fluid.T_critical)) & (p > 0) & (T > 0)
+        return np.count_nonzero(ok) == ok.size
+    if phase is not None and phase not in ("liquid", "vapour", "gas"):
+        return False  # "wet" or an unknown name: the rules raise
+    margin = fluid.saturation_margin
+    screen = fluid._screen
+    if screen is None or screen[0] != margin:
+        screen = fluid._screen = (margin, *if97_screen(margin))
+    _, grid, lo, hi = screen
+    k = grid.searchsorted(p, "right")
+    if phase == "liquid":
+        ok = T < lo[k]
+    elif phase is None:
+        ok = (T < lo[k]) | (T > hi[k])
+    else:
+        ok = T > hi[k]
+    ok &= T > 0
+    return np.count_nonzero(ok) == ok.size  # (count_nonzero: cheaper than .all())
+
+
+def if97_plain(fluid, p, T, keys):
+    """IF97 values at (p, T) as they are, or None when any point fails.
+
+    The values of :func:`~perftest.thermo.backend.raw_pT` for states that need no
+    saturation rule, in at most two CoolProp calls: the outputs at (p, T), and h on
+    both sides of the (dh/dp)_T stencil.  Any failed point (out of range, NaN,
+    region 5) returns None and the caller takes the full path, which handles it.
+    """
+    want_dhdp = "dhdp" in keys
+    base = [k for k in keys if k != "dhdp"]
+    if want_dhdp and "h" not in base:
+        base.append("h")
+    n = p.size
+    pair, evaluate = fluid._CP.PT_INPUTS, fluid._as.fast_evaluate
+    out = np.empty((n, len(base)))
+    status = np.empty(n, dtype=np.int32)
+    evaluate(pair, p, T, out_keys(fluid, base), out, status)
+    if np.count_nonzero(status):  # (cheaper than status.any())
+        # before the stencil: a NaN or infinite p would make it warn here as well
+        return None
+    res = {k: out[:, i] for i, k in enumerate(base)}
+    if want_dhdp:
+        dp = _FD_REL_STEP * p
+        hpm = np.empty((2 * n, 1))
+        status = np.empty(2 * n, dtype=np.int32)
+        evaluate(pair, *stencil(p, dp, T), out_keys(fluid, ("h",)), hpm, status)
+        if np.count_nonzero(status):
+            return None
+        res["dhdp"] = (hpm[:n, 0] - hpm[n:, 0]) / (2.0 * dp)
+    return res
+
+
+def pT_rules(fluid, p, T, phase, keys, where):
+    """:func:`pT` in full: every check, anchors within the margin, every message."""
     check_phase(phase, where)
     if phase == "wet":
         raise PropertyRangeError(
