@@ -49,6 +49,48 @@ def _sat_p(fluid: str, T: float) -> float | None:
         return None
 
 
+def _by_fluid(spec, sids) -> dict:
+    groups: dict = {}
+    for sid in sids:
+        groups.setdefault(spec.streams[sid].fluid, []).append(sid)
+    return groups
+
+
+def _sat_T_many(spec, sids, p) -> dict:
+    """:func:`_sat_T` of each stream in ``sids`` at ``p[sid]``, one call per fluid.
+
+    A call that fails (a stream above the critical pressure) is repeated stream by
+    stream, so each stream gets what :func:`_sat_T` gives it alone.
+    """
+    out = {}
+    for fl, members in _by_fluid(spec, sids).items():
+        try:
+            Ts = np.atleast_1d(
+                np.asarray(thermo.fluid(fl).saturation_T(np.array([p[s] for s in members])))
+            )
+            out.update(zip(members, (float(t) for t in Ts), strict=True))
+        except (PerftestError, ValueError):
+            out.update((s, _sat_T(fl, p[s])) for s in members)
+    return out
+
+
+def _T_ph_many(spec, sids, p, h) -> dict:
+    """Temperatures of single-phase streams from (p, h), one call per fluid; a stream
+    whose state fails (the call is then repeated stream by stream) is left out."""
+    out = {}
+    for fl, members in _by_fluid(spec, sids).items():
+        try:
+            st = thermo.state_ph(fl, [p[s] for s in members], [h[s] for s in members], members)
+            out.update(zip(members, (float(t) for t in st.T), strict=True))
+        except PerftestError:
+            for s in members:
+                try:
+                    out[s] = float(thermo.state_ph(fl, p[s], h[s], (s,)).T[0])
+                except PerftestError:
+                    pass
+    return out
+
+
 def _fill_from(values: dict, neighbours: dict) -> None:
     """Give unknown entries the mean of known neighbours, spreading outwards."""
     changed = True
@@ -117,15 +159,20 @@ def initial_guess(model, x) -> np.ndarray:
             p[sid] = _sat_p(st.fluid, T[sid])
     _fill_from(p, same_p)
     _fill_from(p, near)
-    for sid, st in spec.streams.items():
-        if T[sid] is None and h_given[sid] is not None and p[sid] is not None:
-            try:
-                T[sid] = float(thermo.state_ph(st.fluid, p[sid], h_given[sid], (sid,)).T[0])
-            except PerftestError:
-                pass
-    for sid, st in spec.streams.items():
-        if T[sid] is None and st.phase == "wet" and p[sid] is not None:
-            T[sid] = _sat_T(st.fluid, p[sid])
+    T.update(
+        _T_ph_many(
+            spec,
+            [s for s in spec.streams if T[s] is None and h_given[s] is not None and p[s] is not None],
+            p,
+            h_given,
+        )
+    )
+    wet = [
+        s
+        for s, st in spec.streams.items()
+        if T[s] is None and st.phase == "wet" and p[s] is not None
+    ]
+    T.update(_sat_T_many(spec, wet, p))
     _fill_from(T, near)
     for sid in spec.streams:
         if p[sid] is None:
@@ -133,11 +180,13 @@ def initial_guess(model, x) -> np.ndarray:
         if T[sid] is None:
             T[sid] = _DEFAULT_T
 
-    # 3. phases: only guessed values move
-    for sid, st in spec.streams.items():
-        if st.phase not in ("liquid", "vapour", "wet"):
-            continue
-        Ts = _sat_T(st.fluid, p[sid])
+    # 3. phases: only guessed values move (each stream's saturation temperature at its
+    #    pressure before any of them moved: a stream changes only its own p and T)
+    phased = [s for s, st in spec.streams.items() if st.phase in ("liquid", "vapour", "wet")]
+    sat = _sat_T_many(spec, phased, p)
+    for sid in phased:
+        st = spec.streams[sid]
+        Ts = sat[sid]
         if Ts is None:
             continue
         if st.phase == "wet":
@@ -182,15 +231,20 @@ def initial_guess(model, x) -> np.ndarray:
             same_h[a].add(b)
             same_h[b].add(a)
     _fill_from(h, same_h)
+    # a carried enthalpy fixes the temperature of a single-phase stream
+    carried = [
+        s
+        for s, st in spec.streams.items()
+        if h[s] is not None and h_given[s] is None and T_given[s] is None and st.phase != "wet"
+    ]
+    fixed = _T_ph_many(spec, carried, p, h)
+    for sid in carried:
+        if sid in fixed:
+            T[sid] = fixed[sid]
+            v[idx[f"{sid}.temperature"]] = T[sid]
+        else:
+            h[sid] = None
     for sid, st in spec.streams.items():
-        if h[sid] is not None and h_given[sid] is None and T_given[sid] is None:
-            if st.phase != "wet":
-                # a carried enthalpy fixes the temperature of a single-phase stream
-                try:
-                    T[sid] = float(thermo.state_ph(st.fluid, p[sid], h[sid], (sid,)).T[0])
-                    v[idx[f"{sid}.temperature"]] = T[sid]
-                except PerftestError:
-                    h[sid] = None
         if h[sid] is None and st.phase == "wet":
             qi = idx.get(f"{sid}.quality")
             q = v[qi] if qi is not None and not np.isnan(v[qi]) else _WET_QUALITY
