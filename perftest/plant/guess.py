@@ -319,11 +319,15 @@ def _linear_step(model, v, free, kinds, positive=()):
     rows = [i for i, r in enumerate(model.rows) if r.kind in kinds]
     if not rows:
         return
-    J = model.slot_jacobian(v)[rows][:, free].toarray()
+    f, (er, ec, ea) = model._evaluate(v, jac=True)
+    # the slot Jacobian dense (a plant has a few hundred slots), duplicates summed
+    full = np.zeros((len(model.rows), len(model.variables)))
+    np.add.at(full, (er, ec), ea / model._scale[er])
+    J = full[np.ix_(rows, free)]
     keep = np.any(J != 0, axis=1)
     if not keep.any():
         return
-    r = (model._evaluate(v, jac=False)[0] / model._scale)[rows]
+    r = (f / model._scale)[rows]
     step = np.linalg.lstsq(J[keep], -r[keep], rcond=None)[0]
     new = v[free] + step
     # a flow must stay positive; where the step says otherwise keep the old guess
