@@ -26,6 +26,7 @@ References
 
 from __future__ import annotations
 
+import functools
 import math
 import warnings
 
@@ -799,11 +800,48 @@ def coverage_factor(dof=math.inf, level: float = 0.95):
             f"The 'dof' parameter of coverage_factor must be positive (inf allowed). Got {dof!r}.",
             parameter="dof",
         )
+    if nu.ndim == 0 and isinstance(level, float):
+        # one factor: the same quantile again and again in a loop over windows
+        return _coverage_factor_scalar(float(nu), float(level))
+    return _coverage_factor(nu, level)
+
+
+def _coverage_factor(nu: np.ndarray, level: float):
     from scipy import stats as _sps  # on first use: its import costs 1-2 s
 
     q = 0.5 + level / 2.0
     k = np.where(np.isinf(nu), _sps.norm.ppf(q), _sps.t.ppf(q, np.where(np.isinf(nu), 1.0, nu)))
     return float(k) if k.ndim == 0 else k
+
+
+@functools.lru_cache(maxsize=1024)
+def _coverage_factor_scalar(nu: float, level: float) -> float:
+    """:func:`coverage_factor` of one checked dof and level, remembered."""
+    return _coverage_factor(np.asarray(nu, dtype=float), level)
+
+
+def _t_sf(x, df) -> np.ndarray:
+    """Survival function of Student's t, as ``scipy.stats.t.sf(x, df)`` for arrays.
+
+    The same values (``scipy.special.stdtr`` where scipy's generic method calls it,
+    NaN for a NaN ``x`` or a ``df`` that is not positive, 0 at ``x = inf``, 1 at
+    ``x = -inf``) without the generic method's argument handling, which costs more
+    than the quantile itself for a few dozen values.
+    """
+    from scipy import special as _sc  # on first use, as scipy.stats above
+
+    x = np.asarray(x, dtype=float)
+    df = np.asarray(df, dtype=float)
+    x, df = np.broadcast_arrays(x, df)
+    with np.errstate(invalid="ignore"):
+        ok = df > 0
+        inside = ok & (-np.inf < x) & (x < np.inf)
+    out = np.zeros(x.shape)
+    out[~ok | np.isnan(x)] = np.nan
+    out[ok & (x == -np.inf)] = 1.0
+    if inside.any():
+        out[inside] = _sc.stdtr(df[inside], -x[inside])
+    return out
 
 
 def standard_from_expanded(U, level: float = 0.95, dof=math.inf):

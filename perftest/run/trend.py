@@ -8,6 +8,7 @@ explain.
 from __future__ import annotations
 
 import warnings
+from typing import NamedTuple
 
 import numpy as np
 import pandas as pd
@@ -16,6 +17,7 @@ from perftest.defaults import TREND_ALPHA
 from perftest.errors import InputError, StabilityWarning
 from perftest.run import stats
 from perftest.run.common import fmt_time
+from perftest.run.windows import _PER_SECOND
 
 __all__ = ["trend_test", "TREND_COLUMNS"]
 
@@ -99,50 +101,96 @@ def trend_test(
         x = run.data.to_numpy(dtype=float)  # every tag in order: no column selection
     else:
         x = run.data[tags].to_numpy(dtype=float)
-    idx = run.data.index
-    t = np.asarray((idx - idx[0]) / pd.Timedelta(seconds=1), dtype=float)
-    slope, u, dof, n, stt = _slope_statistics(x, t)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        tstat = slope / u
-    from scipy import stats as _sps  # on first use, as in perftest.run.stats
-
-    p = 2.0 * _sps.t.sf(np.abs(tstat), dof)
-    usable = (n >= 4) & (stt > 0) & np.isfinite(p) & (u > 0)
-    p = np.where(usable, p, np.nan)
-    m = max(int(usable.sum()), 1)
-    flagged = pd.array(
-        [pd.NA if not ok else bool(pv < level / m) for ok, pv in zip(usable, p, strict=True)],
-        dtype="boolean",
-    )
-    span = float(t[-1] - t[0]) if len(idx) else 0.0
+    r = _trend(run, x, level)
+    flagged = pd.arrays.BooleanArray(r.hit, ~r.usable)
     table = pd.DataFrame(
         {
-            "slope": slope,
-            "u_slope": u,
-            "t": tstat,
-            "dof": dof,
-            "p_value": p,
-            "trend": slope * span,
+            "slope": r.slope,
+            "u_slope": r.u,
+            "t": r.t,
+            "dof": r.dof,
+            "p_value": r.p,
+            "trend": r.trend,
             "trending": flagged,
         },
         index=pd.Index(tags, name="tag"),
     )
-    hit = [tg for tg, f in zip(tags, flagged.fillna(False).to_numpy(dtype=bool), strict=True) if f]
-    if warn and hit:
-        shown = ", ".join(
-            f"{tg} ({_change_text(run, tg, table.loc[tg, 'trend'])} over the window, "
-            f"p {_p_text(table.loc[tg, 'p_value'])})"
-            for tg in hit
-        )
-        warnings.warn(
-            f"{len(hit)} tag(s) trend inside the window {fmt_time(run.start or idx[0])} to "
-            f"{fmt_time(run.end or idx[-1])} beyond their scatter (level {level:g} for the "
-            f"window, {level / m:.2g} per tag): {shown}. The unit may not have settled: "
-            "look at the record, or choose a later window.",
-            StabilityWarning,
-            stacklevel=stacklevel,
-        )
+    if warn:
+        _warn(run, tags, r, level, stacklevel + 1)
     return table
+
+
+class _Trend(NamedTuple):
+    """The columns of :func:`trend_test`'s table as arrays, and what its verdicts used."""
+
+    slope: np.ndarray
+    u: np.ndarray
+    t: np.ndarray
+    dof: np.ndarray
+    p: np.ndarray
+    trend: np.ndarray
+    usable: np.ndarray  # a verdict was reached (else <NA>)
+    hit: np.ndarray  # trending
+    tested: int  # the m of the Bonferroni level alpha / m
+    start: object
+    end: object
+
+
+def _trend(run, x: np.ndarray, level: float) -> _Trend:
+    """:func:`trend_test` of the samples ``x`` (samples x tags) of ``run``, as arrays."""
+    idx = run.data.index
+    t = _seconds(idx)
+    slope, u, dof, n, stt = _slope_statistics(x, t)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        tstat = slope / u
+    p = 2.0 * stats._t_sf(np.abs(tstat), dof)
+    usable = (n >= 4) & (stt > 0) & np.isfinite(p) & (u > 0)
+    p = np.where(usable, p, np.nan)
+    m = max(int(usable.sum()), 1)
+    with np.errstate(invalid="ignore"):
+        hit = usable & (p < level / m)
+    span = float(t[-1] - t[0]) if len(idx) else 0.0
+    return _Trend(
+        slope, u, tstat, dof, p, slope * span, usable, hit, m,
+        run.start or (idx[0] if len(idx) else None),
+        run.end or (idx[-1] if len(idx) else None),
+    )  # fmt: skip
+
+
+def _seconds(idx: pd.DatetimeIndex) -> np.ndarray:
+    """Seconds since the first time [s], as ``(idx - idx[0]) / pd.Timedelta(seconds=1)``.
+
+    The same doubles (the integer ticks since the first, divided as doubles by the
+    ticks of a second) without building a TimedeltaIndex.
+    """
+    ticks = idx.asi8
+    if not len(ticks):
+        return np.zeros(0)
+    return (ticks - ticks[0]) / _PER_SECOND[idx.unit]
+
+
+def _warn(run, tags, r: _Trend, level: float, stacklevel: int) -> None:
+    """The StabilityWarning of :func:`trend_test` naming the trending tags, if any.
+
+    ``stacklevel`` counts from this function (one more than from its caller).
+    """
+    hit = np.flatnonzero(r.hit)
+    if not hit.size:
+        return
+    shown = ", ".join(
+        f"{tags[j]} ({_change_text(run, tags[j], r.trend[j])} over the window, "
+        f"p {_p_text(r.p[j])})"
+        for j in hit
+    )
+    m = r.tested
+    warnings.warn(
+        f"{hit.size} tag(s) trend inside the window {fmt_time(r.start)} to "
+        f"{fmt_time(r.end)} beyond their scatter (level {level:g} for the "
+        f"window, {level / m:.2g} per tag): {shown}. The unit may not have settled: "
+        "look at the record, or choose a later window.",
+        StabilityWarning,
+        stacklevel=stacklevel,
+    )
 
 
 def _slope_statistics(x: np.ndarray, t: np.ndarray):

@@ -80,36 +80,50 @@ def coverage(run, tags=None, *, interval=None) -> pd.Series:
     run that was not cut, last minus first stamp plus one interval.
     """
     tags = list(run.data.columns) if tags is None else list(tags)
-    idx = run.data.index
-    run_dt = sampling_interval(idx)
     if list(run.mask.columns) == tags:
         valid = ~run.mask.to_numpy()  # every tag in order: no column selection
     else:
         valid = ~run.mask[tags].to_numpy()
+    shares = _coverage(run, valid, interval)
+    return pd.Series(dict(zip(tags, shares, strict=True)), dtype=float, name="coverage")
+
+
+def _coverage(run, valid: np.ndarray, interval=None) -> list[float]:
+    """:func:`coverage` of the tags whose valid samples are the columns of ``valid``."""
+    idx = run.data.index
+    ticks, unit = idx.asi8, idx.unit
+    run_dt = _median_step(ticks, unit)
     counts = valid.sum(axis=0)
-    out = {}
-    for j, tg in enumerate(tags):
+    n = len(idx)
+    expected: dict = {}  # window length / interval, per interval
+    out = []
+    for j in range(valid.shape[1]):
         dt = interval
         if dt is None:
             dt = run_dt
-            if counts[j] < len(idx) and counts[j] >= 2:  # gaps: the tag's own step
-                own = sampling_interval(idx[valid[:, j]])
+            if counts[j] < n and counts[j] >= 2:  # gaps: the tag's own step
+                own = _median_step(ticks[valid[:, j]], unit)
                 dt = own if np.isfinite(own) else run_dt
-        out[tg] = _share(int(counts[j]), run, idx, dt)
-    return pd.Series(out, dtype=float, name="coverage")
+        k = int(counts[j])
+        if not (dt and np.isfinite(dt) and dt > 0):
+            out.append(1.0 if k else 0.0)  # one sample: nothing to compare with
+            continue
+        if dt not in expected:
+            expected[dt] = _expected(run, idx, dt)
+        e = expected[dt]
+        out.append(float(k / e) if e > 0 else float("nan"))
+    return out
 
 
-def _share(n_valid: int, run, idx, dt) -> float:
-    if not (dt and np.isfinite(dt) and dt > 0):
-        return 1.0 if n_valid else 0.0  # one sample: nothing to compare with
+def _expected(run, idx, dt: float) -> float:
+    """Samples a tag sampled every ``dt`` seconds holds in the run's window."""
     if run.start is not None and run.end is not None:
         span = (run.end - run.start) / pd.Timedelta(seconds=1)
     else:
         lo = run.start if run.start is not None else (idx[0] if len(idx) else None)
         hi = run.end if run.end is not None else (idx[-1] + pd.Timedelta(seconds=dt))
         span = (hi - lo) / pd.Timedelta(seconds=1) if lo is not None else 0.0
-    expected = span / dt
-    return float(n_valid / expected) if expected > 0 else float("nan")
+    return span / dt
 
 
 def check_min_coverage(min_coverage, func: str) -> float:
