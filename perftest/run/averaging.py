@@ -16,7 +16,7 @@ from perftest.defaults import TREND_ALPHA
 from perftest.errors import DataError, DataQualityWarning
 from perftest.plant.records import TagSpec
 from perftest.run import stats
-from perftest.run.common import PERCENT_KINDS, field, fmt_time
+from perftest.run.common import PERCENT_KINDS, column_list, field, fmt_time
 from perftest.run.measurements import Measurements
 from perftest.run.trend import _p_text, _trend
 from perftest.run.trend import _warn as _warn_trend
@@ -114,7 +114,7 @@ def average(
     """
     tags = run._check_tags(tags, "average")
     data = run.data
-    every = list(data.columns) == tags
+    every = column_list(data.columns) == tags
     if every:
         x_all = data.to_numpy(dtype=float)  # no column selection: a view when it can be
         # the layout of data[tags].to_numpy(), the samples of each tag side by side,
@@ -137,7 +137,8 @@ def average(
             tag=empty[0],
         )
     limit = check_min_coverage(min_coverage, "average")
-    masked = run.mask.to_numpy() if list(run.mask.columns) == tags else run.mask[tags].to_numpy()
+    every_mask = column_list(run.mask.columns) == tags
+    masked = run.mask.to_numpy() if every_mask else run.mask[tags].to_numpy()
     cover = np.asarray(_coverage(run, ~masked), dtype=float)
     low = [j for j, c in enumerate(cover) if c < limit]
     if low:

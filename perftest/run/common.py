@@ -13,6 +13,7 @@ __all__ = [
     "field",
     "fmt_time",
     "empty_exclusions",
+    "column_list",
 ]
 
 EXCLUSION_COLUMNS = ("time", "tag", "reason", "raw_value", "source")
@@ -49,3 +50,23 @@ def empty_exclusions() -> pd.DataFrame:
 def fmt_time(t) -> str:
     """ISO text of a time, ``"None"`` for None."""
     return "None" if t is None else pd.Timestamp(t).isoformat()
+
+
+# the last column Index seen by column_list and its labels
+_LAST_COLUMNS: tuple | None = None
+
+
+def column_list(columns: pd.Index) -> list:
+    """``list(columns)`` for a frame's column Index, remembered for the last one seen.
+
+    Listing an Index of strings costs about as much as averaging a few tags, and the
+    windows of one run carry views of one column Index (``Index.is_``: the same
+    labels, an Index being immutable).  A new list is returned each time.
+    """
+    global _LAST_COLUMNS
+    last = _LAST_COLUMNS
+    if last is not None and last[0].is_(columns):
+        return list(last[1])
+    labels = list(columns)
+    _LAST_COLUMNS = (columns, tuple(labels))
+    return labels

@@ -14,7 +14,7 @@ import pandas as pd
 
 from perftest.errors import InputError, StabilityWarning
 from perftest.plant.file import DEFAULT_STABILITY
-from perftest.run.common import PERCENT_KINDS, field, fmt_time
+from perftest.run.common import PERCENT_KINDS, column_list, field, fmt_time
 from perftest.run.windows import duration_seconds
 
 __all__ = ["stability", "permissible", "permissible_spec"]
@@ -172,7 +172,7 @@ def judge(run, tags: list[str], limits=None) -> dict:
     are computed here, so that a loop over many windows that needs only a few of
     them (``ratio``, ``passed``) builds no table.
     """
-    if list(run.data.columns) == list(tags):
+    if column_list(run.data.columns) == list(tags):
         x = run.data.to_numpy(dtype=float)  # every tag in order: no column selection
     else:
         x = run.data[tags].to_numpy(dtype=float)

@@ -16,7 +16,7 @@ import pandas as pd
 from perftest.defaults import TREND_ALPHA
 from perftest.errors import InputError, StabilityWarning
 from perftest.run import stats
-from perftest.run.common import fmt_time
+from perftest.run.common import column_list, fmt_time
 from perftest.run.windows import _PER_SECOND
 
 __all__ = ["trend_test", "TREND_COLUMNS"]
@@ -97,7 +97,7 @@ def trend_test(
             f"The 'alpha' parameter of Run.trend must lie in (0, 1). Got {alpha!r}.",
             parameter="alpha",
         )
-    if list(run.data.columns) == tags:
+    if column_list(run.data.columns) == tags:
         x = run.data.to_numpy(dtype=float)  # every tag in order: no column selection
     else:
         x = run.data[tags].to_numpy(dtype=float)

@@ -11,7 +11,7 @@ import pandas as pd
 
 from perftest.defaults import MIN_COVERAGE
 from perftest.errors import DataError, InputError
-from perftest.run.common import fmt_time
+from perftest.run.common import column_list, fmt_time
 
 __all__ = [
     "window",
@@ -79,8 +79,8 @@ def coverage(run, tags=None, *, interval=None) -> pd.Series:
     ``end - start`` of a cut window ([start, end), see :func:`window`) and, for a
     run that was not cut, last minus first stamp plus one interval.
     """
-    tags = list(run.data.columns) if tags is None else list(tags)
-    if list(run.mask.columns) == tags:
+    tags = column_list(run.data.columns) if tags is None else list(tags)
+    if column_list(run.mask.columns) == tags:
         valid = ~run.mask.to_numpy()  # every tag in order: no column selection
     else:
         valid = ~run.mask[tags].to_numpy()
