@@ -404,11 +404,20 @@ def mean_statistics(
     autocorrelation is computed once.
     """
     arr = np.asarray(arr, dtype=float)
-    m = np.isfinite(arr).sum(axis=0)
-    with warnings.catch_warnings(), np.errstate(invalid="ignore", divide="ignore"):
-        warnings.simplefilter("ignore", RuntimeWarning)
-        mean = np.nanmean(arr, axis=0)
-        s = np.where(m >= 2, np.nanstd(arr, axis=0, ddof=1), np.nan)
+    valid = np.isfinite(arr)
+    m = valid.sum(axis=0)
+    if arr.shape[0] and min(arr.strides, default=0) >= 0 and valid.all():
+        # every sample valid: nanmean's and nanstd's arithmetic without the masking
+        # steps (the same sums in the same order, so the same digits)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            mean = arr.sum(axis=0) / m
+            dev = arr - mean
+            s = np.where(m >= 2, np.sqrt((dev * dev).sum(axis=0) / (m - 1)), np.nan)
+    else:
+        with warnings.catch_warnings(), np.errstate(invalid="ignore", divide="ignore"):
+            warnings.simplefilter("ignore", RuntimeWarning)
+            mean = np.nanmean(arr, axis=0)
+            s = np.where(m >= 2, np.nanstd(arr, axis=0, ddof=1), np.nan)
     if autocorrelation:
         V, neff, _, dof = _mean_variance_columns(arr, max_lag, with_dof=True)
         u = np.sqrt(V)

@@ -197,16 +197,28 @@ def _slope_statistics(x: np.ndarray, t: np.ndarray):
     """Per column: OLS slope, its u under autocorrelated scatter, dof, m, S_tt."""
     valid = np.isfinite(x)
     n = valid.sum(axis=0).astype(float)
-    tv = np.where(valid, t[:, None], np.nan)
-    with warnings.catch_warnings(), np.errstate(invalid="ignore", divide="ignore"):
-        warnings.simplefilter("ignore", RuntimeWarning)
-        tm = np.nanmean(tv, axis=0)
-        xm = np.nanmean(x, axis=0)
-        dt = tv - tm
-        stt = np.nansum(dt**2, axis=0)
-        slope = np.nansum(dt * (x - xm), axis=0) / stt
-        resid = x - xm - slope * dt
     k = x.shape[1]
+    complete = _column_major(x) and t.strides[0] == t.itemsize and bool(valid.all())
+    if complete and x.shape[0]:
+        # every sample valid: the times are the same for every tag, and the nan-aware
+        # sums below add the same numbers in the same order (one column at a time)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            dt = (t - t.sum() / x.shape[0])[:, None]
+            stt = np.full(k, (dt * dt).sum())
+            xm = x.sum(axis=0) / x.shape[0]
+            resid = x - xm
+            slope = (dt * resid).sum(axis=0) / stt
+            resid -= slope * dt  # (in place: the layout of x - xm, as the sums below expect)
+    else:
+        tv = np.where(valid, t[:, None], np.nan)
+        with warnings.catch_warnings(), np.errstate(invalid="ignore", divide="ignore"):
+            warnings.simplefilter("ignore", RuntimeWarning)
+            tm = np.nanmean(tv, axis=0)
+            xm = np.nanmean(x, axis=0)
+            dt = tv - tm
+            stt = np.nansum(dt**2, axis=0)
+            slope = np.nansum(dt * (x - xm), axis=0) / stt
+            resid = x - xm - slope * dt
     u = np.full(k, np.nan)
     dof = np.full(k, np.nan)
     if x.shape[0] < 4:
@@ -218,8 +230,11 @@ def _slope_statistics(x: np.ndarray, t: np.ndarray):
 
     # c_k = sum_i w_i w_{i+k}; the same for every column without a masked sample
     same = bool(valid.all()) and k > 1
-    w = np.where(valid, np.nan_to_num(dt) / np.where(stt > 0, stt, np.inf), 0.0)
-    w = w[:, :1] if same else w
+    if complete:
+        w = dt / np.where(stt[:1] > 0, stt[:1], np.inf)
+    else:
+        w = np.where(valid, np.nan_to_num(dt) / np.where(stt > 0, stt, np.inf), 0.0)
+        w = w[:, :1] if same else w
     nfft = _fft.next_fast_len(x.shape[0] + K + 1, real=True)
     fw = _fft.rfft(w, nfft, axis=0)
     c = _fft.irfft(fw * np.conj(fw), nfft, axis=0)[: K + 1]
@@ -234,6 +249,12 @@ def _slope_statistics(x: np.ndarray, t: np.ndarray):
         u = np.sqrt(np.where(var_b > 0, var_b, np.nan))
         dof = np.maximum(n / (2.0 * M + 1.0) - 2.0, 1.0)
     return slope, u, dof, n, stt
+
+
+def _column_major(x: np.ndarray) -> bool:
+    """The samples of each column lie next to each other (as in a DataFrame's block)."""
+    n, k = x.shape
+    return x.strides[0] == x.itemsize and (k < 2 or x.strides[1] >= x.itemsize * n)
 
 
 def _change_text(run, tag: str, change: float) -> str:
