@@ -116,10 +116,10 @@ def average(
     data = run.data
     every = column_list(data.columns) == tags
     if every:
-        x_all = data.to_numpy(dtype=float)  # no column selection: a view when it can be
-        # the layout of data[tags].to_numpy(), the samples of each tag side by side,
-        # so that every sum below adds in the same order as it did on a selection
-        x = np.asfortranarray(x_all)
+        # no column selection: a view when it can be, its samples in the order a
+        # selection of every column holds them (so that every sum below adds in
+        # the same order)
+        x = data.to_numpy(dtype=float)
     else:
         x = data[tags].to_numpy(dtype=float)
     valid = np.isfinite(x)
@@ -139,7 +139,7 @@ def average(
     limit = check_min_coverage(min_coverage, "average")
     every_mask = column_list(run.mask.columns) == tags
     masked = run.mask.to_numpy() if every_mask else run.mask[tags].to_numpy()
-    cover = np.asarray(_coverage(run, ~masked), dtype=float)
+    cover = _coverage(run, ~masked)
     low = [j for j, c in enumerate(cover) if c < limit]
     if low:
         shown = ", ".join(f"{tags[j]} ({cover[j]:.0%})" for j in low)
@@ -154,7 +154,7 @@ def average(
     trend_p = np.full(len(tags), np.nan)
     if trend:
         # trend_test(run, tags)'s verdicts and warning, without its table
-        tt = _trend(run, x_all if every else x, TREND_ALPHA)
+        tt = _trend(run, x, TREND_ALPHA)
         _warn_trend(run, tags, tt, TREND_ALPHA, stacklevel=4)
         trend_p = tt.p
         hit = np.flatnonzero(tt.hit)

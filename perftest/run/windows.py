@@ -50,7 +50,10 @@ def _median_step(ticks: np.ndarray, unit: str) -> float:
     if len(ticks) < 2:
         return float("nan")
     t = (ticks - ticks[0]) / _PER_SECOND[unit]
-    return float(np.median(np.diff(t)))
+    steps = np.diff(t)
+    if steps[0] == steps[-1] and (steps == steps[0]).all():
+        return float(steps[0])  # a regular clock: the median is the step (even as a mean of two)
+    return float(np.median(steps))
 
 
 def coverage(run, tags=None, *, interval=None) -> pd.Series:
@@ -84,34 +87,34 @@ def coverage(run, tags=None, *, interval=None) -> pd.Series:
         valid = ~run.mask.to_numpy()  # every tag in order: no column selection
     else:
         valid = ~run.mask[tags].to_numpy()
-    shares = _coverage(run, valid, interval)
+    shares = _coverage(run, valid, interval).tolist()
     return pd.Series(dict(zip(tags, shares, strict=True)), dtype=float, name="coverage")
 
 
-def _coverage(run, valid: np.ndarray, interval=None) -> list[float]:
+def _coverage(run, valid: np.ndarray, interval=None) -> np.ndarray:
     """:func:`coverage` of the tags whose valid samples are the columns of ``valid``."""
     idx = run.data.index
     ticks, unit = idx.asi8, idx.unit
-    run_dt = _median_step(ticks, unit)
     counts = valid.sum(axis=0)
-    n = len(idx)
-    expected: dict = {}  # window length / interval, per interval
-    out = []
-    for j in range(valid.shape[1]):
-        dt = interval
-        if dt is None:
-            dt = run_dt
-            if counts[j] < n and counts[j] >= 2:  # gaps: the tag's own step
-                own = _median_step(ticks[valid[:, j]], unit)
-                dt = own if np.isfinite(own) else run_dt
-        k = int(counts[j])
+    n, k = valid.shape
+    if interval is not None:
+        dts = [interval] * k
+    else:
+        run_dt = _median_step(ticks, unit)
+        dts = [run_dt] * k
+        for j in np.flatnonzero((counts < n) & (counts >= 2)):  # gaps: the tag's own step
+            own = _median_step(ticks[valid[:, j]], unit)
+            dts[j] = own if np.isfinite(own) else run_dt
+    out = np.empty(k)
+    by_dt: dict = {}
+    for j, dt in enumerate(dts):
+        by_dt.setdefault(dt, []).append(j)
+    for dt, cols in by_dt.items():
         if not (dt and np.isfinite(dt) and dt > 0):
-            out.append(1.0 if k else 0.0)  # one sample: nothing to compare with
+            out[cols] = np.where(counts[cols] > 0, 1.0, 0.0)  # one sample: nothing to compare with
             continue
-        if dt not in expected:
-            expected[dt] = _expected(run, idx, dt)
-        e = expected[dt]
-        out.append(float(k / e) if e > 0 else float("nan"))
+        e = _expected(run, idx, dt)
+        out[cols] = counts[cols] / e if e > 0 else np.nan
     return out
 
 
