@@ -17,7 +17,7 @@ from perftest.defaults import TREND_ALPHA
 from perftest.errors import InputError, StabilityWarning
 from perftest.run import stats
 from perftest.run.common import column_list, fmt_time
-from perftest.run.windows import _PER_SECOND
+from perftest.run.windows import _seconds
 
 __all__ = ["trend_test", "TREND_COLUMNS"]
 
@@ -155,18 +155,6 @@ def _trend(run, x: np.ndarray, level: float) -> _Trend:
         run.start or (idx[0] if len(idx) else None),
         run.end or (idx[-1] if len(idx) else None),
     )  # fmt: skip
-
-
-def _seconds(idx: pd.DatetimeIndex) -> np.ndarray:
-    """Seconds since the first time [s], as ``(idx - idx[0]) / pd.Timedelta(seconds=1)``.
-
-    The same doubles (the integer ticks since the first, divided as doubles by the
-    ticks of a second) without building a TimedeltaIndex.
-    """
-    ticks = idx.asi8
-    if not len(ticks):
-        return np.zeros(0)
-    return (ticks - ticks[0]) / _PER_SECOND[idx.unit]
 
 
 def _warn(run, tags, r: _Trend, level: float, stacklevel: int) -> None:

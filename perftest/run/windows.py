@@ -56,6 +56,16 @@ def _median_step(ticks: np.ndarray, unit: str) -> float:
     return float(np.median(steps))
 
 
+def _seconds(idx: pd.DatetimeIndex) -> np.ndarray:
+    """Seconds since the first time [s], as ``(idx - idx[0]) / pd.Timedelta(seconds=1)``.
+
+    The same doubles (the integer ticks since the first, divided as doubles by the
+    ticks of a second) without building a TimedeltaIndex.
+    """
+    ticks = idx.asi8
+    return (ticks - ticks[0]) / _PER_SECOND[idx.unit]  # (IndexError without times, as idx[0])
+
+
 def coverage(run, tags=None, *, interval=None) -> pd.Series:
     """Share of the expected samples that each tag holds in the run's window.
 
@@ -295,4 +305,7 @@ def duration_seconds(run) -> float:
     idx = run.data.index
     if len(idx) < 2:
         return 0.0
-    return float((idx[-1] - idx[0]) / pd.Timedelta(seconds=1))
+    # (idx[-1] - idx[0]) / pd.Timedelta(seconds=1): the ticks between, as a double,
+    # over the ticks of a second
+    ticks = idx.asi8
+    return float((ticks[-1] - ticks[0]) / _PER_SECOND[idx.unit])
