@@ -163,7 +163,7 @@ def average(
                 "trend inside the window beyond the scatter for "
                 + ", ".join(f"{tags[j]} (p {_p_text(tt.p[j])})" for j in hit)
             )
-    _, mean, _, _, u_r, dof_r = stats.mean_statistics(x, autocorrelation, with_dof=True)
+    _, mean, _, _, u_r, dof_r, V_r, M_r = stats._mean_statistics(x, autocorrelation)
     single = [tags[j] for j in np.flatnonzero(n_valid == 1)]
     if single:
         u_r = np.where(n_valid == 1, 0.0, u_r)
@@ -202,7 +202,7 @@ def average(
         ix = [pos[m] for m in members]
         group_ix[gid] = ix
         grouped.update(members)
-        _correlate_members(C_r, x, ix, u_r, n_valid, autocorrelation)
+        _correlate_members(C_r, x, ix, u_r, n_valid, autocorrelation, (V_r, M_r))
         check_agreement(run, gid, g, members, pos, mean, C_r + C_s, notes)
     single_ix = [j for j, tg in enumerate(tags) if keep_members or tg not in grouped]
     out_tags = [tags[j] for j in single_ix] + list(group_ix)
@@ -316,7 +316,7 @@ def check_agreement(run, gid, group, members, pos, mean, C, notes) -> None:
         )
 
 
-def _correlate_members(C_r, x, ix, u_r, n_valid, autocorrelation) -> None:
+def _correlate_members(C_r, x, ix, u_r, n_valid, autocorrelation, known=None) -> None:
     """Put the covariance of the random parts of a group's members' means into ``C_r``.
 
     Redundant meters of one quantity see the same process wander; the covariance of
@@ -324,14 +324,21 @@ def _correlate_members(C_r, x, ix, u_r, n_valid, autocorrelation) -> None:
     the same estimator as each tag's own u), scaled to the members' ``u_r`` (so the
     diagonal stays as it is).  Without ``autocorrelation``: the lag-0 sample
     correlation over the times both are valid.  Members with fewer than 2 valid
-    samples stay uncorrelated.
+    samples stay uncorrelated.  ``known``: the ``(V, M)`` of every column of ``x`` from
+    :func:`perftest.run.stats.mean_statistics`, used for the members when ``x``
+    holds each column's samples side by side as the members' copy does (the
+    estimate works column by column, so it gives the members' the same digits).
     """
     ok = [j for j in ix if n_valid[j] >= 2 and u_r[j] > 0]
     if len(ok) < 2:
         return
     sub = x[:, ok]
     if autocorrelation:
-        cv = stats.mean_covariance(sub)
+        if known is not None and known[0] is not None and stats._column_major(x):
+            known = (known[0][ok], known[1][ok])
+        else:
+            known = None
+        cv = stats._mean_covariance(sub, known=known)
         d = np.sqrt(np.clip(np.diag(cv), 1e-300, None))
         R = cv / np.outer(d, d)
     else:

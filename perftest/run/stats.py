@@ -403,6 +403,13 @@ def mean_statistics(
     autocorrelation).  Used by :func:`perftest.run.averaging.average` so that the
     autocorrelation is computed once.
     """
+    out = _mean_statistics(arr, autocorrelation, max_lag)
+    return out[:6] if with_dof else out[:5]
+
+
+def _mean_statistics(arr: np.ndarray, autocorrelation: bool = True, max_lag=None):
+    """:func:`mean_statistics` with the degrees of freedom, and the variance of the
+    mean and summation window of each column (None without ``autocorrelation``)."""
     arr = np.asarray(arr, dtype=float)
     valid = np.isfinite(arr)
     m = valid.sum(axis=0)
@@ -418,17 +425,16 @@ def mean_statistics(
             warnings.simplefilter("ignore", RuntimeWarning)
             mean = np.nanmean(arr, axis=0)
             s = np.where(m >= 2, np.nanstd(arr, axis=0, ddof=1), np.nan)
+    V = M = None
     if autocorrelation:
-        V, neff, _, dof = _mean_variance_columns(arr, max_lag, with_dof=True)
+        V, neff, M, dof = _mean_variance_columns(arr, max_lag, with_dof=True)
         u = np.sqrt(V)
     else:
         neff = np.where(m > 0, m, np.nan)
         with np.errstate(invalid="ignore", divide="ignore"):
             u = s / np.sqrt(neff)
         dof = np.maximum(m - 1.0, 1.0)
-    if with_dof:
-        return m, mean, s, neff.astype(float), u, dof
-    return m, mean, s, neff.astype(float), u
+    return m, mean, s, neff.astype(float), u, dof, V, M
 
 
 def mean_dof(samples, *, max_lag: int | None = None):
@@ -516,9 +522,15 @@ def mean_covariance(arr: np.ndarray, max_lag=None) -> np.ndarray:
     (the load of one generator seen by two wattmeters) thus stays in the
     uncertainty of their mean instead of averaging away.
     """
+    return _mean_covariance(arr, max_lag)
+
+
+def _mean_covariance(arr, max_lag=None, known=None) -> np.ndarray:
+    """:func:`mean_covariance`; ``known``: the ``(V, M)`` of :func:`_mean_variance_columns`
+    for these columns when the caller has them."""
     arr = np.asarray(arr, dtype=float)
     n, k = arr.shape
-    V, _, M = _mean_variance_columns(arr, max_lag)
+    V, M = _mean_variance_columns(arr, max_lag)[::2] if known is None else known
     u = np.sqrt(V)
     R = np.eye(k)
     valid = np.isfinite(arr)
@@ -529,19 +541,26 @@ def mean_covariance(arr: np.ndarray, max_lag=None) -> np.ndarray:
             Mij = int(max(M[i], M[j]))
             if mm < 3 or not (u[i] > 0 and u[j] > 0) or Mij < 1:
                 continue
-            di = np.where(both, arr[:, i] - np.nanmean(arr[both, i]), 0.0)
-            dj = np.where(both, arr[:, j] - np.nanmean(arr[both, j]), 0.0)
-            w = both.astype(float)
+            if mm == n:  # both complete: no masking, and n - |lag| pairs at each lag
+                di = arr[:, i] - arr[:, i].sum() / n
+                dj = arr[:, j] - arr[:, j].sum() / n
+            else:
+                di = np.where(both, arr[:, i] - np.nanmean(arr[both, i]), 0.0)
+                dj = np.where(both, arr[:, j] - np.nanmean(arr[both, j]), 0.0)
+                w = both.astype(float)
             num = 0.0
             wsum = 0.0
             for lag in range(-Mij, Mij + 1):
                 if abs(lag) >= n:
                     continue
                 if lag >= 0:
-                    a, b, wa, wb = di[: n - lag], dj[lag:], w[: n - lag], w[lag:]
+                    a, b = di[: n - lag], dj[lag:]
                 else:
-                    a, b, wa, wb = di[-lag:], dj[: n + lag], w[-lag:], w[: n + lag]
-                p = float(np.dot(wa, wb))
+                    a, b = di[-lag:], dj[: n + lag]
+                if mm == n:
+                    p = float(n - abs(lag))
+                else:
+                    p = float(np.dot(w[abs(lag) :], w[: n - abs(lag)]))
                 if p <= 0:
                     continue
                 num += (p / mm) * (float(np.dot(a, b)) / p)
@@ -559,6 +578,14 @@ def mean_covariance(arr: np.ndarray, max_lag=None) -> np.ndarray:
             R = R / np.outer(d, d)
     uu = np.nan_to_num(u)
     return R * np.outer(uu, uu)
+
+
+def _column_major(x: np.ndarray) -> bool:
+    """The samples of each column lie next to each other (as in a DataFrame's block),
+    as in a copy of some of its columns (``x[:, cols]``): sums over the samples add in
+    the same order in both."""
+    n, k = x.shape
+    return x.strides[0] == x.itemsize and (k < 2 or x.strides[1] >= x.itemsize * n)
 
 
 def modified_thompson_tau(n, alpha: float = 0.05):

@@ -186,7 +186,7 @@ def _slope_statistics(x: np.ndarray, t: np.ndarray):
     valid = np.isfinite(x)
     n = valid.sum(axis=0).astype(float)
     k = x.shape[1]
-    complete = _column_major(x) and t.strides[0] == t.itemsize and bool(valid.all())
+    complete = stats._column_major(x) and t.strides[0] == t.itemsize and bool(valid.all())
     if complete and x.shape[0]:
         # every sample valid: the times are the same for every tag, and the nan-aware
         # sums below add the same numbers in the same order (one column at a time)
@@ -237,12 +237,6 @@ def _slope_statistics(x: np.ndarray, t: np.ndarray):
         u = np.sqrt(np.where(var_b > 0, var_b, np.nan))
         dof = np.maximum(n / (2.0 * M + 1.0) - 2.0, 1.0)
     return slope, u, dof, n, stt
-
-
-def _column_major(x: np.ndarray) -> bool:
-    """The samples of each column lie next to each other (as in a DataFrame's block)."""
-    n, k = x.shape
-    return x.strides[0] == x.itemsize and (k < 2 or x.strides[1] >= x.itemsize * n)
 
 
 def _change_text(run, tag: str, change: float) -> str:
