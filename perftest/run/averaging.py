@@ -36,6 +36,32 @@ def atmospheric_pressure(run):
     return field(site, "atmospheric_pressure")
 
 
+def _atmospheric_pressure(run, x: np.ndarray, pos: dict):
+    """:func:`atmospheric_pressure` with the barometer's samples taken from ``x`` (one
+    column per tag of ``pos``) when it is averaged too."""
+    site = field(run.plant, "site")
+    baro = field(site, "barometer_tag")
+    j = pos.get(baro) if baro else None
+    if j is None:
+        return atmospheric_pressure(run)
+    p = _series_mean(x[:, j])
+    if np.isfinite(p):
+        return float(p)
+    return field(site, "atmospheric_pressure")
+
+
+def _series_mean(values: np.ndarray):
+    """``pd.Series(values).mean()`` of float64 values, in its arithmetic: NaN set to 0,
+    summed, over the count of the others (NaN without any)."""
+    nan = np.isnan(values)
+    if nan.any():
+        values = values.copy()
+        np.putmask(values, nan, 0.0)
+    count = np.float64(nan.size - nan.sum())
+    total = values.sum()
+    return total / count if count > 0 else np.nan
+
+
 def average(
     run,
     *,
@@ -175,7 +201,7 @@ def average(
         notes.append(msg)
         warnings.warn(msg[0].upper() + msg[1:] + ".", DataQualityWarning, stacklevel=3)
     # systematic part
-    u_s, lots, unknown = _systematic(run, tags, mean)
+    u_s, lots, unknown = _systematic(run, tags, mean, x)
     if unknown:
         notes.append(
             f"no instrument uncertainty in the plant for {unknown}: systematic uncertainty "
@@ -400,11 +426,12 @@ def _excluded_counts(run, tags, mask: np.ndarray) -> np.ndarray:
     return n
 
 
-def _systematic(run, tags, mean: np.ndarray):
+def _systematic(run, tags, mean: np.ndarray, x: np.ndarray):
     """``(u_s, lots, unknown)``: systematic standard uncertainty per tag [SI], its
     calibration lot (None when none) and the tags the plant states none for.
 
-    ``TagSpec.systematic_standard_uncertainty`` of each tag at its mean.  An
+    ``TagSpec.systematic_standard_uncertainty`` of each tag at its mean (``x``: the
+    samples, one column per tag, for the barometer's mean).  An
     absolute or percent-of-span uncertainty does not depend on the mean: it is
     remembered per tag description and unit (:func:`_fixed_systematic`).
     """
@@ -433,7 +460,7 @@ def _systematic(run, tags, mean: np.ndarray):
                 continue
             unit = run.units.get(tg)
         if atm is _UNSET:
-            atm = atmospheric_pressure(run)
+            atm = _atmospheric_pressure(run, x, {tg: j for j, tg in enumerate(tags)})
         u_s[j] = float(func(float(mean[j]), atmospheric_pressure=atm, unit=unit))
     return u_s, lots, unknown
 

@@ -52,21 +52,23 @@ def fmt_time(t) -> str:
     return "None" if t is None else pd.Timestamp(t).isoformat()
 
 
-# the last column Index seen by column_list and its labels
-_LAST_COLUMNS: tuple | None = None
+# the last few column Indexes seen by column_list (a run's data and mask have one
+# each) and their labels
+_LAST_COLUMNS: tuple = ()
 
 
 def column_list(columns: pd.Index) -> list:
-    """``list(columns)`` for a frame's column Index, remembered for the last one seen.
+    """``list(columns)`` for a frame's column Index, remembered for the last few seen.
 
     Listing an Index of strings costs about as much as averaging a few tags, and the
     windows of one run carry views of one column Index (``Index.is_``: the same
     labels, an Index being immutable).  A new list is returned each time.
     """
     global _LAST_COLUMNS
-    last = _LAST_COLUMNS
-    if last is not None and last[0].is_(columns):
-        return list(last[1])
+    seen = _LAST_COLUMNS
+    for index, labels in seen:
+        if index.is_(columns):
+            return list(labels)
     labels = list(columns)
-    _LAST_COLUMNS = (columns, tuple(labels))
+    _LAST_COLUMNS = ((columns, tuple(labels)), *seen[:3])
     return labels
