@@ -259,31 +259,29 @@ def _mean_variance_columns(
     gamma = rho * var
     m = m.astype(float)
     g0 = gamma[0]
+    # one errstate for the whole estimate: the steps between its parts (comparisons,
+    # selections) raise no invalid or divide warning of their own
     with np.errstate(invalid="ignore", divide="ignore"):
         w = pairs[1:] / np.maximum(m, 1.0)  # (K, cols): P_k / m
-        wg = w * gamma[1:]
-        if not np.isfinite(wg).all():
-            wg = np.nan_to_num(wg)
-        S = g0 + 2.0 * np.cumsum(wg, axis=0)
-        W = 1.0 + 2.0 * np.cumsum(w, axis=0)
+        S = g0 + 2.0 * _nan_to_num(w * gamma[1:]).cumsum(axis=0)
+        W = 1.0 + 2.0 * w.cumsum(axis=0)
         denom = m - W
         Vm = np.where(denom > 0, S / denom, np.nan)
         tau = m * Vm / (2.0 * (g0 + Vm))  # bias-corrected integrated autocorrelation time
-    # the window length in lags that hold pairs: M itself without gaps; a record
-    # logged every j-th row of a finer time base counts every j-th lag only
-    if complete:
-        lags = np.arange(1, K + 1)[:, None]
-    else:
-        lags = np.cumsum(pairs[1:] > 0, axis=0)
-    usable = denom > 0
-    ok = (lags >= c * tau) & usable
-    # first window that satisfies Sokal's rule, else the widest usable one
-    last = np.where(usable.any(axis=0), K - 1 - np.argmax(usable[::-1], axis=0), 0)
-    first = np.where(ok.any(axis=0), np.argmax(ok, axis=0), last)
-    cols = np.arange(k)
-    V = Vm[first, cols]
-    M_sel = first + 1
-    with np.errstate(invalid="ignore", divide="ignore"):
+        # the window length in lags that hold pairs: M itself without gaps; a record
+        # logged every j-th row of a finer time base counts every j-th lag only
+        if complete:
+            lags = np.arange(1, K + 1)[:, None]
+        else:
+            lags = np.cumsum(pairs[1:] > 0, axis=0)
+        usable = denom > 0
+        ok = (lags >= c * tau) & usable
+        # first window that satisfies Sokal's rule, else the widest usable one
+        last = np.where(usable.any(axis=0), K - 1 - np.argmax(usable[::-1], axis=0), 0)
+        first = np.where(ok.any(axis=0), np.argmax(ok, axis=0), last)
+        cols = np.arange(k)
+        V = Vm[first, cols]
+        M_sel = first + 1
         # at least s^2/(2m): an alternating record earns at most twice its sample count.
         # A floor at s^2/m would push every white-noise estimate that falls below the
         # truth up to it: u 6 % high on independent samples (simulation, 4000 records)
@@ -292,18 +290,17 @@ def _mean_variance_columns(
         V = np.where(np.isfinite(V), np.maximum(V, floor), floor)
         # (minimum of maximum: np.clip's values, NaN kept, without its wrapper)
         neff = np.minimum(np.maximum((g0 + V) / V, 1.0), np.maximum(m, 1.0))
-    flat = ~(g0 > 0)
-    V = np.where(flat, 0.0, V)
-    neff = np.where(flat, m, neff)
-    V = np.where(m >= 2, V, np.nan)
-    neff = np.where(m > 0, neff, np.nan)
-    if with_dof:
-        # m / (1 + 2 sum_{k<=M} P_k/m): m/(2M+1) less the lags the record is too short
-        # for, and gap-aware (a lag without pairs adds no noise)
-        with np.errstate(invalid="ignore", divide="ignore"):
+        flat = ~(g0 > 0)
+        V = np.where(flat, 0.0, V)
+        neff = np.where(flat, m, neff)
+        V = np.where(m >= 2, V, np.nan)
+        neff = np.where(m > 0, neff, np.nan)
+        if with_dof:
+            # m / (1 + 2 sum_{k<=M} P_k/m): m/(2M+1) less the lags the record is too
+            # short for, and gap-aware (a lag without pairs adds no noise)
             dof = np.minimum(np.maximum(m / W[first, cols], 1.0), m1)
-        dof = np.where(np.isfinite(dof), dof, m1)
-        return V, neff, M_sel, dof
+            dof = np.where(np.isfinite(dof), dof, m1)
+            return V, neff, M_sel, dof
     if with_gamma:
         return V, neff, M_sel, gamma
     return V, neff, M_sel
@@ -576,8 +573,13 @@ def _mean_covariance(arr, max_lag=None, known=None) -> np.ndarray:
             R = (vec * np.clip(ev, 0.0, None)) @ vec.T
             d = np.sqrt(np.clip(np.diag(R), 1e-300, None))
             R = R / np.outer(d, d)
-    uu = np.nan_to_num(u)
+    uu = _nan_to_num(u)
     return R * np.outer(uu, uu)
+
+
+def _nan_to_num(a: np.ndarray) -> np.ndarray:
+    """``np.nan_to_num(a)``, which copies; ``a`` itself when every value is finite."""
+    return a if np.isfinite(a).all() else np.nan_to_num(a)
 
 
 def _column_major(x: np.ndarray) -> bool:

@@ -228,7 +228,7 @@ def _slope_statistics(x: np.ndarray, t: np.ndarray):
     c = _fft.irfft(fw * np.conj(fw), nfft, axis=0)[: K + 1]
     lags = np.arange(K + 1)[:, None]
     inside = lags <= M[None, :]
-    g = np.nan_to_num(gamma) + np.nan_to_num(V)[None, :]
+    g = stats._nan_to_num(gamma) + stats._nan_to_num(V)[None, :]
     terms = np.where(inside, c * g, 0.0)
     num = terms[0] + 2.0 * terms[1:].sum(axis=0)
     with np.errstate(invalid="ignore", divide="ignore"):
