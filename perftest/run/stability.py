@@ -51,14 +51,19 @@ def permissible(run, tags: list[str], means: np.ndarray, limits):
     means = np.asarray(means, dtype=float)
     out = np.full(means.shape, np.nan)
     basis = []
-    shared: dict = {}  # id -> (StabilityLimit, its tags' positions): one call each
+    # StabilityLimit.limit_si, all tags at once: |mean| * value_si for a percent
+    # limit, value_si (+ 0 * mean) for the others (positions, value_si)
+    percent: tuple = ([], [])
+    fixed: tuple = ([], [])
     for j, (spec, where) in enumerate(_specs(run, tags, limits)):
         basis.append(where)
         if spec is None:
             continue
         col = (..., j)
-        if type(spec) is StabilityLimit:  # noqa: E721 (its limit_si works value by value)
-            shared.setdefault(id(spec), (spec, []))[1].append(j)
+        if type(spec) is StabilityLimit:  # noqa: E721 (a subclass may compute otherwise)
+            part = percent if spec.kind == "percent" else fixed
+            part[0].append(j)
+            part[1].append(spec.value_si)
             continue
         if hasattr(spec, "limit_si"):  # a plant-file StabilityLimit, already in SI
             out[col] = spec.limit_si(means[col])
@@ -97,8 +102,11 @@ def permissible(run, tags: list[str], means: np.ndarray, limits):
                 parameter="limits",
                 tag=tag,
             )
-    for spec, cols in shared.values():
-        out[..., cols] = spec.limit_si(means[..., cols])
+    if percent[0]:
+        out[..., percent[0]] = np.abs(means[..., percent[0]]) * np.asarray(percent[1], dtype=float)
+    if fixed[0]:
+        cols = fixed[0]
+        out[..., cols] = np.asarray(fixed[1], dtype=float) + 0.0 * means[..., cols]
     return out, basis
 
 
