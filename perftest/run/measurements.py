@@ -226,7 +226,10 @@ class Measurements:
             )
         u2 = self.u_random**2 + self.u_systematic**2
         diag = np.diag(cov)
-        off = (diag != u2) & ~np.isclose(diag, u2, rtol=1e-9, atol=1e-300)
+        # (a diagonal equal to the parts, as averaging makes it, passes without the tolerance)
+        off = diag != u2
+        if off.any():
+            off &= ~np.isclose(diag, u2, rtol=1e-9, atol=1e-300)
         if np.any(off):
             i = int(np.flatnonzero(off)[0])
             raise InputError(

@@ -115,6 +115,8 @@ def _specs(run, tags, limits) -> list:
     quantities = run.quantities
     tagspecs = field(run.plant, "tags", {}) or {}
     plant_limits = field(run.plant, "stability", {}) or {}
+    # (a dict's get directly: field() asks first whether it is a mapping)
+    lookup = tagspecs.get if type(tagspecs) is dict else (lambda tag: field(tagspecs, tag))
     out = []
     for tag in tags:
         quantity = quantities.get(tag)
@@ -125,8 +127,7 @@ def _specs(run, tags, limits) -> list:
             if quantity is not None and quantity in limits:
                 out.append((limits[quantity], "argument (quantity)"))
                 continue
-        spec = field(tagspecs, tag)
-        # (a TagSpec read directly: field() asks first whether it is a mapping)
+        spec = lookup(tag)
         override = spec.stability if type(spec) is TagSpec else field(spec, "stability")  # noqa: E721
         if override is not None:
             out.append((override, "plant tag"))

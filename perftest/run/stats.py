@@ -907,6 +907,8 @@ def _t_sf(x, df) -> np.ndarray:
     with np.errstate(invalid="ignore"):
         ok = df > 0
         inside = ok & (-np.inf < x) & (x < np.inf)
+    if inside.all():
+        return _sc.stdtr(df, -x)
     out = np.zeros(x.shape)
     out[~ok | np.isnan(x)] = np.nan
     out[ok & (x == -np.inf)] = 1.0
