@@ -67,7 +67,8 @@ SPEEDUP_TARGET = 3.0
 
 
 def _bench_year():
-    spec = importlib.util.spec_from_file_location("bench_year", ROOT / "benchmarks" / "bench_year.py")
+    path = ROOT / "benchmarks" / "bench_year.py"
+    spec = importlib.util.spec_from_file_location("bench_year", path)
     mod = importlib.util.module_from_spec(spec)
     argv, sys.argv = sys.argv, [sys.argv[0], "--child"]  # keep its sys.path as it is
     try:
@@ -153,7 +154,8 @@ def _numpy_floor(run, bounds, repeat: int) -> float:
 
 def _child(tree: str, files, repeat: int) -> dict:
     env = dict(os.environ, PYTHONPATH=tree)
-    cmd = [sys.executable, __file__, "--child", "--repeat", str(repeat), "--files", *map(str, files)]
+    cmd = [sys.executable, __file__, "--child", "--repeat", str(repeat)]
+    cmd += ["--files", *map(str, files)]
     out = subprocess.run(cmd, env=env, capture_output=True, text=True, check=True)
     return json.loads(out.stdout.strip().splitlines()[-1])
 
@@ -180,12 +182,16 @@ def main(argv=None) -> int:
         return 0
     with tempfile.TemporaryDirectory() as tmp:
         files = _bench_year().generate(Path(tmp), args.days)
-        print(f"{args.days} day(s) of 1-minute logs, 15-minute windows; load {os.getloadavg()[0]:.2f}")
+        load = os.getloadavg()[0]
+        print(f"{args.days} day(s) of 1-minute logs, 15-minute windows; load {load:.2f}")
         if args.compare_with is None:
             r = _child(str(ROOT), files, args.repeat)
             print(f"this tree:   {_line(r)}")
             ratio = REFERENCE_MS / r["total"]
-            print(f"speed-up against the stated {REFERENCE_MS} ms/window before issue 20: {ratio:.2f}x")
+            print(
+                f"speed-up against the stated {REFERENCE_MS} ms/window before issue 20: "
+                f"{ratio:.2f}x"
+            )
         else:
             ratios, same = [], True
             for k in range(args.rounds):

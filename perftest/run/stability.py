@@ -55,7 +55,7 @@ def permissible(run, tags: list[str], means: np.ndarray, limits):
     # limit, value_si (+ 0 * mean) for the others (positions, value_si)
     percent: tuple = ([], [])
     fixed: tuple = ([], [])
-    for j, (spec, where) in enumerate(_specs(run, tags, limits)):
+    for j, (tag, (spec, where)) in enumerate(zip(tags, _specs(run, tags, limits), strict=True)):
         basis.append(where)
         if spec is None:
             continue

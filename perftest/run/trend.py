@@ -166,8 +166,7 @@ def _warn(run, tags, r: _Trend, level: float, stacklevel: int) -> None:
     if not hit.size:
         return
     shown = ", ".join(
-        f"{tags[j]} ({_change_text(run, tags[j], r.trend[j])} over the window, "
-        f"p {_p_text(r.p[j])})"
+        f"{tags[j]} ({_change_text(run, tags[j], r.trend[j])} over the window, p {_p_text(r.p[j])})"
         for j in hit
     )
     m = r.tested

@@ -23,6 +23,7 @@ import pytest
 from scipy import stats as sps
 from scipy.signal import lfilter
 
+from perftest.errors import InputError
 from perftest.plant.file import load_plant
 from perftest.run import averaging, stats, trend
 from perftest.run import windows as run_windows
@@ -121,7 +122,8 @@ def test_t_sf_equals_scipy_everywhere():
 @pytest.mark.parametrize("level", [0.95, 0.99, 0.6827])
 def test_coverage_factor_remembered_per_dof_and_level(dof, level):
     # the quantile of scipy.stats.t (norm for infinite dof), asked twice
-    expected = sps.norm.ppf(0.5 + level / 2.0) if np.isinf(dof) else sps.t.ppf(0.5 + level / 2.0, dof)
+    q = 0.5 + level / 2.0
+    expected = sps.norm.ppf(q) if np.isinf(dof) else sps.t.ppf(q, dof)
     assert stats.coverage_factor(dof, level) == expected
     assert stats.coverage_factor(dof, level) == expected
     assert stats.coverage_factor(np.array([dof]), level)[0] == expected
@@ -133,9 +135,9 @@ def test_coverage_factor_cache_does_not_mix_levels_and_checks_every_call():
     assert k95 == sps.t.ppf(0.975, 10) and k99 == sps.t.ppf(0.995, 10)
     # a float32 level computes its own quantile (0.5 + level / 2 in float32)
     assert stats.coverage_factor(10, np.float32(0.9)) == sps.t.ppf(0.5 + np.float32(0.9) / 2, 10)
-    with pytest.raises(Exception, match="must be positive"):
+    with pytest.raises(InputError, match="must be positive"):
         stats.coverage_factor(0.0, 0.95)
-    with pytest.raises(Exception, match="must lie in"):
+    with pytest.raises(InputError, match="must lie in"):
         stats.coverage_factor(10, 1.5)
 
 
@@ -220,6 +222,22 @@ def test_shared_stability_limits_equal_one_call_per_tag(plant):
         np.testing.assert_array_equal(got[j], want)
 
 
+def test_bad_stability_limits_name_their_tag(plant):
+    # the general path for limits given as numbers or tables still names the tag
+    run = _run(plant)
+    tags = list(run.data.columns)
+    means = np.ones(len(tags))
+    with pytest.raises(InputError, match="tag 'FT-A'.*has no 'value'"):
+        permissible(run, tags, means, {"FT-A": {"kind": "percent"}})
+    with pytest.raises(InputError, match="tag 'PT-2'.*positive"):
+        permissible(run, tags, means, {"PT-2": -1.0})
+    with pytest.raises(InputError, match="tag 'TT-1'.*kind"):
+        permissible(run, tags, means, {"TT-1": {"value": 1.0, "kind": "sideways"}})
+    limit = {"value": 0.5, "kind": "absolute", "unit": "K"}
+    got, _ = permissible(run, tags, means, {"TT-1": limit})
+    assert got[tags.index("TT-1")] == 0.5
+
+
 def test_trend_verdicts_equal_a_boolean_array_built_from_the_p_values():
     df = _frame(n=60)
     df["TT-1"] += np.linspace(0.0, 2.0, len(df))  # a clear trend
@@ -230,7 +248,8 @@ def test_trend_verdicts_equal_a_boolean_array_built_from_the_p_values():
     p = table["p_value"].to_numpy()
     usable = np.isfinite(p)
     m = max(int(usable.sum()), 1)
-    want = pd.array([pd.NA if not ok else bool(v < 0.05 / m) for ok, v in zip(usable, p)], "boolean")
+    flags = [pd.NA if not ok else bool(v < 0.05 / m) for ok, v in zip(usable, p, strict=True)]
+    want = pd.array(flags, dtype="boolean")
     pd.testing.assert_extension_array_equal(table["trending"].array, want)
     assert bool(table.loc["TT-1", "trending"])
 
@@ -241,7 +260,8 @@ def test_trend_verdicts_equal_a_boolean_array_built_from_the_p_values():
 @pytest.mark.parametrize("unit", ["s", "ms", "us", "ns"])
 def test_seconds_and_spans_equal_pandas_timedelta_arithmetic(unit):
     rng = np.random.default_rng(0)
-    steps = rng.integers(1, 10**6, 50) * (10**9 // {"s": 1, "ms": 10**3, "us": 10**6, "ns": 10**9}[unit])
+    per_second = {"s": 1, "ms": 10**3, "us": 10**6, "ns": 10**9}[unit]
+    steps = rng.integers(1, 10**6, 50) * (10**9 // per_second)
     idx = pd.DatetimeIndex(
         pd.Timestamp("2031-05-04", tz="UTC") + pd.to_timedelta(np.r_[0, np.cumsum(steps)], "ns")
     ).as_unit(unit)
