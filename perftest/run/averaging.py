@@ -13,7 +13,7 @@ import numpy as np
 import pandas as pd
 
 from perftest.defaults import TREND_ALPHA
-from perftest.errors import DataError, DataQualityWarning
+from perftest.errors import DataError, DataQualityWarning, InputError
 from perftest.plant.records import TagSpec
 from perftest.run import stats
 from perftest.run.common import PERCENT_KINDS, column_list, field, fmt_time
@@ -101,6 +101,8 @@ def average(
 
     Raises
     ------
+    InputError
+        If ``tags`` names a tag the run does not hold, or a tag twice.
     DataError
         If a tag has no valid sample in the window, or covers less than
         ``min_coverage`` of it (names tag, window and coverage).
@@ -139,6 +141,14 @@ def average(
     more than 1.96 standard uncertainties of the difference (95 %, normal).
     """
     tags = run._check_tags(tags, "average")
+    if len(set(tags)) != len(tags):
+        dup = next(tg for j, tg in enumerate(tags) if tg in tags[:j])
+        raise InputError(
+            f"The 'tags' parameter of Run.average names tag '{dup}' more than once. "
+            "Give each tag once.",
+            parameter="tags",
+            tag=dup,
+        )
     data = run.data
     every = column_list(data.columns) == tags
     if every:

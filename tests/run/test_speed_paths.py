@@ -372,6 +372,13 @@ def test_mutated_run_data_gives_fresh_averages(plant):
     assert u2 > u1
 
 
+def test_average_refuses_a_tag_named_twice(plant):
+    run = _run(plant)
+    with pytest.raises(InputError, match="names tag 'FT-B' more than once") as info:
+        run.average(tags=["FT-A", "FT-B", "PT-1", "FT-B"])
+    assert info.value.tag == "FT-B"
+
+
 # -- the remembered column labels ------------------------------------------------
 
 
