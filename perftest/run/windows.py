@@ -107,18 +107,22 @@ def _coverage(run, valid: np.ndarray, interval=None) -> np.ndarray:
     ticks, unit = idx.asi8, idx.unit
     counts = valid.sum(axis=0)
     n, k = valid.shape
+    by_dt: dict = {}  # interval -> the tags (positions) sampled at it
     if interval is not None:
-        dts = [interval] * k
+        by_dt[interval] = list(range(k))
     else:
         run_dt = _median_step(ticks, unit)
+        gappy = np.flatnonzero((counts < n) & (counts >= 2))  # gaps: the tag's own step
         dts = [run_dt] * k
-        for j in np.flatnonzero((counts < n) & (counts >= 2)):  # gaps: the tag's own step
+        for j in gappy:
             own = _median_step(ticks[valid[:, j]], unit)
             dts[j] = own if np.isfinite(own) else run_dt
+        if not gappy.size:
+            by_dt[run_dt] = list(range(k))
+        else:
+            for j, dt in enumerate(dts):
+                by_dt.setdefault(dt, []).append(j)
     out = np.empty(k)
-    by_dt: dict = {}
-    for j, dt in enumerate(dts):
-        by_dt.setdefault(dt, []).append(j)
     for dt, cols in by_dt.items():
         if not (dt and np.isfinite(dt) and dt > 0):
             out[cols] = np.where(counts[cols] > 0, 1.0, 0.0)  # one sample: nothing to compare with
