@@ -135,18 +135,19 @@ def _acf_columns(arr: np.ndarray, max_lag: int, full: bool = False, *, general=F
     so every digit, is the same.  ``general`` takes the masking steps all the same
     (the tests compare the two).
     """
-    n = arr.shape[0]
+    n, k = arr.shape
     valid = np.isfinite(arr)
-    m = valid.sum(axis=0)
     complete = False
     if not general:
         # (non-negative strides: a sum over the samples adds in the order it would
         # on the masked copy the general steps make)
         complete = n > 0 and min(arr.strides, default=0) >= 0 and bool(valid.all())
     if complete:
+        m = np.full(k, n)
         mean = arr.sum(axis=0) / m
         d = arr - mean
     else:
+        m = valid.sum(axis=0)
         with np.errstate(invalid="ignore", divide="ignore"):
             mean = np.where(m > 0, np.nansum(np.where(valid, arr, 0.0), axis=0) / m, 0.0)
         d = np.where(valid, arr - mean, 0.0)
@@ -156,8 +157,10 @@ def _acf_columns(arr: np.ndarray, max_lag: int, full: bool = False, *, general=F
     nfft = _fft.next_fast_len(n + max_lag + 1, real=True)
     fd = _fft.rfft(d, nfft, axis=0)
     sums = _fft.irfft(fd * np.conj(fd), nfft, axis=0)[: max_lag + 1]
-    if complete or np.all(valid):
-        pairs = (n - np.arange(max_lag + 1, dtype=float))[:, None] * np.ones((1, arr.shape[1]))
+    if complete:  # the same pairs for every column
+        pairs = (n - np.arange(max_lag + 1, dtype=float))[:, None]
+    elif np.all(valid):
+        pairs = (n - np.arange(max_lag + 1, dtype=float))[:, None] * np.ones((1, k))
     else:
         w = valid.astype(float)
         fw = _fft.rfft(w, nfft, axis=0)
@@ -262,7 +265,8 @@ def _mean_variance_columns(
     # one errstate for the whole estimate: the steps between its parts (comparisons,
     # selections) raise no invalid or divide warning of their own
     with np.errstate(invalid="ignore", divide="ignore"):
-        w = pairs[1:] / np.maximum(m, 1.0)  # (K, cols): P_k / m
+        # (K, cols): P_k / m; a complete record has one column of it for all
+        w = pairs[1:] / (float(n) if complete else np.maximum(m, 1.0))
         S = g0 + 2.0 * _nan_to_num(w * gamma[1:]).cumsum(axis=0)
         W = 1.0 + 2.0 * w.cumsum(axis=0)
         denom = m - W
@@ -298,7 +302,7 @@ def _mean_variance_columns(
         if with_dof:
             # m / (1 + 2 sum_{k<=M} P_k/m): m/(2M+1) less the lags the record is too
             # short for, and gap-aware (a lag without pairs adds no noise)
-            dof = np.minimum(np.maximum(m / W[first, cols], 1.0), m1)
+            dof = np.minimum(np.maximum(m / W[first, 0 if complete else cols], 1.0), m1)
             dof = np.where(np.isfinite(dof), dof, m1)
             return V, neff, M_sel, dof
     if with_gamma:
