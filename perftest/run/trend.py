@@ -216,15 +216,15 @@ def _slope_statistics(x: np.ndarray, t: np.ndarray):
     from scipy import fft as _fft  # imported on first use, as in perftest.run.stats
 
     # c_k = sum_i w_i w_{i+k}; the same for every column without a masked sample
-    same = bool(valid.all()) and k > 1
     if complete:
-        w = dt / np.where(stt[:1] > 0, stt[:1], np.inf)
+        c = _weight_products(t, dt, stt[:1], K)
     else:
+        same = bool(valid.all()) and k > 1
         w = np.where(valid, np.nan_to_num(dt) / np.where(stt > 0, stt, np.inf), 0.0)
         w = w[:, :1] if same else w
-    nfft = _fft.next_fast_len(x.shape[0] + K + 1, real=True)
-    fw = _fft.rfft(w, nfft, axis=0)
-    c = _fft.irfft(fw * np.conj(fw), nfft, axis=0)[: K + 1]
+        nfft = _fft.next_fast_len(x.shape[0] + K + 1, real=True)
+        fw = _fft.rfft(w, nfft, axis=0)
+        c = _fft.irfft(fw * np.conj(fw), nfft, axis=0)[: K + 1]
     lags = np.arange(K + 1)[:, None]
     inside = lags <= M[None, :]
     g = stats._nan_to_num(gamma) + stats._nan_to_num(V)[None, :]
@@ -236,6 +236,31 @@ def _slope_statistics(x: np.ndarray, t: np.ndarray):
         u = np.sqrt(np.where(var_b > 0, var_b, np.nan))
         dof = np.maximum(n / (2.0 * M + 1.0) - 2.0, 1.0)
     return slope, u, dof, n, stt
+
+
+# (times as bytes, K) -> c_k of the slope weights: windows of one sampling pattern
+# share their times since the first sample, and with them the weights
+_PRODUCTS: dict = {}
+_PRODUCTS_MAX = 256
+
+
+def _weight_products(t: np.ndarray, dt: np.ndarray, stt: np.ndarray, K: int) -> np.ndarray:
+    """``c_k = sum_i w_i w_{i+k}`` (k = 0 .. K) of the weights ``w = dt / S_tt`` of a
+    complete record, remembered per times ``t`` (from which ``dt`` and ``S_tt`` come)."""
+    key = (t.tobytes(), K)
+    c = _PRODUCTS.get(key)
+    if c is None:
+        from scipy import fft as _fft  # imported on first use, as in perftest.run.stats
+
+        w = dt / np.where(stt > 0, stt, np.inf)
+        nfft = _fft.next_fast_len(len(t) + K + 1, real=True)
+        fw = _fft.rfft(w, nfft, axis=0)
+        c = _fft.irfft(fw * np.conj(fw), nfft, axis=0)[: K + 1].copy()
+        c.setflags(write=False)
+        if len(_PRODUCTS) >= _PRODUCTS_MAX:
+            _PRODUCTS.clear()
+        _PRODUCTS[key] = c
+    return c
 
 
 def _change_text(run, tag: str, change: float) -> str:

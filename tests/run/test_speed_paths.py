@@ -181,6 +181,24 @@ def test_slope_shortcut_equals_general_steps():
         np.testing.assert_array_equal(a, b)
 
 
+def test_slope_weights_remembered_per_sampling_pattern():
+    # windows of one sampling pattern share the slope weights; another pattern of the
+    # same length must get its own (the general steps recompute them every time)
+    x = np.asfortranarray(_records(15, 4, seed=9))
+    regular = np.arange(15) * 60.0
+    late = regular.copy()
+    late[7:] += 30.0
+    trend._PRODUCTS.clear()
+    first = trend._slope_statistics(x, regular)
+    for t in (late, regular):
+        fast = trend._slope_statistics(x, t)
+        general = trend._slope_statistics(x, np.repeat(t, 2)[::2])
+        for a, b in zip(fast, general, strict=True):
+            np.testing.assert_array_equal(a, b)
+    assert not np.array_equal(trend._slope_statistics(x, late)[1], first[1])
+    assert len(trend._PRODUCTS) == 2
+
+
 def test_group_covariance_reuses_the_members_own_estimate_exactly():
     # the members' variance and window taken from the estimate of all columns give
     # the covariance that estimating the members alone gives
