@@ -12,12 +12,15 @@ import warnings
 import numpy as np
 import pandas as pd
 
-from perftest.errors import DataError, DataQualityWarning
+from perftest.defaults import TREND_ALPHA
+from perftest.errors import DataError, DataQualityWarning, InputError
+from perftest.plant.records import TagSpec
 from perftest.run import stats
-from perftest.run.common import PERCENT_KINDS, field, fmt_time
+from perftest.run.common import PERCENT_KINDS, column_list, field, fmt_time
 from perftest.run.measurements import Measurements
-from perftest.run.trend import _p_text, trend_test
-from perftest.run.windows import check_min_coverage, coverage
+from perftest.run.trend import _p_text, _trend
+from perftest.run.trend import _warn as _warn_trend
+from perftest.run.windows import _coverage, check_min_coverage
 
 __all__ = ["average", "check_agreement", "atmospheric_pressure"]
 
@@ -31,6 +34,32 @@ def atmospheric_pressure(run):
         if np.isfinite(p):
             return float(p)
     return field(site, "atmospheric_pressure")
+
+
+def _atmospheric_pressure(run, x: np.ndarray, pos: dict):
+    """:func:`atmospheric_pressure` with the barometer's samples taken from ``x`` (one
+    column per tag of ``pos``) when it is averaged too."""
+    site = field(run.plant, "site")
+    baro = field(site, "barometer_tag")
+    j = pos.get(baro) if baro else None
+    if j is None:
+        return atmospheric_pressure(run)
+    p = _series_mean(x[:, j])
+    if np.isfinite(p):
+        return float(p)
+    return field(site, "atmospheric_pressure")
+
+
+def _series_mean(values: np.ndarray):
+    """``pd.Series(values).mean()`` of float64 values, in its arithmetic: NaN set to 0,
+    summed, over the count of the others (NaN without any)."""
+    nan = np.isnan(values)
+    if nan.any():
+        values = values.copy()
+        np.putmask(values, nan, 0.0)
+    count = np.float64(nan.size - nan.sum())
+    total = values.sum()
+    return total / count if count > 0 else np.nan
 
 
 def average(
@@ -72,6 +101,8 @@ def average(
 
     Raises
     ------
+    InputError
+        If ``tags`` names a tag the run does not hold, or a tag twice.
     DataError
         If a tag has no valid sample in the window, or covers less than
         ``min_coverage`` of it (names tag, window and coverage).
@@ -110,11 +141,28 @@ def average(
     more than 1.96 standard uncertainties of the difference (95 %, normal).
     """
     tags = run._check_tags(tags, "average")
-    x = run.data[tags].to_numpy(dtype=float)
-    n_valid = np.isfinite(x).sum(axis=0)
-    t0 = run.start if run.start is not None else (run.data.index[0] if len(x) else None)
-    t1 = run.end if run.end is not None else (run.data.index[-1] if len(x) else None)
-    empty = [tg for tg, k in zip(tags, n_valid, strict=True) if k == 0]
+    if len(set(tags)) != len(tags):
+        dup = next(tg for j, tg in enumerate(tags) if tg in tags[:j])
+        raise InputError(
+            f"The 'tags' parameter of Run.average names tag '{dup}' more than once. "
+            "Give each tag once.",
+            parameter="tags",
+            tag=dup,
+        )
+    data = run.data
+    every = column_list(data.columns) == tags
+    if every:
+        # no column selection: a view when it can be, its samples in the order a
+        # selection of every column holds them (so that every sum below adds in
+        # the same order)
+        x = data.to_numpy(dtype=float)
+    else:
+        x = data[tags].to_numpy(dtype=float)
+    valid = np.isfinite(x)
+    n_valid = valid.sum(axis=0)
+    t0 = run.start if run.start is not None else (data.index[0] if len(x) else None)
+    t1 = run.end if run.end is not None else (data.index[-1] if len(x) else None)
+    empty = [tags[j] for j in np.flatnonzero(n_valid == 0)]
     if empty:
         raise DataError(
             f"Tag '{empty[0]}' has no valid sample in the window {fmt_time(t0)} to "
@@ -125,7 +173,9 @@ def average(
             tag=empty[0],
         )
     limit = check_min_coverage(min_coverage, "average")
-    cover = coverage(run, tags).to_numpy()
+    every_mask = column_list(run.mask.columns) == tags
+    masked = run.mask.to_numpy() if every_mask else run.mask[tags].to_numpy()
+    cover = _coverage(run, ~masked)
     low = [j for j, c in enumerate(cover) if c < limit]
     if low:
         shown = ", ".join(f"{tags[j]} ({cover[j]:.0%})" for j in low)
@@ -139,16 +189,18 @@ def average(
     notes: list[str] = []
     trend_p = np.full(len(tags), np.nan)
     if trend:
-        tt = trend_test(run, tags, stacklevel=4)
-        trend_p = tt["p_value"].to_numpy(dtype=float)
-        hit = tt.index[tt["trending"].fillna(False).to_numpy(dtype=bool)].tolist()
-        if hit:
+        # trend_test(run, tags)'s verdicts and warning, without its table
+        tt = _trend(run, x, TREND_ALPHA)
+        _warn_trend(run, tags, tt, TREND_ALPHA, stacklevel=4)
+        trend_p = tt.p
+        hit = np.flatnonzero(tt.hit)
+        if hit.size:
             notes.append(
                 "trend inside the window beyond the scatter for "
-                + ", ".join(f"{tg} (p {_p_text(tt.loc[tg, 'p_value'])})" for tg in hit)
+                + ", ".join(f"{tags[j]} (p {_p_text(tt.p[j])})" for j in hit)
             )
-    _, mean, _, _, u_r, dof_r = stats.mean_statistics(x, autocorrelation, with_dof=True)
-    single = [tg for tg, k in zip(tags, n_valid, strict=True) if k == 1]
+    _, mean, _, _, u_r, dof_r, V_r, M_r = stats._mean_statistics(x, autocorrelation)
+    single = [tags[j] for j in np.flatnonzero(n_valid == 1)]
     if single:
         u_r = np.where(n_valid == 1, 0.0, u_r)
         dof_r = np.where(n_valid == 1, np.inf, dof_r)
@@ -159,37 +211,22 @@ def average(
         notes.append(msg)
         warnings.warn(msg[0].upper() + msg[1:] + ".", DataQualityWarning, stacklevel=3)
     # systematic part
-    tagspecs = field(run.plant, "tags", {}) or {}
-    atm = atmospheric_pressure(run)
-    u_s = np.zeros(len(tags))
-    lots: list[str | None] = []
-    unknown = []
-    for j, tg in enumerate(tags):
-        spec = tagspecs.get(tg)
-        lots.append(field(spec, "shared_calibration"))
-        func = field(spec, "systematic_standard_uncertainty")
-        if spec is None or func is None or field(spec, "uncertainty", 0) is None:
-            unknown.append(tg)
-            continue
-        u_s[j] = float(func(float(mean[j]), atmospheric_pressure=atm, unit=run.units.get(tg)))
+    u_s, lots, unknown = _systematic(run, tags, mean, x)
     if unknown:
         notes.append(
             f"no instrument uncertainty in the plant for {unknown}: systematic uncertainty "
             "taken as 0"
         )
     C_s = np.diag(u_s**2)
-    lot_arr = np.array([lot or "" for lot in lots], dtype=object)
     for lot in sorted({lot for lot in lots if lot}):
-        ix = np.flatnonzero(lot_arr == lot)
+        ix = [j for j, name in enumerate(lots) if name == lot]
         C_s[np.ix_(ix, ix)] = np.outer(u_s[ix], u_s[ix])
     C_r = np.diag(u_r**2)
     # output entries: tags (minus group members) + groups, as rows of L
     groups = field(run.plant, "groups", {}) or {}
     pos = {tg: j for j, tg in enumerate(tags)}
-    out_tags: list[str] = []
-    rows: list[np.ndarray] = []
     grouped: set[str] = set()
-    group_rows: dict[str, np.ndarray] = {}
+    group_ix: dict[str, list[int]] = {}
     for gid, g in groups.items():
         members = list(field(g, "tags", ()) or ())
         if not members:
@@ -198,23 +235,17 @@ def average(
         if missing:
             notes.append(f"group '{gid}' not averaged: members {missing} not in the run")
             continue
-        w = np.zeros(len(tags))
         ix = [pos[m] for m in members]
-        w[ix] = 1.0 / len(members)
-        group_rows[gid] = w
+        group_ix[gid] = ix
         grouped.update(members)
-        _correlate_members(C_r, x, ix, u_r, n_valid, autocorrelation)
+        _correlate_members(C_r, x, ix, u_r, n_valid, autocorrelation, (V_r, M_r))
         check_agreement(run, gid, g, members, pos, mean, C_r + C_s, notes)
-    for tg in tags:
-        if keep_members or tg not in grouped:
-            e = np.zeros(len(tags))
-            e[pos[tg]] = 1.0
-            out_tags.append(tg)
-            rows.append(e)
-    for gid, w in group_rows.items():
-        out_tags.append(gid)
-        rows.append(w)
-    L = np.array(rows).reshape(len(rows), len(tags))
+    single_ix = [j for j, tg in enumerate(tags) if keep_members or tg not in grouped]
+    out_tags = [tags[j] for j in single_ix] + list(group_ix)
+    L = np.zeros((len(out_tags), len(tags)))
+    L[np.arange(len(single_ix)), single_ix] = 1.0
+    for r, ix in enumerate(group_ix.values(), start=len(single_ix)):
+        L[r, ix] = 1.0 / len(ix)
     value = L @ mean
     cov_r = L @ C_r @ L.T
     cov_s = L @ C_s @ L.T
@@ -233,23 +264,23 @@ def average(
         # needs independent parts, so the group's random part counts as one part
         # with the fewest degrees of freedom of its members (conservative)
         offdiag = C_r - np.diag(np.diag(C_r))
-        for r, w in enumerate(L):
-            on = np.flatnonzero(w)
+        for r, ix in enumerate(group_ix.values(), start=len(single_ix)):
+            on = np.unique(ix)  # (single rows have one entry)
             if on.size > 1 and np.any(offdiag[np.ix_(on, on)] != 0.0):
                 nu = float(np.min(dof_r[on]))
                 denom[r] = 0.0 if math.isinf(nu) else ur_out[r] ** 4 / nu
         dof = np.where(denom > 0, utot2**2 / denom, np.inf)
     n_samp = ((L > 0) @ n_valid).astype(int)
-    n_masked = _excluded_counts(run, tags)
+    n_masked = _excluded_counts(run, tags, masked)
     n_excl = ((L > 0) @ n_masked).astype(int)
-    quantities, units = [], []
-    for w in L:
-        members = [tags[j] for j in np.flatnonzero(w)]
-        q = {run.quantities.get(m, "") for m in members}
-        u = {run.units.get(m, "") for m in members}
+    quantities = [run.quantities.get(tags[j], "") for j in single_ix]
+    units = [run.units.get(tags[j], "") for j in single_ix]
+    for ix in group_ix.values():
+        q = {run.quantities.get(tags[j], "") for j in ix}
+        u = {run.units.get(tags[j], "") for j in ix}
         quantities.append(q.pop() if len(q) == 1 else "")
         units.append(u.pop() if len(u) == 1 else "")
-    for gid in group_rows:
+    for gid in group_ix:
         notes.append(
             f"group '{gid}' averaged from {len(field(groups[gid], 'tags'))} members "
             "("
@@ -270,8 +301,8 @@ def average(
         start=t0,
         end=t1,
         notes=tuple(notes),
-        coverage=_per_entry(L, cover, np.min),
-        trend_p=_per_entry(L, trend_p, np.min),
+        coverage=_per_entry(single_ix, group_ix, cover),
+        trend_p=_per_entry(single_ix, group_ix, trend_p),
     )
 
 
@@ -300,7 +331,7 @@ def check_agreement(run, gid, group, members, pos, mean, C, notes) -> None:
         spread = float(mm.max() - mm.min())
         if spread > limit:
             problems.append(f"spread {spread:.4g} exceeds the agreement limit {limit:.4g}")
-    k = stats.coverage_factor(math.inf, 0.95)
+    k = stats._coverage_factor_scalar(math.inf, 0.95)  # (a checked constant: remembered)
     for a in range(len(ix)):
         for b in range(a + 1, len(ix)):
             i, j = ix[a], ix[b]
@@ -321,7 +352,7 @@ def check_agreement(run, gid, group, members, pos, mean, C, notes) -> None:
         )
 
 
-def _correlate_members(C_r, x, ix, u_r, n_valid, autocorrelation) -> None:
+def _correlate_members(C_r, x, ix, u_r, n_valid, autocorrelation, known=None) -> None:
     """Put the covariance of the random parts of a group's members' means into ``C_r``.
 
     Redundant meters of one quantity see the same process wander; the covariance of
@@ -329,14 +360,21 @@ def _correlate_members(C_r, x, ix, u_r, n_valid, autocorrelation) -> None:
     the same estimator as each tag's own u), scaled to the members' ``u_r`` (so the
     diagonal stays as it is).  Without ``autocorrelation``: the lag-0 sample
     correlation over the times both are valid.  Members with fewer than 2 valid
-    samples stay uncorrelated.
+    samples stay uncorrelated.  ``known``: the ``(V, M)`` of every column of ``x`` from
+    :func:`perftest.run.stats.mean_statistics`, used for the members when ``x``
+    holds each column's samples side by side as the members' copy does (the
+    estimate works column by column, so it gives the members' the same digits).
     """
     ok = [j for j in ix if n_valid[j] >= 2 and u_r[j] > 0]
     if len(ok) < 2:
         return
     sub = x[:, ok]
     if autocorrelation:
-        cv = stats.mean_covariance(sub)
+        if known is not None and known[0] is not None and stats._column_major(x):
+            known = (known[0][ok], known[1][ok])
+        else:
+            known = None
+        cv = stats._mean_covariance(sub, known=known)
         d = np.sqrt(np.clip(np.diag(cv), 1e-300, None))
         R = cv / np.outer(d, d)
     else:
@@ -351,33 +389,43 @@ def _correlate_members(C_r, x, ix, u_r, n_valid, autocorrelation) -> None:
                 C_r[i, j] = float(np.clip(R[a, b], -1.0, 1.0)) * u_r[i] * u_r[j]
 
 
-def _per_entry(L, per_tag, reduce) -> np.ndarray:
-    """A per-tag quantity carried to the output entries (a group: ``reduce`` of its members)."""
-    out = np.full(L.shape[0], np.nan)
-    for r, w in enumerate(L):
-        vals = per_tag[np.flatnonzero(w)]
+def _per_entry(single_ix, group_ix, per_tag) -> np.ndarray:
+    """A per-tag quantity carried to the output entries (a group: the least of its members).
+
+    ``single_ix``: the tag of each single entry; ``group_ix``: the members of each
+    group entry after them.  NaN where no member has a finite value.
+    """
+    out = np.full(len(single_ix) + len(group_ix), np.nan)
+    vals = per_tag[single_ix]
+    finite = np.isfinite(vals)
+    out[: len(single_ix)][finite] = vals[finite]
+    for r, ix in enumerate(group_ix.values(), start=len(single_ix)):
+        vals = per_tag[ix]
         vals = vals[np.isfinite(vals)]
         if vals.size:
-            out[r] = reduce(vals)
+            out[r] = np.min(vals)
     return out
 
 
-def _excluded_counts(run, tags) -> np.ndarray:
+def _excluded_counts(run, tags, mask: np.ndarray) -> np.ndarray:
     """Masked samples per tag in the window, leaving out those outside the tag's record.
 
     A tag is empty without an exclusion row before its first and after its last valid
     sample when its file does not reach there (another file's stamps at the edge of
     the aligned time base): those are not excluded samples.  Masked samples with an
     exclusion row, and every masked sample between valid ones, are counted.
+    ``mask``: the run's mask of ``tags`` (samples x tags).
     """
-    mask = run.mask[tags].to_numpy()
     n = mask.sum(axis=0).astype(int)
+    if not len(mask):
+        return n
     idx = run.data.index
     ex = run.exclusions
-    for j, tg in enumerate(tags):
+    # only a tag masked at an edge of the window, with a valid sample, has edges to check
+    edged = np.flatnonzero((mask[0] | mask[-1]) & ~mask.all(axis=0))
+    for j in edged:
+        tg = tags[j]
         col = mask[:, j]
-        if not (col[0] or col[-1]) or col.all():
-            continue
         ok = np.flatnonzero(~col)
         edge = np.r_[np.arange(ok[0]), np.arange(ok[-1] + 1, col.size)]
         if not edge.size:
@@ -386,6 +434,74 @@ def _excluded_counts(run, tags) -> np.ndarray:
         recorded = idx[edge].isin(pd.DatetimeIndex(times))
         n[j] -= int((~recorded).sum())
     return n
+
+
+def _systematic(run, tags, mean: np.ndarray, x: np.ndarray):
+    """``(u_s, lots, unknown)``: systematic standard uncertainty per tag [SI], its
+    calibration lot (None when none) and the tags the plant states none for.
+
+    ``TagSpec.systematic_standard_uncertainty`` of each tag at its mean (``x``: the
+    samples, one column per tag, for the barometer's mean).  An
+    absolute or percent-of-span uncertainty does not depend on the mean: it is
+    remembered per tag description and unit (:func:`_fixed_systematic`).
+    """
+    tagspecs = field(run.plant, "tags", {}) or {}
+    u_s = np.zeros(len(tags))
+    lots: list = []
+    unknown = []
+    atm = _UNSET
+    for j, tg in enumerate(tags):
+        spec = tagspecs.get(tg)
+        if type(spec) is TagSpec:  # noqa: E721 (a subclass may compute otherwise)
+            lots.append(spec.shared_calibration)
+            if spec.uncertainty is None:
+                unknown.append(tg)
+                continue
+            unit = run.units.get(tg)
+            if spec.uncertainty.kind in _FIXED_KINDS and (unit is None or type(unit) is str):
+                u_s[j] = _fixed_systematic(spec, unit)
+                continue
+            func = spec.systematic_standard_uncertainty
+        else:
+            lots.append(field(spec, "shared_calibration"))
+            func = field(spec, "systematic_standard_uncertainty")
+            if spec is None or func is None or field(spec, "uncertainty", 0) is None:
+                unknown.append(tg)
+                continue
+            unit = run.units.get(tg)
+        if atm is _UNSET:
+            atm = _atmospheric_pressure(run, x, {tg: j for j, tg in enumerate(tags)})
+        u_s[j] = float(func(float(mean[j]), atmospheric_pressure=atm, unit=unit))
+    return u_s, lots, unknown
+
+
+_UNSET = object()
+
+# uncertainty kinds of a TagSpec that do not depend on the mean reading
+_FIXED_KINDS = frozenset(("absolute", "percent_of_span"))
+
+# (TagSpec, unit) -> u [SI], keyed by the identity of the (frozen) TagSpec, which the
+# entry holds so that the identity cannot pass to another object
+_FIXED: dict = {}
+_FIXED_MAX = 4096
+
+
+def _fixed_systematic(spec, unit) -> float:
+    """``spec.systematic_standard_uncertainty(...)`` of a mean-independent kind, remembered.
+
+    A TagSpec is frozen and the unit conversions are fixed, so the answer for one
+    TagSpec object and unit never changes; another plant (or a plant read again)
+    has other TagSpec objects and gets its own entries.
+    """
+    key = (id(spec), unit)
+    hit = _FIXED.get(key)
+    if hit is not None and hit[0] is spec:
+        return hit[1]
+    u = float(spec.systematic_standard_uncertainty(0.0, unit=unit))
+    if len(_FIXED) >= _FIXED_MAX:
+        _FIXED.clear()
+    _FIXED[key] = (spec, u)
+    return u
 
 
 def _member_text(run, tag: str, value: float) -> str:

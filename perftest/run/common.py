@@ -13,6 +13,7 @@ __all__ = [
     "field",
     "fmt_time",
     "empty_exclusions",
+    "column_list",
 ]
 
 EXCLUSION_COLUMNS = ("time", "tag", "reason", "raw_value", "source")
@@ -49,3 +50,25 @@ def empty_exclusions() -> pd.DataFrame:
 def fmt_time(t) -> str:
     """ISO text of a time, ``"None"`` for None."""
     return "None" if t is None else pd.Timestamp(t).isoformat()
+
+
+# the last few column Indexes seen by column_list (a run's data and mask have one
+# each) and their labels
+_LAST_COLUMNS: tuple = ()
+
+
+def column_list(columns: pd.Index) -> list:
+    """``list(columns)`` for a frame's column Index, remembered for the last few seen.
+
+    Listing an Index of strings costs about as much as averaging a few tags, and the
+    windows of one run carry views of one column Index (``Index.is_``: the same
+    labels, an Index being immutable).  A new list is returned each time.
+    """
+    global _LAST_COLUMNS
+    seen = _LAST_COLUMNS
+    for index, labels in seen:
+        if index.is_(columns):
+            return list(labels)
+    labels = list(columns)
+    _LAST_COLUMNS = ((columns, tuple(labels)), *seen[:3])
+    return labels

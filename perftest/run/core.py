@@ -21,6 +21,7 @@ from perftest.errors import InputError
 from perftest.run import averaging, outliers, quality, stability, steady, trend, windows
 from perftest.run.common import CHECK_BYTES as _CHECK_BYTES
 from perftest.run.common import EXCLUSION_COLUMNS
+from perftest.run.common import column_list as _column_list
 from perftest.run.common import empty_exclusions as _empty_exclusions
 from perftest.run.common import field as _get
 from perftest.run.common import fmt_time as _fmt_time
@@ -309,11 +310,11 @@ class Run:
     @property
     def tags(self) -> tuple[str, ...]:
         """Tag ids (columns of ``data``)."""
-        return tuple(self.data.columns)
+        return tuple(_column_list(self.data.columns))
 
     def _check_tags(self, tags, func: str) -> list[str]:
         if tags is None:
-            return list(self.data.columns)
+            return _column_list(self.data.columns)
         tags = [tags] if isinstance(tags, str) else list(tags)
         unknown = [t for t in tags if t not in self.data.columns]
         if unknown:

@@ -13,9 +13,9 @@ import numpy as np
 import pandas as pd
 
 from perftest.errors import InputError, StabilityWarning
-from perftest.plant.file import DEFAULT_STABILITY
-from perftest.run.common import PERCENT_KINDS, field, fmt_time
-from perftest.run.windows import duration_seconds
+from perftest.plant.file import DEFAULT_STABILITY, StabilityLimit, TagSpec
+from perftest.run.common import PERCENT_KINDS, column_list, field, fmt_time
+from perftest.run.windows import _seconds, duration_seconds
 
 __all__ = ["stability", "permissible", "permissible_spec"]
 
@@ -51,12 +51,20 @@ def permissible(run, tags: list[str], means: np.ndarray, limits):
     means = np.asarray(means, dtype=float)
     out = np.full(means.shape, np.nan)
     basis = []
-    for j, tag in enumerate(tags):
-        spec, where = permissible_spec(run, tag, limits)
+    # StabilityLimit.limit_si, all tags at once: |mean| * value_si for a percent
+    # limit, value_si (+ 0 * mean) for the others (positions, value_si)
+    percent: tuple = ([], [])
+    fixed: tuple = ([], [])
+    for j, (tag, (spec, where)) in enumerate(zip(tags, _specs(run, tags, limits), strict=True)):
         basis.append(where)
         if spec is None:
             continue
         col = (..., j)
+        if type(spec) is StabilityLimit:  # noqa: E721 (a subclass may compute otherwise)
+            part = percent if spec.kind == "percent" else fixed
+            part[0].append(j)
+            part[1].append(spec.value_si)
+            continue
         if hasattr(spec, "limit_si"):  # a plant-file StabilityLimit, already in SI
             out[col] = spec.limit_si(means[col])
             continue
@@ -94,7 +102,44 @@ def permissible(run, tags: list[str], means: np.ndarray, limits):
                 parameter="limits",
                 tag=tag,
             )
+    if percent[0]:
+        out[..., percent[0]] = np.abs(means[..., percent[0]]) * np.asarray(percent[1], dtype=float)
+    if fixed[0]:
+        cols = fixed[0]
+        out[..., cols] = np.asarray(fixed[1], dtype=float) + 0.0 * means[..., cols]
     return out, basis
+
+
+def _specs(run, tags, limits) -> list:
+    """:func:`permissible_spec` of each tag, the plant's tables looked up once."""
+    quantities = run.quantities
+    tagspecs = field(run.plant, "tags", {}) or {}
+    plant_limits = field(run.plant, "stability", {}) or {}
+    # (a dict's get directly: field() asks first whether it is a mapping)
+    lookup = tagspecs.get if type(tagspecs) is dict else (lambda tag: field(tagspecs, tag))
+    out = []
+    for tag in tags:
+        quantity = quantities.get(tag)
+        if limits is not None:
+            if tag in limits:
+                out.append((limits[tag], "argument (tag)"))
+                continue
+            if quantity is not None and quantity in limits:
+                out.append((limits[quantity], "argument (quantity)"))
+                continue
+        spec = lookup(tag)
+        override = spec.stability if type(spec) is TagSpec else field(spec, "stability")  # noqa: E721
+        if override is not None:
+            out.append((override, "plant tag"))
+        elif quantity is not None and quantity in plant_limits:
+            lim = plant_limits[quantity]
+            default = DEFAULT_STABILITY.get(quantity)
+            out.append((lim, "default" if lim is default or lim == default else "plant quantity"))
+        elif quantity in DEFAULT_STABILITY:
+            out.append((DEFAULT_STABILITY[quantity], "default"))
+        else:
+            out.append((None, "none"))
+    return out
 
 
 def stability(run, limits=None, *, tags=None, warn: bool = True) -> pd.DataFrame:
@@ -172,33 +217,49 @@ def judge(run, tags: list[str], limits=None) -> dict:
     are computed here, so that a loop over many windows that needs only a few of
     them (``ratio``, ``passed``) builds no table.
     """
-    if list(run.data.columns) == list(tags):
+    if column_list(run.data.columns) == list(tags):
         x = run.data.to_numpy(dtype=float)  # every tag in order: no column selection
     else:
         x = run.data[tags].to_numpy(dtype=float)
-    n = np.isfinite(x).sum(axis=0)
-    t = (run.data.index - run.data.index[0]) / pd.Timedelta(seconds=1)
-    t = np.asarray(t, dtype=float)[:, None] * np.ones((1, len(tags)))
-    with warnings.catch_warnings(), np.errstate(invalid="ignore", divide="ignore"):
-        warnings.simplefilter("ignore", RuntimeWarning)
-        mean = np.nanmean(x, axis=0)
-        std = np.nanstd(x, axis=0, ddof=1)
-        lo = np.nanmin(x, axis=0)
-        hi = np.nanmax(x, axis=0)
-        maxdev = np.maximum(hi - mean, mean - lo)
-        tv = np.where(np.isfinite(x), t, np.nan)
-        tm = np.nanmean(tv, axis=0)
-        sxx = np.nansum((tv - tm) ** 2, axis=0)
-        sxy = np.nansum((tv - tm) * (x - mean), axis=0)
-        slope = np.where(sxx > 0, sxy / sxx, 0.0)
+    valid = np.isfinite(x)
+    n = valid.sum(axis=0)
+    t = _seconds(run.data.index)[:, None] * np.ones((1, len(tags)))
+    if len(x) and min(x.strides, default=0) >= 0 and valid.all():
+        # every sample valid: the nan-aware statistics' arithmetic without their
+        # masking steps (the same sums in the same order, so the same digits)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            mean = x.sum(axis=0) / n
+            dev = x - mean
+            std = np.sqrt((dev * dev).sum(axis=0) / (n - 1))
+            lo = np.fmin.reduce(x, axis=0)  # as nanmin and nanmax do
+            hi = np.fmax.reduce(x, axis=0)
+            maxdev = np.maximum(hi - mean, mean - lo)
+            tv = np.where(valid, t, np.nan)
+            tm = tv.sum(axis=0) / n
+            sxx = ((tv - tm) ** 2).sum(axis=0)
+            sxy = ((tv - tm) * (x - mean)).sum(axis=0)
+            slope = np.where(sxx > 0, sxy / sxx, 0.0)
+    else:
+        with warnings.catch_warnings(), np.errstate(invalid="ignore", divide="ignore"):
+            warnings.simplefilter("ignore", RuntimeWarning)
+            mean = np.nanmean(x, axis=0)
+            std = np.nanstd(x, axis=0, ddof=1)
+            lo = np.nanmin(x, axis=0)
+            hi = np.nanmax(x, axis=0)
+            maxdev = np.maximum(hi - mean, mean - lo)
+            tv = np.where(valid, t, np.nan)
+            tm = np.nanmean(tv, axis=0)
+            sxx = np.nansum((tv - tm) ** 2, axis=0)
+            sxy = np.nansum((tv - tm) * (x - mean), axis=0)
+            slope = np.where(sxx > 0, sxy / sxx, 0.0)
     drift = slope * duration_seconds(run)
     drift = np.where(n >= 2, drift, np.nan)
     perm, basis = permissible(run, tags, mean, limits)
     with np.errstate(invalid="ignore", divide="ignore"):
         ratio = np.maximum(maxdev, np.abs(drift)) / perm
-    passed = pd.array(
-        [pd.NA if not np.isfinite(r) else bool(r <= 1.0) for r in ratio], dtype="boolean"
-    )
+    known = np.isfinite(ratio)
+    with np.errstate(invalid="ignore"):
+        passed = pd.arrays.BooleanArray(known & (ratio <= 1.0), ~known)
     return {
         "n": n,
         "mean": mean,

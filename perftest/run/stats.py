@@ -26,6 +26,7 @@ References
 
 from __future__ import annotations
 
+import functools
 import math
 import warnings
 
@@ -126,31 +127,54 @@ def autocorrelation(samples, max_lag: int | None = None) -> np.ndarray:
     return rho[:, 0] if was_1d else rho
 
 
-def _acf_columns(arr: np.ndarray, max_lag: int, full: bool = False):
-    n = arr.shape[0]
+def _acf_columns(arr: np.ndarray, max_lag: int, full: bool = False, *, general=False):
+    """Autocorrelation (lags x columns); with ``full`` also pairs, variance, counts and
+    whether every sample was valid.
+
+    A record whose every sample is valid skips the masking steps; its arithmetic, and
+    so every digit, is the same.  ``general`` takes the masking steps all the same
+    (the tests compare the two).
+    """
+    n, k = arr.shape
     valid = np.isfinite(arr)
-    m = valid.sum(axis=0)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        mean = np.where(m > 0, np.nansum(np.where(valid, arr, 0.0), axis=0) / m, 0.0)
-    d = np.where(valid, arr - mean, 0.0)
-    w = valid.astype(float)
+    complete = False
+    if not general:
+        # (non-negative strides: a sum over the samples adds in the order it would
+        # on the masked copy the general steps make)
+        complete = n > 0 and min(arr.strides, default=0) >= 0 and bool(valid.all())
+    if complete:
+        m = np.full(k, n)
+        mean = arr.sum(axis=0) / m
+        d = arr - mean
+    else:
+        m = valid.sum(axis=0)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            mean = np.where(m > 0, np.nansum(np.where(valid, arr, 0.0), axis=0) / m, 0.0)
+        d = np.where(valid, arr - mean, 0.0)
     from scipy import fft as _fft  # imported on first use, as scipy.stats below
 
     # zero padding to n + max_lag keeps circular wrap-around out of the lags used
     nfft = _fft.next_fast_len(n + max_lag + 1, real=True)
     fd = _fft.rfft(d, nfft, axis=0)
     sums = _fft.irfft(fd * np.conj(fd), nfft, axis=0)[: max_lag + 1]
-    if np.all(valid):
-        pairs = (n - np.arange(max_lag + 1, dtype=float))[:, None] * np.ones((1, arr.shape[1]))
+    if complete:  # the same pairs for every column
+        pairs = (n - np.arange(max_lag + 1, dtype=float))[:, None]
+    elif np.all(valid):
+        pairs = (n - np.arange(max_lag + 1, dtype=float))[:, None] * np.ones((1, k))
     else:
+        w = valid.astype(float)
         fw = _fft.rfft(w, nfft, axis=0)
         pairs = np.rint(_fft.irfft(fw * np.conj(fw), nfft, axis=0)[: max_lag + 1])
     with np.errstate(invalid="ignore", divide="ignore"):
-        var = np.where(m > 0, sums[0] / np.maximum(m, 1), np.nan)
-        rho = np.where(pairs > 0, sums / np.maximum(pairs, 1.0), np.nan) / var
+        if complete:  # every column has n >= 1 samples and every lag pairs
+            var = sums[0] / m
+            rho = sums / pairs / var
+        else:
+            var = np.where(m > 0, sums[0] / np.maximum(m, 1), np.nan)
+            rho = np.where(pairs > 0, sums / np.maximum(pairs, 1.0), np.nan) / var
     rho[0] = np.where(var > 0, 1.0, np.nan)
     if full:
-        return rho, pairs, var, m
+        return rho, pairs, var, m, complete
     return rho
 
 
@@ -204,7 +228,7 @@ SOKAL_C = 4.0
 
 def _acov_columns(arr: np.ndarray, max_lag: int):
     """Autocovariance per lag and column (1/P_k normalised), pair counts, valid counts."""
-    rho, pairs, var, m = _acf_columns(arr, max_lag, full=True)
+    rho, pairs, var, m, _ = _acf_columns(arr, max_lag, full=True)
     return rho * var, pairs, m
 
 
@@ -215,61 +239,72 @@ def _mean_variance_columns(
     *,
     with_gamma: bool = False,
     with_dof: bool = False,
+    general: bool = False,
 ):
     """``(V, n_eff, M)`` per column: variance of the mean, effective size, window.
 
     With ``with_gamma`` also the autocovariances (lags x columns) it used; with
     ``with_dof`` (instead) the degrees of freedom of V (:func:`mean_dof`).
+    ``general`` as in :func:`_acf_columns`.
     """
     n, k = arr.shape
-    m = np.isfinite(arr).sum(axis=0).astype(float)
-    V = np.full(k, np.nan)
-    neff = np.where(m > 0, m, np.nan)
-    M_sel = np.zeros(k, dtype=int)
     if n < 3:
+        m = np.isfinite(arr).sum(axis=0).astype(float)
+        V = np.full(k, np.nan)
+        neff = np.where(m > 0, m, np.nan)
+        M_sel = np.zeros(k, dtype=int)
         if with_dof:
             return V, neff, M_sel, np.maximum(m - 1.0, 1.0)
         return (V, neff, M_sel, None) if with_gamma else (V, neff, M_sel)
     K = n // 2 if max_lag is None else int(max_lag)
     K = max(1, min(K, n - 1))
-    gamma, pairs, _ = _acov_columns(arr, K)
+    rho, pairs, var, m, complete = _acf_columns(arr, K, full=True, general=general)
+    gamma = rho * var
+    m = m.astype(float)
     g0 = gamma[0]
+    # one errstate for the whole estimate: the steps between its parts (comparisons,
+    # selections) raise no invalid or divide warning of their own
     with np.errstate(invalid="ignore", divide="ignore"):
-        w = pairs[1:] / np.maximum(m, 1.0)  # (K, cols): P_k / m
-        S = g0 + 2.0 * np.cumsum(np.nan_to_num(w * gamma[1:]), axis=0)
-        W = 1.0 + 2.0 * np.cumsum(w, axis=0)
+        # (K, cols): P_k / m; a complete record has one column of it for all
+        w = pairs[1:] / (float(n) if complete else np.maximum(m, 1.0))
+        S = g0 + 2.0 * _nan_to_num(w * gamma[1:]).cumsum(axis=0)
+        W = 1.0 + 2.0 * w.cumsum(axis=0)
         denom = m - W
         Vm = np.where(denom > 0, S / denom, np.nan)
         tau = m * Vm / (2.0 * (g0 + Vm))  # bias-corrected integrated autocorrelation time
-    # the window length in lags that hold pairs: M itself without gaps; a record
-    # logged every j-th row of a finer time base counts every j-th lag only
-    lags = np.cumsum(pairs[1:] > 0, axis=0)
-    ok = (lags >= c * tau) & (denom > 0)
-    usable = denom > 0
-    # first window that satisfies Sokal's rule, else the widest usable one
-    last = np.where(usable.any(axis=0), K - 1 - np.argmax(usable[::-1], axis=0), 0)
-    first = np.where(ok.any(axis=0), np.argmax(ok, axis=0), last)
-    cols = np.arange(k)
-    V = Vm[first, cols]
-    M_sel = first + 1
-    with np.errstate(invalid="ignore", divide="ignore"):
+        # the window length in lags that hold pairs: M itself without gaps; a record
+        # logged every j-th row of a finer time base counts every j-th lag only
+        if complete:
+            lags = np.arange(1, K + 1)[:, None]
+        else:
+            lags = np.cumsum(pairs[1:] > 0, axis=0)
+        usable = denom > 0
+        ok = (lags >= c * tau) & usable
+        # first window that satisfies Sokal's rule, else the widest usable one
+        last = np.where(usable.any(axis=0), K - 1 - np.argmax(usable[::-1], axis=0), 0)
+        first = np.where(ok.any(axis=0), np.argmax(ok, axis=0), last)
+        cols = np.arange(k)
+        V = Vm[first, cols]
+        M_sel = first + 1
         # at least s^2/(2m): an alternating record earns at most twice its sample count.
         # A floor at s^2/m would push every white-noise estimate that falls below the
         # truth up to it: u 6 % high on independent samples (simulation, 4000 records)
-        floor = 0.5 * g0 / np.maximum(m - 1.0, 1.0)
+        m1 = np.maximum(m - 1.0, 1.0)
+        floor = 0.5 * g0 / m1
         V = np.where(np.isfinite(V), np.maximum(V, floor), floor)
-        neff = np.clip((g0 + V) / V, 1.0, np.maximum(m, 1.0))
-    flat = ~(g0 > 0)
-    V = np.where(flat, 0.0, V)
-    neff = np.where(flat, m, neff)
-    V = np.where(m >= 2, V, np.nan)
-    neff = np.where(m > 0, neff, np.nan)
-    if with_dof:
-        # m / (1 + 2 sum_{k<=M} P_k/m): m/(2M+1) less the lags the record is too short
-        # for, and gap-aware (a lag without pairs adds no noise)
-        dof = np.clip(m / W[first, cols], 1.0, np.maximum(m - 1.0, 1.0))
-        dof = np.where(np.isfinite(dof), dof, np.maximum(m - 1.0, 1.0))
-        return V, neff, M_sel, dof
+        # (minimum of maximum: np.clip's values, NaN kept, without its wrapper)
+        neff = np.minimum(np.maximum((g0 + V) / V, 1.0), np.maximum(m, 1.0))
+        flat = ~(g0 > 0)
+        V = np.where(flat, 0.0, V)
+        neff = np.where(flat, m, neff)
+        V = np.where(m >= 2, V, np.nan)
+        neff = np.where(m > 0, neff, np.nan)
+        if with_dof:
+            # m / (1 + 2 sum_{k<=M} P_k/m): m/(2M+1) less the lags the record is too
+            # short for, and gap-aware (a lag without pairs adds no noise)
+            dof = np.minimum(np.maximum(m / W[first, 0 if complete else cols], 1.0), m1)
+            dof = np.where(np.isfinite(dof), dof, m1)
+            return V, neff, M_sel, dof
     if with_gamma:
         return V, neff, M_sel, gamma
     return V, neff, M_sel
@@ -369,23 +404,38 @@ def mean_statistics(
     autocorrelation).  Used by :func:`perftest.run.averaging.average` so that the
     autocorrelation is computed once.
     """
+    out = _mean_statistics(arr, autocorrelation, max_lag)
+    return out[:6] if with_dof else out[:5]
+
+
+def _mean_statistics(arr: np.ndarray, autocorrelation: bool = True, max_lag=None):
+    """:func:`mean_statistics` with the degrees of freedom, and the variance of the
+    mean and summation window of each column (None without ``autocorrelation``)."""
     arr = np.asarray(arr, dtype=float)
-    m = np.isfinite(arr).sum(axis=0)
-    with warnings.catch_warnings(), np.errstate(invalid="ignore", divide="ignore"):
-        warnings.simplefilter("ignore", RuntimeWarning)
-        mean = np.nanmean(arr, axis=0)
-        s = np.where(m >= 2, np.nanstd(arr, axis=0, ddof=1), np.nan)
+    valid = np.isfinite(arr)
+    m = valid.sum(axis=0)
+    if arr.shape[0] and min(arr.strides, default=0) >= 0 and valid.all():
+        # every sample valid: nanmean's and nanstd's arithmetic without the masking
+        # steps (the same sums in the same order, so the same digits)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            mean = arr.sum(axis=0) / m
+            dev = arr - mean
+            s = np.where(m >= 2, np.sqrt((dev * dev).sum(axis=0) / (m - 1)), np.nan)
+    else:
+        with warnings.catch_warnings(), np.errstate(invalid="ignore", divide="ignore"):
+            warnings.simplefilter("ignore", RuntimeWarning)
+            mean = np.nanmean(arr, axis=0)
+            s = np.where(m >= 2, np.nanstd(arr, axis=0, ddof=1), np.nan)
+    V = M = None
     if autocorrelation:
-        V, neff, _, dof = _mean_variance_columns(arr, max_lag, with_dof=True)
+        V, neff, M, dof = _mean_variance_columns(arr, max_lag, with_dof=True)
         u = np.sqrt(V)
     else:
         neff = np.where(m > 0, m, np.nan)
         with np.errstate(invalid="ignore", divide="ignore"):
             u = s / np.sqrt(neff)
         dof = np.maximum(m - 1.0, 1.0)
-    if with_dof:
-        return m, mean, s, neff.astype(float), u, dof
-    return m, mean, s, neff.astype(float), u
+    return m, mean, s, neff.astype(float), u, dof, V, M
 
 
 def mean_dof(samples, *, max_lag: int | None = None):
@@ -473,9 +523,15 @@ def mean_covariance(arr: np.ndarray, max_lag=None) -> np.ndarray:
     (the load of one generator seen by two wattmeters) thus stays in the
     uncertainty of their mean instead of averaging away.
     """
+    return _mean_covariance(arr, max_lag)
+
+
+def _mean_covariance(arr, max_lag=None, known=None) -> np.ndarray:
+    """:func:`mean_covariance`; ``known``: the ``(V, M)`` of :func:`_mean_variance_columns`
+    for these columns when the caller has them."""
     arr = np.asarray(arr, dtype=float)
     n, k = arr.shape
-    V, _, M = _mean_variance_columns(arr, max_lag)
+    V, M = _mean_variance_columns(arr, max_lag)[::2] if known is None else known
     u = np.sqrt(V)
     R = np.eye(k)
     valid = np.isfinite(arr)
@@ -486,19 +542,26 @@ def mean_covariance(arr: np.ndarray, max_lag=None) -> np.ndarray:
             Mij = int(max(M[i], M[j]))
             if mm < 3 or not (u[i] > 0 and u[j] > 0) or Mij < 1:
                 continue
-            di = np.where(both, arr[:, i] - np.nanmean(arr[both, i]), 0.0)
-            dj = np.where(both, arr[:, j] - np.nanmean(arr[both, j]), 0.0)
-            w = both.astype(float)
+            if mm == n:  # both complete: no masking, and n - |lag| pairs at each lag
+                di = arr[:, i] - arr[:, i].sum() / n
+                dj = arr[:, j] - arr[:, j].sum() / n
+            else:
+                di = np.where(both, arr[:, i] - np.nanmean(arr[both, i]), 0.0)
+                dj = np.where(both, arr[:, j] - np.nanmean(arr[both, j]), 0.0)
+                w = both.astype(float)
             num = 0.0
             wsum = 0.0
             for lag in range(-Mij, Mij + 1):
                 if abs(lag) >= n:
                     continue
                 if lag >= 0:
-                    a, b, wa, wb = di[: n - lag], dj[lag:], w[: n - lag], w[lag:]
+                    a, b = di[: n - lag], dj[lag:]
                 else:
-                    a, b, wa, wb = di[-lag:], dj[: n + lag], w[-lag:], w[: n + lag]
-                p = float(np.dot(wa, wb))
+                    a, b = di[-lag:], dj[: n + lag]
+                if mm == n:
+                    p = float(n - abs(lag))
+                else:
+                    p = float(np.dot(w[abs(lag) :], w[: n - abs(lag)]))
                 if p <= 0:
                     continue
                 num += (p / mm) * (float(np.dot(a, b)) / p)
@@ -514,8 +577,21 @@ def mean_covariance(arr: np.ndarray, max_lag=None) -> np.ndarray:
             R = (vec * np.clip(ev, 0.0, None)) @ vec.T
             d = np.sqrt(np.clip(np.diag(R), 1e-300, None))
             R = R / np.outer(d, d)
-    uu = np.nan_to_num(u)
+    uu = _nan_to_num(u)
     return R * np.outer(uu, uu)
+
+
+def _nan_to_num(a: np.ndarray) -> np.ndarray:
+    """``np.nan_to_num(a)``, which copies; ``a`` itself when every value is finite."""
+    return a if np.isfinite(a).all() else np.nan_to_num(a)
+
+
+def _column_major(x: np.ndarray) -> bool:
+    """The samples of each column lie next to each other (as in a DataFrame's block),
+    as in a copy of some of its columns (``x[:, cols]``): sums over the samples add in
+    the same order in both."""
+    n, k = x.shape
+    return x.strides[0] == x.itemsize and (k < 2 or x.strides[1] >= x.itemsize * n)
 
 
 def modified_thompson_tau(n, alpha: float = 0.05):
@@ -799,11 +875,50 @@ def coverage_factor(dof=math.inf, level: float = 0.95):
             f"The 'dof' parameter of coverage_factor must be positive (inf allowed). Got {dof!r}.",
             parameter="dof",
         )
+    if nu.ndim == 0 and isinstance(level, float):
+        # one factor: the same quantile again and again in a loop over windows
+        return _coverage_factor_scalar(float(nu), float(level))
+    return _coverage_factor(nu, level)
+
+
+def _coverage_factor(nu: np.ndarray, level: float):
     from scipy import stats as _sps  # on first use: its import costs 1-2 s
 
     q = 0.5 + level / 2.0
     k = np.where(np.isinf(nu), _sps.norm.ppf(q), _sps.t.ppf(q, np.where(np.isinf(nu), 1.0, nu)))
     return float(k) if k.ndim == 0 else k
+
+
+@functools.lru_cache(maxsize=1024)
+def _coverage_factor_scalar(nu: float, level: float) -> float:
+    """:func:`coverage_factor` of one checked dof and level, remembered."""
+    return _coverage_factor(np.asarray(nu, dtype=float), level)
+
+
+def _t_sf(x, df) -> np.ndarray:
+    """Survival function of Student's t, as ``scipy.stats.t.sf(x, df)`` for arrays.
+
+    The same values (``scipy.special.stdtr`` where scipy's generic method calls it,
+    NaN for a NaN ``x`` or a ``df`` that is not positive, 0 at ``x = inf``, 1 at
+    ``x = -inf``) without the generic method's argument handling, which costs more
+    than the quantile itself for a few dozen values.
+    """
+    from scipy import special as _sc  # on first use, as scipy.stats above
+
+    x = np.asarray(x, dtype=float)
+    df = np.asarray(df, dtype=float)
+    x, df = np.broadcast_arrays(x, df)
+    with np.errstate(invalid="ignore"):
+        ok = df > 0
+        inside = ok & (-np.inf < x) & (x < np.inf)
+    if inside.all():
+        return _sc.stdtr(df, -x)
+    out = np.zeros(x.shape)
+    out[~ok | np.isnan(x)] = np.nan
+    out[ok & (x == -np.inf)] = 1.0
+    if inside.any():
+        out[inside] = _sc.stdtr(df[inside], -x[inside])
+    return out
 
 
 def standard_from_expanded(U, level: float = 0.95, dof=math.inf):

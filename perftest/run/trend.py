@@ -8,6 +8,7 @@ explain.
 from __future__ import annotations
 
 import warnings
+from typing import NamedTuple
 
 import numpy as np
 import pandas as pd
@@ -15,7 +16,8 @@ import pandas as pd
 from perftest.defaults import TREND_ALPHA
 from perftest.errors import InputError, StabilityWarning
 from perftest.run import stats
-from perftest.run.common import fmt_time
+from perftest.run.common import column_list, fmt_time
+from perftest.run.windows import _seconds
 
 __all__ = ["trend_test", "TREND_COLUMNS"]
 
@@ -95,70 +97,115 @@ def trend_test(
             f"The 'alpha' parameter of Run.trend must lie in (0, 1). Got {alpha!r}.",
             parameter="alpha",
         )
-    if list(run.data.columns) == tags:
+    if column_list(run.data.columns) == tags:
         x = run.data.to_numpy(dtype=float)  # every tag in order: no column selection
     else:
         x = run.data[tags].to_numpy(dtype=float)
-    idx = run.data.index
-    t = np.asarray((idx - idx[0]) / pd.Timedelta(seconds=1), dtype=float)
-    slope, u, dof, n, stt = _slope_statistics(x, t)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        tstat = slope / u
-    from scipy import stats as _sps  # on first use, as in perftest.run.stats
-
-    p = 2.0 * _sps.t.sf(np.abs(tstat), dof)
-    usable = (n >= 4) & (stt > 0) & np.isfinite(p) & (u > 0)
-    p = np.where(usable, p, np.nan)
-    m = max(int(usable.sum()), 1)
-    flagged = pd.array(
-        [pd.NA if not ok else bool(pv < level / m) for ok, pv in zip(usable, p, strict=True)],
-        dtype="boolean",
-    )
-    span = float(t[-1] - t[0]) if len(idx) else 0.0
+    r = _trend(run, x, level)
+    flagged = pd.arrays.BooleanArray(r.hit, ~r.usable)
     table = pd.DataFrame(
         {
-            "slope": slope,
-            "u_slope": u,
-            "t": tstat,
-            "dof": dof,
-            "p_value": p,
-            "trend": slope * span,
+            "slope": r.slope,
+            "u_slope": r.u,
+            "t": r.t,
+            "dof": r.dof,
+            "p_value": r.p,
+            "trend": r.trend,
             "trending": flagged,
         },
         index=pd.Index(tags, name="tag"),
     )
-    hit = [tg for tg, f in zip(tags, flagged.fillna(False).to_numpy(dtype=bool), strict=True) if f]
-    if warn and hit:
-        shown = ", ".join(
-            f"{tg} ({_change_text(run, tg, table.loc[tg, 'trend'])} over the window, "
-            f"p {_p_text(table.loc[tg, 'p_value'])})"
-            for tg in hit
-        )
-        warnings.warn(
-            f"{len(hit)} tag(s) trend inside the window {fmt_time(run.start or idx[0])} to "
-            f"{fmt_time(run.end or idx[-1])} beyond their scatter (level {level:g} for the "
-            f"window, {level / m:.2g} per tag): {shown}. The unit may not have settled: "
-            "look at the record, or choose a later window.",
-            StabilityWarning,
-            stacklevel=stacklevel,
-        )
+    if warn:
+        _warn(run, tags, r, level, stacklevel + 1)
     return table
+
+
+class _Trend(NamedTuple):
+    """The columns of :func:`trend_test`'s table as arrays, and what its verdicts used."""
+
+    slope: np.ndarray
+    u: np.ndarray
+    t: np.ndarray
+    dof: np.ndarray
+    p: np.ndarray
+    trend: np.ndarray
+    usable: np.ndarray  # a verdict was reached (else <NA>)
+    hit: np.ndarray  # trending
+    tested: int  # the m of the Bonferroni level alpha / m
+    start: object
+    end: object
+
+
+def _trend(run, x: np.ndarray, level: float) -> _Trend:
+    """:func:`trend_test` of the samples ``x`` (samples x tags) of ``run``, as arrays."""
+    idx = run.data.index
+    t = _seconds(idx)
+    slope, u, dof, n, stt = _slope_statistics(x, t)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        tstat = slope / u
+    p = 2.0 * stats._t_sf(np.abs(tstat), dof)
+    usable = (n >= 4) & (stt > 0) & np.isfinite(p) & (u > 0)
+    p = np.where(usable, p, np.nan)
+    m = max(int(usable.sum()), 1)
+    with np.errstate(invalid="ignore"):
+        hit = usable & (p < level / m)
+    span = float(t[-1] - t[0]) if len(idx) else 0.0
+    return _Trend(
+        slope, u, tstat, dof, p, slope * span, usable, hit, m,
+        run.start or (idx[0] if len(idx) else None),
+        run.end or (idx[-1] if len(idx) else None),
+    )  # fmt: skip
+
+
+def _warn(run, tags, r: _Trend, level: float, stacklevel: int) -> None:
+    """The StabilityWarning of :func:`trend_test` naming the trending tags, if any.
+
+    ``stacklevel`` counts from this function (one more than from its caller).
+    """
+    hit = np.flatnonzero(r.hit)
+    if not hit.size:
+        return
+    shown = ", ".join(
+        f"{tags[j]} ({_change_text(run, tags[j], r.trend[j])} over the window, p {_p_text(r.p[j])})"
+        for j in hit
+    )
+    m = r.tested
+    warnings.warn(
+        f"{hit.size} tag(s) trend inside the window {fmt_time(r.start)} to "
+        f"{fmt_time(r.end)} beyond their scatter (level {level:g} for the "
+        f"window, {level / m:.2g} per tag): {shown}. The unit may not have settled: "
+        "look at the record, or choose a later window.",
+        StabilityWarning,
+        stacklevel=stacklevel,
+    )
 
 
 def _slope_statistics(x: np.ndarray, t: np.ndarray):
     """Per column: OLS slope, its u under autocorrelated scatter, dof, m, S_tt."""
     valid = np.isfinite(x)
     n = valid.sum(axis=0).astype(float)
-    tv = np.where(valid, t[:, None], np.nan)
-    with warnings.catch_warnings(), np.errstate(invalid="ignore", divide="ignore"):
-        warnings.simplefilter("ignore", RuntimeWarning)
-        tm = np.nanmean(tv, axis=0)
-        xm = np.nanmean(x, axis=0)
-        dt = tv - tm
-        stt = np.nansum(dt**2, axis=0)
-        slope = np.nansum(dt * (x - xm), axis=0) / stt
-        resid = x - xm - slope * dt
     k = x.shape[1]
+    complete = stats._column_major(x) and t.strides[0] == t.itemsize and bool(valid.all())
+    if complete and x.shape[0]:
+        # every sample valid: the times are the same for every tag, and the nan-aware
+        # sums below add the same numbers in the same order (one column at a time)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            dt = (t - t.sum() / x.shape[0])[:, None]
+            stt = np.full(k, (dt * dt).sum())
+            xm = x.sum(axis=0) / x.shape[0]
+            resid = x - xm
+            slope = (dt * resid).sum(axis=0) / stt
+            resid -= slope * dt  # (in place: the layout of x - xm, as the sums below expect)
+    else:
+        tv = np.where(valid, t[:, None], np.nan)
+        with warnings.catch_warnings(), np.errstate(invalid="ignore", divide="ignore"):
+            warnings.simplefilter("ignore", RuntimeWarning)
+            tm = np.nanmean(tv, axis=0)
+            xm = np.nanmean(x, axis=0)
+            dt = tv - tm
+            stt = np.nansum(dt**2, axis=0)
+            slope = np.nansum(dt * (x - xm), axis=0) / stt
+            resid = x - xm - slope * dt
     u = np.full(k, np.nan)
     dof = np.full(k, np.nan)
     if x.shape[0] < 4:
@@ -169,15 +216,18 @@ def _slope_statistics(x: np.ndarray, t: np.ndarray):
     from scipy import fft as _fft  # imported on first use, as in perftest.run.stats
 
     # c_k = sum_i w_i w_{i+k}; the same for every column without a masked sample
-    same = bool(valid.all()) and k > 1
-    w = np.where(valid, np.nan_to_num(dt) / np.where(stt > 0, stt, np.inf), 0.0)
-    w = w[:, :1] if same else w
-    nfft = _fft.next_fast_len(x.shape[0] + K + 1, real=True)
-    fw = _fft.rfft(w, nfft, axis=0)
-    c = _fft.irfft(fw * np.conj(fw), nfft, axis=0)[: K + 1]
+    if complete:
+        c = _weight_products(t, dt, stt[:1], K)
+    else:
+        same = bool(valid.all()) and k > 1
+        w = np.where(valid, np.nan_to_num(dt) / np.where(stt > 0, stt, np.inf), 0.0)
+        w = w[:, :1] if same else w
+        nfft = _fft.next_fast_len(x.shape[0] + K + 1, real=True)
+        fw = _fft.rfft(w, nfft, axis=0)
+        c = _fft.irfft(fw * np.conj(fw), nfft, axis=0)[: K + 1]
     lags = np.arange(K + 1)[:, None]
     inside = lags <= M[None, :]
-    g = np.nan_to_num(gamma) + np.nan_to_num(V)[None, :]
+    g = stats._nan_to_num(gamma) + stats._nan_to_num(V)[None, :]
     terms = np.where(inside, c * g, 0.0)
     num = terms[0] + 2.0 * terms[1:].sum(axis=0)
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -186,6 +236,31 @@ def _slope_statistics(x: np.ndarray, t: np.ndarray):
         u = np.sqrt(np.where(var_b > 0, var_b, np.nan))
         dof = np.maximum(n / (2.0 * M + 1.0) - 2.0, 1.0)
     return slope, u, dof, n, stt
+
+
+# (times as bytes, K) -> c_k of the slope weights: windows of one sampling pattern
+# share their times since the first sample, and with them the weights
+_PRODUCTS: dict = {}
+_PRODUCTS_MAX = 256
+
+
+def _weight_products(t: np.ndarray, dt: np.ndarray, stt: np.ndarray, K: int) -> np.ndarray:
+    """``c_k = sum_i w_i w_{i+k}`` (k = 0 .. K) of the weights ``w = dt / S_tt`` of a
+    complete record, remembered per times ``t`` (from which ``dt`` and ``S_tt`` come)."""
+    key = (t.tobytes(), K)
+    c = _PRODUCTS.get(key)
+    if c is None:
+        from scipy import fft as _fft  # imported on first use, as in perftest.run.stats
+
+        w = dt / np.where(stt > 0, stt, np.inf)
+        nfft = _fft.next_fast_len(len(t) + K + 1, real=True)
+        fw = _fft.rfft(w, nfft, axis=0)
+        c = _fft.irfft(fw * np.conj(fw), nfft, axis=0)[: K + 1].copy()
+        c.setflags(write=False)
+        if len(_PRODUCTS) >= _PRODUCTS_MAX:
+            _PRODUCTS.clear()
+        _PRODUCTS[key] = c
+    return c
 
 
 def _change_text(run, tag: str, change: float) -> str:

@@ -11,7 +11,7 @@ import pandas as pd
 
 from perftest.defaults import MIN_COVERAGE
 from perftest.errors import DataError, InputError
-from perftest.run.common import fmt_time
+from perftest.run.common import column_list, fmt_time
 
 __all__ = [
     "window",
@@ -50,7 +50,20 @@ def _median_step(ticks: np.ndarray, unit: str) -> float:
     if len(ticks) < 2:
         return float("nan")
     t = (ticks - ticks[0]) / _PER_SECOND[unit]
-    return float(np.median(np.diff(t)))
+    steps = np.diff(t)
+    if steps[0] == steps[-1] and (steps == steps[0]).all():
+        return float(steps[0])  # a regular clock: the median is the step (even as a mean of two)
+    return float(np.median(steps))
+
+
+def _seconds(idx: pd.DatetimeIndex) -> np.ndarray:
+    """Seconds since the first time [s], as ``(idx - idx[0]) / pd.Timedelta(seconds=1)``.
+
+    The same doubles (the integer ticks since the first, divided as doubles by the
+    ticks of a second) without building a TimedeltaIndex.
+    """
+    ticks = idx.asi8
+    return (ticks - ticks[0]) / _PER_SECOND[idx.unit]  # (IndexError without times, as idx[0])
 
 
 def coverage(run, tags=None, *, interval=None) -> pd.Series:
@@ -79,37 +92,55 @@ def coverage(run, tags=None, *, interval=None) -> pd.Series:
     ``end - start`` of a cut window ([start, end), see :func:`window`) and, for a
     run that was not cut, last minus first stamp plus one interval.
     """
-    tags = list(run.data.columns) if tags is None else list(tags)
-    idx = run.data.index
-    run_dt = sampling_interval(idx)
-    if list(run.mask.columns) == tags:
+    tags = column_list(run.data.columns) if tags is None else list(tags)
+    if column_list(run.mask.columns) == tags:
         valid = ~run.mask.to_numpy()  # every tag in order: no column selection
     else:
         valid = ~run.mask[tags].to_numpy()
+    shares = _coverage(run, valid, interval).tolist()
+    return pd.Series(dict(zip(tags, shares, strict=True)), dtype=float, name="coverage")
+
+
+def _coverage(run, valid: np.ndarray, interval=None) -> np.ndarray:
+    """:func:`coverage` of the tags whose valid samples are the columns of ``valid``."""
+    idx = run.data.index
+    ticks, unit = idx.asi8, idx.unit
     counts = valid.sum(axis=0)
-    out = {}
-    for j, tg in enumerate(tags):
-        dt = interval
-        if dt is None:
-            dt = run_dt
-            if counts[j] < len(idx) and counts[j] >= 2:  # gaps: the tag's own step
-                own = sampling_interval(idx[valid[:, j]])
-                dt = own if np.isfinite(own) else run_dt
-        out[tg] = _share(int(counts[j]), run, idx, dt)
-    return pd.Series(out, dtype=float, name="coverage")
+    n, k = valid.shape
+    by_dt: dict = {}  # interval -> the tags (positions) sampled at it
+    if interval is not None:
+        by_dt[interval] = list(range(k))
+    else:
+        run_dt = _median_step(ticks, unit)
+        gappy = np.flatnonzero((counts < n) & (counts >= 2))  # gaps: the tag's own step
+        dts = [run_dt] * k
+        for j in gappy:
+            own = _median_step(ticks[valid[:, j]], unit)
+            dts[j] = own if np.isfinite(own) else run_dt
+        if not gappy.size:
+            by_dt[run_dt] = list(range(k))
+        else:
+            for j, dt in enumerate(dts):
+                by_dt.setdefault(dt, []).append(j)
+    out = np.empty(k)
+    for dt, cols in by_dt.items():
+        if not (dt and np.isfinite(dt) and dt > 0):
+            out[cols] = np.where(counts[cols] > 0, 1.0, 0.0)  # one sample: nothing to compare with
+            continue
+        e = _expected(run, idx, dt)
+        out[cols] = counts[cols] / e if e > 0 else np.nan
+    return out
 
 
-def _share(n_valid: int, run, idx, dt) -> float:
-    if not (dt and np.isfinite(dt) and dt > 0):
-        return 1.0 if n_valid else 0.0  # one sample: nothing to compare with
+def _expected(run, idx, dt: float) -> float:
+    """Samples a tag sampled every ``dt`` seconds holds in the run's window."""
     if run.start is not None and run.end is not None:
         span = (run.end - run.start) / pd.Timedelta(seconds=1)
     else:
         lo = run.start if run.start is not None else (idx[0] if len(idx) else None)
         hi = run.end if run.end is not None else (idx[-1] + pd.Timedelta(seconds=dt))
         span = (hi - lo) / pd.Timedelta(seconds=1) if lo is not None else 0.0
-    expected = span / dt
-    return float(n_valid / expected) if expected > 0 else float("nan")
+    return span / dt
 
 
 def check_min_coverage(min_coverage, func: str) -> float:
@@ -278,4 +309,7 @@ def duration_seconds(run) -> float:
     idx = run.data.index
     if len(idx) < 2:
         return 0.0
-    return float((idx[-1] - idx[0]) / pd.Timedelta(seconds=1))
+    # (idx[-1] - idx[0]) / pd.Timedelta(seconds=1): the ticks between, as a double,
+    # over the ticks of a second
+    ticks = idx.asi8
+    return float((ticks[-1] - ticks[0]) / _PER_SECOND[idx.unit])

@@ -396,6 +396,9 @@ _RUN_FIELDS = frozenset(
 )
 
 
+_SECOND = pd.Timedelta(seconds=1)
+
+
 class _Cutter:
     """The windows of one chunk's run, each equal to ``_cut(run, start, end, lean=False)``.
 
@@ -432,15 +435,17 @@ class _Cutter:
             if w is None:
                 return None, 1.0
             return w, _window_coverage(w)
-        i0, i1 = np.searchsorted(self.ns, [self._ns(start), self._ns(end)], side="left")
-        i0, i1 = int(i0), int(i1)
+        ns = self.ns
+        i0 = int(ns.searchsorted(self._ns(start), side="left"))
+        i1 = int(ns.searchsorted(self._ns(end), side="left"))
         if i1 <= i0:
             return None, 1.0
         t0, t1 = pd.Timestamp(start), pd.Timestamp(end)
         dt = self.dt
         n_valid = int(self.any_valid[i0:i1].sum())
+        span = (t1 - t0) / _SECOND
         if np.isfinite(dt) and dt > 0:
-            expected = (t1 - t0) / pd.Timedelta(seconds=1) / dt
+            expected = span / dt
             share = float(n_valid / expected) if expected > 0 else 1.0
         else:
             share = 1.0
@@ -463,5 +468,5 @@ class _Cutter:
         own = _median_step(self.ticks[i0:i1], self.unit)
         if not (np.isfinite(own) and own > 0):
             return w, 1.0
-        expected = (t1 - t0) / pd.Timedelta(seconds=1) / own
+        expected = span / own
         return w, (n_valid / expected if expected > 0 else 1.0)
