@@ -394,7 +394,7 @@ def _compute_row(plant, run, spec, options, start=None, share=None):
         if options.stability:
             stage = "stability"
             # run.stability(warn=False)'s verdicts, without its table
-            tags = list(run.data.columns)
+            tags = list(run.tags)
             st = judge(run, tags)
             failed = (st["passed"] == False).to_numpy(dtype=bool, na_value=False)  # noqa: E712
             bad = [(t, float(r)) for t, r, f in zip(tags, st["ratio"], failed, strict=True) if f]
