@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 
 from perftest.errors import PropertyRangeError
-from perftest.thermo.backend import fast, loop
+from perftest.thermo.backend import _FD_REL_STEP, fast, loop, stencil
 from perftest.thermo.checks import Args, fmt_state, more, prefix, range_hint
 from perftest.thermo.if97 import if97_tsat
 from perftest.thermo.saturation import sat_side_values, tsat_or_nan
@@ -24,6 +24,17 @@ def solve_T(fluid, p, target, key, where):
 
     Returns ``T, x, two_phase, side`` with side +1 vapour/gas, -1 liquid, 0 above
     the critical pressure.
+    """
+    T, x, two, side, _ = _solve(fluid, p, target, key, where)
+    return T, x, two, side
+
+
+def _solve(fluid, p, target, key, where):
+    """:func:`solve_T`, and for IF97 water the saturation temperatures of the states.
+
+    The fifth value is None for other fluids; for IF97 water it is the saturation
+    temperature of :func:`~perftest.thermo.saturation.tsat_or_nan` at every single-
+    phase state (NaN elsewhere), for the saturation rules of :func:`_quiet_T`.
     """
     CP = fluid._CP
     pair = CP.HmassP_INPUTS if key == "h" else CP.PSmass_INPUTS
@@ -38,7 +49,7 @@ def solve_T(fluid, p, target, key, where):
         a, b = (target, p) if key == "h" else (p, target)
         res, ok, err = loop(fluid, pair, a, b, ["T", "x"])
     failed = valid & ~ok
-    if failed.any():
+    if np.count_nonzero(failed):
         i = int(np.flatnonzero(failed)[0])
         state = fmt_state(p[i], h=target[i]) if key == "h" else fmt_state(p[i], s=target[i])
         detail = f" (CoolProp: {err})" if err else ""
@@ -55,7 +66,7 @@ def solve_T(fluid, p, target, key, where):
         tsat = tsat_or_nan(fluid, p)
         side = np.where(p < fluid.p_critical, np.where(T < tsat, -1.0, 1.0), 0.0)
         side[two] = 0.0
-        return T, np.where(two, x, np.nan), two, side
+        return T, np.where(two, x, np.nan), two, side, None
     # IF97: CoolProp's (p, h) and (p, s) use the backward equations alone, whose
     # temperature may be off by up to 25 mK (region 1) or 10 mK (region 2), IF97 Table
     # 3; Newton steps on the forward equation make h(p, T) reproduce the input exactly.
@@ -66,31 +77,34 @@ def solve_T(fluid, p, target, key, where):
     # Near the line the backward T may sit on the wrong side: decide by the
     # saturated values there.
     close = sub & (np.abs(T - tsat) < 0.1)
-    if close.any():
+    if np.count_nonzero(close):
         f, g = sat_side_values(fluid, p[close], key)
         tc = target[close]
         side[close] = np.where(tc <= f, -1.0, np.where(tc >= g, 1.0, side[close]))
+    # the saturation temperature of the (p, T) rules: that of tsat_or_nan, which
+    # leaves it out below the triple-point pressure (Eq. 31 is elementwise, so the
+    # values are those of a call on any subset)
+    tq = np.where(p >= fluid.p_triple, tsat, np.nan)
     single = valid & ~two
-    if single.any():
+    if np.count_nonzero(single):
         idx = np.flatnonzero(single)
         Ti = T[idx].copy()
         pi, ti, si = p[idx], target[idx], side[idx]
-        phase_of = {-1.0: "liquid", 1.0: "vapour", 0.0: "supercritical"}
+        tqi = tq[idx]
+        ts = tsat[idx]
+        keys = [key, "cp"]
         for _ in range(3):
-            val = np.empty(idx.size)
-            cp = np.empty(idx.size)
-            for sv in (-1.0, 0.0, 1.0):
-                m = si == sv
-                if not m.any():
-                    continue
-                ph = phase_of[sv] if sv != 0.0 else None
-                r = pT_quiet(fluid, pi[m], Ti[m], ph, [key, "cp"])
-                val[m], cp[m] = r[key], r["cp"]
+            # the (p, T) values of pT_quiet on each state's side, all in one call
+            # (fast_evaluate treats every point on its own)
+            T_eval, near = _quiet_T(fluid, Ti, tqi, si)
+            r, _ = fast(fluid, CP.PT_INPUTS, pi, T_eval, keys)
+            val, cp = r[key], r["cp"]
+            if near is not None:
+                _extrapolate(r, key, near, Ti, T_eval)
             slope = cp if key == "h" else cp / Ti
             step = (val - ti) / slope
             # keep the iterate on its side of the line (and never on it)
             Tn = Ti - step
-            ts = tsat[idx]
             Tn = np.where(si < 0, np.minimum(Tn, ts - 1e-6), Tn)
             Tn = np.where(si > 0, np.maximum(Tn, ts + 1e-6), Tn)
             ok_step = np.isfinite(Tn)
@@ -99,18 +113,62 @@ def solve_T(fluid, p, target, key, where):
                 break
         T = T.copy()
         T[idx] = Ti
-    return T, np.where(two, x, np.nan), two, side
+    return T, np.where(two, x, np.nan), two, side, tq
+
+
+def _quiet_T(fluid, T, tsat, side):
+    """Where :func:`~perftest.thermo.single_phase.pT_quiet` evaluates IF97 water.
+
+    `tsat` as :func:`~perftest.thermo.saturation.tsat_or_nan` gives it, `side` -1
+    (liquid), +1 (vapour) or 0 (no phase: no anchor).  Returns ``T_eval, near``:
+    states within the saturation margin on a declared side are evaluated at the
+    anchor Tsat -/+ margin; `near` marks them (None when there is none).
+    """
+    margin = fluid.saturation_margin
+    near = (np.abs(T - tsat) <= margin) & (side != 0)
+    if not np.count_nonzero(near):
+        return T, None
+    T_eval = np.where(near, np.where(side < 0, tsat - margin, tsat + margin), T)
+    return T_eval, near
+
+
+def _extrapolate(res, key, near, T, T_eval):
+    """pT_quiet's step along the isobar from the anchor to T, for `key` (h or s)."""
+    Ta = T_eval[near]
+    cpa = res["cp"][near]
+    if key == "h":
+        res["h"][near] += cpa * (T[near] - Ta)
+    else:
+        res["s"][near] += cpa * np.log(T[near] / Ta)
 
 
 def state_from(fluid, p, target, key, where):
     """T, quality and the flat property arrays for (p, h) or (p, s) inputs."""
-    T, x, two, side = solve_T(fluid, p, target, key, where)
+    T, x, two, side, tq = _solve(fluid, p, target, key, where)
     n = p.size
     out = {k: np.full(n, np.nan) for k in ("h", "s", "cp", "rho", "dhdp")}
     out[key] = target.copy()
     other = "s" if key == "h" else "h"
     single = ~two & ~np.isnan(T)
-    if single.any():
+    if tq is not None and np.count_nonzero(single):
+        # IF97 water: the values of pT_quiet on each state's side, the states of
+        # every side in one call (and h only where it is kept or differentiated)
+        ps = p[single]
+        Ts = T[single]
+        T_eval, near = _quiet_T(fluid, Ts, tq[single], side[single])
+        CP = fluid._CP
+        r, _ = fast(fluid, CP.PT_INPUTS, ps, T_eval, [other, "cp", "rho"])
+        # (dh/dp)_T as raw_pT makes it: central difference, both sides in one call
+        m = ps.size
+        dp = _FD_REL_STEP * ps
+        with np.errstate(invalid="ignore"):
+            hpm, _ = fast(fluid, CP.PT_INPUTS, *stencil(ps, dp, T_eval), ["h"])
+            r["dhdp"] = (hpm["h"][:m] - hpm["h"][m:]) / (2.0 * dp)
+        if near is not None:
+            _extrapolate(r, other, near, Ts, T_eval)
+        for k in (other, "cp", "rho", "dhdp"):
+            out[k][single] = r[k]
+    elif np.count_nonzero(single):
         phase_of = {-1.0: "liquid", 1.0: "vapour", 0.0: None}
         for sv in (-1.0, 0.0, 1.0):
             m = single & (side == sv)
@@ -119,7 +177,7 @@ def state_from(fluid, p, target, key, where):
             r = pT_quiet(fluid, p[m], T[m], phase_of[sv], [other, "cp", "rho", "dhdp"])
             for k in (other, "cp", "rho", "dhdp"):
                 out[k][m] = r[k]
-    if two.any():
+    if np.count_nonzero(two):
         r, _, _ = loop(fluid, fluid._CP.PQ_INPUTS, p[two], x[two], [other, "rho"])
         out[other][two] = r[other]
         out["rho"][two] = r["rho"]
