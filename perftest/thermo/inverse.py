@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 
 from perftest.errors import PropertyRangeError
-from perftest.thermo.backend import _FD_REL_STEP, fast, loop, stencil
+from perftest.thermo.backend import _FD_REL_STEP, fast, loop, out_keys, stencil
 from perftest.thermo.checks import Args, fmt_state, more, prefix, range_hint
 from perftest.thermo.if97 import if97_tsat
 from perftest.thermo.saturation import sat_side_values, tsat_or_nan
@@ -30,47 +30,53 @@ def solve_T(fluid, p, target, key, where):
 
 
 def _solve(fluid, p, target, key, where):
-    """:func:`solve_T`, and for IF97 water the saturation temperatures of the states.
+    """:func:`solve_T`, and for IF97 water what the state's values need.
 
-    The fifth value is None for other fluids; for IF97 water it is the saturation
-    temperature of :func:`~perftest.thermo.saturation.tsat_or_nan` at every single-
-    phase state (NaN elsewhere), for the saturation rules of :func:`_quiet_T`.
+    The fifth value is None for other fluids.  For IF97 water it is ``(single, ps,
+    Ts, tqs)``: the mask of the single-phase states, their pressures and
+    temperatures, and their saturation temperatures as
+    :func:`~perftest.thermo.saturation.tsat_or_nan` gives them (for the
+    saturation rules of :func:`_quiet_T`).
     """
     CP = fluid._CP
-    pair = CP.HmassP_INPUTS if key == "h" else CP.PSmass_INPUTS
     n = p.size
-    valid = ~np.isnan(p) & ~np.isnan(target)
+    valid = (p == p) & (target == target)  # (not NaN; cheaper than ~np.isnan twice)
     if fluid.is_if97 and key == "h":
-        res, ok = fast(fluid, pair, target, p, ["T", "x"])
+        res, ok = _evaluate(fluid, CP.HmassP_INPUTS, target, p, ("T", "x"))
         err = None
-    elif fluid.is_if97:
-        res, ok, err = loop(fluid, pair, p, target, ["T", "x"])
     else:
-        a, b = (target, p) if key == "h" else (p, target)
-        res, ok, err = loop(fluid, pair, a, b, ["T", "x"])
-    failed = valid & ~ok
-    if np.count_nonzero(failed):
-        i = int(np.flatnonzero(failed)[0])
-        state = fmt_state(p[i], h=target[i]) if key == "h" else fmt_state(p[i], s=target[i])
-        detail = f" (CoolProp: {err})" if err else ""
-        raise PropertyRangeError(
-            f"{prefix(where)}{state} is outside the range of {fluid.formulation} for "
-            f"{fluid.name}{range_hint(fluid)}.{detail}" + more(failed)
-        )
+        pair = CP.HmassP_INPUTS if key == "h" else CP.PSmass_INPUTS
+        if fluid.is_if97:
+            res, ok, err = loop(fluid, pair, p, target, ["T", "x"])
+        else:
+            a, b = (target, p) if key == "h" else (p, target)
+            res, ok, err = loop(fluid, pair, a, b, ["T", "x"])
+    if ok is not None:
+        failed = valid & ~ok
+        if np.count_nonzero(failed):
+            i = int(np.flatnonzero(failed)[0])
+            state = fmt_state(p[i], h=target[i]) if key == "h" else fmt_state(p[i], s=target[i])
+            detail = f" (CoolProp: {err})" if err else ""
+            raise PropertyRangeError(
+                f"{prefix(where)}{state} is outside the range of {fluid.formulation} for "
+                f"{fluid.name}{range_hint(fluid)}.{detail}" + more(failed)
+            )
     # a NaN input is a gap: its state is NaN, whatever the backend made of it
     T = np.where(valid, res["T"], np.nan)
     x = np.where(valid, res["x"], np.nan)
-    two = (x >= 0) & (x <= 1) & (p < fluid.p_critical)
-    side = np.zeros(n)
+    below = p < fluid.p_critical
+    two = (x >= 0) & (x <= 1) & below
     if not fluid.is_if97:
         tsat = tsat_or_nan(fluid, p)
-        side = np.where(p < fluid.p_critical, np.where(T < tsat, -1.0, 1.0), 0.0)
+        side = np.where(below, np.where(T < tsat, -1.0, 1.0), 0.0)
         side[two] = 0.0
         return T, np.where(two, x, np.nan), two, side, None
     # IF97: CoolProp's (p, h) and (p, s) use the backward equations alone, whose
     # temperature may be off by up to 25 mK (region 1) or 10 mK (region 2), IF97 Table
     # 3; Newton steps on the forward equation make h(p, T) reproduce the input exactly.
-    sub = (p < fluid.p_critical) & ~two & valid
+    side = np.zeros(n)
+    single = valid & ~two
+    sub = below & single
     tsat = np.full(n, np.nan)
     tsat[sub] = if97_tsat(p[sub])
     side[sub] = np.where(T[sub] < tsat[sub], -1.0, 1.0)
@@ -81,51 +87,77 @@ def _solve(fluid, p, target, key, where):
         f, g = sat_side_values(fluid, p[close], key)
         tc = target[close]
         side[close] = np.where(tc <= f, -1.0, np.where(tc >= g, 1.0, side[close]))
-    # the saturation temperature of the (p, T) rules: that of tsat_or_nan, which
-    # leaves it out below the triple-point pressure (Eq. 31 is elementwise, so the
-    # values are those of a call on any subset)
-    tq = np.where(p >= fluid.p_triple, tsat, np.nan)
-    single = valid & ~two
-    if np.count_nonzero(single):
-        idx = np.flatnonzero(single)
-        Ti = T[idx].copy()
-        pi, ti, si = p[idx], target[idx], side[idx]
-        tqi = tq[idx]
-        ts = tsat[idx]
-        keys = [key, "cp"]
+    all_single = np.count_nonzero(single) == n
+    pi, ti, si, ts, Ti = (
+        (p, target, side, tsat, T) if all_single
+        else (p[single], target[single], side[single], tsat[single], T[single])
+    )
+    # The saturation temperature of the (p, T) rules is that of tsat_or_nan, which
+    # leaves it out below the triple-point pressure (Eq. 31 is elementwise: its
+    # values are those of a call on any subset).  Single-phase states off the line
+    # (p >= pc) have side 0 and NaN here, so pT_quiet's "no phase" needs no mask.
+    tqi = np.where(pi >= fluid.p_triple, ts, np.nan)
+    if pi.size:
+        # pT_quiet's Newton steps on each state's side, the states of every side in
+        # one call (fast_evaluate treats every point on its own).  The side bounds
+        # keep the iterate on its side of the line (and never on it): ts -/+ 1e-6 K
+        # on the liquid/vapour side, +/-inf (no bound) elsewhere, so that np.minimum
+        # and np.maximum leave every other iterate as it is, NaN included.
+        upper = np.where(si < 0, ts - 1e-6, np.inf)
+        lower = np.where(si > 0, ts + 1e-6, -np.inf)
+        keys = (key, "cp")
         for _ in range(3):
-            # the (p, T) values of pT_quiet on each state's side, all in one call
-            # (fast_evaluate treats every point on its own)
             T_eval, near = _quiet_T(fluid, Ti, tqi, si)
-            r, _ = fast(fluid, CP.PT_INPUTS, pi, T_eval, keys)
-            val, cp = r[key], r["cp"]
+            r, _ = _evaluate(fluid, CP.PT_INPUTS, pi, T_eval, keys)
             if near is not None:
                 _extrapolate(r, key, near, Ti, T_eval)
+            val, cp = r[key], r["cp"]
             slope = cp if key == "h" else cp / Ti
             step = (val - ti) / slope
-            # keep the iterate on its side of the line (and never on it)
-            Tn = Ti - step
-            Tn = np.where(si < 0, np.minimum(Tn, ts - 1e-6), Tn)
-            Tn = np.where(si > 0, np.maximum(Tn, ts + 1e-6), Tn)
+            Tn = np.maximum(np.minimum(Ti - step, upper), lower)
             ok_step = np.isfinite(Tn)
             Ti = np.where(ok_step, Tn, Ti)
-            if np.all(np.abs(step[ok_step]) < 1e-9 * Ti[ok_step]):
+            if np.count_nonzero(ok_step) == ok_step.size:
+                done = (np.abs(step) < 1e-9 * Ti).all()
+            else:
+                done = (np.abs(step[ok_step]) < 1e-9 * Ti[ok_step]).all()
+            if done:
                 break
-        T = T.copy()
-        T[idx] = Ti
-    return T, np.where(two, x, np.nan), two, side, tq
+        if all_single:
+            T = Ti
+        else:
+            T = T.copy()
+            T[single] = Ti
+    return T, np.where(two, x, np.nan), two, side, (single, pi, Ti, tqi)
+
+
+def _evaluate(fluid, pair, a, b, keys):
+    """``fast_evaluate`` of `keys`: a dict of columns and None when every point passed.
+
+    When a point fails, the values and ok mask of
+    :func:`~perftest.thermo.backend.fast` (which evaluates the call again with its
+    retries; the rare path).
+    """
+    outs = out_keys(fluid, keys)
+    out = np.empty((a.size, outs.size))
+    status = np.empty(a.size, dtype=np.int32)
+    fluid._as.fast_evaluate(pair, a, b, outs, out, status)
+    if np.count_nonzero(status):
+        return fast(fluid, pair, a, b, list(keys))
+    return {k: out[:, i] for i, k in enumerate(keys)}, None
 
 
 def _quiet_T(fluid, T, tsat, side):
     """Where :func:`~perftest.thermo.single_phase.pT_quiet` evaluates IF97 water.
 
-    `tsat` as :func:`~perftest.thermo.saturation.tsat_or_nan` gives it, `side` -1
-    (liquid), +1 (vapour) or 0 (no phase: no anchor).  Returns ``T_eval, near``:
-    states within the saturation margin on a declared side are evaluated at the
-    anchor Tsat -/+ margin; `near` marks them (None when there is none).
+    `tsat` as :func:`~perftest.thermo.saturation.tsat_or_nan` gives it (NaN above
+    the critical pressure, where `side` is 0 and pT_quiet sets no anchor), `side`
+    -1 (liquid) or +1 (vapour) below it.  Returns ``T_eval, near``: states within
+    the saturation margin are evaluated at the anchor Tsat -/+ margin on their
+    side; `near` marks them (None when there is none).
     """
     margin = fluid.saturation_margin
-    near = (np.abs(T - tsat) <= margin) & (side != 0)
+    near = np.abs(T - tsat) <= margin
     if not np.count_nonzero(near):
         return T, None
     T_eval = np.where(near, np.where(side < 0, tsat - margin, tsat + margin), T)
@@ -144,31 +176,32 @@ def _extrapolate(res, key, near, T, T_eval):
 
 def state_from(fluid, p, target, key, where):
     """T, quality and the flat property arrays for (p, h) or (p, s) inputs."""
-    T, x, two, side, tq = _solve(fluid, p, target, key, where)
+    T, x, two, side, if97 = _solve(fluid, p, target, key, where)
     n = p.size
     out = {k: np.full(n, np.nan) for k in ("h", "s", "cp", "rho", "dhdp")}
     out[key] = target.copy()
     other = "s" if key == "h" else "h"
-    single = ~two & ~np.isnan(T)
-    if tq is not None and np.count_nonzero(single):
-        # IF97 water: the values of pT_quiet on each state's side, the states of
-        # every side in one call (and h only where it is kept or differentiated)
-        ps = p[single]
-        Ts = T[single]
-        T_eval, near = _quiet_T(fluid, Ts, tq[single], side[single])
-        CP = fluid._CP
-        r, _ = fast(fluid, CP.PT_INPUTS, ps, T_eval, [other, "cp", "rho"])
-        # (dh/dp)_T as raw_pT makes it: central difference, both sides in one call
-        m = ps.size
-        dp = _FD_REL_STEP * ps
-        with np.errstate(invalid="ignore"):
-            hpm, _ = fast(fluid, CP.PT_INPUTS, *stencil(ps, dp, T_eval), ["h"])
-            r["dhdp"] = (hpm["h"][:m] - hpm["h"][m:]) / (2.0 * dp)
-        if near is not None:
-            _extrapolate(r, other, near, Ts, T_eval)
-        for k in (other, "cp", "rho", "dhdp"):
-            out[k][single] = r[k]
-    elif np.count_nonzero(single):
+    if if97 is not None:
+        single, ps, Ts, tqs = if97
+        if ps.size:
+            # the values of pT_quiet on each state's side, the states of every side
+            # in one call (and h only where it is kept or differentiated)
+            T_eval, near = _quiet_T(fluid, Ts, tqs, side[single])
+            CP = fluid._CP
+            r, _ = _evaluate(fluid, CP.PT_INPUTS, ps, T_eval, (other, "cp", "rho"))
+            # (dh/dp)_T as raw_pT makes it: central difference, both sides in one call
+            m = ps.size
+            dp = _FD_REL_STEP * ps
+            with np.errstate(invalid="ignore"):
+                hpm, _ = _evaluate(fluid, CP.PT_INPUTS, *stencil(ps, dp, T_eval), ("h",))
+                r["dhdp"] = (hpm["h"][:m] - hpm["h"][m:]) / (2.0 * dp)
+            if near is not None:
+                _extrapolate(r, other, near, Ts, T_eval)
+            # (a NaN temperature gives NaN values, as the states left out before)
+            for k in (other, "cp", "rho", "dhdp"):
+                out[k][single] = r[k]
+    else:
+        single = ~two & ~np.isnan(T)
         phase_of = {-1.0: "liquid", 1.0: "vapour", 0.0: None}
         for sv in (-1.0, 0.0, 1.0):
             m = single & (side == sv)
