@@ -13,8 +13,13 @@ import numpy as np
 from perftest.errors import PropertyRangeError
 from perftest.thermo.backend import _FD_REL_STEP, fast, loop, out_keys, stencil
 from perftest.thermo.checks import Args, fmt_state, more, prefix, range_hint
-from perftest.thermo.if97 import if97_tsat
-from perftest.thermo.saturation import sat_side_values, tsat_or_nan
+from perftest.thermo.if97 import P_CRITICAL, P_TRIPLE, if97_tsat
+from perftest.thermo.saturation import (
+    _SCREEN_POINTS,
+    _SCREEN_SLACK,
+    sat_side_values,
+    tsat_or_nan,
+)
 from perftest.thermo.single_phase import pT_quiet
 from perftest.thermo.states import State, make_state
 
@@ -33,10 +38,11 @@ def _solve(fluid, p, target, key, where):
     """:func:`solve_T`, and for IF97 water what the state's values need.
 
     The fifth value is None for other fluids.  For IF97 water it is ``(single, ps,
-    Ts, tqs)``: the mask of the single-phase states, their pressures and
-    temperatures, and their saturation temperatures as
+    Ts, tqs, ss)``: the mask of the single-phase states, their pressures,
+    temperatures, saturation temperatures as
     :func:`~perftest.thermo.saturation.tsat_or_nan` gives them (for the
-    saturation rules of :func:`_quiet_T`).
+    saturation rules of :func:`_quiet_T`; None when every state is far from
+    saturation) and sides.
     """
     CP = fluid._CP
     n = p.size
@@ -74,9 +80,106 @@ def _solve(fluid, p, target, key, where):
     # IF97: CoolProp's (p, h) and (p, s) use the backward equations alone, whose
     # temperature may be off by up to 25 mK (region 1) or 10 mK (region 2), IF97 Table
     # 3; Newton steps on the forward equation make h(p, T) reproduce the input exactly.
-    side = np.zeros(n)
     single = valid & ~two
-    sub = below & single
+    all_single = np.count_nonzero(single) == n
+    pi, ti, Ti = (p, target, T) if all_single else (p[single], target[single], T[single])
+    side = np.zeros(n)
+    solved = _solve_far(fluid, pi, ti, Ti, key) if pi.size else None
+    if solved is not None:
+        Ti, si = solved
+        tqi = None
+    else:
+        Ti, si, tqi = _solve_near(fluid, p, target, T, key, below & single, single)
+    if pi.size:
+        if all_single:
+            T, side = Ti, si
+        else:
+            T = T.copy()
+            T[single] = Ti
+            side[single] = si
+    return T, np.where(two, x, np.nan), two, side, (single, pi, Ti, tqi, si)
+
+
+def _tsat_bracket():
+    """Bounds of the IF97 saturation temperature around any pressure (cached).
+
+    Returns ``q, lo, hi``: with ``k = q.searchsorted(p, "right")``, Tsat(p) of Eq.
+    31 lies in ``[lo[k], hi[k]]`` for triple <= p < critical pressure; ``lo`` is
+    -inf and ``hi`` +inf below the triple-point pressure (no bound), both NaN at
+    and above the critical pressure.  Tsat rises with p, so between two grid
+    pressures it lies between their saturation temperatures; the bounds widen that
+    bracket by a slack that covers the round-off of Eq. 31 (~1e-13 K) a million
+    times.  The grid of :func:`~perftest.thermo.saturation.if97_screen`.
+    """
+    global _BRACKET
+    if _BRACKET is None:
+        q = np.geomspace(P_TRIPLE, P_CRITICAL, _SCREEN_POINTS)
+        q[0], q[-1] = P_TRIPLE, P_CRITICAL
+        ts = if97_tsat(q)
+        lo = np.concatenate(([-np.inf], ts[:-1] - _SCREEN_SLACK, [np.nan]))
+        hi = np.concatenate(([np.inf], ts[1:] + _SCREEN_SLACK, [np.nan]))
+        _BRACKET = q, lo, hi
+    return _BRACKET
+
+
+_BRACKET = None
+
+
+def _solve_far(fluid, p, target, T, key):
+    """The Newton steps of :func:`_solve_near` for states far from saturation.
+
+    `p`, `target`, `T` (the backward temperature) are the single-phase states.
+    When every state below the critical pressure lies more than 0.1 K and the
+    saturation margin from the bracket of its saturation temperature
+    (:func:`_tsat_bracket`), and every Newton iterate stays beyond the margin,
+    :func:`_solve_near` would find the same sides (T against Tsat, with no state
+    close enough to ask the saturated values), evaluate every state where it is
+    (no anchor) and leave every step as it is (its bounds Tsat -/+ 1e-6 K lie
+    inside the margin): the same numbers without Eq. 31.  Returns ``T, side``, or
+    None when a state or an iterate is not that far (the caller then takes
+    :func:`_solve_near` from the start).
+    """
+    q, lo_t, hi_t = _tsat_bracket()
+    k = q.searchsorted(p, "right")
+    lo, hi = lo_t[k], hi_t[k]
+    margin = fluid.saturation_margin
+    d = max(0.1, margin)
+    liq = T < lo - d
+    vap = T > hi + d
+    # above the critical pressure lo and hi are NaN: neither side, no saturation rule
+    if np.count_nonzero(liq | vap | (p >= fluid.p_critical)) != p.size:
+        return None
+    side = np.where(liq, -1.0, np.where(vap, 1.0, 0.0))
+    # iterates must stay below lo - margin (liquid) or above hi + margin (vapour)
+    upper = np.where(liq, lo - margin, np.inf)
+    lower = np.where(vap, hi + margin, -np.inf)
+    CP = fluid._CP
+    keys = (key, "cp")
+    for _ in range(3):
+        r, _ = _evaluate(fluid, CP.PT_INPUTS, p, T, keys)
+        val, cp = r[key], r["cp"]
+        slope = cp if key == "h" else cp / T
+        step = (val - target) / slope
+        Tn = T - step
+        # (a NaN or infinite iterate fails this test as well)
+        if np.count_nonzero((Tn < upper) & (Tn > lower)) != Tn.size:
+            return None
+        T = Tn
+        if (np.abs(step) < 1e-9 * T).all():
+            break
+    return T, side
+
+
+def _solve_near(fluid, p, target, T, key, sub, single):
+    """Newton steps on the forward equation with the saturation rules, in full.
+
+    `sub` marks the single-phase states below the critical pressure, `single` all
+    single-phase states (flat masks over `p`).  Returns the refined temperatures,
+    sides and saturation temperatures (those of
+    :func:`~perftest.thermo.saturation.tsat_or_nan`) of the `single` states.
+    """
+    n = p.size
+    side = np.zeros(n)
     tsat = np.full(n, np.nan)
     tsat[sub] = if97_tsat(p[sub])
     side[sub] = np.where(T[sub] < tsat[sub], -1.0, 1.0)
@@ -87,48 +190,39 @@ def _solve(fluid, p, target, key, where):
         f, g = sat_side_values(fluid, p[close], key)
         tc = target[close]
         side[close] = np.where(tc <= f, -1.0, np.where(tc >= g, 1.0, side[close]))
-    all_single = np.count_nonzero(single) == n
-    pi, ti, si, ts, Ti = (
-        (p, target, side, tsat, T) if all_single
-        else (p[single], target[single], side[single], tsat[single], T[single])
-    )
+    pi, ti, si, ts, Ti = p[single], target[single], side[single], tsat[single], T[single]
     # The saturation temperature of the (p, T) rules is that of tsat_or_nan, which
     # leaves it out below the triple-point pressure (Eq. 31 is elementwise: its
     # values are those of a call on any subset).  Single-phase states off the line
     # (p >= pc) have side 0 and NaN here, so pT_quiet's "no phase" needs no mask.
     tqi = np.where(pi >= fluid.p_triple, ts, np.nan)
-    if pi.size:
-        # pT_quiet's Newton steps on each state's side, the states of every side in
-        # one call (fast_evaluate treats every point on its own).  The side bounds
-        # keep the iterate on its side of the line (and never on it): ts -/+ 1e-6 K
-        # on the liquid/vapour side, +/-inf (no bound) elsewhere, so that np.minimum
-        # and np.maximum leave every other iterate as it is, NaN included.
-        upper = np.where(si < 0, ts - 1e-6, np.inf)
-        lower = np.where(si > 0, ts + 1e-6, -np.inf)
-        keys = (key, "cp")
-        for _ in range(3):
-            T_eval, near = _quiet_T(fluid, Ti, tqi, si)
-            r, _ = _evaluate(fluid, CP.PT_INPUTS, pi, T_eval, keys)
-            if near is not None:
-                _extrapolate(r, key, near, Ti, T_eval)
-            val, cp = r[key], r["cp"]
-            slope = cp if key == "h" else cp / Ti
-            step = (val - ti) / slope
-            Tn = np.maximum(np.minimum(Ti - step, upper), lower)
-            ok_step = np.isfinite(Tn)
-            Ti = np.where(ok_step, Tn, Ti)
-            if np.count_nonzero(ok_step) == ok_step.size:
-                done = (np.abs(step) < 1e-9 * Ti).all()
-            else:
-                done = (np.abs(step[ok_step]) < 1e-9 * Ti[ok_step]).all()
-            if done:
-                break
-        if all_single:
-            T = Ti
+    # pT_quiet's Newton steps on each state's side, the states of every side in one
+    # call (fast_evaluate treats every point on its own).  The side bounds keep the
+    # iterate on its side of the line (and never on it): ts -/+ 1e-6 K on the
+    # liquid/vapour side, +/-inf (no bound) elsewhere, so that np.minimum and
+    # np.maximum leave every other iterate as it is, NaN included.
+    upper = np.where(si < 0, ts - 1e-6, np.inf)
+    lower = np.where(si > 0, ts + 1e-6, -np.inf)
+    CP = fluid._CP
+    keys = (key, "cp")
+    for _ in range(3):
+        T_eval, near = _quiet_T(fluid, Ti, tqi, si)
+        r, _ = _evaluate(fluid, CP.PT_INPUTS, pi, T_eval, keys)
+        if near is not None:
+            _extrapolate(r, key, near, Ti, T_eval)
+        val, cp = r[key], r["cp"]
+        slope = cp if key == "h" else cp / Ti
+        step = (val - ti) / slope
+        Tn = np.maximum(np.minimum(Ti - step, upper), lower)
+        ok_step = np.isfinite(Tn)
+        Ti = np.where(ok_step, Tn, Ti)
+        if np.count_nonzero(ok_step) == ok_step.size:
+            done = (np.abs(step) < 1e-9 * Ti).all()
         else:
-            T = T.copy()
-            T[single] = Ti
-    return T, np.where(two, x, np.nan), two, side, (single, pi, Ti, tqi)
+            done = (np.abs(step[ok_step]) < 1e-9 * Ti[ok_step]).all()
+        if done:
+            break
+    return Ti, si, tqi
 
 
 def _evaluate(fluid, pair, a, b, keys):
@@ -182,11 +276,12 @@ def state_from(fluid, p, target, key, where):
     out[key] = target.copy()
     other = "s" if key == "h" else "h"
     if if97 is not None:
-        single, ps, Ts, tqs = if97
+        single, ps, Ts, tqs, ss = if97
         if ps.size:
             # the values of pT_quiet on each state's side, the states of every side
-            # in one call (and h only where it is kept or differentiated)
-            T_eval, near = _quiet_T(fluid, Ts, tqs, side[single])
+            # in one call (and h only where it is kept or differentiated); far from
+            # saturation (tqs None) no state is near the line
+            T_eval, near = (Ts, None) if tqs is None else _quiet_T(fluid, Ts, tqs, ss)
             CP = fluid._CP
             r, _ = _evaluate(fluid, CP.PT_INPUTS, ps, T_eval, (other, "cp", "rho"))
             # (dh/dp)_T as raw_pT makes it: central difference, both sides in one call
