@@ -4,6 +4,17 @@ For ``"water"`` (IAPWS-IF97) CoolProp returns the temperature of the backward
 equations, consistent with the forward equations to 25 mK; Newton steps on the
 forward equation refine it so that h(p, T(p, h)) reproduces h to 1e-9 relative.
 Other fluids use CoolProp's iterative HEOS solver as it is.
+
+For IF97 water the Newton steps of all states of a call, liquid, vapour and
+supercritical, go to CoolProp in one array call per step (it evaluates every point
+on its own, so the numbers are those of one call per side), with the saturation
+rules of :func:`~perftest.thermo.single_phase.pT_quiet` (anchor within the margin,
+steps kept on their side of the line) applied per state.  When every state lies
+well away from the line (a bracket of Tsat(p) on a grid decides, as for (p, T)
+states), the steps skip Eq. 31 and the rules, which would change nothing there
+(:func:`_solve_far`); otherwise, or when an iterate comes near the line, the call
+takes the full rules from the start (:func:`_solve_near`).  Both give the same
+floating-point numbers as one ``pT_quiet`` call per side and Newton step.
 """
 
 from __future__ import annotations
@@ -84,20 +95,25 @@ def _solve(fluid, p, target, key, where):
     all_single = np.count_nonzero(single) == n
     pi, ti, Ti = (p, target, T) if all_single else (p[single], target[single], T[single])
     side = np.zeros(n)
-    solved = _solve_far(fluid, pi, ti, Ti, key) if pi.size else None
+    if not pi.size:  # wet states and gaps only
+        return T, np.where(two, x, np.nan), two, side, (single, pi, Ti, None, side[single])
+    solved = _solve_far(fluid, pi, ti, Ti, key)
     if solved is not None:
         Ti, si = solved
         tqi = None
     else:
         Ti, si, tqi = _solve_near(fluid, p, target, T, key, below & single, single)
-    if pi.size:
-        if all_single:
-            T, side = Ti, si
-        else:
-            T = T.copy()
-            T[single] = Ti
-            side[single] = si
+    if all_single:
+        T, side = Ti, si
+    else:
+        T = T.copy()
+        T[single] = Ti
+        side[single] = si
     return T, np.where(two, x, np.nan), two, side, (single, pi, Ti, tqi, si)
+
+
+# the bracket of _tsat_bracket, built on first use
+_BRACKET = None
 
 
 def _tsat_bracket():
@@ -120,9 +136,6 @@ def _tsat_bracket():
         hi = np.concatenate(([np.inf], ts[1:] + _SCREEN_SLACK, [np.nan]))
         _BRACKET = q, lo, hi
     return _BRACKET
-
-
-_BRACKET = None
 
 
 def _solve_far(fluid, p, target, T, key):
@@ -272,8 +285,10 @@ def state_from(fluid, p, target, key, where):
     """T, quality and the flat property arrays for (p, h) or (p, s) inputs."""
     T, x, two, side, if97 = _solve(fluid, p, target, key, where)
     n = p.size
-    out = {k: np.full(n, np.nan) for k in ("h", "s", "cp", "rho", "dhdp")}
-    out[key] = target.copy()
+    names = ("h", "s", "cp", "rho", "dhdp")
+    rows = np.full((len(names), n), np.nan)  # one block, a row per output
+    rows[names.index(key)] = target
+    out = dict(zip(names, rows, strict=True))
     other = "s" if key == "h" else "h"
     if if97 is not None:
         single, ps, Ts, tqs, ss = if97
@@ -306,10 +321,30 @@ def state_from(fluid, p, target, key, where):
             for k in (other, "cp", "rho", "dhdp"):
                 out[k][m] = r[k]
     if np.count_nonzero(two):
-        r, _, _ = loop(fluid, fluid._CP.PQ_INPUTS, p[two], x[two], [other, "rho"])
-        out[other][two] = r[other]
-        out["rho"][two] = r["rho"]
+        vo, vr = _wet(fluid, p[two], x[two], other)
+        out[other][two] = vo
+        out["rho"][two] = vr
     return T, x, out
+
+
+def _wet(fluid, p, x, other):
+    """`other` (h or s) and rho of wet states at (p, x) (flat arrays).
+
+    The ``PQ_INPUTS`` updates of :func:`~perftest.thermo.backend.loop` in the same
+    order, with its NaN for a point that fails.
+    """
+    AS, pair = fluid._as, fluid._CP.PQ_INPUTS
+    get_o, get_rho = fluid._getters[other], fluid._getters["rho"]
+    vo = np.full(p.size, np.nan)
+    vr = np.full(p.size, np.nan)
+    for i, (pi, xi) in enumerate(zip(p.tolist(), x.tolist(), strict=True)):
+        try:
+            AS.update(pair, pi, xi)
+            vo[i] = get_o()
+            vr[i] = get_rho()
+        except (ValueError, IndexError, RuntimeError):
+            pass  # NaN values, as loop() leaves them
+    return vo, vr
 
 
 def state_ph(fluid, p, h, *, where=None) -> State:
