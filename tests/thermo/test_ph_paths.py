@@ -171,9 +171,16 @@ def test_lean_path_equals_the_full_rules(monkeypatch):
     pc, hc = _far_states(200, rng, supercritical=False)
     sc = WATER.state_ph(pc, hc).s
 
+    # states 0 to 0.3 K from the line, each in a call of its own: the lean path
+    # takes those beyond the bracket of Tsat and the margin, the rules the others
+    pb = np.exp(rng.uniform(np.log(2e3), np.log(2.1e7), 150))
+    Tb = if97_tsat(pb) + rng.uniform(-0.3, 0.3, pb.size)
+    hb = _h_pT(pb, Tb)
+
     def calls():
         out = [WATER.state_ph(pf, hf), WATER.state_ph(p, h), WATER.state_ps(pc, sc)]
         out += [WATER.state_ph(pf[i : i + 1], hf[i : i + 1]) for i in range(0, 200, 9)]
+        out += [WATER.state_ph(pb[i : i + 1], hb[i : i + 1]) for i in range(pb.size)]
         return out
 
     lean = calls()
