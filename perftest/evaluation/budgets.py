@@ -12,6 +12,7 @@ References
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Callable
 
@@ -170,6 +171,32 @@ def _check_level(level, func: str) -> float:
             parameter="level",
         )
     return float(level)
+
+
+@functools.lru_cache(maxsize=64)
+def _normal_quantile(q: float) -> float:
+    from scipy import stats
+
+    return stats.norm.ppf(q)
+
+
+def _coverage_factors(dof: np.ndarray, level: float) -> np.ndarray:
+    """``coverage_factor(dof, level)`` of an (m,) array of dof, as an (m,) array.
+
+    The same numbers: Student's t quantile ``scipy.special.stdtrit`` (what
+    ``scipy.stats.t.ppf`` computes for 0 < q < 1 and dof > 0), the normal quantile
+    for infinite dof, without ``scipy.stats``' argument handling (most of the cost
+    for a few dozen results).  Arguments ``coverage_factor`` would refuse go to it,
+    so the errors are its own.
+    """
+    nu = np.asarray(dof, dtype=float)
+    if nu.ndim != 1 or not 0.0 < level < 1.0 or np.any(np.isnan(nu)) or np.any(nu <= 0):
+        return np.atleast_1d(np.asarray(coverage_factor(nu, level), dtype=float))
+    from scipy import special
+
+    q = 0.5 + level / 2.0
+    inf = np.isinf(nu)
+    return np.where(inf, _normal_quantile(q), special.stdtrit(np.where(inf, 1.0, nu), q))
 
 
 def effective_dof(sensitivities, cov, dof) -> np.ndarray:

@@ -31,11 +31,11 @@ from perftest.evaluation.budgets import (
     _as_vector,
     _call,
     _check_level,
+    _coverage_factors,
     _names,
     effective_dof,
     to_ufloats,
 )
-from perftest.run.stats import coverage_factor
 
 __all__ = ["Propagation", "propagate", "propagate_linear"]
 
@@ -201,7 +201,7 @@ def _finish(
     dof = effective_dof(s, c, nu) if np.any(np.isfinite(nu)) else np.full(u.size, np.inf)
     if k is None:
         lev = _check_level(level, func)
-        kk = np.atleast_1d(np.asarray(coverage_factor(dof, lev), dtype=float))
+        kk = _coverage_factors(dof, lev)
     else:
         if not float(k) > 0:
             raise InputError(

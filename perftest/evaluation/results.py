@@ -51,8 +51,10 @@ from perftest.evaluation.fuel_basis import (  # noqa: F401 - re-exported
     _metering_conditions,
     fuel_exergy_ratio,
 )
+from perftest.evaluation.frames import ResultsLayout
 from perftest.evaluation.guarantees import VERDICT_COLUMNS
 from perftest.evaluation.kinds import DESCRIPTIONS, RESULT_UNITS  # noqa: F401 - re-exported
+from perftest.evaluation.memo import plant_memo
 from perftest.evaluation.plant_keys import (  # noqa: F401 - re-exported
     _check_name,
     _performance_table,
@@ -292,38 +294,52 @@ def evaluate(
         )
     rec = reconciliation
     bare = _RESULTS_ONLY.get()
-    table = _performance_table(plant)
-    needs = kinds.gather(plant, table, rec)
+    # Work that depends on the plant file only is kept per plant (memo.py); each
+    # step still runs in its place, so errors come in the same order.
+    memo = plant_memo(plant)
+    step = memo.get if memo is not None else _compute
+    table = step("performance", _performance_table, plant)
+    # rec.value of each name once per call (gather, the checks and the inputs)
+    seen: dict = {}
+
+    def value(n):
+        try:
+            return seen[n]
+        except KeyError:
+            v = seen[n] = rec.value(n)
+            return v
+
+    needs = kinds.gather(plant, table, rec, value=value)
     notes: list[str] = list(needs.notes)
 
     # ---- inputs taken from the reconciliation (joint covariance)
     refs: dict = {}  # input name -> role (the first role that uses it)
     for role, ns in needs.refs.items():
         for n in ns:
-            _check_name(rec, n, f"performance.{role}", plant)
+            _check_name(rec, n, f"performance.{role}", plant, value)
             refs.setdefault(n, role)
     fuel = None
     if table.get("heat_input") == "fuel" or needs.kind == "boiler":
-        fuel = _fuel_basis(plant, table)
+        fuel = dict(step("fuel", _fuel_basis, plant, table))
         notes += fuel.pop("notes")
-        _check_name(rec, fuel["flow"], f"fuel.{fuel['per']}_flow", plant)
+        _check_name(rec, fuel["flow"], f"fuel.{fuel['per']}_flow", plant, value)
         refs.setdefault(fuel["flow"], "fuel_flow")
         fuel["flow_name"] = fuel["flow"]
         fuel["hv_name"] = f"fuel.{fuel['basis']}"
     for n in needs.names():
         if n not in refs:
-            _check_name(rec, n, "performance", plant)
+            _check_name(rec, n, "performance", plant, value)
             refs[n] = "stream state"
-    check_correction_entries(plant)
-    curves = curves_from_plant(plant)
+    step("correction entries", check_correction_entries, plant)
+    curves = step("curves", curves_from_plant, plant)
     for c in curves:
         for var in c.variables:
             if var not in refs:
-                _check_name(rec, var, "corrections", plant)
+                _check_name(rec, var, "corrections", plant, value)
                 refs[var] = f"condition:{var}"
 
     rec_names = list(refs)
-    x_rec = np.array([rec.value(n) for n in rec_names], dtype=float)
+    x_rec = np.array([value(n) for n in rec_names], dtype=float)
     cov_rec = np.asarray(rec.covariance(rec_names), dtype=float)
     names = list(rec_names)
     x = list(x_rec)
@@ -365,8 +381,12 @@ def evaluate(
     corrected_of = {r: cs for r, cs in corrected_of.items() if r in base_outputs}
     outputs = base_outputs + [f"corrected_{r}" for r in corrected_of]
 
+    y_at_x = None  # the results at x, once computed
+
     def model(v):
         """Results from inputs; ``v`` is (n_in,) or (n_in, N) (rows = inputs)."""
+        if y_at_x is not None and v.shape == x.shape and np.array_equal(v, x):
+            return y_at_x.copy()
         out = kinds.outputs(needs, lambda n: v[pos[n]], fuel)
         conditions = {var: v[pos[var]] for c in curves for var in c.variables}
         for result, cs in corrected_of.items():
@@ -376,13 +396,14 @@ def evaluate(
     # Check the arithmetic against the one-function-per-relation module: the values
     # must agree with perftest.evaluation.performance at the estimate.
     y0 = model(x)
+    y_at_x = y0.copy()
     kinds.cross_check(needs.kind, dict(zip(outputs, y0, strict=True)), needs.T0)
 
     # Degrees of freedom of each input: a measured tag (or a model variable it
     # measures) carries its averaged measurement's dof; the rest count as infinite.
     # Welch-Satterthwaite over these inputs then gives each result's effective dof
     # and its coverage factor from Student's t (GUM G.4).
-    dof_in = np.array([_input_dof(rec, n) for n in names], dtype=float)
+    dof_in = _input_dofs(rec, names)
     prop = unc.propagate(
         model,
         x,
@@ -394,18 +415,10 @@ def evaluate(
         dof=dof_in,
     )
     basis = fuel["basis"] if fuel is not None else ""
-    bases = [
-        basis if o.removeprefix("corrected_") in kinds.HEATING_VALUE_RESULTS else ""
-        for o in outputs
-    ]
-    results = prop.results_table(
-        [_unit_of(o) for o in outputs],
-        [
-            kinds.describe(o, needs.kind) + (f" ({b.upper()})" if b else "")
-            for o, b in zip(outputs, bases, strict=True)
-        ],
-        bases,
+    layout = step(
+        ("layout", tuple(outputs), needs.kind, basis), _results_layout, outputs, needs.kind, basis
     )
+    results = layout.frame(prop.value, prop.u, prop.U, prop.k, prop.dof)
     if needs.kind == "refrigeration" and "heat_rejected" in needs.refs:
         results, cov_out_extra = _with_heat_balance(rec, needs, results, notes, level)
     else:
@@ -419,7 +432,7 @@ def evaluate(
             n for n in b.index if roles.get(n) == "stream state" and b.loc[n, "sensitivity"] == 0
         ]
         budget_tables[o] = b.drop(index=unused).copy()
-    cov_out = pd.DataFrame(prop.cov, index=outputs, columns=outputs)
+    cov_out = layout.square(prop.cov)
     block = None
     if needs.fired:
         from perftest.evaluation.boiler import boiler_results
@@ -508,8 +521,11 @@ def evaluate(
 
     # ---- guarantees
     g_rows = []
-    check_guarantee_units(plant, results)
-    for g in guarantees_from_plant(plant):
+    if results.shape[0] == len(outputs):  # the rows of the layout: its units by name
+        step(("guarantee units", layout.names), check_guarantee_units, plant, results)
+    else:
+        check_guarantee_units(plant, results)
+    for g in step("guarantees", guarantees_from_plant, plant):
         if g.quantity not in results.index:
             raise _plant_error(
                 plant,
@@ -645,12 +661,71 @@ def _corrected_boiler_results(corrected, results, cov_out, x, cov, pos, level):
     return results, cov_out, extra
 
 
+def _compute(key, compute, *args):
+    """A step without a memo: ``compute(*args)``."""
+    return compute(*args)
+
+
+def _results_layout(outputs: list, kind: str, basis: str) -> ResultsLayout:
+    """Rows of the results table: units, descriptions and bases of ``outputs``."""
+    bases = [
+        basis if o.removeprefix("corrected_") in kinds.HEATING_VALUE_RESULTS else ""
+        for o in outputs
+    ]
+    layout = ResultsLayout(
+        outputs,
+        [_unit_of(o) for o in outputs],
+        [
+            kinds.describe(o, kind) + (f" ({b.upper()})" if b else "")
+            for o, b in zip(outputs, bases, strict=True)
+        ],
+        bases,
+    )
+    return layout
+
+
 def _unit_of(name: str) -> str:
     return RESULT_UNITS.get(name.removeprefix("corrected_"), "")
 
 
 def _describe(name: str) -> str:
     return kinds.describe(name)
+
+
+def _input_dofs(rec, names) -> np.ndarray:
+    """:func:`_input_dof` of each name, as an array (the tables read once)."""
+    meas = getattr(rec, "measurements", None)
+    tags = tuple(getattr(meas, "tags", ()))
+    if not tags:
+        return np.full(len(names), math.inf)
+    dof = np.asarray(meas.dof, dtype=float)
+    first: dict = {}
+    for i, t in enumerate(tags):
+        first.setdefault(t, i)
+    model = getattr(rec, "model", None)
+    sources = getattr(model, "sources", {}) if model is not None else {}
+    low = None
+    out = np.empty(len(names))
+    for j, name in enumerate(names):
+        if name in first:
+            d = float(dof[first[name]])
+            out[j] = d if d > 0 else math.inf
+            continue
+        src = sources.get(name)
+        kind = getattr(src, "kind", None)
+        if kind == "fixed":
+            out[j] = math.inf
+        elif kind == "measured" and getattr(src, "tag", None) in first:
+            d = float(dof[first[src.tag]])
+            out[j] = d if d > 0 else math.inf
+        elif name.startswith("fuel."):
+            out[j] = math.inf
+        else:
+            if low is None:
+                finite = dof[np.isfinite(dof) & (dof > 0)]
+                low = float(finite.min()) if finite.size else math.inf
+            out[j] = low
+    return out
 
 
 def _input_dof(rec, name: str) -> float:
