@@ -51,7 +51,7 @@ from perftest.evaluation.fuel_basis import (  # noqa: F401 - re-exported
     _metering_conditions,
     fuel_exergy_ratio,
 )
-from perftest.evaluation.frames import ResultsLayout
+from perftest.evaluation.frames import ResultsLayout, empty_frame
 from perftest.evaluation.guarantees import VERDICT_COLUMNS
 from perftest.evaluation.kinds import DESCRIPTIONS, RESULT_UNITS  # noqa: F401 - re-exported
 from perftest.evaluation.memo import plant_memo
@@ -502,7 +502,7 @@ def evaluate(
             )
         )
     corrections = (
-        pd.DataFrame()
+        empty_frame()
         if bare
         else pd.DataFrame(
             corr_rows,
@@ -538,7 +538,7 @@ def evaluate(
         g_rows.append(
             g.judge(float(results.loc[g.quantity, "value"]), float(results.loc[g.quantity, "U95"]))
         )
-    guarantees = pd.DataFrame() if bare else pd.DataFrame(g_rows, columns=list(VERDICT_COLUMNS))
+    guarantees = empty_frame() if bare else pd.DataFrame(g_rows, columns=list(VERDICT_COLUMNS))
 
     # ---- exergy per unit
     products: dict = {}
@@ -548,10 +548,10 @@ def evaluate(
         )
         notes += ex_notes
     else:
-        exergy, losses, closure = pd.DataFrame(), {}, None
+        exergy, losses, closure = empty_frame(), {}, None
 
     if bare:
-        inputs = pd.DataFrame()
+        inputs = empty_frame()
     else:
         inputs = pd.DataFrame(
             {"value": x, "u": np.sqrt(np.diag(cov)), "role": [roles[n] for n in names]},
