@@ -101,7 +101,7 @@ def plant_memo(plant) -> PlantMemo | None:
         )
     except (TypeError, copy.Error, RecursionError):
         return None  # no weak reference, or sections that cannot be copied
-    if not memo.matches(plant):  # e.g. NaN in the tables (NaN != NaN): never reusable
+    if not memo.matches(plant):  # e.g. arrays in the tables: == gives no verdict
         return None
     with _LOCK:
         _MEMOS[key] = memo
