@@ -392,6 +392,18 @@ def _flows(val, streams, var: str):
     return total, mass
 
 
+def _enthalpy_entropy_flows(val, streams):
+    """Sums of mass_flow * enthalpy and of mass_flow * entropy over streams (the
+    sums of :func:`_flows`, term by term in the same order)."""
+    h_total = 0.0
+    s_total = 0.0
+    for s in streams:
+        m = val(f"{s}.mass_flow")
+        h_total = h_total + m * val(f"{s}.enthalpy")
+        s_total = s_total + m * val(f"{s}.entropy")
+    return h_total, s_total
+
+
 def outputs(needs: Needs, val, fuel: dict | None) -> dict:
     """Every result of the kind from the inputs.
 
@@ -461,16 +473,12 @@ def outputs(needs: Needs, val, fuel: dict | None) -> dict:
             if needs.boilers:
                 dh_in = ds_in = dh_out = ds_out = 0.0
                 for ins, outs in needs.boilers:
-                    h_o, _ = _flows(val, outs, "enthalpy")
-                    h_i, _ = _flows(val, ins, "enthalpy")
-                    s_o, _ = _flows(val, outs, "entropy")
-                    s_i, _ = _flows(val, ins, "entropy")
+                    h_o, s_o = _enthalpy_entropy_flows(val, outs)
+                    h_i, s_i = _enthalpy_entropy_flows(val, ins)
                     dh_in, ds_in = dh_in + h_o - h_i, ds_in + s_o - s_i
                 for ins, outs in needs.condensers:
-                    h_o, _ = _flows(val, outs, "enthalpy")
-                    h_i, _ = _flows(val, ins, "enthalpy")
-                    s_o, _ = _flows(val, outs, "entropy")
-                    s_i, _ = _flows(val, ins, "entropy")
+                    h_o, s_o = _enthalpy_entropy_flows(val, outs)
+                    h_i, s_i = _enthalpy_entropy_flows(val, ins)
                     dh_out, ds_out = dh_out + h_i - h_o, ds_out + s_i - s_o
                 tm_in = dh_in / ds_in
                 tm_out = dh_out / ds_out

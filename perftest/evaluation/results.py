@@ -387,7 +387,7 @@ def evaluate(
     def model(v):
         """Results from inputs; ``v`` is (n_in,) or (n_in, N) (rows = inputs)."""
         for at, y in known:
-            if v.shape == at.shape and np.array_equal(v, at):
+            if v.shape == at.shape and (v == at).all():  # the same points (no NaN in x)
                 return y.copy()
         out = kinds.outputs(needs, lambda n: v[pos[n]], fuel)
         conditions = {var: v[pos[var]] for c in curves for var in c.variables}
