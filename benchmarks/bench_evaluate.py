@@ -114,10 +114,15 @@ def measure(repeats: int, table: str | None) -> dict:
 
 
 def _child(source: Path, repeats: int, table: str) -> dict:
-    env = dict(os.environ, PYTHONPATH=os.pathsep.join([str(source), os.environ.get("PYTHONPATH", "")]))
+    env = dict(
+        os.environ, PYTHONPATH=os.pathsep.join([str(source), os.environ.get("PYTHONPATH", "")])
+    )
     cmd = [sys.executable, __file__, "--child", "--repeats", str(repeats), "--table", table]
     out = subprocess.run(cmd, capture_output=True, text=True, check=True, env=env)
-    return json.loads(out.stdout.strip().splitlines()[-1])
+    got = json.loads(out.stdout.strip().splitlines()[-1])
+    if Path(got["tree"]).resolve() != source.resolve():
+        raise SystemExit(f"the child imported perftest from {got['tree']}, not {source}")
+    return got
 
 
 def _same_tables(a: str, b: str) -> str:
@@ -154,7 +159,9 @@ def main(argv=None) -> int:
         sys.path.insert(0, str(ROOT))
         now = measure(opts.repeats, None)
         before = dict(REFERENCE_MS)
-        print(f"{now['windows']} windows of {WINDOW}; reference: REFERENCE_MS (load now {load:.2f})")
+        print(
+            f"{now['windows']} windows of {WINDOW}; reference: REFERENCE_MS (load now {load:.2f})"
+        )
         pairs = [(before, now)]
     else:
         pairs = []

@@ -108,7 +108,6 @@ class ResultsLayout:
             self.names, value, u, U, k, dof, self._units, self._descriptions, self._bases
         )
 
-
     def square(self, matrix: np.ndarray) -> pd.DataFrame:
         """``pd.DataFrame(matrix, index=names, columns=names)`` (a covariance)."""
         return pd.DataFrame(matrix, index=self._plain.view(), columns=self._plain.view())

@@ -25,6 +25,7 @@ from perftest.evaluation import results as results_module
 from perftest.evaluation.budgets import _coverage_factors
 from perftest.evaluation.corrections import CorrectionCurve
 from perftest.evaluation.frames import ResultsLayout, empty_frame, results_frame
+from perftest.evaluation.linear_inputs import input_dof, input_dofs
 from perftest.evaluation.results import evaluate, results_only
 from perftest.plant.file import load_plant
 from perftest.run.stats import coverage_factor
@@ -343,8 +344,8 @@ def test_input_dofs_equal_the_per_name_rule(tmp_path):
     rec = StandIn(VALUES, U)
     rec.measurements, rec.model = Meas(), Model()
     names = ["JT-1", "FT-F", "s.mass_flow", "s.pressure", "fuel.lhv", "boiler.heat"]
-    want = [results_module._input_dof(rec, n) for n in names]
-    assert list(results_module._input_dofs(rec, names)) == want
+    want = [input_dof(rec, n) for n in names]
+    assert list(input_dofs(rec, names)) == want
     assert want == [12.0, np.inf, np.inf, np.inf, np.inf, 3.0]  # 0 dof counts as exact
 
 
