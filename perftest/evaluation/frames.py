@@ -25,7 +25,7 @@ try:  # pandas >= 3
 except ImportError:  # pragma: no cover - pandas 2: the constructor is used
     _from_blocks = None
 
-__all__ = ["RESULT_COLUMNS", "ResultsLayout", "results_frame", "empty_frame"]
+__all__ = ["RESULT_COLUMNS", "ResultsLayout", "results_frame", "empty_frame", "budget_frames"]
 
 #: Columns of the results table, in order.
 RESULT_COLUMNS = ("value", "u", "U95", "unit", "k", "dof", "description", "basis")
@@ -119,3 +119,52 @@ _EMPTY = pd.DataFrame()
 def empty_frame() -> pd.DataFrame:
     """A new ``pd.DataFrame()`` (a deep copy of one kept: a third of the cost)."""
     return _EMPTY.copy(deep=True)
+
+
+#: Columns of a result's uncertainty budget in :attr:`Performance.budgets`.
+BUDGET_COLUMNS = ("estimate", "u", "sensitivity", "u_contribution", "share")
+
+
+def budget_frames(prop, outputs, droppable) -> dict:
+    """Uncertainty budget of each output, without the droppable inputs it does not use.
+
+    Parameters
+    ----------
+    prop : perftest.evaluation.propagation.Propagation
+    outputs : sequence of str
+        Output names (of ``prop``) to tabulate.
+    droppable : sequence of bool
+        Per input of ``prop``: left out of an output's budget where its sensitivity
+        is zero.
+
+    Returns
+    -------
+    dict[str, pandas.DataFrame]
+        ``prop.budget_for(o)[list(BUDGET_COLUMNS)]`` without those rows (index
+        ``input``): the same numbers, from the arrays instead of the long table.
+    """
+    s = prop.sensitivities
+    u_x = np.asarray(prop.u_x, dtype=float)
+    x = np.asarray(prop.x, dtype=float)
+    var_y = prop.u**2
+    with np.errstate(divide="ignore", invalid="ignore"):
+        share = np.where(var_y[:, None] > 0, prop.contributions / var_y[:, None], np.nan)
+    u_contribution = np.abs(s * u_x)
+    names = np.asarray(prop.input_names, dtype=object)
+    drop = np.asarray(droppable, dtype=bool)
+    row = {name: k for k, name in enumerate(prop.output_names)}
+    out = {}
+    for o in outputs:
+        k = row[o]
+        keep = np.flatnonzero(~(drop & (s[k] == 0)))
+        out[o] = pd.DataFrame(
+            {
+                "estimate": x[keep],
+                "u": u_x[keep],
+                "sensitivity": s[k, keep],
+                "u_contribution": u_contribution[k, keep],
+                "share": share[k, keep],
+            },
+            index=pd.Index(names[keep].tolist(), name="input"),
+        )
+    return out

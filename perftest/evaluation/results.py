@@ -45,7 +45,7 @@ from perftest.errors import InputError, PerftestError
 from perftest.evaluation import kinds
 from perftest.evaluation.boiler import BOILER_UNITS
 from perftest.evaluation.exergy_account import _exergy_analysis
-from perftest.evaluation.frames import ResultsLayout, empty_frame
+from perftest.evaluation.frames import ResultsLayout, budget_frames, empty_frame
 from perftest.evaluation.fuel_basis import (  # noqa: F401 - re-exported
     DEFAULT_FUEL_EXERGY_RATIO,
     _fuel_basis,
@@ -432,15 +432,13 @@ def evaluate(
         results, cov_out_extra = _with_heat_balance(rec, needs, results, notes, level)
     else:
         cov_out_extra = None
-    budget_tables = {}
-    for o in outputs if detail else ():
-        b = prop.budget_for(o)[["estimate", "u", "sensitivity", "u_contribution", "share"]]
-        # Stream states enter only the results that use them (mean temperatures,
-        # heat export); elsewhere their rows would be zeros.
-        unused = [
-            n for n in b.index if roles.get(n) == "stream state" and b.loc[n, "sensitivity"] == 0
-        ]
-        budget_tables[o] = b.drop(index=unused).copy()
+    # Stream states enter only the results that use them (mean temperatures, heat
+    # export); elsewhere their rows would be zeros and are left out.
+    budget_tables = (
+        budget_frames(prop, outputs, [roles.get(n) == "stream state" for n in names])
+        if detail
+        else {}
+    )
     cov_out = layout.square(prop.cov)
     block = None
     if needs.fired:

@@ -390,3 +390,31 @@ def test_floating_point_warnings_come_as_one_point_at_a_time(tmp_path, monkeypat
     quick = run()
     monkeypatch.setattr(results_module, "_results_at_points", lambda *a: [])
     assert quick == run()
+
+
+def test_budget_frames_equal_the_rows_of_the_long_budget_table():
+    from perftest.evaluation.frames import BUDGET_COLUMNS, budget_frames
+    from perftest.evaluation.propagation import propagate_linear
+
+    rng = np.random.default_rng(3)
+    m, n = 5, 7
+    s = rng.normal(size=(m, n))
+    s[:, 2] = 0.0  # an input no output uses
+    s[1, 4] = 0.0
+    s[3, :] = 0.0  # an output with zero variance: its shares are NaN
+    a = rng.normal(size=(n, n))
+    inputs = [f"in{i}" for i in range(n)]
+    outputs = [f"out{k}" for k in range(m)]
+    prop = propagate_linear(
+        s, a @ a.T, x=rng.normal(size=n), names=inputs, output_names=outputs,
+        dof=[4.0, 9.0, np.inf, 12.0, 30.0, np.inf, 7.0],
+    )  # fmt: skip
+    droppable = [False, True, True, False, True, False, False]
+    quick = budget_frames(prop, outputs, droppable)
+    assert list(quick) == outputs
+    for o in outputs:
+        b = prop.budget_for(o)[list(BUDGET_COLUMNS)]
+        unused = [i for i in b.index if droppable[inputs.index(i)] and b.loc[i, "sensitivity"] == 0]
+        _same_frame(quick[o], b.drop(index=unused).copy())
+    assert "in2" not in quick["out0"].index and "in4" not in quick["out1"].index
+    assert "in4" in quick["out0"].index
