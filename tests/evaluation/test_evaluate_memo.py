@@ -418,3 +418,22 @@ def test_budget_frames_equal_the_rows_of_the_long_budget_table():
         _same_frame(quick[o], b.drop(index=unused).copy())
     assert "in2" not in quick["out0"].index and "in4" not in quick["out1"].index
     assert "in4" in quick["out0"].index
+
+
+@pytest.mark.parametrize("interval", ["shortest", "symmetric"])
+@pytest.mark.parametrize("M", [2, 3, 10, 101, 4000])
+def test_monte_carlo_interval_from_the_tails_equals_the_full_sort(interval, M):
+    from perftest.evaluation.montecarlo import _coverage, _coverage_of_samples
+
+    rng = np.random.default_rng(M)
+    ys = np.concatenate(
+        [
+            rng.normal(size=(2, M)),
+            rng.lognormal(size=(1, M)),  # skewed: the shortest interval is off-centre
+            rng.integers(0, 5, size=(1, M)).astype(float),  # many ties
+        ]
+    )
+    for level in (0.3, 0.5, 0.68, 0.9, 0.95, 0.99):
+        ours = _coverage_of_samples(ys, level, interval)
+        ref = _coverage(np.sort(ys, axis=1), level, interval)
+        assert np.array_equal(ours[0], ref[0]) and np.array_equal(ours[1], ref[1])
