@@ -18,6 +18,15 @@ an uncertainty budget per result; a Monte Carlo propagation (GUM Supplement 1,
 :func:`perftest.evaluation.uncertainty.monte_carlo`) of the same function is kept as a check
 of the linearisation.
 
+Speed
+-----
+A trend of many windows evaluates one plant thousands of times: what depends on the
+plant file only (the checked tables, the heating value, the correction curves, the
+guarantees, the layout of the results table) is kept per plant object
+(:mod:`perftest.evaluation.memo`, checked against the plant's tables on every
+call), and the model is evaluated at the estimate and at the points of the central
+differences in one vectorised call.  The numbers are those of the plain sequence.
+
 References
 ----------
 .. [1] JCGM 100:2008, *Evaluation of measurement data - Guide to the expression of
@@ -444,7 +453,7 @@ def evaluate(
     if needs.fired:
         from perftest.evaluation.boiler import boiler_results
 
-        fb = fuel if fuel is not None else _fuel_basis(plant, table)
+        fb = fuel if fuel is not None else step("fuel", _fuel_basis, plant, table)
         block = boiler_results(
             plant, rec, fb["u_hv"] / fb["hv"], level=level, monte_carlo=monte_carlo, seed=seed
         )
