@@ -65,6 +65,29 @@ def _same(a: pd.DataFrame, b: pd.DataFrame) -> bool:
     )
 
 
+_QUICK: list = []  # [True/False] once checked in this process
+
+
+def _quick_frames() -> bool:
+    """Whether tables built from blocks equal the constructor's (checked once)."""
+    if not _QUICK:
+        ok = _from_blocks is not None
+        if ok:
+            names = ("a", "b_c", "d é")
+            args = (["W", "1", "J/J"], ["A", "", "Désc, x"], ["", "lhv", ""])
+            probe = np.array([[0.5, -1.0, 2.0e9], [0.0, np.inf, np.nan]] * 2 + [[1, 2, 3.0]])
+            try:
+                layout = object.__new__(ResultsLayout)
+                proto = results_frame(names, *probe, *args)
+                layout._index, layout._columns = proto.index, proto.columns
+                layout._text = tuple(proto[c].array for c in _TEXT)
+                ok = _same(layout._build(probe.copy()), proto)
+            except Exception:  # noqa: BLE001 - any failure: use the constructor
+                ok = False
+        _QUICK.append(ok)
+    return _QUICK[0]
+
+
 class ResultsLayout:
     """Rows, units, descriptions and bases of a results table, for many tables.
 
@@ -84,12 +107,9 @@ class ResultsLayout:
         self._columns = proto.columns
         self._text = tuple(proto[c].array for c in _TEXT)
         self._plain = pd.Index(self.names)
-        self._quick = _from_blocks is not None
-        if self._quick:
-            try:
-                self._quick = _same(self._build(probe), proto)
-            except Exception:  # noqa: BLE001 - any failure: use the constructor
-                self._quick = False
+        self._quick = _quick_frames() and all(
+            isinstance(a, pd.api.extensions.ExtensionArray) for a in self._text
+        )
 
     def _build(self, numbers: np.ndarray) -> pd.DataFrame:
         blocks = [(numbers, _NUMBER_AT)]
