@@ -12,6 +12,7 @@ References
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Callable
 
@@ -51,7 +52,7 @@ def _as_vector(x, func: str, parameter: str = "x") -> tuple[np.ndarray, tuple[st
             f"Got shape {arr.shape}.",
             parameter=parameter,
         )
-    if not np.all(np.isfinite(arr)):
+    if not np.isfinite(arr).all():
         raise InputError(
             f"The '{parameter}' parameter of {func} must be finite. "
             f"Got a non-finite value at position {int(np.flatnonzero(~np.isfinite(arr))[0])}.",
@@ -85,12 +86,12 @@ def _as_cov(cov, n: int, func: str) -> np.ndarray:
             f"matching the {n} inputs. Got shape {c.shape}.",
             parameter="cov",
         )
-    if not np.all(np.isfinite(c)):
+    if not np.isfinite(c).all():
         raise InputError(
             f"The 'cov' parameter of {func} must be finite. Got NaN or inf.", parameter="cov"
         )
     d = np.diag(c)
-    if np.any(d < 0):
+    if (d < 0).any():
         i = int(np.flatnonzero(d < 0)[0])
         raise InputError(
             f"The 'cov' parameter of {func} must have non-negative variances on its "
@@ -100,7 +101,7 @@ def _as_cov(cov, n: int, func: str) -> np.ndarray:
     # Work on the correlation matrix: the checks are then insensitive to the scale
     # of each input (Pa next to kg/s).
     zero = d == 0
-    if np.any(zero) and np.any(c[zero] != 0):
+    if zero.any() and (c[zero] != 0).any():
         i = int(np.flatnonzero(zero & np.any(c != 0, axis=1))[0])
         raise InputError(
             f"The 'cov' parameter of {func} must be a covariance matrix: input {i} has zero "
@@ -112,7 +113,7 @@ def _as_cov(cov, n: int, func: str) -> np.ndarray:
     r *= inv[None, :]
     # Symmetric to the round-off of a matrix built by products.
     asym = np.abs(r - r.T) > 1e-10
-    if np.any(asym):
+    if asym.any():
         i, j = np.argwhere(asym)[0]
         raise InputError(
             f"The 'cov' parameter of {func} must be symmetric. Got cov[{i},{j}] = "
@@ -121,7 +122,7 @@ def _as_cov(cov, n: int, func: str) -> np.ndarray:
         )
     # A correlation coefficient beyond +-1 cannot belong to any covariance matrix.
     over = np.abs(r) > 1.0 + 1e-9
-    if np.any(over):
+    if over.any():
         i, j = np.argwhere(over)[0]
         raise InputError(
             f"The 'cov' parameter of {func} must be a covariance matrix (|correlation| <= 1). "
@@ -154,7 +155,7 @@ def _as_dof(dof, n: int, func: str) -> np.ndarray:
             f"Got shape {nu.shape}.",
             parameter="dof",
         )
-    if np.any(np.isnan(nu)) or np.any(nu <= 0):
+    if np.isnan(nu).any() or (nu <= 0).any():
         raise InputError(
             f"The 'dof' parameter of {func} must be positive (inf allowed). Got {nu.tolist()}.",
             parameter="dof",
@@ -170,6 +171,32 @@ def _check_level(level, func: str) -> float:
             parameter="level",
         )
     return float(level)
+
+
+@functools.lru_cache(maxsize=64)
+def _normal_quantile(q: float) -> float:
+    from scipy import stats
+
+    return stats.norm.ppf(q)
+
+
+def _coverage_factors(dof: np.ndarray, level: float) -> np.ndarray:
+    """``coverage_factor(dof, level)`` of an (m,) array of dof, as an (m,) array.
+
+    The same numbers: Student's t quantile ``scipy.special.stdtrit`` (what
+    ``scipy.stats.t.ppf`` computes for 0 < q < 1 and dof > 0), the normal quantile
+    for infinite dof, without ``scipy.stats``' argument handling (most of the cost
+    for a few dozen results).  Arguments ``coverage_factor`` would refuse go to it,
+    so the errors are its own.
+    """
+    nu = np.asarray(dof, dtype=float)
+    if nu.ndim != 1 or not 0.0 < level < 1.0 or np.isnan(nu).any() or (nu <= 0).any():
+        return np.atleast_1d(np.asarray(coverage_factor(nu, level), dtype=float))
+    from scipy import special
+
+    q = 0.5 + level / 2.0
+    inf = np.isinf(nu)
+    return np.where(inf, _normal_quantile(q), special.stdtrit(np.where(inf, 1.0, nu), q))
 
 
 def effective_dof(sensitivities, cov, dof) -> np.ndarray:
@@ -217,9 +244,8 @@ def effective_dof(sensitivities, cov, dof) -> np.ndarray:
     with np.errstate(divide="ignore", invalid="ignore"):
         out = np.where(denom > 0, var_y**2 / denom, np.inf)
     contributing = cu4 > 0
-    nu_b = np.broadcast_to(nu, cu4.shape)
-    low = np.where(contributing, nu_b, np.inf).min(axis=1)
-    high = np.where(contributing, nu_b, 0.0).sum(axis=1)
+    low = np.where(contributing, nu, np.inf).min(axis=1)
+    high = np.where(contributing, nu, 0.0).sum(axis=1)
     out = np.where(denom > 0, np.clip(out, low, high), np.inf)
     return out
 

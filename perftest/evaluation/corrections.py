@@ -332,10 +332,16 @@ class CorrectionCurve:
     def _check(self, x) -> np.ndarray:
         xv = _num(x)
         lo, hi = self.range
-        with np.errstate(invalid="ignore"):
-            out = (xv < lo) | (xv > hi)
-        if np.any(out):
-            bad = float(np.broadcast_to(xv, out.shape)[out].ravel()[0])
+        if xv.ndim == 0:  # one number: Python floats, the same verdict (NaN passes)
+            bad = float(xv)
+            out = bad < lo or bad > hi
+        else:
+            with np.errstate(invalid="ignore"):
+                mask = (xv < lo) | (xv > hi)
+            out = bool(mask.any())
+            if out:
+                bad = float(np.broadcast_to(xv, mask.shape)[mask].ravel()[0])
+        if out:
             raise InputError(
                 f"Correction curve '{self.name}': {self.variable} = {bad:g} lies outside the "
                 f"curve's range [{lo:g}, {hi:g}]; curves are not extrapolated. Extend the "
@@ -468,7 +474,7 @@ def apply_corrections(value, curves: Iterable[CorrectionCurve], conditions: Mapp
     """
     cs = _curves(curves)
     factor, offset = _factors(cs, conditions)
-    if np.any(np.asarray(factor) == 0):
+    if (np.asarray(factor) == 0).any():
         raise InputError(
             "apply_corrections: a multiplicative correction factor is 0; the curves cannot "
             "be inverted there.",

@@ -220,14 +220,14 @@ def _spec(rec):
     return getattr(getattr(rec, "model", None), "spec", None)
 
 
-def _observable(rec, name: str) -> bool:
+def _observable(value, name: str) -> bool:
     try:
-        return math.isfinite(rec.value(name))
+        return math.isfinite(value(name))
     except PerftestError:
         return False
 
 
-def gather(plant, table: dict, rec) -> Needs:
+def gather(plant, table: dict, rec, *, value=None) -> Needs:
     """The reconciled variables each result of the plant's kind needs.
 
     Parameters
@@ -236,11 +236,14 @@ def gather(plant, table: dict, rec) -> Needs:
     table : dict
         The checked ``[performance]`` table.
     rec : perftest.balance.plant.PlantReconciliation
+    value : callable, optional
+        ``value(name)`` used instead of ``rec.value`` (a memo of its values).
 
     Returns
     -------
     Needs
     """
+    value = rec.value if value is None else value
     kind = table.get("kind", "power")
     needs = Needs(kind=kind, T0=float(rec.dead_state[0]))
     needs.fired = getattr(getattr(rec, "model", None), "combustion", None) is not None
@@ -249,7 +252,7 @@ def gather(plant, table: dict, rec) -> Needs:
         needs.refs["useful_heat"] = refs_of(table, "useful_heat")
         return needs
     t0_tag = getattr(getattr(plant, "site", None), "dead_state_temperature_tag", None)
-    if kind in ("refrigeration", "heat_pump") and t0_tag and _observable(rec, t0_tag):
+    if kind in ("refrigeration", "heat_pump") and t0_tag and _observable(value, t0_tag):
         # The exergy of the cooling or heating depends on T0 as much as on the
         # load: a measured T0 enters the propagation like any other input.
         needs.refs["dead_state_temperature"] = [t0_tag]
@@ -283,7 +286,7 @@ def gather(plant, table: dict, rec) -> Needs:
             needs.condensers = [(u.ports["inlets"], u.ports["outlets"]) for u in condensers]
             for ins, outs in (*needs.boilers, *needs.condensers):
                 if not all(
-                    _observable(rec, f"{s}.{v}")
+                    _observable(value, f"{s}.{v}")
                     for s in (*ins, *outs)
                     for v in ("mass_flow", "enthalpy")
                 ):
@@ -389,6 +392,18 @@ def _flows(val, streams, var: str):
     return total, mass
 
 
+def _enthalpy_entropy_flows(val, streams):
+    """Sums of mass_flow * enthalpy and of mass_flow * entropy over streams (the
+    sums of :func:`_flows`, term by term in the same order)."""
+    h_total = 0.0
+    s_total = 0.0
+    for s in streams:
+        m = val(f"{s}.mass_flow")
+        h_total = h_total + m * val(f"{s}.enthalpy")
+        s_total = s_total + m * val(f"{s}.entropy")
+    return h_total, s_total
+
+
 def outputs(needs: Needs, val, fuel: dict | None) -> dict:
     """Every result of the kind from the inputs.
 
@@ -458,16 +473,12 @@ def outputs(needs: Needs, val, fuel: dict | None) -> dict:
             if needs.boilers:
                 dh_in = ds_in = dh_out = ds_out = 0.0
                 for ins, outs in needs.boilers:
-                    h_o, _ = _flows(val, outs, "enthalpy")
-                    h_i, _ = _flows(val, ins, "enthalpy")
-                    s_o, _ = _flows(val, outs, "entropy")
-                    s_i, _ = _flows(val, ins, "entropy")
+                    h_o, s_o = _enthalpy_entropy_flows(val, outs)
+                    h_i, s_i = _enthalpy_entropy_flows(val, ins)
                     dh_in, ds_in = dh_in + h_o - h_i, ds_in + s_o - s_i
                 for ins, outs in needs.condensers:
-                    h_o, _ = _flows(val, outs, "enthalpy")
-                    h_i, _ = _flows(val, ins, "enthalpy")
-                    s_o, _ = _flows(val, outs, "entropy")
-                    s_i, _ = _flows(val, ins, "entropy")
+                    h_o, s_o = _enthalpy_entropy_flows(val, outs)
+                    h_i, s_i = _enthalpy_entropy_flows(val, ins)
                     dh_out, ds_out = dh_out + h_i - h_o, ds_out + s_i - s_o
                 tm_in = dh_in / ds_in
                 tm_out = dh_out / ds_out

@@ -132,6 +132,37 @@ def _coverage(ys: np.ndarray, level: float, interval: str) -> tuple[np.ndarray, 
     return ys[rows, r], ys[rows, r + q]
 
 
+def _coverage_of_samples(
+    ys: np.ndarray, level: float, interval: str
+) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`_coverage` of ``np.sort(ys, axis=1)``, sorting only what it reads.
+
+    The interval's end points are order statistics of the samples: the symmetric
+    one two of them, the shortest one among the lowest and the highest
+    ``M - q`` samples.  ``np.partition`` places those order statistics (and the
+    tails beside them) exactly as a full sort does, and only the tails are sorted:
+    the same end points for a fraction of the cost.
+    """
+    M = ys.shape[1]
+    pm = level * M
+    q = int(pm) if float(pm).is_integer() else int(pm + 0.5)
+    q = min(max(q, 1), M - 1)
+    k = M - q
+    if interval == "symmetric":
+        r = (M - q) // 2 if (M - q) % 2 == 0 else (M - q + 1) // 2
+        r0 = max(r - 1, 0)
+        part = np.partition(ys, [r0, r0 + q], axis=1)
+        return part[:, r0], part[:, r0 + q]
+    if not k - 1 < q:  # the two tails overlap (level below about 1/2): sort it all
+        return _coverage(np.sort(ys, axis=1), level, interval)
+    part = np.partition(ys, [k - 1, q], axis=1)
+    low_tail = np.sort(part[:, :k], axis=1)  # = sorted[:, :M - q]
+    high_tail = np.sort(part[:, q:], axis=1)  # = sorted[:, q:]
+    r = np.argmin(high_tail - low_tail, axis=1)
+    rows = np.arange(ys.shape[0])
+    return low_tail[rows, r], high_tail[rows, r]
+
+
 def monte_carlo(
     func: Callable,
     x,
@@ -290,8 +321,7 @@ def monte_carlo(
         where,
         "output_names",
     )
-    ys_sorted = np.sort(ys, axis=1)
-    low, high = _coverage(ys_sorted, lev, interval)
+    low, high = _coverage_of_samples(ys, lev, interval)
     cov_y = np.atleast_2d(np.cov(ys, ddof=1))
     return MonteCarlo(
         value=ys.mean(axis=1),

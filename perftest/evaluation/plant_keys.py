@@ -173,9 +173,13 @@ def _plant_error(plant, message: str, *keys) -> PerftestError:
     return PlantFileError(message, key=".".join(keys))
 
 
-def _check_name(rec, name: str, key: str, plant) -> None:
+def _check_name(rec, name: str, key: str, plant, value=None) -> float:
+    """``rec.value(name)``, refused when ``name`` is unknown or not observable.
+
+    ``value`` (optional) is used instead of ``rec.value`` (a memo of its values).
+    """
     try:
-        v = rec.value(name)
+        v = rec.value(name) if value is None else value(name)
     except PerftestError:
         raise _plant_error(
             plant,
@@ -189,3 +193,4 @@ def _check_name(rec, name: str, key: str, plant) -> None:
             "balances (not observable); measure it or fix its value.",
             key=key,
         )
+    return v

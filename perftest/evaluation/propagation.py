@@ -31,11 +31,11 @@ from perftest.evaluation.budgets import (
     _as_vector,
     _call,
     _check_level,
+    _coverage_factors,
     _names,
     effective_dof,
     to_ufloats,
 )
-from perftest.run.stats import coverage_factor
 
 __all__ = ["Propagation", "propagate", "propagate_linear"]
 
@@ -198,10 +198,10 @@ def _finish(
     cov_y = 0.5 * (cov_y + cov_y.T)
     contributions = s * sc
     u = np.sqrt(np.clip(np.diag(cov_y), 0.0, None))
-    dof = effective_dof(s, c, nu) if np.any(np.isfinite(nu)) else np.full(u.size, np.inf)
+    dof = effective_dof(s, c, nu) if np.isfinite(nu).any() else np.full(u.size, np.inf)
     if k is None:
         lev = _check_level(level, func)
-        kk = np.atleast_1d(np.asarray(coverage_factor(dof, lev), dtype=float))
+        kk = _coverage_factors(dof, lev)
     else:
         if not float(k) > 0:
             raise InputError(
@@ -332,11 +332,16 @@ def _steps(x: np.ndarray, u: np.ndarray, rel_step: float) -> np.ndarray:
     return h
 
 
+def _difference_points(x: np.ndarray, h: np.ndarray) -> np.ndarray:
+    """(n, 2n) points of the central differences: ``x + h_i e_i``, then ``x - h_i e_i``."""
+    return np.concatenate([x[:, None] + np.diag(h), x[:, None] - np.diag(h)], axis=1)
+
+
 def _numerical_jacobian(func, x, u, y0, rel_step, vectorized, where) -> np.ndarray:
     n = x.size
     h = _steps(x, u, rel_step)
     if vectorized:
-        pts = np.concatenate([x[:, None] + np.diag(h), x[:, None] - np.diag(h)], axis=1)
+        pts = _difference_points(x, h)
         yy = np.asarray(func(pts), dtype=float)
         if yy.ndim == 1:
             yy = yy[None, :]
@@ -484,7 +489,7 @@ def propagate(
             )
     else:
         s = _numerical_jacobian(func, xv, np.sqrt(np.diag(c)), y0, rel_step, vectorized, where)
-    if not np.all(np.isfinite(s)):
+    if not np.isfinite(s).all():
         raise InputError(
             f"The sensitivities computed by {where} are not finite; check that 'func' is "
             "defined around x (within a few standard uncertainties).",

@@ -18,6 +18,15 @@ an uncertainty budget per result; a Monte Carlo propagation (GUM Supplement 1,
 :func:`perftest.evaluation.uncertainty.monte_carlo`) of the same function is kept as a check
 of the linearisation.
 
+Speed
+-----
+A trend of many windows evaluates one plant thousands of times: what depends on the
+plant file only (the checked tables, the heating value, the correction curves, the
+guarantees, the layout of the results table) is kept per plant object
+(:mod:`perftest.evaluation.memo`, checked against the plant's tables on every
+call), and the model is evaluated at the estimate and at the points of the central
+differences in one vectorised call.  The numbers are those of the plain sequence.
+
 References
 ----------
 .. [1] JCGM 100:2008, *Evaluation of measurement data - Guide to the expression of
@@ -45,6 +54,7 @@ from perftest.errors import InputError, PerftestError
 from perftest.evaluation import kinds
 from perftest.evaluation.boiler import BOILER_UNITS
 from perftest.evaluation.exergy_account import _exergy_analysis
+from perftest.evaluation.frames import ResultsLayout, budget_frames, empty_frame
 from perftest.evaluation.fuel_basis import (  # noqa: F401 - re-exported
     DEFAULT_FUEL_EXERGY_RATIO,
     _fuel_basis,
@@ -53,6 +63,9 @@ from perftest.evaluation.fuel_basis import (  # noqa: F401 - re-exported
 )
 from perftest.evaluation.guarantees import VERDICT_COLUMNS
 from perftest.evaluation.kinds import DESCRIPTIONS, RESULT_UNITS  # noqa: F401 - re-exported
+from perftest.evaluation.linear_inputs import input_dofs as _input_dofs
+from perftest.evaluation.linear_inputs import results_at_points as _results_at_points
+from perftest.evaluation.memo import plant_memo
 from perftest.evaluation.plant_keys import (  # noqa: F401 - re-exported
     _check_name,
     _performance_table,
@@ -292,38 +305,52 @@ def evaluate(
         )
     rec = reconciliation
     bare = _RESULTS_ONLY.get()
-    table = _performance_table(plant)
-    needs = kinds.gather(plant, table, rec)
+    # Work that depends on the plant file only is kept per plant (memo.py); each
+    # step still runs in its place, so errors come in the same order.
+    memo = plant_memo(plant)
+    step = memo.get if memo is not None else _compute
+    table = step("performance", _performance_table, plant)
+    # rec.value of each name once per call (gather, the checks and the inputs)
+    seen: dict = {}
+
+    def value(n):
+        try:
+            return seen[n]
+        except KeyError:
+            v = seen[n] = rec.value(n)
+            return v
+
+    needs = kinds.gather(plant, table, rec, value=value)
     notes: list[str] = list(needs.notes)
 
     # ---- inputs taken from the reconciliation (joint covariance)
     refs: dict = {}  # input name -> role (the first role that uses it)
     for role, ns in needs.refs.items():
         for n in ns:
-            _check_name(rec, n, f"performance.{role}", plant)
+            _check_name(rec, n, f"performance.{role}", plant, value)
             refs.setdefault(n, role)
     fuel = None
     if table.get("heat_input") == "fuel" or needs.kind == "boiler":
-        fuel = _fuel_basis(plant, table)
+        fuel = dict(step("fuel", _fuel_basis, plant, table))
         notes += fuel.pop("notes")
-        _check_name(rec, fuel["flow"], f"fuel.{fuel['per']}_flow", plant)
+        _check_name(rec, fuel["flow"], f"fuel.{fuel['per']}_flow", plant, value)
         refs.setdefault(fuel["flow"], "fuel_flow")
         fuel["flow_name"] = fuel["flow"]
         fuel["hv_name"] = f"fuel.{fuel['basis']}"
     for n in needs.names():
         if n not in refs:
-            _check_name(rec, n, "performance", plant)
+            _check_name(rec, n, "performance", plant, value)
             refs[n] = "stream state"
-    check_correction_entries(plant)
-    curves = curves_from_plant(plant)
+    step("correction entries", check_correction_entries, plant)
+    curves = step("curves", curves_from_plant, plant)
     for c in curves:
         for var in c.variables:
             if var not in refs:
-                _check_name(rec, var, "corrections", plant)
+                _check_name(rec, var, "corrections", plant, value)
                 refs[var] = f"condition:{var}"
 
     rec_names = list(refs)
-    x_rec = np.array([rec.value(n) for n in rec_names], dtype=float)
+    x_rec = np.array([value(n) for n in rec_names], dtype=float)
     cov_rec = np.asarray(rec.covariance(rec_names), dtype=float)
     names = list(rec_names)
     x = list(x_rec)
@@ -365,24 +392,36 @@ def evaluate(
     corrected_of = {r: cs for r, cs in corrected_of.items() if r in base_outputs}
     outputs = base_outputs + [f"corrected_{r}" for r in corrected_of]
 
+    known: list = []  # (points, results) the model was already evaluated at
+
     def model(v):
         """Results from inputs; ``v`` is (n_in,) or (n_in, N) (rows = inputs)."""
+        for at, y in known:
+            if v.shape == at.shape and (v == at).all():  # the same points (no NaN in x)
+                return y.copy()
         out = kinds.outputs(needs, lambda n: v[pos[n]], fuel)
         conditions = {var: v[pos[var]] for c in curves for var in c.variables}
         for result, cs in corrected_of.items():
             out[f"corrected_{result}"] = apply_corrections(out[result], cs, conditions)
         return np.array([np.asarray(out[k], dtype=float) for k in outputs])
 
+    # The results at x and at the points of the central differences of the linear
+    # propagation below, in one vectorised call (the same numbers, element by
+    # element); where that call raises or meets a floating-point exception, x alone
+    # first, so that errors and warnings come as they always do.
+    known += _results_at_points(model, x, cov, len(outputs))
+    y0 = model(x)
+    if not known:
+        known.append((x.copy(), y0.copy()))
     # Check the arithmetic against the one-function-per-relation module: the values
     # must agree with perftest.evaluation.performance at the estimate.
-    y0 = model(x)
     kinds.cross_check(needs.kind, dict(zip(outputs, y0, strict=True)), needs.T0)
 
     # Degrees of freedom of each input: a measured tag (or a model variable it
     # measures) carries its averaged measurement's dof; the rest count as infinite.
     # Welch-Satterthwaite over these inputs then gives each result's effective dof
     # and its coverage factor from Student's t (GUM G.4).
-    dof_in = np.array([_input_dof(rec, n) for n in names], dtype=float)
+    dof_in = _input_dofs(rec, names)
     prop = unc.propagate(
         model,
         x,
@@ -394,37 +433,27 @@ def evaluate(
         dof=dof_in,
     )
     basis = fuel["basis"] if fuel is not None else ""
-    bases = [
-        basis if o.removeprefix("corrected_") in kinds.HEATING_VALUE_RESULTS else ""
-        for o in outputs
-    ]
-    results = prop.results_table(
-        [_unit_of(o) for o in outputs],
-        [
-            kinds.describe(o, needs.kind) + (f" ({b.upper()})" if b else "")
-            for o, b in zip(outputs, bases, strict=True)
-        ],
-        bases,
+    layout = step(
+        ("layout", tuple(outputs), needs.kind, basis), _results_layout, outputs, needs.kind, basis
     )
+    results = layout.frame(prop.value, prop.u, prop.U, prop.k, prop.dof)
     if needs.kind == "refrigeration" and "heat_rejected" in needs.refs:
         results, cov_out_extra = _with_heat_balance(rec, needs, results, notes, level)
     else:
         cov_out_extra = None
-    budget_tables = {}
-    for o in outputs if detail else ():
-        b = prop.budget_for(o)[["estimate", "u", "sensitivity", "u_contribution", "share"]]
-        # Stream states enter only the results that use them (mean temperatures,
-        # heat export); elsewhere their rows would be zeros.
-        unused = [
-            n for n in b.index if roles.get(n) == "stream state" and b.loc[n, "sensitivity"] == 0
-        ]
-        budget_tables[o] = b.drop(index=unused).copy()
-    cov_out = pd.DataFrame(prop.cov, index=outputs, columns=outputs)
+    # Stream states enter only the results that use them (mean temperatures, heat
+    # export); elsewhere their rows would be zeros and are left out.
+    budget_tables = (
+        budget_frames(prop, outputs, [roles.get(n) == "stream state" for n in names])
+        if detail
+        else {}
+    )
+    cov_out = layout.square(prop.cov)
     block = None
     if needs.fired:
         from perftest.evaluation.boiler import boiler_results
 
-        fb = fuel if fuel is not None else _fuel_basis(plant, table)
+        fb = fuel if fuel is not None else step("fuel", _fuel_basis, plant, table)
         block = boiler_results(
             plant, rec, fb["u_hv"] / fb["hv"], level=level, monte_carlo=monte_carlo, seed=seed
         )
@@ -489,7 +518,7 @@ def evaluate(
             )
         )
     corrections = (
-        pd.DataFrame()
+        empty_frame()
         if bare
         else pd.DataFrame(
             corr_rows,
@@ -508,8 +537,11 @@ def evaluate(
 
     # ---- guarantees
     g_rows = []
-    check_guarantee_units(plant, results)
-    for g in guarantees_from_plant(plant):
+    if results.shape[0] == len(outputs):  # the rows of the layout: its units by name
+        step(("guarantee units", layout.names), check_guarantee_units, plant, results)
+    else:
+        check_guarantee_units(plant, results)
+    for g in step("guarantees", guarantees_from_plant, plant):
         if g.quantity not in results.index:
             raise _plant_error(
                 plant,
@@ -522,7 +554,7 @@ def evaluate(
         g_rows.append(
             g.judge(float(results.loc[g.quantity, "value"]), float(results.loc[g.quantity, "U95"]))
         )
-    guarantees = pd.DataFrame() if bare else pd.DataFrame(g_rows, columns=list(VERDICT_COLUMNS))
+    guarantees = empty_frame() if bare else pd.DataFrame(g_rows, columns=list(VERDICT_COLUMNS))
 
     # ---- exergy per unit
     products: dict = {}
@@ -532,10 +564,10 @@ def evaluate(
         )
         notes += ex_notes
     else:
-        exergy, losses, closure = pd.DataFrame(), {}, None
+        exergy, losses, closure = empty_frame(), {}, None
 
     if bare:
-        inputs = pd.DataFrame()
+        inputs = empty_frame()
     else:
         inputs = pd.DataFrame(
             {"value": x, "u": np.sqrt(np.diag(cov)), "role": [roles[n] for n in names]},
@@ -645,45 +677,35 @@ def _corrected_boiler_results(corrected, results, cov_out, x, cov, pos, level):
     return results, cov_out, extra
 
 
+def _compute(key, compute, *args):
+    """A step without a memo: ``compute(*args)``."""
+    return compute(*args)
+
+
+def _results_layout(outputs: list, kind: str, basis: str) -> ResultsLayout:
+    """Rows of the results table: units, descriptions and bases of ``outputs``."""
+    bases = [
+        basis if o.removeprefix("corrected_") in kinds.HEATING_VALUE_RESULTS else ""
+        for o in outputs
+    ]
+    layout = ResultsLayout(
+        outputs,
+        [_unit_of(o) for o in outputs],
+        [
+            kinds.describe(o, kind) + (f" ({b.upper()})" if b else "")
+            for o, b in zip(outputs, bases, strict=True)
+        ],
+        bases,
+    )
+    return layout
+
+
 def _unit_of(name: str) -> str:
     return RESULT_UNITS.get(name.removeprefix("corrected_"), "")
 
 
 def _describe(name: str) -> str:
     return kinds.describe(name)
-
-
-def _input_dof(rec, name: str) -> float:
-    """Degrees of freedom of an input of the propagation.
-
-    A measured tag, or a model variable a tag measures, carries its averaged
-    measurement's dof.  A fixed value counts as exact (infinite).  An unmeasured or
-    derived variable (a unit's heat, a stream's entropy) is a combination of the
-    measurements; it gets the smallest dof among them, a lower bound: the
-    Welch-Satterthwaite formula never gives fewer than the smallest dof of its
-    inputs (GUM G.4.1), so the coverage factor errs on the safe side.
-    """
-    meas = getattr(rec, "measurements", None)
-    tags = tuple(getattr(meas, "tags", ()))
-    if not tags:
-        return math.inf
-    dof = np.asarray(meas.dof, dtype=float)
-    if name in tags:
-        d = float(dof[tags.index(name)])
-        return d if d > 0 else math.inf
-    model = getattr(rec, "model", None)
-    sources = getattr(model, "sources", {}) if model is not None else {}
-    src = sources.get(name)
-    kind = getattr(src, "kind", None)
-    if kind == "fixed":
-        return math.inf
-    if kind == "measured" and getattr(src, "tag", None) in tags:
-        d = float(dof[tags.index(src.tag)])
-        return d if d > 0 else math.inf
-    if name.startswith("fuel."):
-        return math.inf  # the stated heating-value uncertainty (type B)
-    finite = dof[np.isfinite(dof) & (dof > 0)]
-    return float(finite.min()) if finite.size else math.inf
 
 
 def _with_heat_balance(rec, needs, results: pd.DataFrame, notes: list, level: float):
