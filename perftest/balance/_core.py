@@ -38,10 +38,20 @@ class Core:
     lam: np.ndarray  # multipliers of the original constraints
     chi2: float
     dof: int
-    vdiag: np.ndarray  # variances of the adjustments
-    redundant: np.ndarray
+    vdiag: np.ndarray | None  # variances of the adjustments
+    redundant: np.ndarray | None
     covariances: Any  # callable -> (x_cov, y_cov, xy_cov), unobservable y not masked
-    y_var: np.ndarray  # variances of y (unobservable not masked)
+    y_var: np.ndarray | None  # variances of y (unobservable not masked)
     constraint_residual: np.ndarray
     constraint_u: np.ndarray
     inconsistent: tuple | None
+    # Deferred statistics: a callable -> (vdiag, redundant, y_var, covariances) that
+    # fills the fields above left None (a solve whose step alone is wanted).
+    finish: Any = None
+
+    def complete(self) -> Core:
+        """Fill the deferred statistics (no-op when they are there); returns self."""
+        if self.finish is not None:
+            self.vdiag, self.redundant, self.y_var, self.covariances = self.finish()
+            self.finish = None
+        return self

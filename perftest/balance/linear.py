@@ -83,8 +83,13 @@ def _equilibrate_dense(A, B, u):
     return w, colB
 
 
-def solve_dense(p: Problem) -> Core:
-    """Dense reconciliation core (see module ``_dense`` for the method)."""
+def solve_dense(p: Problem, *, deferred: bool = False) -> Core:
+    """Dense reconciliation core (see module ``_dense`` for the method).
+
+    ``deferred``: leave the statistics (variances of the adjustments, redundancy,
+    variances and covariances) to :meth:`Core.complete`, for a solve whose step alone
+    may be wanted (the same numbers when completed).
+    """
     x, S, s, A, b, B = p.x, p.S, p.sdiag, p.A, p.b, p.B
     n = x.size
     u = np.sqrt(s)
@@ -117,8 +122,6 @@ def solve_dense(p: Problem) -> Core:
         chi2 = float(wres @ wres)
         lam_r = _trsolve(L, wres, trans=1)
         xhat = x - AS.T @ lam_r
-        W = _trsolve(L, AS)
-        vdiag = np.einsum("ij,ij->j", W, W)
         if proj.P is None:
             lam_eq = np.zeros(A.shape[0])
             lam_eq[idx] = lam_r
@@ -128,43 +131,54 @@ def solve_dense(p: Problem) -> Core:
     else:
         chi2 = 0.0
         xhat = x.copy()
-        vdiag = np.zeros(n)
-        W = np.zeros((0, n))
         lam = np.zeros(A.shape[0])
-    redundant = vdiag > _dense.REDUNDANCY_RTOL * s
     k = B.shape[1]
     # Unmeasured: the scaled unknowns are colB * y, so y = G (bt - At xhat) / colB.
     T = (proj.G @ At) / colB[:, None] if k else np.zeros((0, n))
     y = (proj.G @ bt) / colB - T @ xhat if k else np.zeros(0)
-    # The covariances are dense (n, n) products, formed on first request (an iterate's
-    # solve or a replaced result never asks).  The variances of y come without them:
-    # diag(T x_cov T^T) with x_cov = S - W^T W is diag(T S T^T) - |W T^T|^2 per column.
-    covariances = _Covariances(S, s, p.is_diag, W, T)
-    if k:
-        TS = T * s if p.is_diag else T @ S
-        prior = np.einsum("ij,ij->i", TS, T)
-        WT = W @ T.T
-        y_var = prior - np.einsum("ij,ij->j", WT, WT)
-        if np.any(y_var < _CANCEL * prior):
-            # most of the prior variance taken out: the difference would lose digits
-            y_var = np.diag(covariances()[1]).copy()
-    else:
-        y_var = np.zeros(0)
-    return Core(
+
+    def statistics():
+        if r:
+            W = _trsolve(L, AS)
+            vdiag = np.einsum("ij,ij->j", W, W)
+        else:
+            W = np.zeros((0, n))
+            vdiag = np.zeros(n)
+        redundant = vdiag > _dense.REDUNDANCY_RTOL * s
+        # The covariances are dense (n, n) products, formed on first request (an
+        # iterate's solve or a replaced result never asks).  The variances of y come
+        # without them: diag(T x_cov T^T) with x_cov = S - W^T W is
+        # diag(T S T^T) - |W T^T|^2 per column.
+        covariances = _Covariances(S, s, p.is_diag, W, T)
+        if k:
+            TS = T * s if p.is_diag else T @ S
+            prior = np.einsum("ij,ij->i", TS, T)
+            WT = W @ T.T
+            y_var = prior - np.einsum("ij,ij->j", WT, WT)
+            if np.any(y_var < _CANCEL * prior):
+                # most of the prior variance taken out: the difference would lose digits
+                y_var = np.diag(covariances()[1]).copy()
+        else:
+            y_var = np.zeros(0)
+        return vdiag, redundant, y_var, covariances
+
+    core = Core(
         xhat=xhat,
         y=y,
         observable=proj.observable,
         lam=lam,
         chi2=chi2,
         dof=int(r),
-        vdiag=vdiag,
-        redundant=redundant,
-        covariances=covariances,
-        y_var=y_var,
+        vdiag=None,
+        redundant=None,
+        covariances=None,
+        y_var=None,
         constraint_residual=constraint_residual,
         constraint_u=constraint_u,
         inconsistent=sel.inconsistent,
+        finish=statistics,
     )
+    return core if deferred else core.complete()
 
 
 # y variances from the difference diag(T S T^T) - |W T^T|^2 keep about
@@ -324,7 +338,7 @@ def _trsolve(L, rhs, trans=0):
     return z
 
 
-def solve(p: Problem, *, strict: bool = False) -> Core:
+def solve(p: Problem, *, strict: bool = False, deferred: bool = False) -> Core:
     """Dispatch to the dense or the sparse core, with the null-space fallback.
 
     ``strict`` (reconcile_linear): the fallback when the projected solve finds the
@@ -338,7 +352,7 @@ def solve(p: Problem, *, strict: bool = False) -> Core:
     if p.sparse:
         core = _sparse.solve_sparse(p)
     else:
-        core = solve_dense(p)
+        core = solve_dense(p, deferred=deferred)
     if core.inconsistent is not None:
         if strict:
             # None when the constraints are contradictory in this metric too
@@ -370,6 +384,7 @@ def raise_if_inconsistent(core: Core, func: str) -> None:
 
 def mask_unobservable(core: Core):
     """y, y_u and the covariance callable with nan where y is not observable."""
+    core.complete()
     obs = core.observable
     y = np.where(obs, core.y, np.nan)
     y_u = np.where(obs, np.sqrt(np.maximum(core.y_var, 0.0)), np.nan)
@@ -391,6 +406,7 @@ def build_result(
     p: Problem, core: Core, *, method: str, converged=True, iterations=1, residual_norm=None
 ):
     """Wrap a core solution into a :class:`Reconciliation`."""
+    core.complete()
     y, y_u, covariances = mask_unobservable(core)
     sdev = np.sqrt(np.maximum(core.vdiag, 0.0))
     with np.errstate(divide="ignore", invalid="ignore"):

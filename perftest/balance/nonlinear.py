@@ -320,7 +320,7 @@ def reconcile_nonlinear(
             )
         if step is None or (size > radius and not all_observable):
             p = _linearised_problem(xm, S, sdiag, is_diag, Jx, b_lin, Jy)
-            core = solve(p)
+            core = solve(p, deferred=True)
             consistent = core.inconsistent is None
             if consistent:
                 dx, dy, lam = core.xhat - xk, core.y, core.lam  # minimum-norm step in y
@@ -334,7 +334,7 @@ def reconcile_nonlinear(
             if resid_small and np.all(sx <= tol) and np.all(sy <= tol):
                 if core is None:
                     p = _linearised_problem(xm, S, sdiag, is_diag, Jx, b_lin, Jy)
-                    core = solve(p)
+                    core = solve(p, deferred=True)
                 converged = True
                 break
             # Exact-penalty parameter above the largest scaled multiplier.

@@ -71,3 +71,22 @@ def test_y_covariance_against_monte_carlo():
     # 4000 draws: the sample standard deviation is within ~3.5 % (3 sigma) of the truth
     assert np.std(ys, ddof=1) == pytest.approx(ref.y_u[0], rel=0.035)
     assert ref.y_u[0] ** 2 == pytest.approx(ref.y_cov[0, 0], rel=1e-12)
+
+
+def test_deferred_statistics_are_the_same_numbers():
+    """A solve that defers its statistics gives, once completed, exactly what a solve
+    that computes them at once gives; the step is there before completion."""
+    rng = np.random.default_rng(9)
+    p = _problem(rng, 14, 10, 5)
+    now = solve_dense(p)
+    later = solve_dense(p, deferred=True)
+    assert later.vdiag is None and later.finish is not None
+    np.testing.assert_array_equal(later.xhat, now.xhat)
+    np.testing.assert_array_equal(later.y, now.y)
+    later.complete()
+    np.testing.assert_array_equal(later.vdiag, now.vdiag)
+    np.testing.assert_array_equal(later.redundant, now.redundant)
+    np.testing.assert_array_equal(later.y_var, now.y_var)
+    for a, b in zip(later.covariances(), now.covariances(), strict=True):
+        np.testing.assert_array_equal(a, b)
+    assert later.complete() is later and later.finish is None  # a second call: no-op

@@ -18,9 +18,9 @@ def _spy(monkeypatch):
     seen = []
     solve_dense = lin.solve_dense
 
-    def spy(p):
+    def spy(p, **kw):
         seen.append(_blas_threads())
-        return solve_dense(p)
+        return solve_dense(p, **kw)
 
     monkeypatch.setattr(lin, "solve_dense", spy)
     return seen

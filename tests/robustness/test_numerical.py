@@ -292,9 +292,9 @@ def test_null_space_solve_kept_only_when_it_closes_better(monkeypatch):
     captured = []
     solve_dense = lin.solve_dense
 
-    def keep(p):
+    def keep(p, **kw):
         captured.append(p)
-        return solve_dense(p)
+        return solve_dense(p, **kw)
 
     monkeypatch.setattr(lin, "solve_dense", keep)
     plant, m0 = demo_measurements()
