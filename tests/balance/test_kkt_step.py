@@ -124,3 +124,29 @@ def test_singular_system_is_refused_by_the_sparse_factor(weak):
     assert a is not None and b is not None
     # regularised condition ~1e6: agreement to ~1e-8 relative
     assert np.allclose(a, b, rtol=1e-7, atol=1e-7 * np.abs(a).max())
+
+
+@pytest.mark.parametrize("seed", range(3))
+def test_gram_from_nonzero_pairs_equals_the_dense_product(seed):
+    """J S J^T summed from each column's nonzero pairs equals the dense product to
+    rounding (numpy's matmul as the reference), exactly symmetric; empty and
+    one-entry columns included."""
+    rng = np.random.default_rng(seed)
+    m, n = 90, 120
+    J = np.zeros((m, n))
+    for c in range(n):
+        k = c % 4  # 0 to 3 entries per column
+        J[rng.choice(m, size=k, replace=False), c] = rng.normal(size=k)
+    s = rng.uniform(0.1, 3.0, n)
+    G = _kkt._gram(J, s)
+    assert G is not None
+    ref = (J * s) @ J.T
+    # a handful of products per entry: agreement to a few ulps of the largest entry
+    assert np.allclose(G, ref, rtol=0.0, atol=1e-14 * np.abs(ref).max())
+    assert np.array_equal(G, G.T)
+
+
+def test_gram_leaves_small_or_dense_matrices_to_the_dense_product():
+    rng = np.random.default_rng(1)
+    assert _kkt._gram(rng.normal(size=(20, 20)), np.ones(20)) is None  # small
+    assert _kkt._gram(rng.normal(size=(100, 100)), np.ones(100)) is None  # dense
