@@ -150,3 +150,23 @@ def test_gram_leaves_small_or_dense_matrices_to_the_dense_product():
     rng = np.random.default_rng(1)
     assert _kkt._gram(rng.normal(size=(20, 20)), np.ones(20)) is None  # small
     assert _kkt._gram(rng.normal(size=(100, 100)), np.ones(100)) is None  # dense
+
+
+@pytest.mark.parametrize("cond_exp", [2, 6, 9, 12])
+def test_early_accepted_condition_estimate_keeps_lapacks_verdict(cond_exp):
+    """Stopping the estimate after its first step (accept_above) changes no verdict
+    against a bound: a matrix accepted early is well inside the bound by LAPACK's
+    dgecon too, and an ill-conditioned one is not accepted early."""
+    rng = np.random.default_rng(100 + cond_exp)
+    n = 80
+    U, _ = np.linalg.qr(rng.normal(size=(n, n)))
+    V, _ = np.linalg.qr(rng.normal(size=(n, n)))
+    K = U @ np.diag(np.logspace(0, -cond_exp, n)) @ V.T
+    anorm = np.abs(K).sum(axis=0).max()
+    lu, piv, _ = dgetrf(K.copy())
+    ref, _ = dgecon(lu, anorm, norm="1")
+    bound = _kkt.RCOND_REGULAR
+    est = _kkt._rcond_estimate(_factor(K), anorm, n, bound)
+    assert (est > bound) == (ref > bound)
+    if est > _kkt.EARLY_MARGIN * bound:  # accepted early: dgecon agrees, far inside
+        assert ref > 10.0 * bound
