@@ -804,9 +804,7 @@ def reconcile(
             )
     # A declared phase the measurements contradict would make its thermometer a
     # gross error (a superheated stream declared wet): refuse it before solving.
-    check_declared_phases(
-        plant, model.spec, {t: (r.value, r.u) for t, r in records.items()}
-    )
+    check_declared_phases(plant, model.spec, {t: (r.value, r.u) for t, r in records.items()})
     model = bound(model, present)
     in_model = set(present)
     cov = np.asarray(measurements.cov, dtype=float)

@@ -61,6 +61,7 @@ class _Assembly:
     blocks: tuple
     flat: tuple
 
+
 # Divisors of the residual rows (see module docstring).
 _SCALE = {
     "mass": 1.0,  # kg/s

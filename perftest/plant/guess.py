@@ -162,7 +162,11 @@ def initial_guess(model, x) -> np.ndarray:
     T.update(
         _T_ph_many(
             spec,
-            [s for s in spec.streams if T[s] is None and h_given[s] is not None and p[s] is not None],
+            [
+                s
+                for s in spec.streams
+                if T[s] is None and h_given[s] is not None and p[s] is not None
+            ],
             p,
             h_given,
         )

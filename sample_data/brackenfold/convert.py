@@ -80,9 +80,7 @@ def write_parquet(target: Path) -> None:
 def write_database(target: Path) -> None:
     target.unlink(missing_ok=True)
     con = sqlite3.connect(target)
-    con.execute(
-        "CREATE TABLE samples (source TEXT, time TEXT, tag TEXT, value REAL, quality TEXT)"
-    )
+    con.execute("CREATE TABLE samples (source TEXT, time TEXT, tag TEXT, value REAL, quality TEXT)")
     for name, sep, decimal, units_row in (
         ("historian", ",", ".", True),
         ("logger", ";", ",", False),

@@ -246,8 +246,16 @@ USER_ERRORS = [
         id="html-is-the-sqlite-database",
     ),
     pytest.param(
-        ["monitor", "{plant}", "--sql", "sqlite:///{tmp}/mon/windows.csv", "--query",
-         "SELECT 1", "--out", "{tmp}/mon"],
+        [
+            "monitor",
+            "{plant}",
+            "--sql",
+            "sqlite:///{tmp}/mon/windows.csv",
+            "--query",
+            "SELECT 1",
+            "--out",
+            "{tmp}/mon",
+        ],
         r"windows\.csv: the output --out \(windows\.csv\) is the input --sql",
         id="monitor-out-holds-the-sqlite-database",
     ),  # fmt: skip
