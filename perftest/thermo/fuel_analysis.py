@@ -24,6 +24,7 @@ kg of fuel, which is all that :mod:`perftest.thermo.combustion` needs.
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass
@@ -206,6 +207,28 @@ def _from_gas(fractions: Mapping[str, float]) -> FuelAtoms:
     )
 
 
+def _gas_atoms(fuel: Mapping) -> FuelAtoms:
+    """``_from_gas(Gas(fuel).composition)``, remembered per mapping content (in order).
+
+    A fuel's composition is parsed again by every call of the heat-loss method, once
+    per Monte Carlo trial; the atoms of the same mapping (the same names and fractions
+    in the same order, so the same sums) are the same frozen record.  A failing
+    mapping is not remembered: it raises again.
+    """
+    try:
+        # the types too: 1 and True are equal keys, but not the same input
+        key = tuple((k, type(v), v) for k, v in fuel.items())
+        hash(key)
+    except TypeError:  # unhashable fractions (arrays): no memo
+        return _from_gas(Gas(fuel).composition)
+    return _gas_atoms_of(key)
+
+
+@functools.lru_cache(maxsize=64)
+def _gas_atoms_of(items: tuple) -> FuelAtoms:
+    return _from_gas(Gas({k: v for k, _, v in items}).composition)
+
+
 def fuel_atoms(fuel, func: str) -> FuelAtoms:
     """The fuel in any accepted form as atoms per kg; errors name `func` and 'composition'."""
     try:
@@ -227,7 +250,7 @@ def fuel_atoms(fuel, func: str) -> FuelAtoms:
                     parameter="composition",
                 )
             else:
-                f = _from_gas(Gas(fuel).composition)
+                f = _gas_atoms(fuel)
         else:
             raise InputError(
                 "It must be a mapping of gas component to mole fraction, a mapping of C, H, "

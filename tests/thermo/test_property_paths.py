@@ -287,3 +287,22 @@ def test_shapes_and_kinds_are_kept():
         WATER.enthalpy_pT(wide[:, 0], np.array([400.0, 410.0])),
         WATER.enthalpy_pT(np.array([1e6, 2e6]), np.array([400.0, 410.0])),
     )
+
+
+def test_gas_fuel_atoms_remembered_are_those_of_a_fresh_parse():
+    """The heat-loss method parses a gas fuel once per call; the remembered atoms equal
+    a fresh parse, an invalid mapping still raises every time, and equal-looking
+    inputs of another type are parsed on their own."""
+    from perftest.errors import InputError
+    from perftest.thermo import fuel_analysis as fa
+    from perftest.thermo.fuel import Gas
+
+    fuel = {"methane": 0.9, "ethane": 0.06, "nitrogen": 0.04}
+    a = fa.fuel_atoms(fuel, "t")
+    assert fa.fuel_atoms(dict(fuel), "t") is a  # the same content: the kept record
+    assert a == fa._from_gas(Gas(fuel).composition)
+    for _ in range(2):
+        with pytest.raises(InputError):
+            fa.fuel_atoms({"methane": 0.9, "unobtainium": 0.1}, "t")
+    assert fa.fuel_atoms({"methane": 1}, "t") == fa.fuel_atoms({"methane": 1.0}, "t")
+    assert fa._gas_atoms({"methane": 1}) is not fa._gas_atoms({"methane": 1.0})
