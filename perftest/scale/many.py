@@ -352,6 +352,11 @@ def _window_row(plant, run: Run | None, spec: _Window, options: _Options, start=
         row, rec = _compute_row(plant, run, spec, options, start, share)
     seen = []
     for w in caught:
+        if issubclass(w.category, ResourceWarning):
+            # a leaked file or socket of other code, collected while the window ran:
+            # not the window's; passed on to the caller's filters as it came
+            warnings.warn_explicit(w.message, w.category, w.filename, w.lineno, source=w.source)
+            continue
         text = f"{w.category.__name__}: {w.message}"
         if text not in seen:
             seen.append(text)
