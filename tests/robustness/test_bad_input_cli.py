@@ -639,6 +639,7 @@ def test_second_monitor_job_on_one_folder_is_refused(tmp_path, capsys):
     finally:
         holder.kill()
         holder.wait()
+        holder.stdout.close()  # the pipe too: no ResourceWarning later
     line = capsys.readouterr().err.strip()
     assert line.startswith(f"perftest: error: {out}: the folder is in use by perftest monitor")
     assert f"process {holder.pid} on host" in line
@@ -651,6 +652,7 @@ def test_lock_of_a_killed_job_is_accepted(tmp_path, capsys):
     holder = _hold_lock(out)
     holder.kill()
     holder.wait()
+    holder.stdout.close()  # the pipe too: no ResourceWarning later
     assert run_main(_monitor_args(out)) == 0, capsys.readouterr().err
     assert (out / "windows.csv").is_file()
 

@@ -190,6 +190,7 @@ def test_monitor_refused_while_a_python_job_holds_its_store(tmp_path, capsys):
     finally:
         holder.kill()
         holder.wait()
+        holder.stdout.close()  # the pipe too: no ResourceWarning later
     line = capsys.readouterr().err.strip()
     assert line.startswith("perftest: error:") and "in use by reconcile_many" in line
     assert f"process {holder.pid} on host" in line

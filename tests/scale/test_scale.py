@@ -736,6 +736,7 @@ def _hold_store_lock(folder, job):
     if line != "held":  # the holder failed: do not leave it behind
         proc.kill()
         proc.wait()
+        proc.stdout.close()  # the pipe too: no ResourceWarning later
         pytest.fail(f"the lock holder did not start (said {line!r})")
     return proc
 
@@ -749,6 +750,7 @@ def test_store_locked_by_another_process_is_refused(plant, run, tmp_path):
     finally:
         holder.kill()
         holder.wait()
+        holder.stdout.close()  # the pipe too: no ResourceWarning later
     assert f"process {holder.pid} on host" in str(info.value)
     assert not list(store.glob("part-*.parquet"))  # nothing written beside the holder
     # the operating system drops the lock with its process: the next job runs
