@@ -55,6 +55,8 @@ values is one or two numpy passes.
 
 from __future__ import annotations
 
+import math
+
 import re
 from dataclasses import dataclass
 from functools import lru_cache
@@ -552,7 +554,16 @@ def _parse_cached(text: str) -> UnitSpec:
         family = _VE if flag == _VE else _FAMILY[quantity]
         scale, offset = _factor(expr, family)
         return _spec(text, quantity, scale, offset, flag)
-    return _via_pint(text)
+    spec = _via_pint(text)
+    if not (math.isfinite(spec.scale) and spec.scale != 0.0 and math.isfinite(spec.offset)):
+        # pint reads "nan", "inf" or "0" as a bare number: converting with it would turn
+        # every value into nan, inf or 0 without a word
+        raise UnitError(
+            f"The text {text!r} is not a unit: it reads as the number {spec.scale:g}. "
+            "Write the unit of the column (e.g. 'bar', 'degC', 't/h'), or '-' for a "
+            "dimensionless value."
+        )
+    return spec
 
 
 def parse_unit(text) -> UnitSpec:

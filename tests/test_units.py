@@ -345,3 +345,23 @@ def test_negative_absolute_pressure_helpers():
     with pytest.raises(DataError, match=r"run.csv, column 'PT-1': 1 value.*position 0"):
         check_absolute_pressure(p, where="run.csv, column 'PT-1'")
     check_absolute_pressure(p[1:], where="x")  # positive and NaN pass
+
+
+@pytest.mark.parametrize("text", ["NAN", "nan", "inf", "-inf", "0"])
+def test_a_number_that_is_no_unit_is_refused(text):
+    """pint reads 'nan', 'inf' and '0' as bare numbers; as a unit they would turn every
+    value into nan, inf or 0 without a word (found by the random-CSV property test: a
+    units row of "NAN" masked a column's values with no exclusion record)."""
+    with pytest.raises(UnitError, match="is not a unit"):
+        parse_unit(text)
+
+
+def test_a_nan_units_row_is_refused_not_read_as_nan(tmp_path):
+    """A second line of "NAN" cells, taken for a units row, is refused with the line and
+    column named; before, it turned every value of the column into nan silently."""
+    from perftest import read_run
+
+    path = tmp_path / "run.csv"
+    path.write_text('time,A\n"2031-05-04 09:59:00","NAN"\n"2031-05-04 10:00:00","5"\n')
+    with pytest.raises(UnitError, match=r"line 2, column 'A'.*'NAN' is not a unit"):
+        read_run(path)
