@@ -56,7 +56,6 @@ values is one or two numpy passes.
 from __future__ import annotations
 
 import math
-
 import re
 from dataclasses import dataclass
 from functools import lru_cache

@@ -16,6 +16,7 @@ from collections.abc import Mapping
 
 from perftest.errors import PerftestError
 from perftest.evaluation.plant_keys import _plant_error
+from perftest.plant.combustion import combustion_reference_temperature
 
 __all__ = ["fuel_exergy_ratio", "DEFAULT_FUEL_EXERGY_RATIO"]
 
@@ -152,16 +153,7 @@ def _fuel_basis(plant, perf_table: dict) -> dict:
             gas = Gas(comp)
         except PerftestError as exc:  # name the plant file key, not only the component
             raise _plant_error(plant, f"[fuel] composition: {exc}", "fuel", "composition") from None
-        t_comb = 288.15
-        if "combustion_reference_temperature" in fuel:
-            t_comb = float(
-                plant.read_quantity(
-                    fuel["combustion_reference_temperature"],
-                    "temperature",
-                    "fuel",
-                    "combustion_reference_temperature",
-                )
-            )
+        t_comb = combustion_reference_temperature(plant, fuel)
         kw = {"combustion_temperature": t_comb}
         getter = gas.inferior_calorific_value if basis == "lhv" else gas.superior_calorific_value
         if per == "mass":

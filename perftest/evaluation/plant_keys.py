@@ -12,23 +12,11 @@ import math
 from collections.abc import Mapping
 
 from perftest.errors import PerftestError, PlantFileError
+from perftest.plant.combustion import FLUE_KEYS as _FLUE_KEYS  # the firing side's keys
 
 __all__ = ["KINDS", "KIND_KEYS", "KEY_RESULTS", "performance_kind", "key_results"]
 
 _POWER_REQUIRED = ("gross_power", "heat_input", "source_temperature", "sink_temperature")
-# The firing side (perftest.plant.combustion.FLUE_KEYS): a boiler's flue-gas analysis.
-_FLUE_KEYS = (
-    "flue_gas_o2",
-    "flue_gas_co2",
-    "flue_gas_oxygen_basis",
-    "flue_gas_co",
-    "flue_gas_temperature",
-    "air_temperature",
-    "air_relative_humidity",
-    "combustion_air_flow",
-    "radiation_loss",
-    "other_losses",
-)
 _POWER_OPTIONAL = ("auxiliary_power", "cycle_heat", "basis", *_FLUE_KEYS)
 
 #: Per kind: (required keys, optional keys) of ``[performance]`` besides ``kind``.

@@ -68,6 +68,24 @@ FLUE_KEYS = (
     "other_losses",
 )
 
+#: Combustion reference temperature of heating values unless ``[fuel]`` names one
+#: [K]: 15 degC, one of the combustion reference temperatures of ISO 6976 (from memory).
+COMBUSTION_REFERENCE_T = 288.15
+
+
+def combustion_reference_temperature(plant, fuel) -> float:
+    """``[fuel] combustion_reference_temperature`` [K], or :data:`COMBUSTION_REFERENCE_T`."""
+    if "combustion_reference_temperature" not in fuel:
+        return COMBUSTION_REFERENCE_T
+    return float(
+        plant.read_quantity(
+            fuel["combustion_reference_temperature"],
+            "temperature",
+            "fuel",
+            "combustion_reference_temperature",
+        )
+    )
+
 # key -> (model variable, glossary quantity)
 _VARIABLES = {
     "flue_gas_o2": ("oxygen", "fraction"),
@@ -287,16 +305,7 @@ def _heating_value(plant, fuel: Mapping, basis: str, per: str):
                 gas = Gas(comp)
             except PerftestError as exc:
                 raise _fail(plant, f"[fuel] composition: {exc}", "fuel", "composition") from None
-    t_comb = 288.15
-    if "combustion_reference_temperature" in fuel:
-        t_comb = float(
-            plant.read_quantity(
-                fuel["combustion_reference_temperature"],
-                "temperature",
-                "fuel",
-                "combustion_reference_temperature",
-            )
-        )
+    t_comb = combustion_reference_temperature(plant, fuel)
     factor = 1.0
     if per == "volume":
         if gas is None:
