@@ -578,7 +578,7 @@ def _log_text(newline="\n", rows=150):
 def test_pieces_and_row_estimate_do_not_change_the_run(
     tmp_path, monkeypatch, newline, chunk, tensors
 ):
-    from perftest.importers import csvfile, reader
+    from perftest.importers import convert, csvfile
 
     path = tmp_path / "big.csv"
     path.write_bytes(_log_text(newline).encode())
@@ -587,8 +587,8 @@ def test_pieces_and_row_estimate_do_not_change_the_run(
     # allocated at first, the value array is reallocated as the rows come in; and the
     # column-by-column copy of old pyarrow versions
     monkeypatch.setattr(csvfile, "CHUNK_BYTES", chunk)
-    monkeypatch.setattr(reader, "_ROW_MARGIN", 0.05)
-    monkeypatch.setattr(reader, "_TENSORS", tensors and reader._TENSORS)
+    monkeypatch.setattr(convert, "_ROW_MARGIN", 0.05)
+    monkeypatch.setattr(convert, "_TENSORS", tensors and convert._TENSORS)
     parts = quiet_read(path)
     pd.testing.assert_frame_equal(parts.data, whole.data)
     pd.testing.assert_frame_equal(parts.mask, whole.mask)
