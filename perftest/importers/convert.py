@@ -15,18 +15,18 @@ import pandas as pd
 import pyarrow as pa
 
 from perftest.errors import DataError, UnitError
+from perftest.importers.cells import (
+    TextPiece,
+    classify_numbers,
+    classify_text,
+    quality_flags,
+    sentinel_sets,
+)
 from perftest.importers.columns import (
     _FileData,
     _TagJob,
 )
-from perftest.importers.csvfile import (
-    TextPiece,
-    classify_numbers,
-    classify_text,
-    lines_of_rows,
-    quality_flags,
-    sentinel_sets,
-)
+from perftest.importers.csvfile import lines_of_rows
 
 # --- per-file processing -------------------------------------------------------------------
 
