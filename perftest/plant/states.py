@@ -19,9 +19,9 @@ import numpy as np
 from perftest.errors import PerftestError, PropertyRangeError
 from perftest.thermo.properties import get_fluid
 from perftest.thermo.saturation import saturated_arrays
-from perftest.thermo.single_phase import pT
+from perftest.thermo.single_phase import far_from_saturation_sides, if97_plain, pT
 
-__all__ = ["h_pT", "saturation", "h_px", "state_ph", "dead_state", "fluid"]
+__all__ = ["h_pT", "h_pT_sides", "SIDES", "saturation", "h_px", "state_ph", "dead_state", "fluid"]
 
 # Relative pressure step of the one-sided difference used for dh/dp at fixed
 # quality (the only derivative the property layer does not give).  1e-6 keeps the
@@ -32,6 +32,10 @@ _DP_REL = 1e-6
 # outputs of a (p, T) state row
 _H_KEYS = ("h", "cp", "dhdp")
 
+
+#: declared phases whose (p, T) states :func:`h_pT_sides` takes: phase -> (may lie
+#: below the saturation line, may lie above it)
+SIDES = {None: (True, True), "liquid": (True, False), "vapour": (False, True), "gas": (False, True)}
 
 # Fluid objects by the name the plant file gives (get_fluid caches them too; this
 # skips its argument checks on every property call of a model).
@@ -130,6 +134,38 @@ def h_pT(name: str, phase, p, T, streams=()):
         lambda pp, TT, where: f.h_pT(pp, TT, phase, where=where), streams, p, T
     )
     return np.asarray(h, dtype=float), np.asarray(dhdT, dtype=float), np.asarray(dhdp, float)
+
+
+def h_pT_sides(name: str, p, T, below, above):
+    """:func:`h_pT` of the states of several streams of one fluid in one go, or None.
+
+    Parameters
+    ----------
+    name : str
+        Fluid name.
+    p, T : ndarray [Pa, K]
+        Flat arrays, the states of several :func:`h_pT` calls end to end.
+    below, above : ndarray of bool
+        Per state, the sides of the saturation line its declared phase allows
+        (:data:`SIDES`).
+
+    Returns
+    -------
+    (h, dh_dT, dh_dp) or None
+        The values :func:`h_pT` gives for each state with its own phase, when the
+        fluid is IF97 water and every state is far from saturation (the lean path
+        of the property layer, two CoolProp calls for all states: CoolProp
+        evaluates each point on its own).  None otherwise, with nothing raised or
+        warned: the caller then makes the :func:`h_pT` calls, which give the values
+        and the messages.
+    """
+    f = fluid(name)
+    if not f.is_if97 or not far_from_saturation_sides(f, p, T, below, above):
+        return None
+    r = if97_plain(f, p, T, _H_KEYS)
+    if r is None:
+        return None
+    return r["h"], r["cp"], r["dhdp"]
 
 
 def saturation(name: str, p, streams=()):

@@ -45,11 +45,7 @@ def far_from_saturation(fluid, p, T, phase) -> bool:
         return np.count_nonzero(ok) == ok.size
     if phase is not None and phase not in ("liquid", "vapour", "gas"):
         return False  # "wet" or an unknown name: the rules raise
-    margin = fluid.saturation_margin
-    screen = fluid._screen
-    if screen is None or screen[0] != margin:
-        screen = fluid._screen = (margin, *if97_screen(margin))
-    _, grid, lo, hi = screen
+    _, grid, lo, hi = _screen_of(fluid)
     k = grid.searchsorted(p, "right")
     if phase == "liquid":
         ok = T < lo[k]
@@ -59,6 +55,31 @@ def far_from_saturation(fluid, p, T, phase) -> bool:
         ok = T > hi[k]
     ok &= T > 0
     return np.count_nonzero(ok) == ok.size  # (count_nonzero: cheaper than .all())
+
+
+def _screen_of(fluid):
+    """``(margin, grid, lo, hi)`` of :func:`if97_screen` for the fluid's margin (kept)."""
+    margin = fluid.saturation_margin
+    screen = fluid._screen
+    if screen is None or screen[0] != margin:
+        screen = fluid._screen = (margin, *if97_screen(margin))
+    return screen
+
+
+def far_from_saturation_sides(fluid, p, T, below, above) -> bool:
+    """:func:`far_from_saturation` for states of several declared phases at once.
+
+    `below` and `above` (bool arrays like `p`) say on which side of the saturation
+    line each state may lie: both for an undeclared phase, `below` only for a
+    liquid, `above` only for a vapour or gas.  The answer is True exactly when
+    :func:`far_from_saturation` says True for every state with its own phase (the
+    same elementwise test, gathered in one pass over the Tsat table).
+    """
+    _, grid, lo, hi = _screen_of(fluid)
+    k = grid.searchsorted(p, "right")
+    ok = ((T < lo[k]) & below) | ((T > hi[k]) & above)
+    ok &= T > 0
+    return np.count_nonzero(ok) == ok.size
 
 
 def if97_plain(fluid, p, T, keys):
