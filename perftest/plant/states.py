@@ -19,7 +19,7 @@ import numpy as np
 from perftest.errors import PerftestError, PropertyRangeError
 from perftest.thermo.properties import get_fluid
 from perftest.thermo.saturation import saturated_arrays
-from perftest.thermo.single_phase import far_from_saturation_sides, if97_plain, pT
+from perftest.thermo.single_phase import far_from_saturation_sides, if97_h_cp_dhdp, pT
 
 __all__ = ["h_pT", "h_pT_sides", "SIDES", "saturation", "h_px", "state_ph", "dead_state", "fluid"]
 
@@ -162,10 +162,7 @@ def h_pT_sides(name: str, p, T, below, above):
     f = fluid(name)
     if not f.is_if97 or not far_from_saturation_sides(f, p, T, below, above):
         return None
-    r = if97_plain(f, p, T, _H_KEYS)
-    if r is None:
-        return None
-    return r["h"], r["cp"], r["dhdp"]
+    return if97_h_cp_dhdp(f, p, T)
 
 
 def saturation(name: str, p, streams=()):
@@ -186,7 +183,12 @@ def saturation(name: str, p, streams=()):
     f = fluid(name)
     pf = _flat(p)
     if pf is not None:
-        T, hf, rf, hg, rg = _per_stream(lambda pp, where: _sat_values(f, pp, where), streams, pf)
+        # saturated_arrays is the first step of _sat_values; where it fails, the
+        # whole of _sat_values runs stream by stream to raise the message
+        out = saturated_arrays(f, pf)
+        if out is None:
+            out = _per_stream(lambda pp, where: _sat_values(f, pp, where), streams, pf)
+        T, hf, rf, hg, rg = out
         return T, T * (1.0 / rg - 1.0 / rf) / (hg - hf)
     p = np.asarray(p, dtype=float)
     liq, vap = _per_stream(lambda pp, where: _saturated(f, pp, where), streams, p)

@@ -114,6 +114,28 @@ def if97_plain(fluid, p, T, keys):
     return res
 
 
+def if97_h_cp_dhdp(fluid, p, T):
+    """``h, cp, (dh/dp)_T`` of :func:`if97_plain` for keys ``("h", "cp", "dhdp")``, or None.
+
+    The same two CoolProp calls and the same arithmetic, without the handling of
+    other keys (the plant model asks for these at every new point).
+    """
+    n = p.size
+    pair, evaluate = fluid._CP.PT_INPUTS, fluid._as.fast_evaluate
+    out = np.empty((n, 2))
+    status = np.empty(n, dtype=np.int32)
+    evaluate(pair, p, T, out_keys(fluid, ("h", "cp")), out, status)
+    if np.count_nonzero(status):
+        return None
+    dp = _FD_REL_STEP * p
+    hpm = np.empty((2 * n, 1))
+    status = np.empty(2 * n, dtype=np.int32)
+    evaluate(pair, *stencil(p, dp, T), out_keys(fluid, ("h",)), hpm, status)
+    if np.count_nonzero(status):
+        return None
+    return out[:, 0], out[:, 1], (hpm[:n, 0] - hpm[n:, 0]) / (2.0 * dp)
+
+
 def pT_rules(fluid, p, T, phase, keys, where):
     """:func:`pT` in full: every check, anchors within the margin, every message."""
     check_phase(phase, where)
