@@ -19,7 +19,12 @@ import numpy as np
 from perftest.errors import PerftestError, PropertyRangeError
 from perftest.thermo.properties import get_fluid
 from perftest.thermo.saturation import saturated_arrays
-from perftest.thermo.single_phase import far_from_saturation_sides, if97_h_cp_dhdp, pT
+from perftest.thermo.single_phase import (
+    backend_h_cp_dhdp,
+    far_from_saturation_sides,
+    if97_h_cp_dhdp,
+    pT,
+)
 
 __all__ = ["h_pT", "h_pT_sides", "SIDES", "saturation", "h_px", "state_ph", "dead_state", "fluid"]
 
@@ -152,15 +157,19 @@ def h_pT_sides(name: str, p, T, below, above):
     Returns
     -------
     (h, dh_dT, dh_dp) or None
-        The values :func:`h_pT` gives for each state with its own phase, when the
-        fluid is IF97 water and every state is far from saturation (the lean path
-        of the property layer, two CoolProp calls for all states: CoolProp
-        evaluates each point on its own).  None otherwise, with nothing raised or
-        warned: the caller then makes the :func:`h_pT` calls, which give the values
-        and the messages.
+        The values :func:`h_pT` gives for each state with its own phase, when
+        every state is far from saturation and inside the fluid's range: for IF97
+        water the lean path of the property layer, two CoolProp calls for all
+        states (CoolProp evaluates each point on its own); for other fluids the
+        updates of the full rules without their checks
+        (:func:`~perftest.thermo.single_phase.backend_h_cp_dhdp`).  None
+        otherwise, with nothing raised or warned: the caller then makes the
+        :func:`h_pT` calls, which give the values and the messages.
     """
     f = fluid(name)
-    if not f.is_if97 or not far_from_saturation_sides(f, p, T, below, above):
+    if not f.is_if97:
+        return backend_h_cp_dhdp(f, p, T, below, above)
+    if not far_from_saturation_sides(f, p, T, below, above):
         return None
     return if97_h_cp_dhdp(f, p, T)
 

@@ -136,6 +136,49 @@ def if97_h_cp_dhdp(fluid, p, T):
     return out[:, 0], out[:, 1], (hpm[:n, 0] - hpm[n:, 0]) / (2.0 * dp)
 
 
+def backend_h_cp_dhdp(fluid, p, T, below, above):
+    """``h, cp, (dh/dp)_T`` of :func:`pT_rules` for a fluid other than IF97 water, or None.
+
+    For states of several declared phases at once (`below`, `above` as in
+    :func:`far_from_saturation_sides`).  The same CoolProp updates as
+    :func:`pT_rules` (the saturation temperature of every state inside the
+    saturation range, then the state) and the same outputs, without its checks,
+    arrays and messages; None as soon as any state is not positive and finite,
+    meets a saturation rule (inside the margin or on the wrong side) or fails,
+    and then :func:`pT_rules` gives the values or the message.  CoolProp's
+    Helmholtz-energy backend gives the same numbers whatever it evaluated before
+    (checked in tests/thermo), so the states of several calls can go in one.
+    """
+    if not (np.count_nonzero((p > 0) & (T > 0) & (p < np.inf) & (T < np.inf)) == p.size):
+        return None
+    AS, CP = fluid._as, fluid._CP
+    update = AS.update
+    margin = fluid.saturation_margin
+    pl, Tl = p.tolist(), T.tolist()
+    sides = zip(below.tolist(), above.tolist(), strict=True)
+    lo_p, hi_p = fluid.p_triple, fluid.p_critical
+    try:
+        if not fluid._pseudo_pure:
+            # tsat_or_nan: Tsat where triple <= p < critical, no rule elsewhere
+            pair, get_T = CP.PQ_INPUTS, AS.T
+            for pi, Ti, (b, a) in zip(pl, Tl, sides):
+                if lo_p <= pi < hi_p:
+                    update(pair, pi, 0.0)
+                    d = Ti - get_T()
+                    if not ((b and d < -margin) or (a and d > margin)):
+                        return None
+        pair, get_h, get_cp, deriv = CP.PT_INPUTS, AS.hmass, AS.cpmass, AS.first_partial_deriv
+        iH, iP, iT = CP.iHmass, CP.iP, CP.iT
+        n = len(pl)
+        h, cp, dhdp = [0.0] * n, [0.0] * n, [0.0] * n
+        for i in range(n):
+            update(pair, pl[i], Tl[i])
+            h[i], cp[i], dhdp[i] = get_h(), get_cp(), deriv(iH, iP, iT)
+    except (ValueError, IndexError, RuntimeError):
+        return None
+    return np.array(h), np.array(cp), np.array(dhdp)
+
+
 def pT_rules(fluid, p, T, phase, keys, where):
     """:func:`pT` in full: every check, anchors within the margin, every message."""
     check_phase(phase, where)
