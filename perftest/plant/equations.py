@@ -507,10 +507,7 @@ class PlantModel:
             [thermo.saturation(fl, v[p], sids) for fl, _, _, sids, p, _, _ in self._sat_groups], 2
         )
         qual = _end_to_end(
-            [
-                thermo.h_px(fl, v[p], v[q], sids)
-                for fl, _, _, sids, p, _, q in self._quality_groups
-            ],
+            [thermo.h_px(fl, v[p], v[q], sids) for fl, _, _, sids, p, _, q in self._quality_groups],
             3,
         )
         out = (state, sat, qual)
@@ -650,7 +647,9 @@ class PlantModel:
         """
         fixed = r is self._pattern.rows and c is self._pattern.cols
         plan = self._fixed_plan if fixed else self._plan
-        if plan is not None and (fixed or (np.array_equal(plan.r, r) and np.array_equal(plan.c, c))):
+        if plan is not None and (
+            fixed or (np.array_equal(plan.r, r) and np.array_equal(plan.c, c))
+        ):
             return plan
         blocks = ((self._slot_x, self.n_x), (self._slot_y, self.n_y))
         plan = assemble.assembly(r, c, blocks, len(self.rows))

@@ -161,7 +161,7 @@ def backend_h_cp_dhdp(fluid, p, T, below, above):
         if not fluid._pseudo_pure:
             # tsat_or_nan: Tsat where triple <= p < critical, no rule elsewhere
             pair, get_T = CP.PQ_INPUTS, AS.T
-            for pi, Ti, (b, a) in zip(pl, Tl, sides):
+            for pi, Ti, (b, a) in zip(pl, Tl, sides, strict=True):
                 if lo_p <= pi < hi_p:
                     update(pair, pi, 0.0)
                     d = Ti - get_T()

@@ -48,7 +48,9 @@ def _model(name):
 
 def _by_group(model, v):
     """h, dh/dT, dh/dp of every state row from one property-layer call per group."""
-    parts = [thermo.h_pT(fl, ph, v[p], v[T], sids) for fl, ph, _, sids, p, T, _ in model._state_groups]
+    parts = [
+        thermo.h_pT(fl, ph, v[p], v[T], sids) for fl, ph, _, sids, p, T, _ in model._state_groups
+    ]
     return tuple(np.concatenate(z) for z in zip(*parts, strict=True))
 
 
@@ -139,7 +141,9 @@ def test_helmholtz_backend_values_do_not_depend_on_earlier_updates(fluid):
                 if rng.random() < 0.5:
                     shared.update(CP.PQ_INPUTS, rng.uniform(0.05, 0.9) * pc, float(rng.integers(2)))
                 else:
-                    shared.update(CP.PT_INPUTS, rng.uniform(0.05, 1.5) * pc, rng.uniform(0.7, 1.4) * Tc)
+                    shared.update(
+                        CP.PT_INPUTS, rng.uniform(0.05, 1.5) * pc, rng.uniform(0.7, 1.4) * Tc
+                    )
             except ValueError:
                 pass
         fresh = CP.AbstractState("HEOS", fluid)
@@ -197,4 +201,6 @@ def test_jacobian_at_overflowing_values_warns_like_the_residual():
         with warnings.catch_warnings(record=True) as seen:
             warnings.simplefilter("always")
             call(x, y)
-        assert any(issubclass(w.category, RuntimeWarning) and "overflow" in str(w.message) for w in seen)
+        assert any(
+            issubclass(w.category, RuntimeWarning) and "overflow" in str(w.message) for w in seen
+        )
