@@ -9,7 +9,10 @@ to a few dozen streams, so they take the short way in: the (p, T) rules of
 :func:`perftest.thermo.single_phase.pT` directly (no argument shaping) and the
 saturated values of :func:`perftest.thermo.saturation.saturated_arrays` (no State
 records).  Other inputs (scalars, 2-D arrays) go through the public :class:`Fluid`
-methods; the numbers and the messages are the same either way.
+methods; the numbers and the messages are the same either way.  :func:`h_pT_sides`
+takes the states of every group of one fluid in one call where no saturation rule
+applies to any of them, and declines (None) otherwise, leaving the values and the
+messages to :func:`h_pT` per group.
 """
 
 from __future__ import annotations
