@@ -371,3 +371,22 @@ def test_one_call_of_other_backends_equals_the_full_rules(fluid):
         assert (
             single_phase.backend_h_cp_dhdp(f, bad, T2, np.ones(2, bool), np.ones(2, bool)) is None
         )
+
+
+def test_repeated_pressures_share_their_saturated_values():
+    """Streams at one pressure get one CoolProp update; values as one update each."""
+    p = np.array([7961.5, 7988.0, 7961.5, np.nan, 7961.5, 2e6, np.nan, 7988.0])
+    T, dTdp = plant_states.saturation("water", p, [f"s{i}" for i in range(p.size)])
+    state = CP.AbstractState("IF97", "Water")
+    for i, pi in enumerate(p):
+        if np.isnan(pi):
+            assert np.isnan(T[i]) and np.isnan(dTdp[i])  # a gap stays a gap
+            continue
+        state.update(CP.PQ_INPUTS, pi, 0.0)
+        Tf, hf, vf = state.T(), state.hmass(), 1.0 / state.rhomass()
+        state.update(CP.PQ_INPUTS, pi, 1.0)
+        hg, vg = state.hmass(), 1.0 / state.rhomass()
+        assert T[i] == Tf and dTdp[i] == Tf * (vg - vf) / (hg - hf)  # exact, as above
+    # a pressure out of the line among repeated ones still names its stream
+    with pytest.raises(PropertyRangeError, match="s2"):
+        plant_states.saturation("water", np.array([1e5, 1e5, 3e7, 1e5]), ["s0", "s1", "s2", "s3"])
