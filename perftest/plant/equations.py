@@ -42,6 +42,7 @@ import scipy.sparse as sp
 
 from perftest.errors import InputError
 from perftest.plant import combustion as firing
+from perftest.plant import jacobian as assemble
 from perftest.plant import states as thermo
 from perftest.plant.spec import STREAM_VARIABLES, ModelSpec, Source, read_model_spec
 
@@ -49,17 +50,11 @@ from perftest.plant.spec import STREAM_VARIABLES, ModelSpec, Source, read_model_
 # a trial or two around it.
 _PROPERTY_CACHE = 4
 
+# Values below this size [SI] cannot overflow a product of two of them or a sum of a
+# few thousand such products (1e300 * 1e3 is far below the largest double, 1.8e308).
+_TAME = 1e150
+
 __all__ = ["PlantModel", "Row", "build_model"]
-
-
-@dataclass(frozen=True)
-class _Assembly:
-    """Kept plan of :meth:`PlantModel._assembly` for one entry pattern."""
-
-    r: np.ndarray
-    c: np.ndarray
-    blocks: tuple
-    flat: tuple
 
 
 # Divisors of the residual rows (see module docstring).
@@ -264,6 +259,15 @@ def _state_rows(spec: ModelSpec, b: _Builder) -> None:
             b.state.append((r, sid))
 
 
+def _end_to_end(parts: list, k: int) -> tuple:
+    """The ``k`` output arrays of several group calls, each joined end to end."""
+    if len(parts) == 1:
+        return tuple(parts[0])
+    if not parts:
+        return tuple(np.zeros(0) for _ in range(k))
+    return tuple(np.concatenate(z) for z in zip(*parts, strict=True))
+
+
 class PlantModel:
     """Variables and balance equations of a plant, bound to a set of measured tags.
 
@@ -369,6 +373,48 @@ class PlantModel:
         self._prop_idx = np.unique(np.concatenate(used))
         self._prop_cache = ()
         self._plan = None
+        self._fixed_plan = None
+        self._prepare_evaluation()
+
+    def _prepare_evaluation(self) -> None:
+        """Index arrays of one evaluation, laid out once (see :meth:`_evaluate`).
+
+        The property values of every group are kept end to end in the order of the
+        groups (``_st_rows``, ``_sat_rows``, ``_q_rows``; ``_st_at``: where each state
+        group starts); (p, T) states of one fluid whose declared phase has a side of
+        the saturation line are asked for in one call (``_st_batches``).  The
+        Jacobian's entries without the firing side have a fixed pattern
+        (:func:`perftest.plant.jacobian.pattern`).
+        """
+
+        def cat(arrays, dtype=int):
+            return np.concatenate([np.zeros(0, dtype), *arrays]).astype(dtype)
+
+        def offsets(groups):
+            return np.cumsum([0, *(g[2].size for g in groups)])
+
+        st, sat, qual = self._state_groups, self._sat_groups, self._quality_groups
+        self._st_rows, self._st_at = cat(g[2] for g in st), offsets(st)
+        self._sat_rows, self._q_rows = cat(g[2] for g in sat), cat(g[2] for g in qual)
+        batches: dict = {}
+        for i, g in enumerate(st):
+            if g[1] in thermo.SIDES:
+                batches.setdefault(g[0], []).append(i)
+        self._st_batches = []
+        for fl, members in batches.items():
+            pos = cat(np.arange(self._st_at[i], self._st_at[i + 1]) for i in members)
+            below, above = (
+                cat((np.full(st[i][2].size, thermo.SIDES[st[i][1]][k]) for i in members), bool)
+                for k in (0, 1)
+            )
+            p = cat(st[i][4] for i in members)
+            T = cat(st[i][5] for i in members)
+            self._st_batches.append((fl, tuple(members), pos, p, T, below, above))
+        batched = {i for b in self._st_batches for i in b[1]}
+        self._st_singles = tuple(i for i in range(len(st)) if i not in batched)
+        # one batch of every group: its values are already in the order of the groups
+        self._st_whole = len(self._st_batches) == 1 and not self._st_singles
+        self._pattern = assemble.pattern(self._lin, self._bil, st, sat, qual, self._scale)
 
     def bind(self, measured) -> PlantModel:
         """The same model with only ``measured`` tags in ``x``; the rest become unmeasured.
@@ -441,6 +487,9 @@ class PlantModel:
     def _properties(self, v: np.ndarray):
         """Property values and derivatives of every state, saturation and quality row.
 
+        Returns ``((h, dh_dT, dh_dp), (T_sat, dT_dp), (h, dh_dp, dh_dx))``, each array
+        holding the rows of its groups end to end (see :meth:`_prepare_evaluation`).
+
         The residual and the Jacobian at one point need the same property calls: the
         engines evaluate the residual at a trial point and, once it is accepted, the
         Jacobian there (and scipy's optimisers call both at each iterate).  The last
@@ -453,64 +502,93 @@ class PlantModel:
         for k, out in cache:
             if k == key:
                 return out
-        state = tuple(
-            thermo.h_pT(fl, ph, v[p], v[T], sids) for fl, ph, _, sids, p, T, _ in self._state_groups
+        state = self._state_values(v)
+        sat = _end_to_end(
+            [thermo.saturation(fl, v[p], sids) for fl, _, _, sids, p, _, _ in self._sat_groups], 2
         )
-        sat = tuple(
-            thermo.saturation(fl, v[p], sids) for fl, _, _, sids, p, _, _ in self._sat_groups
-        )
-        qual = tuple(
-            thermo.h_px(fl, v[p], v[q], sids) for fl, _, _, sids, p, _, q in self._quality_groups
+        qual = _end_to_end(
+            [thermo.h_px(fl, v[p], v[q], sids) for fl, _, _, sids, p, _, q in self._quality_groups],
+            3,
         )
         out = (state, sat, qual)
         # a new tuple, assigned at once: threads sharing the model see either list
         self._prop_cache = ((key, out), *cache[: _PROPERTY_CACHE - 1])
         return out
 
+    def _state_values(self, v: np.ndarray):
+        """``h, dh_dT, dh_dp`` of every state row, the groups end to end.
+
+        The states of one fluid go to the property layer in one call
+        (:func:`~perftest.plant.states.h_pT_sides`); when it declines (not IF97
+        water, a state near saturation or out of range), its groups are asked one by
+        one, as are groups of other phases, in the order of the groups, so that
+        the first failing group raises its own message.  Either way each state gets
+        the value :func:`~perftest.plant.states.h_pT` gives it in its own group.
+        """
+        groups, at = self._state_groups, self._st_at
+        got, pending = [], list(self._st_singles)
+        for fl, members, pos, p, T, below, above in self._st_batches:
+            res = thermo.h_pT_sides(fl, v[p], v[T], below, above)
+            if res is None:
+                pending += members
+            else:
+                got.append((pos, res))
+        if self._st_whole and got:
+            return got[0][1]  # one call for every group, in their order: end to end
+        out = tuple(np.empty(at[-1]) for _ in range(3))
+        for pos, res in got:
+            for dest, val in zip(out, res, strict=True):
+                dest[pos] = val
+        for i in sorted(pending):
+            fl, ph, _, sids, p, T, _ = groups[i]
+            part = thermo.h_pT(fl, ph, v[p], v[T], sids)
+            for dest, val in zip(out, part, strict=True):
+                dest[at[i] : at[i + 1]] = val
+        return out
+
+    def _linear_part(self, v: np.ndarray) -> np.ndarray:
+        """Unscaled residuals of the linear and bilinear (m h) terms."""
+        br, bm, bh, bc = self._bil
+        r = self._L @ v
+        r += np.bincount(br, bc * v[bm] * v[bh], minlength=len(self.rows))
+        return r
+
     def _evaluate(self, v: np.ndarray, jac: bool):
         """Unscaled residuals and (optionally) COO Jacobian entries over model variables."""
-        m = len(self.rows)
-        r = self._L @ v
-        br, bm, bh, bc = self._bil
-        r += np.bincount(br, bc * v[bm] * v[bh], minlength=m)
-        state, sat, qual = self._properties(v)
-        rows, cols, vals = [], [], []
-        if jac:
-            rows += [self._lin[0], br, br]
-            cols += [self._lin[1], bm, bh]
-            vals += [self._lin[2], bc * v[bh], bc * v[bm]]
-        for (_, _, rr, _, p, T, _), (h, dhdT, dhdp) in zip(self._state_groups, state, strict=True):
-            r[rr] -= h
-            if jac:
-                rows += [rr, rr]
-                cols += [p, T]
-                vals += [-dhdp, -dhdT]
-        for (_, _, rr, _, p, _, _), (Ts, dTdp) in zip(self._sat_groups, sat, strict=True):
-            r[rr] -= Ts
-            if jac:
-                rows.append(rr)
-                cols.append(p)
-                vals.append(-dTdp)
-        for (_, _, rr, _, p, _, q), (h, dhdp, dhdx) in zip(self._quality_groups, qual, strict=True):
-            r[rr] -= h
-            if jac:
-                rows += [rr, rr]
-                cols += [p, q]
-                vals += [-dhdp, -dhdx]
+        r = self._linear_part(v)
+        props = self._properties(v)
+        (h, _, _), (Ts, _), (hq, _, _) = props
+        r[self._st_rows] -= h
+        r[self._sat_rows] -= Ts
+        r[self._q_rows] -= hq
+        ent = None
         if self._b.combustion is not None:
             comb, crows = self._b.combustion
             comb = self.combustion  # the bound parameters (see with_combustion)
             res, ent = firing.evaluate_rows(comb, crows, self.index, v, jac)
             for i, val in res.items():
                 r[i] += val
-            if jac and ent:
-                er, ec, ev = (np.array(z) for z in zip(*ent, strict=True))
-                rows.append(er.astype(int))
-                cols.append(ec.astype(int))
-                vals.append(ev.astype(float))
         if not jac:
             return r, None
-        return r, (np.concatenate(rows), np.concatenate(cols), np.concatenate(vals))
+        return r, assemble.entries(self._pattern, self._bil, v, props, ent)
+
+    def _entries(self, v: np.ndarray):
+        """COO Jacobian entries ``(rows, cols, values)`` over model variables (unscaled).
+
+        The entries of :meth:`_evaluate` without its residuals.  Where a value is
+        not finite or above ``_TAME`` in size, the residuals' arithmetic (m h
+        products and their sums) could overflow or meet inf - inf and warn; there
+        the whole of :meth:`_evaluate` runs, as it always did for a Jacobian, so
+        that the same warnings appear.  (``abs`` and ``max`` never warn.)
+        """
+        if not np.abs(v).max() < _TAME:
+            return self._evaluate(v, jac=True)[1]
+        props = self._properties(v)
+        ent = None
+        if self._b.combustion is not None:
+            _, crows = self._b.combustion
+            ent = firing.evaluate_rows(self.combustion, crows, self.index, v, True)[1]
+        return assemble.entries(self._pattern, self._bil, v, props, ent)
 
     def imbalance(self, x, y) -> np.ndarray:
         """Unscaled residual of every row [kg/s, W, J/kg, Pa or K, see :attr:`rows`]."""
@@ -540,13 +618,7 @@ class PlantModel:
             Clausius-Clapeyron slope of the saturation line).
         """
         r, c, a = self._scaled_entries(self.slot_values(x, y))
-        plan = self._assembly(r, c)
-        m = len(self.rows)
-        out = []
-        for sel, inv, indices, indptr, cols in plan.blocks:
-            data = np.bincount(inv, weights=a[sel], minlength=indices.size)
-            out.append(sp.csr_matrix((data, indices.copy(), indptr.copy()), shape=(m, cols)))
-        return out[0], out[1]
+        return assemble.to_csr(self._assembly(r, c), a, len(self.rows))
 
     def dense_jacobian(self, x, y):
         """:meth:`jacobian` as dense arrays ``(Jx, Jy)`` (the same numbers).
@@ -555,48 +627,41 @@ class PlantModel:
         assembling them directly skips the sparse format.
         """
         r, c, a = self._scaled_entries(self.slot_values(x, y))
-        plan = self._assembly(r, c)
-        m = len(self.rows)
-        out = []
-        for (sel, _, _, _, cols), flat in zip(plan.blocks, plan.flat, strict=True):
-            out.append(np.bincount(flat, weights=a[sel], minlength=m * cols).reshape(m, cols))
-        return out[0], out[1]
+        return assemble.to_dense(self._assembly(r, c), a, len(self.rows))
 
     def _scaled_entries(self, v):
-        _, (r, c, a) = self._evaluate(v, jac=True)
-        return r, c, a / self._scale[r]
+        r, c, a = self._entries(v)
+        pat = self._pattern
+        return r, c, a / (pat.scale if r is pat.rows else self._scale[r])
 
     def _assembly(self, r, c):
-        """How the COO entries ``(r, c)`` of :meth:`_evaluate` become ``Jx`` and ``Jy``.
+        """How the COO entries ``(r, c)`` of :meth:`_entries` become ``Jx`` and ``Jy``.
 
         The pattern is the same at every point (the firing side may add entries), so
         the plan is kept and reused while the pattern is unchanged: per block the
         selected entries, where each lands among the block's sorted unique
         positions (duplicates are summed), the CSR indices and pointers, and the
-        flat positions in a dense array.
+        flat positions in a dense array.  The fixed pattern of
+        :meth:`_prepare_evaluation` has a plan of its own, found without a
+        comparison.
         """
-        plan = self._plan
-        if plan is not None and np.array_equal(plan.r, r) and np.array_equal(plan.c, c):
+        fixed = r is self._pattern.rows and c is self._pattern.cols
+        plan = self._fixed_plan if fixed else self._plan
+        if plan is not None and (
+            fixed or (np.array_equal(plan.r, r) and np.array_equal(plan.c, c))
+        ):
             return plan
-        m = len(self.rows)
-        blocks, flat = [], []
-        for slot, cols in ((self._slot_x, self.n_x), (self._slot_y, self.n_y)):
-            to = slot[c]
-            sel = np.flatnonzero(to >= 0)
-            keys = r[sel] * cols + to[sel]
-            uniq, inv = np.unique(keys, return_inverse=True)
-            indices = (uniq % cols).astype(np.int32) if cols else uniq.astype(np.int32)
-            counts = np.bincount(uniq // cols if cols else uniq, minlength=m)
-            indptr = np.concatenate([[0], np.cumsum(counts)]).astype(np.int32)
-            blocks.append((sel, inv.ravel(), indices, indptr, cols))
-            flat.append(keys)
-        plan = _Assembly(r.copy(), c.copy(), tuple(blocks), tuple(flat))
-        self._plan = plan
+        blocks = ((self._slot_x, self.n_x), (self._slot_y, self.n_y))
+        plan = assemble.assembly(r, c, blocks, len(self.rows))
+        if fixed:
+            self._fixed_plan = plan
+        else:
+            self._plan = plan
         return plan
 
     def slot_jacobian(self, v: np.ndarray) -> sp.csr_matrix:
         """Jacobian of the scaled residuals with respect to every model variable."""
-        _, (r, c, a) = self._evaluate(v, jac=True)
+        r, c, a = self._entries(v)
         return sp.csr_matrix(
             (a / self._scale[r], (r, c)), shape=(len(self.rows), len(self.variables))
         )

@@ -9,7 +9,10 @@ to a few dozen streams, so they take the short way in: the (p, T) rules of
 :func:`perftest.thermo.single_phase.pT` directly (no argument shaping) and the
 saturated values of :func:`perftest.thermo.saturation.saturated_arrays` (no State
 records).  Other inputs (scalars, 2-D arrays) go through the public :class:`Fluid`
-methods; the numbers and the messages are the same either way.
+methods; the numbers and the messages are the same either way.  :func:`h_pT_sides`
+takes the states of every group of one fluid in one call where no saturation rule
+applies to any of them, and declines (None) otherwise, leaving the values and the
+messages to :func:`h_pT` per group.
 """
 
 from __future__ import annotations
@@ -19,9 +22,14 @@ import numpy as np
 from perftest.errors import PerftestError, PropertyRangeError
 from perftest.thermo.properties import get_fluid
 from perftest.thermo.saturation import saturated_arrays
-from perftest.thermo.single_phase import pT
+from perftest.thermo.single_phase import (
+    backend_h_cp_dhdp,
+    far_from_saturation_sides,
+    if97_h_cp_dhdp,
+    pT,
+)
 
-__all__ = ["h_pT", "saturation", "h_px", "state_ph", "dead_state", "fluid"]
+__all__ = ["h_pT", "h_pT_sides", "SIDES", "saturation", "h_px", "state_ph", "dead_state", "fluid"]
 
 # Relative pressure step of the one-sided difference used for dh/dp at fixed
 # quality (the only derivative the property layer does not give).  1e-6 keeps the
@@ -32,6 +40,10 @@ _DP_REL = 1e-6
 # outputs of a (p, T) state row
 _H_KEYS = ("h", "cp", "dhdp")
 
+
+#: declared phases whose (p, T) states :func:`h_pT_sides` takes: phase -> (may lie
+#: below the saturation line, may lie above it)
+SIDES = {None: (True, True), "liquid": (True, False), "vapour": (False, True), "gas": (False, True)}
 
 # Fluid objects by the name the plant file gives (get_fluid caches them too; this
 # skips its argument checks on every property call of a model).
@@ -132,6 +144,39 @@ def h_pT(name: str, phase, p, T, streams=()):
     return np.asarray(h, dtype=float), np.asarray(dhdT, dtype=float), np.asarray(dhdp, float)
 
 
+def h_pT_sides(name: str, p, T, below, above):
+    """:func:`h_pT` of the states of several streams of one fluid in one go, or None.
+
+    Parameters
+    ----------
+    name : str
+        Fluid name.
+    p, T : ndarray [Pa, K]
+        Flat arrays, the states of several :func:`h_pT` calls end to end.
+    below, above : ndarray of bool
+        Per state, the sides of the saturation line its declared phase allows
+        (:data:`SIDES`).
+
+    Returns
+    -------
+    (h, dh_dT, dh_dp) or None
+        The values :func:`h_pT` gives for each state with its own phase, when
+        every state is far from saturation and inside the fluid's range: for IF97
+        water the lean path of the property layer, two CoolProp calls for all
+        states (CoolProp evaluates each point on its own); for other fluids the
+        updates of the full rules without their checks
+        (:func:`~perftest.thermo.single_phase.backend_h_cp_dhdp`).  None
+        otherwise, with nothing raised or warned: the caller then makes the
+        :func:`h_pT` calls, which give the values and the messages.
+    """
+    f = fluid(name)
+    if not f.is_if97:
+        return backend_h_cp_dhdp(f, p, T, below, above)
+    if not far_from_saturation_sides(f, p, T, below, above):
+        return None
+    return if97_h_cp_dhdp(f, p, T)
+
+
 def saturation(name: str, p, streams=()):
     """Saturation temperature and its slope along the saturation line.
 
@@ -150,7 +195,12 @@ def saturation(name: str, p, streams=()):
     f = fluid(name)
     pf = _flat(p)
     if pf is not None:
-        T, hf, rf, hg, rg = _per_stream(lambda pp, where: _sat_values(f, pp, where), streams, pf)
+        # saturated_arrays is the first step of _sat_values; where it fails, the
+        # whole of _sat_values runs stream by stream to raise the message
+        out = saturated_arrays(f, pf)
+        if out is None:
+            out = _per_stream(lambda pp, where: _sat_values(f, pp, where), streams, pf)
+        T, hf, rf, hg, rg = out
         return T, T * (1.0 / rg - 1.0 / rf) / (hg - hf)
     p = np.asarray(p, dtype=float)
     liq, vap = _per_stream(lambda pp, where: _saturated(f, pp, where), streams, p)

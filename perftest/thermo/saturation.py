@@ -77,13 +77,22 @@ def saturated_arrays(fluid, p):
     skipped there (it costs as much as h).  Other backends read all five, as
     :func:`state_px` does.
     """
+    pl = p.tolist()
+    n = len(pl)
+    if fluid.is_if97 and n > 1:
+        # Streams tied to one pressure (drains flashing to the condenser) share their
+        # saturated values: one update per distinct pressure.  IF97's saturation line
+        # is a function of p alone, so the numbers are those of an update per stream.
+        first: dict = {}
+        where = [first.setdefault(x, len(first)) for x in pl]  # (NaNs stay apart)
+        if len(first) < n:
+            out = saturated_arrays(fluid, np.array(list(first)))
+            return None if out is None else tuple(np.array(out)[:, where])
     AS, pair = fluid._as, fluid._CP.PQ_INPUTS
     # the getters of Fluid._getters for T, p, h, s and rho
     get_T, get_p, get_h, get_s, get_rho = AS.T, AS.p, AS.hmass, AS.smass, AS.rhomass
     full = not fluid.is_if97
     nan = np.nan
-    pl = p.tolist()
-    n = len(pl)
     T, hf, rf, hg, rg = [nan] * n, [nan] * n, [nan] * n, [nan] * n, [nan] * n
     try:
         for i, pi in enumerate(pl):

@@ -45,11 +45,7 @@ def far_from_saturation(fluid, p, T, phase) -> bool:
         return np.count_nonzero(ok) == ok.size
     if phase is not None and phase not in ("liquid", "vapour", "gas"):
         return False  # "wet" or an unknown name: the rules raise
-    margin = fluid.saturation_margin
-    screen = fluid._screen
-    if screen is None or screen[0] != margin:
-        screen = fluid._screen = (margin, *if97_screen(margin))
-    _, grid, lo, hi = screen
+    _, grid, lo, hi = _screen_of(fluid)
     k = grid.searchsorted(p, "right")
     if phase == "liquid":
         ok = T < lo[k]
@@ -59,6 +55,31 @@ def far_from_saturation(fluid, p, T, phase) -> bool:
         ok = T > hi[k]
     ok &= T > 0
     return np.count_nonzero(ok) == ok.size  # (count_nonzero: cheaper than .all())
+
+
+def _screen_of(fluid):
+    """``(margin, grid, lo, hi)`` of :func:`if97_screen` for the fluid's margin (kept)."""
+    margin = fluid.saturation_margin
+    screen = fluid._screen
+    if screen is None or screen[0] != margin:
+        screen = fluid._screen = (margin, *if97_screen(margin))
+    return screen
+
+
+def far_from_saturation_sides(fluid, p, T, below, above) -> bool:
+    """:func:`far_from_saturation` for states of several declared phases at once.
+
+    `below` and `above` (bool arrays like `p`) say on which side of the saturation
+    line each state may lie: both for an undeclared phase, `below` only for a
+    liquid, `above` only for a vapour or gas.  The answer is True exactly when
+    :func:`far_from_saturation` says True for every state with its own phase (the
+    same elementwise test, gathered in one pass over the Tsat table).
+    """
+    _, grid, lo, hi = _screen_of(fluid)
+    k = grid.searchsorted(p, "right")
+    ok = ((T < lo[k]) & below) | ((T > hi[k]) & above)
+    ok &= T > 0
+    return np.count_nonzero(ok) == ok.size
 
 
 def if97_plain(fluid, p, T, keys):
@@ -91,6 +112,71 @@ def if97_plain(fluid, p, T, keys):
             return None
         res["dhdp"] = (hpm[:n, 0] - hpm[n:, 0]) / (2.0 * dp)
     return res
+
+
+def if97_h_cp_dhdp(fluid, p, T):
+    """``h, cp, (dh/dp)_T`` of :func:`if97_plain` for keys ``("h", "cp", "dhdp")``, or None.
+
+    The same two CoolProp calls and the same arithmetic, without the handling of
+    other keys (the plant model asks for these at every new point).
+    """
+    n = p.size
+    pair, evaluate = fluid._CP.PT_INPUTS, fluid._as.fast_evaluate
+    out = np.empty((n, 2))
+    status = np.empty(n, dtype=np.int32)
+    evaluate(pair, p, T, out_keys(fluid, ("h", "cp")), out, status)
+    if np.count_nonzero(status):
+        return None
+    dp = _FD_REL_STEP * p
+    hpm = np.empty((2 * n, 1))
+    status = np.empty(2 * n, dtype=np.int32)
+    evaluate(pair, *stencil(p, dp, T), out_keys(fluid, ("h",)), hpm, status)
+    if np.count_nonzero(status):
+        return None
+    return out[:, 0], out[:, 1], (hpm[:n, 0] - hpm[n:, 0]) / (2.0 * dp)
+
+
+def backend_h_cp_dhdp(fluid, p, T, below, above):
+    """``h, cp, (dh/dp)_T`` of :func:`pT_rules` for a fluid other than IF97 water, or None.
+
+    For states of several declared phases at once (`below`, `above` as in
+    :func:`far_from_saturation_sides`).  The same CoolProp updates as
+    :func:`pT_rules` (the saturation temperature of every state inside the
+    saturation range, then the state) and the same outputs, without its checks,
+    arrays and messages; None as soon as any state is not positive and finite,
+    meets a saturation rule (inside the margin or on the wrong side) or fails,
+    and then :func:`pT_rules` gives the values or the message.  CoolProp's
+    Helmholtz-energy backend gives the same numbers whatever it evaluated before
+    (checked in tests/thermo), so the states of several calls can go in one.
+    """
+    if not (np.count_nonzero((p > 0) & (T > 0) & (p < np.inf) & (T < np.inf)) == p.size):
+        return None
+    AS, CP = fluid._as, fluid._CP
+    update = AS.update
+    margin = fluid.saturation_margin
+    pl, Tl = p.tolist(), T.tolist()
+    sides = zip(below.tolist(), above.tolist(), strict=True)
+    lo_p, hi_p = fluid.p_triple, fluid.p_critical
+    try:
+        if not fluid._pseudo_pure:
+            # tsat_or_nan: Tsat where triple <= p < critical, no rule elsewhere
+            pair, get_T = CP.PQ_INPUTS, AS.T
+            for pi, Ti, (b, a) in zip(pl, Tl, sides, strict=True):
+                if lo_p <= pi < hi_p:
+                    update(pair, pi, 0.0)
+                    d = Ti - get_T()
+                    if not ((b and d < -margin) or (a and d > margin)):
+                        return None
+        pair, get_h, get_cp, deriv = CP.PT_INPUTS, AS.hmass, AS.cpmass, AS.first_partial_deriv
+        iH, iP, iT = CP.iHmass, CP.iP, CP.iT
+        n = len(pl)
+        h, cp, dhdp = [0.0] * n, [0.0] * n, [0.0] * n
+        for i in range(n):
+            update(pair, pl[i], Tl[i])
+            h[i], cp[i], dhdp[i] = get_h(), get_cp(), deriv(iH, iP, iT)
+    except (ValueError, IndexError, RuntimeError):
+        return None
+    return np.array(h), np.array(cp), np.array(dhdp)
 
 
 def pT_rules(fluid, p, T, phase, keys, where):

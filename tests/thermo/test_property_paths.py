@@ -306,3 +306,87 @@ def test_gas_fuel_atoms_remembered_are_those_of_a_fresh_parse():
             fa.fuel_atoms({"methane": 0.9, "unobtainium": 0.1}, "t")
     assert fa.fuel_atoms({"methane": 1}, "t") == fa.fuel_atoms({"methane": 1.0}, "t")
     assert fa._gas_atoms({"methane": 1}) is not fa._gas_atoms({"methane": 1.0})
+
+
+# --------------------------------------------------------------------------------------
+# one call for the states of several groups (plant.states.h_pT_sides)
+# --------------------------------------------------------------------------------------
+def test_one_call_for_mixed_sides_equals_point_updates():
+    rng = np.random.default_rng(RNG_SEED + 1)
+    p, T_liq, T_vap = _liquid_and_steam(30, rng)
+    side = np.arange(p.size) % 3  # liquid, vapour, undeclared in turn
+    T = np.where(side == 1, T_vap, T_liq)
+    below = side != 1
+    above = side != 0
+    h, cp, dhdp = plant_states.h_pT_sides("water", p, T, below, above)
+    ref = _point_by_point(p, T)
+    for a, b in zip((h, cp, dhdp), ref, strict=True):
+        np.testing.assert_array_equal(a, b)  # exact, as above
+
+
+@pytest.mark.parametrize(
+    ("shift", "below", "above"),
+    [
+        (0.03, False, True),  # vapour inside the margin: anchored by the rules
+        (-0.03, True, True),  # undeclared inside the margin: the rules raise
+        (-2.0, False, True),  # vapour below the line: the rules raise
+        (2.0, True, False),  # liquid above the line: the rules raise
+    ],
+)
+@pytest.mark.parametrize("fluid", ["water", "R134a"])
+def test_one_call_declines_where_a_rule_applies(fluid, shift, below, above):
+    f = get_fluid(fluid)
+    p = np.array([2e5, 5e5, 1e6])
+    ts = f.saturation_T(p)
+    T = ts + np.array([5.0, shift, -5.0 if below and not above else 5.0])
+    if below and not above:
+        T[0] = ts[0] - 5.0
+    n = p.size
+    assert plant_states.h_pT_sides(fluid, p, T, np.full(n, below), np.full(n, above)) is None
+
+
+@pytest.mark.parametrize("fluid", ["R134a", "nitrogen", "water:IAPWS95"])
+def test_one_call_of_other_backends_equals_the_full_rules(fluid):
+    f = get_fluid(fluid)
+    rng = np.random.default_rng(RNG_SEED + 2)
+    p = rng.uniform(0.1, 0.8, 12) * f.p_critical
+    ts = f.saturation_T(p)
+    liquid = np.arange(p.size) % 2 == 0
+    T = np.where(liquid, ts - rng.uniform(1.0, 20.0, p.size), ts + rng.uniform(1.0, 80.0, p.size))
+    got = single_phase.backend_h_cp_dhdp(f, p, T, liquid, ~liquid)
+    assert got is not None
+    for phase, where in (("liquid", liquid), ("vapour", ~liquid)):
+        ref = single_phase.pT_rules(f, p[where], T[where], phase, ["h", "cp", "dhdp"], None)
+        # the same CoolProp updates and getters: exact
+        for a, key in zip(got, ("h", "cp", "dhdp"), strict=True):
+            np.testing.assert_array_equal(a[where], ref[key])
+    # above the critical pressure there is no saturation rule: plain states
+    p2 = np.array([1.2, 2.0]) * f.p_critical
+    T2 = np.array([1.1, 1.5]) * f.T_critical
+    got = single_phase.backend_h_cp_dhdp(f, p2, T2, np.ones(2, bool), np.ones(2, bool))
+    ref = single_phase.pT_rules(f, p2, T2, None, ["h", "cp", "dhdp"], None)
+    np.testing.assert_array_equal(got[0], ref["h"])
+    # non-positive or non-finite inputs are left to the rules
+    for bad in (np.array([-1.0, 1e5]), np.array([np.nan, 1e5]), np.array([np.inf, 1e5])):
+        assert (
+            single_phase.backend_h_cp_dhdp(f, bad, T2, np.ones(2, bool), np.ones(2, bool)) is None
+        )
+
+
+def test_repeated_pressures_share_their_saturated_values():
+    """Streams at one pressure get one CoolProp update; values as one update each."""
+    p = np.array([7961.5, 7988.0, 7961.5, np.nan, 7961.5, 2e6, np.nan, 7988.0])
+    T, dTdp = plant_states.saturation("water", p, [f"s{i}" for i in range(p.size)])
+    state = CP.AbstractState("IF97", "Water")
+    for i, pi in enumerate(p):
+        if np.isnan(pi):
+            assert np.isnan(T[i]) and np.isnan(dTdp[i])  # a gap stays a gap
+            continue
+        state.update(CP.PQ_INPUTS, pi, 0.0)
+        Tf, hf, vf = state.T(), state.hmass(), 1.0 / state.rhomass()
+        state.update(CP.PQ_INPUTS, pi, 1.0)
+        hg, vg = state.hmass(), 1.0 / state.rhomass()
+        assert T[i] == Tf and dTdp[i] == Tf * (vg - vf) / (hg - hf)  # exact, as above
+    # a pressure out of the line among repeated ones still names its stream
+    with pytest.raises(PropertyRangeError, match="s2"):
+        plant_states.saturation("water", np.array([1e5, 1e5, 3e7, 1e5]), ["s0", "s1", "s2", "s3"])
