@@ -104,14 +104,26 @@ def if97_plain(fluid, p, T, keys):
         return None
     res = {k: out[:, i] for i, k in enumerate(base)}
     if want_dhdp:
-        dp = _FD_REL_STEP * p
-        hpm = np.empty((2 * n, 1))
-        status = np.empty(2 * n, dtype=np.int32)
-        evaluate(pair, *stencil(p, dp, T), out_keys(fluid, ("h",)), hpm, status)
-        if np.count_nonzero(status):
+        dhdp = _if97_dhdp(fluid, p, T)
+        if dhdp is None:
             return None
-        res["dhdp"] = (hpm[:n, 0] - hpm[n:, 0]) / (2.0 * dp)
+        res["dhdp"] = dhdp
     return res
+
+
+def _if97_dhdp(fluid, p, T):
+    """(dh/dp)_T of IF97 water by the central difference, h on both sides in one
+    CoolProp call; None when any point fails."""
+    n = p.size
+    dp = _FD_REL_STEP * p
+    hpm = np.empty((2 * n, 1))
+    status = np.empty(2 * n, dtype=np.int32)
+    fluid._as.fast_evaluate(
+        fluid._CP.PT_INPUTS, *stencil(p, dp, T), out_keys(fluid, ("h",)), hpm, status
+    )
+    if np.count_nonzero(status):
+        return None
+    return (hpm[:n, 0] - hpm[n:, 0]) / (2.0 * dp)
 
 
 def if97_h_cp_dhdp(fluid, p, T):
@@ -127,13 +139,8 @@ def if97_h_cp_dhdp(fluid, p, T):
     evaluate(pair, p, T, out_keys(fluid, ("h", "cp")), out, status)
     if np.count_nonzero(status):
         return None
-    dp = _FD_REL_STEP * p
-    hpm = np.empty((2 * n, 1))
-    status = np.empty(2 * n, dtype=np.int32)
-    evaluate(pair, *stencil(p, dp, T), out_keys(fluid, ("h",)), hpm, status)
-    if np.count_nonzero(status):
-        return None
-    return out[:, 0], out[:, 1], (hpm[:n, 0] - hpm[n:, 0]) / (2.0 * dp)
+    dhdp = _if97_dhdp(fluid, p, T)
+    return None if dhdp is None else (out[:, 0], out[:, 1], dhdp)
 
 
 def backend_h_cp_dhdp(fluid, p, T, below, above):
