@@ -386,9 +386,7 @@ class PlantModel:
         Jacobian's entries without the firing side have a fixed pattern
         (:func:`perftest.plant.jacobian.pattern`).
         """
-
-        def cat(arrays, dtype=int):
-            return np.concatenate([np.zeros(0, dtype), *arrays]).astype(dtype)
+        cat = assemble.cat
 
         def offsets(groups):
             return np.cumsum([0, *(g[2].size for g in groups)])

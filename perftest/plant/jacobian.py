@@ -29,7 +29,7 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.sparse as sp
 
-__all__ = ["Pattern", "pattern", "entries", "Assembly", "assembly", "to_csr", "to_dense"]
+__all__ = ["cat", "Pattern", "pattern", "entries", "Assembly", "assembly", "to_csr", "to_dense"]
 
 
 @dataclass(frozen=True)
@@ -60,7 +60,8 @@ class Pattern:
     at: tuple
 
 
-def _cat(arrays, dtype=int) -> np.ndarray:
+def cat(arrays, dtype=int) -> np.ndarray:
+    """`arrays` joined end to end as one array of `dtype` (empty when there are none)."""
     return np.concatenate([np.zeros(0, dtype), *arrays]).astype(dtype)
 
 
@@ -87,15 +88,15 @@ def pattern(lin, bil, state_groups, sat_groups, quality_groups, row_scale) -> Pa
     for _, _, rr, _, p, _, q in quality_groups:
         place(3, rr, p)
         place(4, rr, q)
-    r = _cat(rows)
+    r = cat(rows)
     return Pattern(
         rows=r,
-        cols=_cat(cols),
+        cols=cat(cols),
         scale=row_scale[r],
         fixed=np.concatenate([np.asarray(la, dtype=float), np.zeros(at - lr.size)]),
         n_lin=int(lr.size),
         n_bil=int(br.size),
-        at=tuple(_cat(s) for s in spans),
+        at=tuple(cat(s) for s in spans),
     )
 
 
