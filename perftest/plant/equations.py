@@ -517,9 +517,9 @@ class PlantModel:
         """``h, dh_dT, dh_dp`` of every state row, the groups end to end.
 
         The states of one fluid go to the property layer in one call
-        (:func:`~perftest.plant.states.h_pT_sides`); when it declines (not IF97
-        water, a state near saturation or out of range), its groups are asked one by
-        one, as are groups of other phases, in the order of the groups, so that
+        (:func:`~perftest.plant.states.h_pT_sides`); when it declines (a state near
+        saturation, on the wrong side of it, or out of range), its groups are asked
+        one by one, as are groups of other phases, in the order of the groups, so that
         the first failing group raises its own message.  Either way each state gets
         the value :func:`~perftest.plant.states.h_pT` gives it in its own group.
         """
