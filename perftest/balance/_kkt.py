@@ -44,6 +44,7 @@ import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 from scipy.linalg.lapack import dgecon, dgetrf, dgetrs
+from scipy.sparse.csgraph import maximum_bipartite_matching
 
 __all__ = ["kkt_step", "DENSE_MAX", "RCOND_MIN", "SPARSE_STEP_MIN"]
 
@@ -200,6 +201,8 @@ def kkt_step(Jx, Jy, S, sdiag, is_diag, xk, xm, fk, ysize, try_regular=True):
         # per row), with the same acceptance tests as the dense factor.
         if size >= SPARSE_STEP_MIN:
             solver = _SparseSolve(Ms, Jys)
+            # a structurally singular system cannot be regular: no factorisation needed
+            try_regular = try_regular and not solver.structurally_singular()
         else:
             solver = _DenseSolve(Ms, Jys)
         out = solver(0.0, rhs, RCOND_REGULAR) if try_regular else None
@@ -305,7 +308,30 @@ class _SparseSolve:
         self._cols = np.concatenate([mc, jc + m, jr])
         self._vals = np.concatenate([Ms[mr, mc], jv, jv])
         self._m, self._size = m, m + k
+        self._jy = (jr, jc, k)
         self._lu = None
+
+    def structurally_singular(self) -> bool:
+        """Whether ``J_y`` has structural column rank below ``k`` (a maximum matching of
+        its columns to rows, the bipartite graph of its nonzeros, leaves a column out).
+
+        Then the unregularised KKT matrix is singular whatever its values (its
+        determinant vanishes identically), so its factorisation cannot be accepted as
+        regular: the caller skips it.  A y that no balance determines on its own (an
+        unobservable pair such as the flow and enthalpy of a stream whose product
+        alone enters the balances) makes this so at every iterate.
+        """
+        jr, jc, k = self._jy
+        if k == 0:
+            return False
+        m = self._m
+        indptr = np.zeros(m + 1, dtype=np.int32)
+        np.cumsum(np.bincount(jr, minlength=m), out=indptr[1:])
+        pattern = sp.csr_matrix(
+            (np.ones(jr.size), jc.astype(np.int32), indptr), shape=(m, k)
+        )  # fmt: skip
+        match = maximum_bipartite_matching(pattern, perm_type="column")
+        return bool(np.count_nonzero(match >= 0) < k)
 
     def __call__(self, delta, rhs, rcond_min):
         m, size = self._m, self._size
