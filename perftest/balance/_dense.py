@@ -12,6 +12,15 @@ The unmeasured variables are removed by a projection :math:`P` with
 factorisation of :math:`B` with column pivoting.  Dependent rows of the reduced
 matrix :math:`P A` are then removed with a pivoted Cholesky factorisation of
 :math:`P A S A^T P^T`, which also supplies the factor used for the solution.
+
+:func:`project_out_unmeasured` forms :math:`P` and the pseudo-inverse :math:`G`;
+:func:`reduce_constraints` gives them applied to the constraints, with the same
+:math:`P` to the last bit and, for a final solve, :math:`G` from a cheaper
+decomposition (equal to rounding).  The basis :math:`P` sets the rows of the nodal
+test; where :math:`B` is rank-deficient its trailing reflectors, so the basis, follow
+the last bits of :math:`B`: the steps of the nonlinear engine keep the exact
+arithmetic of the formed route so that its iterates, and the basis at its solution,
+do not change.
 """
 
 from __future__ import annotations

@@ -28,7 +28,11 @@ vanishes with :math:`\\delta` while the determined ones change by
 
 Dense LU (LAPACK ``getrf``) for systems up to ``DENSE_MAX``, sparse LU (SuperLU)
 above; both are checked: a dense factor by its reciprocal condition number, a sparse
-one by the residual of the solution.
+one by the residual of the solution.  The unregularised system is not factorised when
+``J_y`` is structurally rank-deficient (maximum bipartite matching of its pattern):
+it is then singular whatever its values.  Every step is computed with the same
+floating-point operations whichever shortcut is taken, so that the iterates do not
+depend on them (see :mod:`perftest.balance._dense` on the basis of the nodal test).
 
 Layer: imports numpy and scipy only.
 
