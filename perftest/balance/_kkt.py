@@ -253,24 +253,38 @@ def _gram(J, s):
     A plant's Jacobian has a few entries per column; for a large one mostly zero
     (at least ``GRAM_MIN`` entries, at most ``GRAM_DENSITY`` of them nonzero) the
     products of each column's nonzero pairs, summed with ``np.bincount``, cost a
-    fraction of the dense product (the same sums, possibly in another order).
+    fraction of the dense product (the same sums, possibly in another order).  The
+    pairs of the last pattern are kept: the iterations of one reconciliation see the
+    same pattern again and again.
     """
+    global _last_gram
     m, n = J.shape
     if m * n < GRAM_MIN:
         return None
     flat = np.flatnonzero(J.T.ravel() != 0.0)  # column by column
     if flat.size > GRAM_DENSITY * m * n:
         return None
-    cols, rows = np.divmod(flat, m)
+    last = _last_gram  # one immutable tuple: safe to share between threads
+    if last is not None and last[0] == (m, n) and np.array_equal(last[1], flat):
+        rows, cols, a, b, key = last[2]
+    else:
+        cols, rows = np.divmod(flat, m)
+        count = np.bincount(cols, minlength=n)
+        start = np.cumsum(count) - count  # first entry of each column
+        k = count[cols]  # entries in the column of each entry
+        a = np.repeat(np.arange(flat.size), k)
+        within = np.arange(a.size) - np.repeat(np.cumsum(k) - k, k)
+        b = start[cols[a]] + within
+        key = rows[a] * m + rows[b]
+        _last_gram = ((m, n), flat, (rows, cols, a, b, key))
     vals = J[rows, cols]
-    count = np.bincount(cols, minlength=n)
-    start = np.cumsum(count) - count  # first entry of each column
-    k = count[cols]  # entries in the column of each entry
-    a = np.repeat(np.arange(flat.size), k)
-    within = np.arange(a.size) - np.repeat(np.cumsum(k) - k, k)
-    b = start[cols[a]] + within
     w = vals[a] * vals[b] * s[cols[a]]
-    return np.bincount(rows[a] * m + rows[b], weights=w, minlength=m * m).reshape(m, m)
+    return np.bincount(key, weights=w, minlength=m * m).reshape(m, m)
+
+
+#: The pairs of the last Jacobian pattern _gram summed: ((m, n), flat positions,
+#: (rows, cols, a, b, key)).
+_last_gram = None
 
 
 class _DenseSolve:
