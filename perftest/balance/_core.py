@@ -48,6 +48,9 @@ class Core:
     # Deferred statistics: a callable -> (vdiag, redundant, y_var, covariances) that
     # fills the fields above left None (a solve whose step alone is wanted).
     finish: Any = None
+    # False when a final solve took a shortcut whose numbers equal those of the step
+    # solve to rounding only (see linear.solve_dense, ``final``).
+    exact: bool = True
 
     def complete(self) -> Core:
         """Fill the deferred statistics (no-op when they are there); returns self."""

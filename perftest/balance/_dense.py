@@ -12,6 +12,15 @@ The unmeasured variables are removed by a projection :math:`P` with
 factorisation of :math:`B` with column pivoting.  Dependent rows of the reduced
 matrix :math:`P A` are then removed with a pivoted Cholesky factorisation of
 :math:`P A S A^T P^T`, which also supplies the factor used for the solution.
+
+:func:`project_out_unmeasured` forms :math:`P` and the pseudo-inverse :math:`G`;
+:func:`reduce_constraints` gives them applied to the constraints, with the same
+:math:`P` to the last bit and, for a final solve, :math:`G` from a cheaper
+decomposition (equal to rounding).  The basis :math:`P` sets the rows of the nodal
+test; where :math:`B` is rank-deficient its trailing reflectors, so the basis, follow
+the last bits of :math:`B`: the steps of the nonlinear engine keep the exact
+arithmetic of the formed route so that its iterates, and the basis at its solution,
+do not change.
 """
 
 from __future__ import annotations
@@ -20,7 +29,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import scipy.linalg
-from scipy.linalg.lapack import dpstrf
+from scipy.linalg.lapack import dgeqp3, dorgqr, dormrz, dpstrf, dtrtrs, dtzrzf
 
 # Rank decisions.  All of them act on equilibrated quantities (rows scaled so
 # that one unit means roughly one standard deviation of the constraint), so the
@@ -64,9 +73,23 @@ def project_out_unmeasured(Bt: np.ndarray) -> Projection:
     m, k = Bt.shape
     if k == 0:
         return Projection(None, np.zeros((0, m)), np.zeros(0, dtype=bool))
-    Q, R, piv = scipy.linalg.qr(Bt, pivoting=True, mode="full", check_finite=False)
+    Q, R, piv = _pivoted_qr(Bt)
+    r = _rank(R)
+    G, observable = _pinv_formed(Q, R, piv, r)
+    return Projection(Q[:, r:].T, G, observable)
+
+
+def _rank(R: np.ndarray) -> int:
+    """Rank of the pivoted QR's ``R`` (diagonal against ``B_RANK_RTOL`` of the first)."""
     d = np.abs(np.diag(R))
-    r = int(np.count_nonzero(d > B_RANK_RTOL * d[0])) if d.size and d[0] > 0 else 0
+    return int(np.count_nonzero(d > B_RANK_RTOL * d[0])) if d.size and d[0] > 0 else 0
+
+
+def _pinv_formed(Q, R, piv, r):
+    """``(G, observable)``: the minimum-norm pseudo-inverse ``G`` (k, m) of ``Bt`` formed,
+    and which unmeasured variables it determines, from ``Bt[:, piv] = Q R`` of rank r."""
+    m = Q.shape[0]
+    k = R.shape[1]
     # R1 with the column permutation undone: Bt = Q1 @ R1p.
     R1p = np.empty((r, k))
     R1p[:, piv] = R[:r, :]
@@ -91,7 +114,99 @@ def project_out_unmeasured(Bt: np.ndarray) -> Projection:
         G = np.zeros((k, m))
         null = np.eye(k)
     observable = np.sqrt(np.einsum("ij,ij->i", null, null)) < OBS_TOL
-    return Projection(Q[:, r:].T, G, observable)
+    return G, observable
+
+
+@dataclass
+class Reduction:
+    """The constraints ``At x + Bt y = bt`` with the unmeasured variables eliminated:
+    ``PA = P @ At``, ``Pb = P @ bt`` (the reduced constraints), ``GA = G @ At``,
+    ``Gb = G @ bt`` (the unmeasured in terms of the measured), with ``P`` and ``G``
+    of :class:`Projection`."""
+
+    P: np.ndarray  # (m - r, m)
+    PA: np.ndarray  # (m - r, n)
+    Pb: np.ndarray  # (m - r,)
+    GA: np.ndarray  # (k, n)
+    Gb: np.ndarray  # (k,)
+    observable: np.ndarray  # (k,) bool
+    # whether every number is that of project_out_unmeasured's formed P and G to the
+    # last bit (False where G came from the RZ decomposition)
+    exact: bool = True
+
+
+def _lapack(routine, *args, **kwargs):
+    """Call a LAPACK routine with its optimal workspace (queried first, as
+    scipy.linalg does: the blocked code and so the same rounding as scipy.linalg.qr)."""
+    lwork = int(routine(*args, lwork=-1, **kwargs)[-2][0])
+    out = routine(*args, lwork=max(lwork, 1), **kwargs)
+    if out[-1] != 0:  # pragma: no cover - argument errors only
+        raise np.linalg.LinAlgError(f"LAPACK {routine.__name__} failed (info {out[-1]})")
+    return out[:-2]
+
+
+def _pivoted_qr(Bt: np.ndarray):
+    """``(Q, R, piv)`` with ``Bt[:, piv] = Q R``: the LAPACK calls of
+    ``scipy.linalg.qr(Bt, pivoting=True, mode="full")`` with the same workspace, so
+    the same numbers to the last bit, without the wrapper's cost."""
+    m, k = Bt.shape
+    if m == 0:
+        return scipy.linalg.qr(Bt, pivoting=True, mode="full", check_finite=False)
+    qr, jpvt, tau = _lapack(dgeqp3, Bt)
+    R = np.triu(qr)
+    if m < k:
+        Q = _lapack(dorgqr, qr[:, :m], tau, overwrite_a=1)[0]
+    else:
+        qqr = np.empty((m, m))
+        qqr[:, :k] = qr
+        Q = _lapack(dorgqr, qqr, tau, overwrite_a=1)[0]
+    return Q, R, jpvt - 1
+
+
+def reduce_constraints(
+    Bt: np.ndarray, At: np.ndarray, bt: np.ndarray, *, final: bool = False
+) -> Reduction:
+    """Eliminate the unmeasured variables from ``At x + Bt y = bt`` (dense, ``k > 0``).
+
+    The rank decision and the basis ``P`` of the left null space are those of
+    :func:`project_out_unmeasured` to the last bit (the same LAPACK calls, and
+    ``P @ At`` the same product), so that everything that depends on them alone
+    (the reconciled measured values, their covariance, chi2, dof and the tests) is
+    the same.  With ``final`` (a solve whose result is not an iteration's step), the
+    minimum-norm pseudo-inverse ``G`` of a rank-deficient ``Bt`` comes from the RZ
+    decomposition of the pivoted ``R1`` (LAPACK ``tzrzf``, ``O(r^2 (k - r))`` for the
+    nearly square ``R1`` of a plant) applied to ``[At | bt]``, instead of a second full
+    QR factorisation and a formed ``G``: the same ``G`` (it does not depend on the
+    orthogonal decomposition), equal to rounding but not to the last bit.
+    """
+    m, k = Bt.shape
+    n = At.shape[1]
+    Q, R, piv = _pivoted_qr(Bt)
+    r = _rank(R)
+    P = Q[:, r:].T
+    if not (final and 0 < r < k):
+        G, observable = _pinv_formed(Q, R, piv, r)
+        return Reduction(P=P, PA=P @ At, Pb=P @ bt, GA=G @ At, Gb=G @ bt, observable=observable)
+    # Complete orthogonal decomposition of the pivoted R1 = [R11 R12] = [T 0] Z: the
+    # minimum-norm solution of R1 z = h is Z^T [T^-1 h; 0], and Z^T [0; I] spans the
+    # null space of R1.  (These two wrappers take no workspace query; a block of 64
+    # columns is ample.)
+    rz, ztau, _ = dtzrzf(R[:r, :], lwork=64 * r)
+    H = Q[:, :r].T @ np.column_stack([At, bt])  # Q1^T [At | bt]
+    W, _ = dtrtrs(rz[:, :r], H, lower=0)
+    pad = np.zeros((k, n + 1), order="F")
+    pad[:r] = W
+    e = np.zeros((k, k - r), order="F")
+    e[np.arange(r, k), np.arange(k - r)] = 1.0
+    GAb = np.empty((k, n + 1))
+    GAb[piv] = dormrz(rz, ztau, pad, trans="T", lwork=64 * (n + 1), overwrite_c=1)[0]
+    null = dormrz(rz, ztau, e, trans="T", lwork=64 * (k - r), overwrite_c=1)[0]
+    observable = np.empty(k, dtype=bool)
+    observable[piv] = np.sqrt(np.einsum("ij,ij->i", null, null)) < OBS_TOL
+    return Reduction(
+        P=P, PA=P @ At, Pb=P @ bt, GA=GAb[:, :n], Gb=GAb[:, n], observable=observable,
+        exact=False,
+    )  # fmt: skip
 
 
 @dataclass

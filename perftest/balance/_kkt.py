@@ -28,7 +28,11 @@ vanishes with :math:`\\delta` while the determined ones change by
 
 Dense LU (LAPACK ``getrf``) for systems up to ``DENSE_MAX``, sparse LU (SuperLU)
 above; both are checked: a dense factor by its reciprocal condition number, a sparse
-one by the residual of the solution.
+one by the residual of the solution.  The unregularised system is not factorised when
+``J_y`` is structurally rank-deficient (maximum bipartite matching of its pattern):
+it is then singular whatever its values.  Every step is computed with the same
+floating-point operations whichever shortcut is taken, so that the iterates do not
+depend on them (see :mod:`perftest.balance._dense` on the basis of the nodal test).
 
 Layer: imports numpy and scipy only.
 
@@ -44,6 +48,7 @@ import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 from scipy.linalg.lapack import dgecon, dgetrf, dgetrs
+from scipy.sparse.csgraph import maximum_bipartite_matching
 
 __all__ = ["kkt_step", "DENSE_MAX", "RCOND_MIN", "SPARSE_STEP_MIN"]
 
@@ -176,8 +181,21 @@ def kkt_step(Jx, Jy, S, sdiag, is_diag, xk, xm, fk, ysize, try_regular=True):
         else:
             JxS = Jx_ @ np.asarray(S)
             M = JxS @ Jx_.T
-        Jy_ = np.asarray(Jy) * ysize
-        r = _row_scale(np.diag(M), np.abs(Jy_).max(axis=1) if k else None)
+        Jy = np.asarray(Jy)
+        # Larger systems are factorised sparse (the KKT matrix of a plant has a few
+        # entries per row), assembled from the nonzero entries alone: the same
+        # products, entry by entry, as the dense arrays of the smaller ones.
+        sparse_factor = size >= SPARSE_STEP_MIN
+        if sparse_factor:
+            flat = np.flatnonzero(Jy.ravel() != 0.0)
+            jr, jc = np.divmod(flat, k) if k else (flat, flat)
+            jv = Jy[jr, jc] * ysize[jc]  # entries of Jy * ysize
+            jmax = np.zeros(m)
+            np.maximum.at(jmax, jr, np.abs(jv))
+        else:
+            Jy_ = Jy * ysize
+            jmax = np.abs(Jy_).max(axis=1) if k else None
+        r = _row_scale(np.diag(M), jmax if k else None)
         if r is None:
             return None
         rhs = np.zeros(size)
@@ -193,15 +211,18 @@ def kkt_step(Jx, Jy, S, sdiag, is_diag, xk, xm, fk, ysize, try_regular=True):
             def back(lam_s):  # (D_r Jx S)^T lam_s
                 return JxS_t.T @ lam_s
 
-        Ms = M * r[:, None] * r
-        Jys = Jy_ * r[:, None]
-        # First the system as it stands: regular when every y is determined.  Larger
-        # systems are factorised sparse (the KKT matrix of a plant has a few entries
-        # per row), with the same acceptance tests as the dense factor.
-        if size >= SPARSE_STEP_MIN:
-            solver = _SparseSolve(Ms, Jys)
+        # First the system as it stands: regular when every y is determined.  The
+        # sparse factor has the same acceptance tests as the dense one.
+        if sparse_factor:
+            # entries of M * r[:, None] * r and Jy_ * r[:, None]
+            mr, mc = np.divmod(np.flatnonzero(M.ravel() != 0.0), m)
+            ms = (mr, mc, M[mr, mc] * r[mr] * r[mc])
+            js = (jr, jc, jv * r[jr])
+            solver = _SparseSolve.from_entries(m, k, ms, js)
+            # a structurally singular system cannot be regular: no factorisation needed
+            try_regular = try_regular and not solver.structurally_singular()
         else:
-            solver = _DenseSolve(Ms, Jys)
+            solver = _DenseSolve(M * r[:, None] * r, Jy_ * r[:, None])
         out = solver(0.0, rhs, RCOND_REGULAR) if try_regular else None
         if out is not None:
             sol = out
@@ -232,24 +253,38 @@ def _gram(J, s):
     A plant's Jacobian has a few entries per column; for a large one mostly zero
     (at least ``GRAM_MIN`` entries, at most ``GRAM_DENSITY`` of them nonzero) the
     products of each column's nonzero pairs, summed with ``np.bincount``, cost a
-    fraction of the dense product (the same sums, possibly in another order).
+    fraction of the dense product (the same sums, possibly in another order).  The
+    pairs of the last pattern are kept: the iterations of one reconciliation see the
+    same pattern again and again.
     """
+    global _last_gram
     m, n = J.shape
     if m * n < GRAM_MIN:
         return None
     flat = np.flatnonzero(J.T.ravel() != 0.0)  # column by column
     if flat.size > GRAM_DENSITY * m * n:
         return None
-    cols, rows = np.divmod(flat, m)
+    last = _last_gram  # one immutable tuple: safe to share between threads
+    if last is not None and last[0] == (m, n) and np.array_equal(last[1], flat):
+        rows, cols, a, b, key = last[2]
+    else:
+        cols, rows = np.divmod(flat, m)
+        count = np.bincount(cols, minlength=n)
+        start = np.cumsum(count) - count  # first entry of each column
+        k = count[cols]  # entries in the column of each entry
+        a = np.repeat(np.arange(flat.size), k)
+        within = np.arange(a.size) - np.repeat(np.cumsum(k) - k, k)
+        b = start[cols[a]] + within
+        key = rows[a] * m + rows[b]
+        _last_gram = ((m, n), flat, (rows, cols, a, b, key))
     vals = J[rows, cols]
-    count = np.bincount(cols, minlength=n)
-    start = np.cumsum(count) - count  # first entry of each column
-    k = count[cols]  # entries in the column of each entry
-    a = np.repeat(np.arange(flat.size), k)
-    within = np.arange(a.size) - np.repeat(np.cumsum(k) - k, k)
-    b = start[cols[a]] + within
     w = vals[a] * vals[b] * s[cols[a]]
-    return np.bincount(rows[a] * m + rows[b], weights=w, minlength=m * m).reshape(m, m)
+    return np.bincount(key, weights=w, minlength=m * m).reshape(m, m)
+
+
+#: The pairs of the last Jacobian pattern _gram summed: ((m, n), flat positions,
+#: (rows, cols, a, b, key)).
+_last_gram = None
 
 
 class _DenseSolve:
@@ -286,6 +321,11 @@ class _DenseSolve:
         return dgetrs(*self._lu, rhs)[0]
 
 
+#: The last pattern of J_y whose structural rank was found, and the verdict:
+#: (m, k, rows, cols, singular).
+_last_structure = None
+
+
 class _SparseSolve:
     """:class:`_DenseSolve` with the matrix assembled and factorised sparse.
 
@@ -300,12 +340,57 @@ class _SparseSolve:
         # fraction of its cost on a 2-D float array
         mr, mc = np.divmod(np.flatnonzero(Ms.ravel() != 0.0), m)
         jr, jc = np.divmod(np.flatnonzero(Jys.ravel() != 0.0), k) if k else (mr[:0], mc[:0])
-        jv = -Jys[jr, jc]
+        self._setup(m, k, (mr, mc, Ms[mr, mc]), (jr, jc, Jys[jr, jc]))
+
+    @classmethod
+    def from_entries(cls, m, k, ms, js):
+        """From the entries ``(rows, cols, values)`` of ``Ms`` and of ``Jys``, in row-major
+        order; entries that are zero are left out, as a dense matrix's would be."""
+        self = cls.__new__(cls)
+        keep_m, keep_j = ms[2] != 0.0, js[2] != 0.0
+        self._setup(m, k, tuple(a[keep_m] for a in ms), tuple(a[keep_j] for a in js))
+        return self
+
+    def _setup(self, m, k, ms, js):
+        mr, mc, mv = ms
+        jr, jc, jv = js
+        jv = -jv
         self._rows = np.concatenate([mr, jr, jc + m])
         self._cols = np.concatenate([mc, jc + m, jr])
-        self._vals = np.concatenate([Ms[mr, mc], jv, jv])
+        self._vals = np.concatenate([mv, jv, jv])
         self._m, self._size = m, m + k
+        self._jy = (jr, jc, k)
         self._lu = None
+
+    def structurally_singular(self) -> bool:
+        """Whether ``J_y`` has structural column rank below ``k`` (a maximum matching of
+        its columns to rows, the bipartite graph of its nonzeros, leaves a column out).
+
+        Then the unregularised KKT matrix is singular whatever its values (its
+        determinant vanishes identically), so its factorisation cannot be accepted as
+        regular: the caller skips it.  A y that no balance determines on its own (an
+        unobservable pair such as the flow and enthalpy of a stream whose product
+        alone enters the balances) makes this so at every iterate.
+        """
+        global _last_structure
+        jr, jc, k = self._jy
+        if k == 0:
+            return False
+        m = self._m
+        # the iterations of one reconciliation see the same pattern again and again
+        last = _last_structure  # one immutable tuple: safe to share between threads
+        if last is not None and last[:2] == (m, k):
+            if np.array_equal(last[2], jr) and np.array_equal(last[3], jc):
+                return last[4]
+        indptr = np.zeros(m + 1, dtype=np.int32)
+        np.cumsum(np.bincount(jr, minlength=m), out=indptr[1:])
+        pattern = sp.csr_matrix(
+            (np.ones(jr.size), jc.astype(np.int32), indptr), shape=(m, k)
+        )  # fmt: skip
+        match = maximum_bipartite_matching(pattern, perm_type="column")
+        singular = bool(np.count_nonzero(match >= 0) < k)
+        _last_structure = (m, k, jr, jc, singular)
+        return singular
 
     def __call__(self, delta, rhs, rcond_min):
         m, size = self._m, self._size

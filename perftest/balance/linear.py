@@ -83,12 +83,20 @@ def _equilibrate_dense(A, B, u):
     return w, colB
 
 
-def solve_dense(p: Problem, *, deferred: bool = False) -> Core:
+def solve_dense(p: Problem, *, deferred: bool = False, final: bool = False) -> Core:
     """Dense reconciliation core (see module ``_dense`` for the method).
 
     ``deferred``: leave the statistics (variances of the adjustments, redundancy,
     variances and covariances) to :meth:`Core.complete`, for a solve whose step alone
     may be wanted (the same numbers when completed).
+
+    ``final``: the result is final, not a step of an iteration: the unmeasured
+    variables' pseudo-inverse may come from the cheaper decomposition of
+    :func:`_dense.reduce_constraints`, equal to rounding (``Core.exact`` says whether
+    it did).  The steps of reconcile_nonlinear keep the last bits of the formed one:
+    the basis of the nodal test at the solution is that of the pivoted QR of the
+    last iterate's Jacobian, and where that Jacobian is rank-deficient its trailing
+    reflectors, so the basis, follow the last bits of the iterate.
     """
     x, S, s, A, b, B = p.x, p.S, p.sdiag, p.A, p.b, p.B
     n = x.size
@@ -97,18 +105,19 @@ def solve_dense(p: Problem, *, deferred: bool = False) -> Core:
     At = A * w[:, None]
     bt = b * w
     Bt = B * w[:, None] / colB[None, :]
-    proj = _dense.project_out_unmeasured(Bt)
-    if proj.P is None:
+    k = B.shape[1]
+    red = _dense.reduce_constraints(Bt, At, bt, final=final) if k else None
+    if red is None:
         Ar0, br0 = At, bt
     else:
-        Ar0, br0 = proj.P @ At, proj.P @ bt
+        Ar0, br0 = red.PA, red.Pb
     AS0 = Ar0 * s if p.is_diag else Ar0 @ S
     M0 = AS0 @ Ar0.T
     sel = _dense.select_rows(M0, br0)
     idx = sel.idx
     r = idx.size
     res0 = Ar0 @ x - br0
-    if proj.P is None:
+    if red is None:
         # Reduced rows are the original constraints: report them in their own units.
         constraint_residual = res0 / w
         constraint_u = np.sqrt(np.maximum(sel.d, 0.0)) / w
@@ -122,20 +131,19 @@ def solve_dense(p: Problem, *, deferred: bool = False) -> Core:
         chi2 = float(wres @ wres)
         lam_r = _trsolve(L, wres, trans=1)
         xhat = x - AS.T @ lam_r
-        if proj.P is None:
+        if red is None:
             lam_eq = np.zeros(A.shape[0])
             lam_eq[idx] = lam_r
         else:
-            lam_eq = proj.P[idx].T @ lam_r
+            lam_eq = red.P[idx].T @ lam_r
         lam = lam_eq * w
     else:
         chi2 = 0.0
         xhat = x.copy()
         lam = np.zeros(A.shape[0])
-    k = B.shape[1]
     # Unmeasured: the scaled unknowns are colB * y, so y = G (bt - At xhat) / colB.
-    T = (proj.G @ At) / colB[:, None] if k else np.zeros((0, n))
-    y = (proj.G @ bt) / colB - T @ xhat if k else np.zeros(0)
+    T = red.GA / colB[:, None] if k else np.zeros((0, n))
+    y = red.Gb / colB - T @ xhat if k else np.zeros(0)
 
     def statistics():
         if r:
@@ -165,7 +173,7 @@ def solve_dense(p: Problem, *, deferred: bool = False) -> Core:
     core = Core(
         xhat=xhat,
         y=y,
-        observable=proj.observable,
+        observable=red.observable if k else np.zeros(0, dtype=bool),
         lam=lam,
         chi2=chi2,
         dof=int(r),
@@ -177,6 +185,7 @@ def solve_dense(p: Problem, *, deferred: bool = False) -> Core:
         constraint_u=constraint_u,
         inconsistent=sel.inconsistent,
         finish=statistics,
+        exact=red is None or red.exact,
     )
     return core if deferred else core.complete()
 
@@ -338,7 +347,7 @@ def _trsolve(L, rhs, trans=0):
     return z
 
 
-def solve(p: Problem, *, strict: bool = False, deferred: bool = False) -> Core:
+def solve(p: Problem, *, strict: bool = False, deferred: bool = False, final: bool = False) -> Core:
     """Dispatch to the dense or the sparse core, with the null-space fallback.
 
     ``strict`` (reconcile_linear): the fallback when the projected solve finds the
@@ -347,12 +356,13 @@ def solve(p: Problem, *, strict: bool = False, deferred: bool = False) -> Core:
     whose linearised constraints are solved again at every iterate and which
     handles contradictory ones itself) only for the second reason, and only for a
     problem without unmeasured variables and with redundancy.  Of two solutions
-    that do not close, the one closer to closing is kept.
+    that do not close, the one closer to closing is kept.  ``final``: see
+    :func:`solve_dense` (dense problems only).
     """
     if p.sparse:
         core = _sparse.solve_sparse(p)
     else:
-        core = solve_dense(p, deferred=deferred)
+        core = solve_dense(p, deferred=deferred, final=final)
     if core.inconsistent is not None:
         if strict:
             # None when the constraints are contradictory in this metric too
@@ -526,7 +536,7 @@ def reconcile_linear(x, cov, A, b=None, B=None) -> Reconciliation:
     """
     func = "reconcile_linear"
     p = check_problem(x, cov, A, b, B, func)
-    core = solve(p, strict=True)
+    core = solve(p, strict=True, final=True)
     raise_if_inconsistent(core, func)
     if core.dof == 0:
         warnings.warn(

@@ -320,7 +320,17 @@ def reconcile_nonlinear(
             )
         if step is None or (size > radius and not all_observable):
             p = _linearised_problem(xm, S, sdiag, is_diag, Jx, b_lin, Jy)
-            core = solve(p, deferred=True)
+            # At the predicted last linearisation the solve for a final result (see
+            # linear.solve_dense); a step taken from it where that differs in the last
+            # bits is solved again as a step, so that the iterates do not depend on it.
+            core = solve(p, deferred=True, final=last_one)
+            if not core.exact and not (
+                core.inconsistent is None
+                and resid_small
+                and np.all(np.abs(core.xhat - xk) / u <= tol)
+                and np.all(np.abs(core.y) / ysize <= tol)
+            ):
+                core = solve(p, deferred=True)
             consistent = core.inconsistent is None
             if consistent:
                 dx, dy, lam = core.xhat - xk, core.y, core.lam  # minimum-norm step in y
@@ -334,7 +344,7 @@ def reconcile_nonlinear(
             if resid_small and np.all(sx <= tol) and np.all(sy <= tol):
                 if core is None:
                     p = _linearised_problem(xm, S, sdiag, is_diag, Jx, b_lin, Jy)
-                    core = solve(p, deferred=True)
+                    core = solve(p, deferred=True, final=True)  # see above
                 converged = True
                 break
             # Exact-penalty parameter above the largest scaled multiplier.

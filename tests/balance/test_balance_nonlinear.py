@@ -381,3 +381,47 @@ def test_pressure_free_in_its_row_with_no_root_is_unobservable():
     np.testing.assert_allclose(r.xy_cov[:, 2], cov_Wx, rtol=1e-8, atol=1e-12 * var_W)
     assert r.y_cov[0, 2] == pytest.approx(cov_Wh, rel=1e-8)
     assert r.y_cov[2, 0] == r.y_cov[0, 2]
+
+
+def test_final_solve_shortcut_changes_no_iterate(monkeypatch):
+    """The closing solve may take the unmeasured pseudo-inverse from a cheaper
+    decomposition (equal to rounding); the iterates, and with them everything that
+    depends on the basis of the left null space (x, chi2, the nodal rows), stay those
+    of the exact route to the last bit.  Mixer with a pair (m4, h4) whose product
+    alone enters a balance: J_y is rank-deficient, the case where the routes differ.
+    Reference: the same engine with the shortcut switched off."""
+    from perftest.balance import _dense
+
+    def res(x, y):
+        m0, m1, h0, h1, h2, m3, h3 = x
+        m2, m4, h4 = y
+        return np.array([m0 + m1 - m2, m0 * h0 + m1 * h1 - m2 * h2, m4 * h4 - m3 * h3])
+
+    x = np.array([10.3, 5.1, 100.0, 300.0, 168.0, 2.0, 50.0])
+    cov = np.diag(np.array([0.2, 0.1, 2.0, 3.0, 2.0, 0.05, 1.0]) ** 2)
+    y0 = [15.0, 1.0, 90.0]
+    seen = []
+    reduce = _dense.reduce_constraints
+
+    def spy(Bt, At, bt, *, final=False):
+        red = reduce(Bt, At, bt, final=final)
+        seen.append(red.exact)
+        return red
+
+    monkeypatch.setattr(_dense, "reduce_constraints", spy)
+    fast = reconcile_nonlinear(res, x, cov, y0=y0)
+    assert False in seen  # the shortcut was taken
+
+    def exact(Bt, At, bt, *, final=False):
+        return reduce(Bt, At, bt)
+
+    monkeypatch.setattr(_dense, "reduce_constraints", exact)
+    ref = reconcile_nonlinear(res, x, cov, y0=y0)
+    assert fast.iterations == ref.iterations and fast.dof == ref.dof == 1
+    np.testing.assert_array_equal(fast.x, ref.x)
+    assert fast.chi2 == ref.chi2
+    np.testing.assert_array_equal(fast.constraint_residual, ref.constraint_residual)
+    np.testing.assert_array_equal(fast.observable, [True, False, False])
+    # y through the other decomposition: rounding of a well-conditioned solve
+    np.testing.assert_allclose(fast.y[0], ref.y[0], rtol=1e-13)
+    np.testing.assert_allclose(fast.y_cov[0, 0], ref.y_cov[0, 0], rtol=1e-12)

@@ -90,3 +90,54 @@ def test_deferred_statistics_are_the_same_numbers():
     for a, b in zip(later.covariances(), now.covariances(), strict=True):
         np.testing.assert_array_equal(a, b)
     assert later.complete() is later and later.finish is None  # a second call: no-op
+
+
+def _rank_deficient(rng, m, k, deficit):
+    """A sparse plant-like B (m, k) whose last ``deficit`` columns repeat earlier ones
+    (a pair of unmeasured variables that enters the balances only together)."""
+    B = rng.normal(size=(m, k)) * (rng.random((m, k)) < 0.2)
+    for j in range(k):
+        B[j % m, j] = 1.0 + rng.random()
+    for t in range(deficit):
+        B[:, k - 1 - t] = (t + 2.0) * B[:, t]
+    return B
+
+
+@pytest.mark.parametrize("m, k, deficit", [(40, 36, 3), (130, 126, 6), (12, 20, 0), (30, 10, 0)])
+def test_reduction_for_a_final_solve_against_numpy_pinv(m, k, deficit):
+    """The elimination of a final solve (RZ decomposition of R1) against the step
+    solve's formed Q and G: the basis P of the left null space is the same to the
+    last bit (it decides the rows of the nodal test), and G equals the minimum-norm
+    pseudo-inverse numpy.linalg.pinv computes by SVD (Moore-Penrose; independent of
+    the decomposition, see Golub & Van Loan, Matrix Computations, 4th ed., Sec. 5.5)."""
+    from perftest.balance import _dense
+
+    rng = np.random.default_rng(m + k)
+    Bt = _rank_deficient(rng, m, k, deficit)
+    At = rng.normal(size=(m, 7))
+    bt = rng.normal(size=m)
+    step = _dense.reduce_constraints(Bt, At, bt)
+    final = _dense.reduce_constraints(Bt, At, bt, final=True)
+    proj = _dense.project_out_unmeasured(Bt)
+    assert np.array_equal(step.P, proj.P) and np.array_equal(final.P, proj.P)
+    assert np.array_equal(final.PA, proj.P @ At)
+    rank = m - proj.P.shape[0]
+    assert step.exact and final.exact == (not 0 < rank < k)
+    # G by SVD: rcond far below the rank decision's 1e-10 and far above rounding
+    G = np.linalg.pinv(Bt, rcond=1e-12)
+    scale = np.abs(G).max() * max(np.abs(At).max(), np.abs(bt).max())
+    # backward-stable factorisations of a matrix of condition ~1e2-1e3: ~1e-12 of the
+    # largest entry covers the rounding of both routes
+    for red in (step, final):
+        np.testing.assert_allclose(red.GA, G @ At, rtol=0, atol=1e-12 * scale)
+        np.testing.assert_allclose(red.Gb, G @ bt, rtol=0, atol=1e-12 * scale)
+        np.testing.assert_array_equal(red.observable, proj.observable)
+    # observable: e_j in the row space of Bt, i.e. row j of an orthonormal null-space
+    # basis (scipy.linalg.null_space, by SVD) vanishes; for a tall B exactly the
+    # repeated pairs are not
+    import scipy.linalg
+
+    N = scipy.linalg.null_space(Bt, rcond=1e-12)
+    np.testing.assert_array_equal(final.observable, np.linalg.norm(N, axis=1) < 1e-8)
+    if m >= k:
+        assert np.count_nonzero(~final.observable) == 2 * deficit

@@ -170,3 +170,36 @@ def test_early_accepted_condition_estimate_keeps_lapacks_verdict(cond_exp):
     assert (est > bound) == (ref > bound)
     if est > _kkt.EARLY_MARGIN * bound:  # accepted early: dgecon agrees, far inside
         assert ref > 10.0 * bound
+
+
+def test_structurally_singular_system_skips_the_regular_factorisation(monkeypatch):
+    """Two unmeasured variables that enter one balance only, and only that one (y_7 and
+    y_8 in row 4), leave J_y with structural column rank below k (maximum bipartite
+    matching, scipy.sparse.csgraph: two columns, one row), so the unregularised KKT
+    matrix is singular whatever its values: the step skips that factorisation and
+    is, to the last bit, the step taken after trying it."""
+    rng = np.random.default_rng(3)
+    m, n, k = 130, 60, 126
+    Jx, Jy, sdiag, xm, xk, fk, ysize = _problem(rng, m, n, k)
+    Jy[:, 7:9] = 0.0
+    Jy[4, 7:9] = [1.0, 2.0]
+    Ms = (Jx * sdiag) @ Jx.T
+    assert _kkt._SparseSolve(Ms, Jy).structurally_singular()
+    assert not _kkt._SparseSolve(Ms, _problem(rng, m, n, k)[1]).structurally_singular()
+    calls = []
+    solve = _kkt._SparseSolve.__call__
+
+    def counted(self, delta, rhs, rcond_min):
+        calls.append(delta)
+        return solve(self, delta, rhs, rcond_min)
+
+    monkeypatch.setattr(_kkt._SparseSolve, "__call__", counted)
+    out = _kkt.kkt_step(Jx, Jy, np.diag(sdiag), sdiag, True, xk, xm, fk, ysize)
+    assert calls == [_kkt.DELTA]  # the regular try skipped
+    monkeypatch.setattr(_kkt._SparseSolve, "structurally_singular", lambda self: False)
+    calls.clear()
+    ref = _kkt.kkt_step(Jx, Jy, np.diag(sdiag), sdiag, True, xk, xm, fk, ysize)
+    assert calls == [0.0, _kkt.DELTA]  # tried, refused as not regular, regularised
+    assert out is not None and ref is not None and out[3] is False and ref[3] is False
+    for a, b in zip(out[:3], ref[:3], strict=True):
+        np.testing.assert_array_equal(a, b)
