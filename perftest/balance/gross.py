@@ -194,6 +194,16 @@ def nodal_test(result: Reconciliation, alpha: float = 0.05) -> NodalTest:
     :math:`|r_j| / \\sqrt{(A_r S A_r^T)_{jj}}` is standard normal in absolute value.
     For a nonlinear problem :math:`r` is the linearised residual
     :math:`P J_x (x - \\hat x)` at the solution.
+
+    With unmeasured variables a row of :math:`P` is a combination of balances, one
+    of a basis of the left null space of :math:`B` (pivoted QR, dense path), not a
+    balance of its own, and the basis is not unique.  Where :math:`B` is
+    rank-deficient (an unmeasured variable not observable) the part of that basis
+    beyond the rank follows the rounding of :math:`B`: the row statistics can then
+    change between two runs whose results agree to the last digits, while the
+    global test, which does not depend on the basis, does not.  Read them balance
+    by balance only without unmeasured variables, or with every unmeasured variable
+    observable.
     """
     func = "nodal_test"
     _check_result(result, func)
