@@ -87,19 +87,25 @@ def _factor(K):
     return spla.splu(sp.csc_matrix(K), permc_spec="COLAMD")
 
 
+def _known_condition(rng, n, cond_exp):
+    """A random n x n matrix with singular values from 1 down to 10**-cond_exp, its
+    1-norm and LAPACK dgecon's reciprocal condition number (the reference)."""
+    U, _ = np.linalg.qr(rng.normal(size=(n, n)))
+    V, _ = np.linalg.qr(rng.normal(size=(n, n)))
+    K = U @ np.diag(np.logspace(0, -cond_exp, n)) @ V.T
+    anorm = np.abs(K).sum(axis=0).max()
+    lu, _, _ = dgetrf(K.copy())
+    ref, _ = dgecon(lu, anorm, norm="1")
+    return K, anorm, ref
+
+
 @pytest.mark.parametrize("cond_exp", [0, 3, 6, 9, 12])
 def test_condition_estimate_against_lapack(cond_exp):
     """The estimate is the 1-norm estimator of LAPACK dgecon: it agrees with dgecon
     within a factor of 3 (Higham 1988: the estimate is a lower bound of ||K^-1||_1,
     almost always within a factor of 3), on matrices of known condition."""
-    rng = np.random.default_rng(cond_exp)
     n = 60
-    U, _ = np.linalg.qr(rng.normal(size=(n, n)))
-    V, _ = np.linalg.qr(rng.normal(size=(n, n)))
-    K = U @ np.diag(np.logspace(0, -cond_exp, n)) @ V.T
-    anorm = np.abs(K).sum(axis=0).max()
-    lu, piv, _ = dgetrf(K.copy())
-    ref, _ = dgecon(lu, anorm, norm="1")
+    K, anorm, ref = _known_condition(np.random.default_rng(cond_exp), n, cond_exp)
     est = _kkt._rcond_estimate(_factor(K), anorm, n)
     assert ref / 3.0 <= est <= ref * 3.0
 
@@ -157,14 +163,8 @@ def test_early_accepted_condition_estimate_keeps_lapacks_verdict(cond_exp):
     """Stopping the estimate after its first step (accept_above) changes no verdict
     against a bound: a matrix accepted early is well inside the bound by LAPACK's
     dgecon too, and an ill-conditioned one is not accepted early."""
-    rng = np.random.default_rng(100 + cond_exp)
     n = 80
-    U, _ = np.linalg.qr(rng.normal(size=(n, n)))
-    V, _ = np.linalg.qr(rng.normal(size=(n, n)))
-    K = U @ np.diag(np.logspace(0, -cond_exp, n)) @ V.T
-    anorm = np.abs(K).sum(axis=0).max()
-    lu, piv, _ = dgetrf(K.copy())
-    ref, _ = dgecon(lu, anorm, norm="1")
+    K, anorm, ref = _known_condition(np.random.default_rng(100 + cond_exp), n, cond_exp)
     bound = _kkt.RCOND_REGULAR
     est = _kkt._rcond_estimate(_factor(K), anorm, n, bound)
     assert (est > bound) == (ref > bound)
