@@ -25,6 +25,7 @@ do not change.
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 
 import numpy as np
@@ -137,12 +138,33 @@ class Reduction:
 
 def _lapack(routine, *args, **kwargs):
     """Call a LAPACK routine with its optimal workspace (queried first, as
-    scipy.linalg does: the blocked code and so the same rounding as scipy.linalg.qr)."""
-    lwork = int(routine(*args, lwork=-1, **kwargs)[-2][0])
+    scipy.linalg does: the blocked code and so the same rounding as scipy.linalg.qr).
+
+    The answer of the query depends on the routine and the shapes only; the last few
+    are kept, since a reconciliation asks the same ones again and again."""
+    key = (routine.__name__, tuple(np.shape(a) for a in args))
+    lwork = _workspace.get(key)
+    if lwork is None:
+        lwork = int(routine(*args, lwork=-1, **kwargs)[-2][0])
+        if len(_workspace) >= 64:
+            _workspace.clear()
+        _workspace[key] = lwork
     out = routine(*args, lwork=max(lwork, 1), **kwargs)
     if out[-1] != 0:  # pragma: no cover - argument errors only
         raise np.linalg.LinAlgError(f"LAPACK {routine.__name__} failed (info {out[-1]})")
     return out[:-2]
+
+
+#: Optimal LAPACK workspace by (routine, argument shapes), see _lapack.
+_workspace: dict = {}
+
+
+@functools.lru_cache(maxsize=16)
+def _upper_mask(m: int, k: int) -> np.ndarray:
+    """Read-only boolean (m, k) mask of the upper trapezoid (what np.triu keeps)."""
+    mask = ~np.tri(m, k, -1, dtype=bool)
+    mask.flags.writeable = False
+    return mask
 
 
 def _pivoted_qr(Bt: np.ndarray):
@@ -153,7 +175,7 @@ def _pivoted_qr(Bt: np.ndarray):
     if m == 0:
         return scipy.linalg.qr(Bt, pivoting=True, mode="full", check_finite=False)
     qr, jpvt, tau = _lapack(dgeqp3, Bt)
-    R = np.triu(qr)
+    R = np.where(_upper_mask(m, k), qr, 0.0)  # np.triu(qr), its mask kept
     if m < k:
         Q = _lapack(dorgqr, qr[:, :m], tau, overwrite_a=1)[0]
     else:

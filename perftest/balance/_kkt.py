@@ -44,6 +44,8 @@ References
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
@@ -325,6 +327,10 @@ class _DenseSolve:
 #: (m, k, rows, cols, singular).
 _last_structure = None
 
+#: The CSC layout of the last KKT pattern factorised (see _SparseSolve._layout):
+#: ((m, m + k, regularised), (mr, mc, jr, jc), (order, indices, indptr, colidx)).
+_last_layout = None
+
 
 class _SparseSolve:
     """:class:`_DenseSolve` with the matrix assembled and factorised sparse.
@@ -355,12 +361,47 @@ class _SparseSolve:
         mr, mc, mv = ms
         jr, jc, jv = js
         jv = -jv
-        self._rows = np.concatenate([mr, jr, jc + m])
-        self._cols = np.concatenate([mc, jc + m, jr])
+        self._pattern = (mr, mc, jr, jc)
         self._vals = np.concatenate([mv, jv, jv])
         self._m, self._size = m, m + k
         self._jy = (jr, jc, k)
         self._lu = None
+
+    def _layout(self, regularised: bool):
+        """``(order, indices, indptr, colidx)``: where the entries of ``_vals`` (then the
+        ``-delta`` diagonal when ``regularised``) go in the CSC arrays of the KKT matrix,
+        its row indices and column pointers, and the column of each stored entry.
+
+        The iterations of one reconciliation see the same pattern again and again: the
+        layout of the last pattern is kept (the same arrays the sort would give).
+        """
+        global _last_layout
+        m, size = self._m, self._size
+        pattern = self._pattern
+        last = _last_layout  # one immutable tuple: safe to share between threads
+        if (
+            last is not None
+            and last[0] == (m, size, regularised)
+            and all(np.array_equal(a, b) for a, b in zip(last[1], pattern, strict=True))
+        ):
+            return last[2]
+        mr, mc, jr, jc = pattern
+        rows = np.concatenate([mr, jr, jc + m])
+        cols = np.concatenate([mc, jc + m, jr])
+        if regularised:
+            diag = np.arange(m, size)
+            rows = np.concatenate([rows, diag])
+            cols = np.concatenate([cols, diag])
+        order = np.lexsort((rows, cols))
+        cols = cols[order]
+        layout = (
+            order,
+            rows[order].astype(np.int32),
+            np.searchsorted(cols, np.arange(size + 1)).astype(np.int32),
+            cols,
+        )
+        _last_layout = ((m, size, regularised), pattern, layout)
+        return layout
 
     def structurally_singular(self) -> bool:
         """Whether ``J_y`` has structural column rank below ``k`` (a maximum matching of
@@ -394,19 +435,11 @@ class _SparseSolve:
 
     def __call__(self, delta, rhs, rcond_min):
         m, size = self._m, self._size
-        rows, cols, vals = self._rows, self._cols, self._vals
+        vals = self._vals
         if delta:
-            diag = np.arange(m, size)
-            rows = np.concatenate([rows, diag])
-            cols = np.concatenate([cols, diag])
-            vals = np.concatenate([vals, np.full(diag.size, -delta)])
-        order = np.lexsort((rows, cols))
-        cols = cols[order]
-        A = sp.csc_matrix(
-            (vals[order], rows[order].astype(np.int32),
-             np.searchsorted(cols, np.arange(size + 1)).astype(np.int32)),
-            shape=(size, size),
-        )  # fmt: skip
+            vals = np.concatenate([vals, np.full(size - m, -delta)])
+        order, indices, indptr, cols = self._layout(bool(delta))
+        A = sp.csc_matrix((vals[order], indices, indptr), shape=(size, size))
         try:
             lu = spla.splu(A, permc_spec="COLAMD")
         except RuntimeError:  # exactly singular
@@ -439,17 +472,17 @@ def _rcond_estimate(lu, anorm, n, accept_above=None):
     """
     if not anorm > 0:
         return 0.0
-    # Higham's alternating-sign test vector guards against an unlucky start.
-    alt = (1.0 + np.arange(n) / max(n - 1, 1)) * np.where(np.arange(n) % 2, -1.0, 1.0)
-    w = lu.solve(alt)
-    if not np.all(np.isfinite(w)):
-        return 0.0
-    est_alt = 2.0 * float(np.abs(w).sum()) / (3.0 * n)
+    # Higham's alternating-sign test vector guards against an unlucky start; it and
+    # the first vector of the iteration are solved together.
     x = np.full(n, 1.0 / n)
+    start = lu.solve(_start_vectors(n))
+    if not np.all(np.isfinite(start)):
+        return 0.0
+    est_alt = 2.0 * float(np.abs(start[:, 0]).sum()) / (3.0 * n)
     est = 0.0
     j_last = -1
     for it in range(5):
-        v = lu.solve(x)
+        v = start[:, 1] if it == 0 else lu.solve(x)
         if not np.all(np.isfinite(v)):
             return 0.0
         new = float(np.abs(v).sum())
@@ -473,6 +506,18 @@ def _rcond_estimate(lu, anorm, n, accept_above=None):
         x[j] = 1.0
     est = max(est, est_alt)
     return 1.0 / (anorm * est) if est > 0 else 0.0
+
+
+@functools.lru_cache(maxsize=8)
+def _start_vectors(n):
+    """The two starting vectors of :func:`_rcond_estimate`, as the columns of one
+    (n, 2) array (read-only: shared between calls): Higham's alternating-sign vector
+    and the uniform vector ``1 / n``."""
+    out = np.empty((n, 2))
+    out[:, 0] = (1.0 + np.arange(n) / max(n - 1, 1)) * np.where(np.arange(n) % 2, -1.0, 1.0)
+    out[:, 1] = 1.0 / n
+    out.flags.writeable = False
+    return out
 
 
 def _row_scale(m_diag, jy_max):

@@ -74,10 +74,11 @@ def check_problem(x, cov, A, b, B, func: str, *, allow_sparse: bool = True) -> P
 def _equilibrate_dense(A, B, u):
     """Row weights and B column scales so that one unit is about one standard deviation."""
     m, k = B.shape
-    colB = np.max(np.abs(B), axis=0) if m and k else np.ones(k)
+    absB = np.abs(B)
+    colB = np.max(absB, axis=0) if m and k else np.ones(k)
     colB = np.where(colB > 0, colB, 1.0)
     rowA = np.max(np.abs(A) * u, axis=1) if A.shape[1] else np.zeros(m)
-    rowB = np.max(np.abs(B) / colB, axis=1) if k else np.zeros(m)
+    rowB = np.max(absB / colB, axis=1) if k else np.zeros(m)
     scale = np.maximum(rowA, rowB)
     w = np.where(scale > 0, 1.0 / np.where(scale > 0, scale, 1.0), 1.0)
     return w, colB

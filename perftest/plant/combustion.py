@@ -86,6 +86,7 @@ def combustion_reference_temperature(plant, fuel) -> float:
         )
     )
 
+
 # key -> (model variable, glossary quantity)
 _VARIABLES = {
     "flue_gas_o2": ("oxygen", "fraction"),

@@ -203,3 +203,58 @@ def test_structurally_singular_system_skips_the_regular_factorisation(monkeypatc
     assert out is not None and ref is not None and out[3] is False and ref[3] is False
     for a, b in zip(out[:3], ref[:3], strict=True):
         np.testing.assert_array_equal(a, b)
+
+
+def _kkt_dense(Ms, Jys, delta):
+    """The scaled KKT matrix [[Ms, -Jys], [-Jys^T, -delta I]] as a dense array."""
+    m, k = Jys.shape
+    K = np.zeros((m + k, m + k))
+    K[:m, :m] = Ms
+    K[:m, m:] = -Jys
+    K[m:, :m] = -Jys.T
+    K[m:, m:] = -delta * np.eye(k)
+    return K
+
+
+def test_kept_csc_layout_builds_the_kkt_matrix_of_each_pattern():
+    """The CSC layout of a KKT pattern is kept for the next step with the same pattern:
+    filled with new values it gives the matrix of those values (against a dense array
+    of the definition), in scipy's canonical form (rows sorted within each column), and
+    a new pattern gets a layout of its own."""
+    import scipy.sparse as sp
+
+    rng = np.random.default_rng(11)
+    m, n, k = 130, 60, 126
+    Jx, Jy, sdiag, *_ = _problem(rng, m, n, k)
+    Ms = (Jx * sdiag) @ Jx.T
+
+    def built(solver, delta):
+        order, indices, indptr, cols = solver._layout(bool(delta))
+        vals = solver._vals
+        if delta:
+            vals = np.concatenate([vals, np.full(k, -delta)])
+        A = sp.csc_matrix((vals[order], indices, indptr), shape=(m + k, m + k))
+        # the column of each stored entry, as the condition estimate's column sums use it
+        np.testing.assert_array_equal(cols, np.repeat(np.arange(m + k), np.diff(indptr)))
+        return A
+
+    first = _kkt._SparseSolve(Ms, Jy)
+    for delta in (0.0, _kkt.DELTA):
+        A = built(first, delta)
+        np.testing.assert_array_equal(A.toarray(), _kkt_dense(Ms, Jy, delta))
+        bounds = zip(A.indptr[:-1], A.indptr[1:], strict=True)
+        assert all(np.all(np.diff(A.indices[a:b]) > 0) for a, b in bounds)
+    # same pattern, other values: the same layout, the new matrix
+    again = _kkt._SparseSolve(2.0 * Ms, 3.0 * Jy)
+    assert again._layout(True) is first._layout(True)
+    np.testing.assert_array_equal(
+        built(again, _kkt.DELTA).toarray(), _kkt_dense(2.0 * Ms, 3.0 * Jy, _kkt.DELTA)
+    )
+    # one entry more in J_y: a new layout, and the matrix of the new pattern
+    Jy2 = Jy.copy()
+    Jy2[0, np.flatnonzero(Jy[0] == 0.0)[0]] = 0.5
+    other = _kkt._SparseSolve(Ms, Jy2)
+    assert other._layout(True) is not first._layout(True)
+    np.testing.assert_array_equal(
+        built(other, _kkt.DELTA).toarray(), _kkt_dense(Ms, Jy2, _kkt.DELTA)
+    )
