@@ -44,6 +44,7 @@ class Core:
     y_var: np.ndarray | None  # variances of y (unobservable not masked)
     constraint_residual: np.ndarray
     constraint_u: np.ndarray
+    constraint_rows: np.ndarray  # the constraint each row above is anchored to
     inconsistent: tuple | None
     # Deferred statistics: a callable -> (vdiag, redundant, y_var, covariances) that
     # fills the fields above left None (a solve whose step alone is wanted).

@@ -16,11 +16,12 @@ matrix :math:`P A` are then removed with a pivoted Cholesky factorisation of
 :func:`project_out_unmeasured` forms :math:`P` and the pseudo-inverse :math:`G`;
 :func:`reduce_constraints` gives them applied to the constraints, with the same
 :math:`P` to the last bit and, for a final solve, :math:`G` from a cheaper
-decomposition (equal to rounding).  The basis :math:`P` sets the rows of the nodal
-test; where :math:`B` is rank-deficient its trailing reflectors, so the basis, follow
-the last bits of :math:`B`: the steps of the nonlinear engine keep the exact
-arithmetic of the formed route so that its iterates, and the basis at its solution,
-do not change.
+decomposition (equal to rounding).  The basis :math:`P` follows the rounding of
+:math:`B` wherever its columns tie in norm or it is rank-deficient (the QR's pivots
+and reflector signs); the solution does not depend on it, and the nodal test reads
+the reduced constraints in the canonical basis of :func:`canonical_rows`, which
+depends on the space alone.  The steps of the nonlinear engine keep the exact
+arithmetic of the formed route all the same, so that its iterates do not change.
 """
 
 from __future__ import annotations
@@ -30,7 +31,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import scipy.linalg
-from scipy.linalg.lapack import dgeqp3, dorgqr, dormrz, dpstrf, dtrtrs, dtzrzf
+from scipy.linalg.lapack import dgeqp3, dgesv, dorgqr, dormrz, dpstrf, dtrtrs, dtzrzf
 
 # Rank decisions.  All of them act on equilibrated quantities (rows scaled so
 # that one unit means roughly one standard deviation of the constraint), so the
@@ -58,6 +59,14 @@ CONSISTENCY_RTOL = 1e-6
 # A measurement is redundant when the variance of its adjustment exceeds this
 # fraction of its own variance.
 REDUNDANCY_RTOL = 1e-10
+
+
+# The nodal test's rows are the canonical basis of the left null space of B (see
+# canonical_rows), each row anchored to one balance, the anchors chosen greedily by
+# the longest remaining projection.  Lengths that differ by less than about this
+# relative amount count as equal and the balance given first is taken, so that
+# rounding (which moves the lengths of tied balances by ~1e-15) decides nothing.
+TIE_FAVOUR = 1e-7
 
 
 @dataclass
@@ -229,6 +238,76 @@ def reduce_constraints(
         P=P, PA=P @ At, Pb=P @ bt, GA=GAb[:, :n], Gb=GAb[:, n], observable=observable,
         exact=False,
     )  # fmt: skip
+
+
+def canonical_rows(P: np.ndarray, res: np.ndarray, M: np.ndarray):
+    """The reduced constraints in the canonical basis of their space, for the nodal test.
+
+    Parameters
+    ----------
+    P : ndarray (p, m)
+        Orthonormal basis (rows) of the left null space of ``B``, one column per
+        balance.
+    res : ndarray (p,)
+        Residuals of the reduced constraints ``P (A x - b)``.
+    M : ndarray (p, p)
+        Their covariance ``P A S A^T P^T``.
+
+    Returns
+    -------
+    rows : ndarray of int (p,)
+        The balance each canonical row is anchored to, increasing.
+    res_c, var_c : ndarray (p,)
+        The canonical rows' residuals and variances.
+
+    Notes
+    -----
+    The space is unique, its bases are not: the pivoted QR that finds ``P`` turns it
+    with its column pivots and reflector signs, which follow rounding wherever
+    columns of ``B`` tie in norm.  The canonical basis depends on the space alone:
+    ``C = T P`` with ``C[:, rows]`` the identity, so that row ``i`` is balance
+    ``rows[i]`` plus a combination of the balances that anchor no row (those that
+    determine the unmeasured variables); a balance without unmeasured variables is a
+    row of its own.  The anchors are chosen greedily, at each step the balance whose
+    projection on what is left of the space is longest (a QR with column pivoting of
+    ``P``, LAPACK ``geqp3``), lengths closer than ``TIE_FAVOUR`` counting as equal and
+    the balance given first taken; the greedy choice keeps ``P[:, rows]`` well
+    conditioned.  Given the anchors, ``C`` is the reduced row echelon form of the
+    space with those pivot columns.  A row of ``P`` that is one balance alone (a
+    balance the QR left untouched) is that balance's row up to its sign.
+    """
+    p, m = P.shape
+    rows = np.empty(p, dtype=int)
+    res_c, var_c = np.empty(p), np.empty(p)
+    alone = np.count_nonzero(P, axis=1) == 1
+    one, mixed = np.flatnonzero(alone), np.flatnonzero(~alone)
+    a = np.argmax(np.abs(P[one]), axis=1) if one.size else np.zeros(0, dtype=int)
+    sign = P[one, a]
+    rows[: one.size] = a
+    res_c[: one.size] = res[one] / sign
+    var_c[: one.size] = M[one, one] / sign**2
+    if mixed.size:
+        q = mixed.size
+        Pm = P[mixed] if one.size else P
+        anchor = np.sort(_lapack(dgeqp3, Pm * _favour(m))[1][:q] - 1)
+        _, _, T, info = dgesv(Pm[:, anchor], np.eye(q))  # (P[:, anchor])^-1
+        if info != 0:  # pragma: no cover - the greedy anchors keep it regular
+            raise np.linalg.LinAlgError(f"LAPACK dgesv failed (info {info})")
+        rows[one.size :] = anchor
+        res_c[one.size :] = T @ (res[mixed] if one.size else res)
+        TM = T @ (M[np.ix_(mixed, mixed)] if one.size else M)
+        var_c[one.size :] = np.einsum("ij,ij->i", TM, T)
+    order = np.argsort(rows, kind="stable")
+    return rows[order], res_c[order], var_c[order]
+
+
+@functools.lru_cache(maxsize=16)
+def _favour(m: int) -> np.ndarray:
+    """Read-only weights ``1 + TIE_FAVOUR (m - j) / m`` of the balances j (see
+    :func:`canonical_rows`): ties go to the balance given first."""
+    out = 1.0 + TIE_FAVOUR * (m - np.arange(m)) / m
+    out.flags.writeable = False
+    return out
 
 
 @dataclass

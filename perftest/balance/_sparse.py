@@ -72,10 +72,13 @@ def _equilibrate(A, B, u):
 
 
 def _project(Bt: sp.csr_matrix):
-    """Block-wise left null space P (sparse), pseudo-inverse G (sparse) and observability."""
+    """Block-wise left null space P (sparse), pseudo-inverse G (sparse), observability,
+    and the blocks of P: ``(free, [(start, stop, P_block, rows), ...])``, the balances
+    without unmeasured variables (the first rows of P) and, per block, its rows of P,
+    its dense basis and the balances it spans."""
     m, k = Bt.shape
     if k == 0:
-        return None, sp.csr_matrix((0, m)), np.zeros(0, dtype=bool)
+        return None, sp.csr_matrix((0, m)), np.zeros(0, dtype=bool), None
     coo = Bt.tocoo()
     graph = sp.coo_matrix((np.ones(coo.nnz), (coo.row, m + coo.col)), shape=(m + k, m + k))
     ncomp, labels = connected_components(graph, directed=False)
@@ -96,6 +99,7 @@ def _project(Bt: sp.csr_matrix):
     p_cols.append(free)
     p_vals.append(np.ones(free.size))
     next_row = free.size
+    blocks = []
     Bc = Bt.tocsc()
     for c in range(ncomp):
         cols = order_c[bounds_c[c] : bounds_c[c + 1]]
@@ -115,6 +119,7 @@ def _project(Bt: sp.csr_matrix):
             p_rows.append(next_row + rr.ravel())
             p_cols.append(cc.ravel())
             p_vals.append(proj.P.ravel())
+            blocks.append((next_row, next_row + q, proj.P, rows))
             next_row += q
         gr, gc = np.meshgrid(cols, rows, indexing="ij")
         g_rows.append(gr.ravel())
@@ -134,7 +139,23 @@ def _project(Bt: sp.csr_matrix):
         ),
         shape=(k, m),
     )
-    return P, G, observable
+    return P, G, observable, (free, blocks)
+
+
+def _canonical(layout, res0, M0, d):
+    """The nodal test's rows in the canonical basis (:func:`_dense.canonical_rows`,
+    block by block): ``(rows, residuals, variances)`` ordered by anchor balance."""
+    free, blocks = layout
+    rows, res_c, var_c = [free], [res0[: free.size]], [d[: free.size]]
+    for start, stop, Pb, block_rows in blocks:
+        sub = M0[start:stop, start:stop].toarray()
+        anchor, res_b, var_b = _dense.canonical_rows(Pb, res0[start:stop], sub)
+        rows.append(block_rows[anchor])
+        res_c.append(res_b)
+        var_c.append(var_b)
+    rows, res_c, var_c = np.concatenate(rows), np.concatenate(res_c), np.concatenate(var_c)
+    order = np.argsort(rows, kind="stable")
+    return rows[order], res_c[order], var_c[order]
 
 
 def _select_rows(M0: sp.csr_matrix, br0: np.ndarray):
@@ -252,7 +273,7 @@ def solve_sparse(p):
     At = (W @ A).tocsr()
     bt = b * w
     Bt = (W @ B @ sp.diags(1.0 / colB)).tocsr()
-    P, G, observable = _project(Bt)
+    P, G, observable, layout = _project(Bt)
     if P is None:
         Ar0, br0 = At, bt
     else:
@@ -261,11 +282,14 @@ def solve_sparse(p):
     M0 = (AS0 @ Ar0.T).tocsr()
     idx, fac, d, inconsistent = _select_rows(M0, br0)
     res0 = Ar0 @ x - br0
-    sd0 = np.sqrt(np.maximum(d, 0.0))
     if P is None:
-        constraint_residual, constraint_u = res0 / w, sd0 / w
+        constraint_rows = np.arange(m)
+        constraint_residual, constraint_u = res0 / w, np.sqrt(np.maximum(d, 0.0)) / w
     else:
-        constraint_residual, constraint_u = res0, sd0
+        # in the canonical basis, each row in the units of its anchor balance
+        constraint_rows, res_c, var_c = _canonical(layout, res0, M0, d)
+        wr = w[constraint_rows]
+        constraint_residual, constraint_u = res_c / wr, np.sqrt(np.maximum(var_c, 0.0)) / wr
     if inconsistent is not None:
         idx = np.zeros(0, int)
     r = idx.size
@@ -352,5 +376,6 @@ def solve_sparse(p):
         y_var=np.diag(y_cov).copy(),
         constraint_residual=constraint_residual,
         constraint_u=constraint_u,
+        constraint_rows=constraint_rows,
         inconsistent=inconsistent,
     )

@@ -14,7 +14,7 @@ References
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import scipy.special
@@ -98,6 +98,10 @@ class NodalTest:
         rows that involve no measurement).
     critical, alpha_per, n_tested, flagged
         As for :class:`MeasurementTest`.
+    constraint : ndarray of int (p,)
+        The constraint (balance) each row belongs to: the constraint itself, or, with
+        unmeasured variables, the balance the row is anchored to (see
+        :func:`nodal_test`).
     """
 
     statistic: np.ndarray
@@ -105,6 +109,7 @@ class NodalTest:
     alpha_per: float
     n_tested: int
     flagged: np.ndarray
+    constraint: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=int))
 
 
 def _check_result(result, func):
@@ -186,24 +191,30 @@ def nodal_test(result: Reconciliation, alpha: float = 0.05) -> NodalTest:
     -------
     NodalTest
         Without unmeasured variables the rows are the constraints as given; with them,
-        they are the rows of the projected constraints :math:`P A x = P b`.
+        the reduced constraints :math:`C A x = C b` (:math:`C B = 0`), one row per
+        anchor balance (``constraint``).
 
     Notes
     -----
     :math:`r = A_r x - b_r` has covariance :math:`A_r S A_r^T` without gross error, so
     :math:`|r_j| / \\sqrt{(A_r S A_r^T)_{jj}}` is standard normal in absolute value.
     For a nonlinear problem :math:`r` is the linearised residual
-    :math:`P J_x (x - \\hat x)` at the solution.
+    :math:`C J_x (x - \\hat x)` at the solution.
 
-    With unmeasured variables a row of :math:`P` is a combination of balances, one
-    of a basis of the left null space of :math:`B` (pivoted QR, dense path), not a
-    balance of its own, and the basis is not unique.  Where :math:`B` is
-    rank-deficient (an unmeasured variable not observable) the part of that basis
-    beyond the rank follows the rounding of :math:`B`: the row statistics can then
-    change between two runs whose results agree to the last digits, while the
-    global test, which does not depend on the basis, does not.  Read them balance
-    by balance only without unmeasured variables, or with every unmeasured variable
-    observable.
+    With unmeasured variables the reduced constraints span the left null space of
+    :math:`B`, and any basis of it would do for the global test; the nodal test reads
+    them row by row, so the basis must not be arbitrary.  :math:`C` is the canonical
+    basis (:func:`perftest.balance._dense.canonical_rows`): each row is one balance,
+    its anchor, plus a combination of the balances that anchor no row (those that
+    determine the unmeasured variables), with coefficient one on its anchor and zero
+    on the other anchors, in the anchor's units.  A balance without unmeasured
+    variables is a row of its own; two balances joined by one unmeasured stream give
+    one row, anchored to the first: the first plus the second times the factor that
+    cancels the stream.  The anchors are chosen greedily by
+    the longest remaining projection, ties to the balance given first.  The basis
+    depends on the space alone: the rows do not change with the rounding of
+    :math:`B` (another BLAS build, another processor), whereas the basis of the
+    pivoted QR that finds the space does wherever columns of :math:`B` tie in norm.
     """
     func = "nodal_test"
     _check_result(result, func)
@@ -216,7 +227,10 @@ def nodal_test(result: Reconciliation, alpha: float = 0.05) -> NodalTest:
         stat = np.where(tested, np.abs(r) / np.where(tested, sd, 1.0), np.nan)
     crit, alpha_per = sidak_critical_value(alpha, int(np.count_nonzero(tested)))
     flagged = np.where(np.isnan(stat), False, stat > crit)
-    return NodalTest(stat, crit, alpha_per, int(np.count_nonzero(tested)), flagged)
+    return NodalTest(
+        stat, crit, alpha_per, int(np.count_nonzero(tested)), flagged,
+        np.asarray(result.constraint_rows, dtype=int).copy(),
+    )  # fmt: skip
 
 
 def vdi2048_criterion(result: Reconciliation) -> np.ndarray:

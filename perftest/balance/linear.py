@@ -95,9 +95,8 @@ def solve_dense(p: Problem, *, deferred: bool = False, final: bool = False) -> C
     variables' pseudo-inverse may come from the cheaper decomposition of
     :func:`_dense.reduce_constraints`, equal to rounding (``Core.exact`` says whether
     it did).  The steps of reconcile_nonlinear keep the last bits of the formed one:
-    the basis of the nodal test at the solution is that of the pivoted QR of the
-    last iterate's Jacobian, and where that Jacobian is rank-deficient its trailing
-    reflectors, so the basis, follow the last bits of the iterate.
+    the pivoted QR of the last iterate's Jacobian follows its last bits where its
+    columns tie in norm or it is rank-deficient.
     """
     x, S, s, A, b, B = p.x, p.S, p.sdiag, p.A, p.b, p.B
     n = x.size
@@ -120,11 +119,15 @@ def solve_dense(p: Problem, *, deferred: bool = False, final: bool = False) -> C
     res0 = Ar0 @ x - br0
     if red is None:
         # Reduced rows are the original constraints: report them in their own units.
+        constraint_rows = np.arange(A.shape[0])
         constraint_residual = res0 / w
         constraint_u = np.sqrt(np.maximum(sel.d, 0.0)) / w
     else:
-        constraint_residual = res0
-        constraint_u = np.sqrt(np.maximum(sel.d, 0.0))
+        # The nodal test's rows in the canonical basis, each in the units of the
+        # balance it is anchored to.
+        constraint_rows, res_c, var_c = _dense.canonical_rows(red.P, res0, M0)
+        constraint_residual = res_c / w[constraint_rows]
+        constraint_u = np.sqrt(np.maximum(var_c, 0.0)) / w[constraint_rows]
     if r:
         L = sel.L
         AS = AS0[idx]
@@ -184,6 +187,7 @@ def solve_dense(p: Problem, *, deferred: bool = False, final: bool = False) -> C
         y_var=None,
         constraint_residual=constraint_residual,
         constraint_u=constraint_u,
+        constraint_rows=constraint_rows,
         inconsistent=sel.inconsistent,
         finish=statistics,
         exact=red is None or red.exact,
@@ -335,6 +339,7 @@ def _solve_nullspace(p: Problem, core: Core) -> Core | None:
         y_var=np.diag(y_cov).copy(),
         constraint_residual=core.constraint_residual,
         constraint_u=core.constraint_u,
+        constraint_rows=core.constraint_rows,
         inconsistent=None,
     )
 
@@ -446,6 +451,7 @@ def build_result(
         method=method,
         constraint_residual=core.constraint_residual,
         constraint_u=core.constraint_u,
+        constraint_rows=core.constraint_rows,
         covariance_source=covariances,
     )
 

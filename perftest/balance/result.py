@@ -79,6 +79,11 @@ class Reconciliation:
         used by the nodal test.
     constraint_u : ndarray (p,)
         Their standard deviations, :math:`\\sqrt{(A_r S A_r^T)_{jj}}`.
+    constraint_rows : ndarray of int (p,)
+        The constraint each reduced row belongs to: the constraint itself without
+        unmeasured variables; with them, the balance the row is anchored to (the row
+        is that balance combined with the balances that determine the unmeasured
+        variables, in its units; see :func:`perftest.balance.nodal_test`).
 
     Notes
     -----
@@ -107,6 +112,7 @@ class Reconciliation:
     method: str
     constraint_residual: np.ndarray = field(default_factory=lambda: np.zeros(0), repr=False)
     constraint_u: np.ndarray = field(default_factory=lambda: np.zeros(0), repr=False)
+    constraint_rows: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=int), repr=False)
     # Callable returning (x_cov, y_cov, xy_cov); called once on first access.
     covariance_source: Callable | None = field(default=None, repr=False)
 

@@ -73,6 +73,120 @@ def test_nodal_test_statistic_written_out():
     assert t.flagged[0] and t.flagged[2]
 
 
+def _split(unmeasured):
+    measured = [j for j in range(8) if j not in unmeasured]
+    return A_NET[:, measured], A_NET[:, unmeasured], measured
+
+
+def test_nodal_rows_do_not_follow_rounding():
+    """With unmeasured variables the pivoted QR that finds the left null space of B
+    turns its basis with rounding wherever columns of B tie in norm (here every
+    coefficient is one and every weight equal: 4 of 20 perturbations of B by one unit
+    in the last place changed that basis's row statistics by O(1)).  The nodal test
+    reads the canonical basis, which depends on the space alone: its rows, and the
+    reconciled values, chi2 and the measurement test (which depend on the space only,
+    Crowe, Garcia Campos and Hrymak, AIChE J. 29(6), 1983), move by rounding."""
+    rng = np.random.default_rng(4)
+    A, B, measured = _split([3, 6])
+    u = np.ones(len(measured))
+    x = TRUTH[measured] + rng.normal(size=len(measured)) * u
+    ref = reconcile_linear(x, np.diag(u**2), A, B=B)
+    ref_t = nodal_test(ref)
+    for _ in range(20):
+        Bp = B * (1.0 + rng.choice([-1.0, 0.0, 1.0], size=B.shape) * 2.0**-52)
+        r = reconcile_linear(x, np.diag(u**2), A, B=Bp)
+        t = nodal_test(r)
+        # rounding of a six-row system: 1e-10 leaves several orders of margin
+        np.testing.assert_allclose(t.statistic, ref_t.statistic, rtol=1e-10)
+        np.testing.assert_array_equal(t.constraint, ref_t.constraint)
+        assert r.chi2 == pytest.approx(ref.chi2, rel=1e-12)
+        np.testing.assert_allclose(r.x, ref.x, rtol=1e-12)
+        np.testing.assert_allclose(r.z, ref.z, rtol=1e-10, atol=1e-12)
+
+
+def test_nodal_rows_written_out_with_unmeasured_streams():
+    """Stream 3 (node 1 -> node 3) and stream 6 (node 4 -> node 5) unmeasured.  Each
+    joins two balances, which the canonical basis gives as one row anchored to the
+    first of them: node 1 + node 3 and node 4 + node 5 (the stream leaves one and
+    enters the other).  Nodes 0 and 2 hold no unmeasured stream and are rows of
+    their own.  Statistics written out from the definition of the nodal test (the
+    residual of a combined balance over its standard deviation; Narasimhan and
+    Jordache, Data Reconciliation and Gross Error Detection, 2000, Ch. 7)."""
+    rng = np.random.default_rng(8)
+    A, B, measured = _split([3, 6])
+    u = U_NET[measured]
+    S = np.diag(u**2)
+    x = TRUTH[measured] + rng.normal(size=len(measured)) * u
+    x[0] += 6.0  # a bias on the feed
+    t = nodal_test(reconcile_linear(x, S, A, B=B))
+    np.testing.assert_array_equal(t.constraint, [0, 1, 2, 4])
+    combine = np.zeros((4, 6))  # balances 0, 1 + 3, 2, 4 + 5
+    combine[[0, 1, 1, 2, 3, 3], [0, 1, 3, 2, 4, 5]] = 1.0
+    np.testing.assert_array_equal(combine @ B, 0.0)  # the unmeasured streams cancel
+    rows = combine @ A
+    stat = np.abs(rows @ x) / np.sqrt(np.einsum("ij,jk,ik->i", rows, S, rows))
+    np.testing.assert_allclose(t.statistic, stat, rtol=1e-12)
+    assert t.flagged[0]  # the feed's own balance
+
+
+def test_nodal_rows_the_same_on_the_dense_and_the_sparse_path():
+    """The sparse path eliminates the unmeasured variables block by block, the dense
+    one in one QR: both give the canonical rows, in the same order and units."""
+    import scipy.sparse as sp
+
+    rng = np.random.default_rng(12)
+    A, B, measured = _split([2, 3, 6])
+    u = U_NET[measured]
+    x = TRUTH[measured] + rng.normal(size=len(measured)) * u
+    dense = reconcile_linear(x, np.diag(u**2), A, B=B * 2.5)
+    sparse = reconcile_linear(x, sp.diags(u**2), sp.csr_matrix(A), B=sp.csr_matrix(B * 2.5))
+    assert dense.method == "linear-dense" and sparse.method == "linear-sparse"
+    np.testing.assert_array_equal(dense.constraint_rows, sparse.constraint_rows)
+    # two factorisations of a small system: equal to rounding
+    np.testing.assert_allclose(dense.constraint_residual, sparse.constraint_residual, atol=1e-12)
+    np.testing.assert_allclose(dense.constraint_u, sparse.constraint_u, rtol=1e-12)
+
+
+def test_canonical_rows_depend_on_the_space_alone():
+    """Any orthonormal basis of the same space (here turned by random orthogonal
+    matrices) gives the same canonical rows; they span the left null space of B
+    (against scipy.linalg.null_space, an SVD) and are the identity on their anchors."""
+    import scipy.linalg
+    import scipy.stats
+
+    from perftest.balance import _dense
+
+    rng = np.random.default_rng(21)
+    m, k = 14, 6
+    B = np.zeros((m, k))
+    for j in range(k):
+        a, b = rng.choice(m, 2, replace=False)
+        B[a, j], B[b, j] = 1.0, -1.0
+    N = scipy.linalg.null_space(B.T)  # orthonormal basis of the left null space
+    p = N.shape[1]
+    res = rng.normal(size=m)
+    K = np.diag(rng.uniform(0.5, 2.0, m))
+    ref = None
+    for seed in range(6):
+        turn = scipy.stats.ortho_group.rvs(p, random_state=seed)
+        P = (N @ turn).T
+        rows, res_c, var_c = _dense.canonical_rows(P, P @ res, P @ K @ P.T)
+        if ref is None:
+            ref = rows, res_c, var_c
+            continue
+        np.testing.assert_array_equal(rows, ref[0])
+        # rounding of a 14-row problem: 1e-12
+        np.testing.assert_allclose(res_c, ref[1], rtol=1e-12, atol=1e-12)
+        np.testing.assert_allclose(var_c, ref[2], rtol=1e-12)
+    # the canonical C = T P from the anchors: the identity on them, zero against B
+    P = N.T
+    rows = ref[0]
+    C = np.linalg.solve(P[:, rows], P)
+    np.testing.assert_allclose(C[:, rows], np.eye(p), atol=1e-12)
+    np.testing.assert_allclose(C @ B, 0.0, atol=1e-12)
+    np.testing.assert_allclose(C @ res, ref[1], rtol=1e-12, atol=1e-12)
+
+
 def test_vdi2048_matches_definition():
     rng = np.random.default_rng(2)
     x = TRUTH + rng.normal(size=8) * U_NET
