@@ -17,7 +17,13 @@ PACKAGE = Path(perftest.__file__).resolve().parent
 
 #: Import layers, lowest first. A module may import from its own layer or a lower one.
 LAYERS = (
-    ("perftest.errors", "perftest.units", "perftest.display", "perftest.defaults"),
+    (
+        "perftest.errors",
+        "perftest.units",
+        "perftest.unit_names",
+        "perftest.display",
+        "perftest.defaults",
+    ),
     ("perftest.thermo",),
     ("perftest.plant",),
     ("perftest.run",),
