@@ -19,7 +19,7 @@ matrix :math:`P A` are then removed with a pivoted Cholesky factorisation of
 decomposition (equal to rounding).  The basis :math:`P` follows the rounding of
 :math:`B` wherever its columns tie in norm or it is rank-deficient (the QR's pivots
 and reflector signs); the solution does not depend on it, and the nodal test reads
-the reduced constraints in the canonical basis of :func:`canonical_rows`, which
+the reduced constraints in the canonical basis of :class:`CanonicalRows`, which
 depends on the space alone.  The steps of the nonlinear engine keep the exact
 arithmetic of the formed route all the same, so that its iterates do not change.
 """
@@ -31,6 +31,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import scipy.linalg
+import scipy.sparse as sp
 from scipy.linalg.lapack import dgeqp3, dgesv, dorgqr, dormrz, dpstrf, dtrtrs, dtzrzf
 
 # Rank decisions.  All of them act on equilibrated quantities (rows scaled so
@@ -62,7 +63,7 @@ REDUNDANCY_RTOL = 1e-10
 
 
 # The nodal test's rows are the canonical basis of the left null space of B (see
-# canonical_rows), each row anchored to one balance, the anchors chosen greedily by
+# CanonicalRows), each row anchored to one balance, the anchors chosen greedily by
 # the longest remaining projection.  Lengths that differ by less than about this
 # relative amount count as equal and the balance given first is taken, so that
 # rounding (which moves the lengths of tied balances by ~1e-15) decides nothing.
@@ -240,71 +241,78 @@ def reduce_constraints(
     )  # fmt: skip
 
 
-def canonical_rows(P: np.ndarray, res: np.ndarray, M: np.ndarray):
+class CanonicalRows:
     """The reduced constraints in the canonical basis of their space, for the nodal test.
 
-    Parameters
-    ----------
-    P : ndarray (p, m)
-        Orthonormal basis (rows) of the left null space of ``B``, one column per
-        balance.
-    res : ndarray (p,)
-        Residuals of the reduced constraints ``P (A x - b)``.
-    M : ndarray (p, p)
-        Their covariance ``P A S A^T P^T``.
+    Built from an orthonormal basis ``P`` (p, m) of the left null space of ``B`` (one
+    column per balance); called on an array whose rows are in ``P``'s basis (``P A``,
+    ``P b``, dense or sparse), it returns that array in the canonical basis ``C = T P``,
+    rows ordered by ``rows``.
 
-    Returns
-    -------
+    Attributes
+    ----------
     rows : ndarray of int (p,)
         The balance each canonical row is anchored to, increasing.
-    res_c, var_c : ndarray (p,)
-        The canonical rows' residuals and variances.
 
     Notes
     -----
     The space is unique, its bases are not: the pivoted QR that finds ``P`` turns it
     with its column pivots and reflector signs, which follow rounding wherever
     columns of ``B`` tie in norm.  The canonical basis depends on the space alone:
-    ``C = T P`` with ``C[:, rows]`` the identity, so that row ``i`` is balance
-    ``rows[i]`` plus a combination of the balances that anchor no row (those that
-    determine the unmeasured variables); a balance without unmeasured variables is a
-    row of its own.  The anchors are chosen greedily, at each step the balance whose
-    projection on what is left of the space is longest (a QR with column pivoting of
-    ``P``, LAPACK ``geqp3``), lengths closer than ``TIE_FAVOUR`` counting as equal and
-    the balance given first taken; the greedy choice keeps ``P[:, rows]`` well
+    ``C[:, rows]`` is the identity, so that row ``i`` is balance ``rows[i]`` plus a
+    combination of the balances that anchor no row (those that determine the
+    unmeasured variables); a balance without unmeasured variables is a row of its
+    own.  The anchors are chosen greedily, at each step the balance whose projection
+    on what is left of the space is longest (a QR with column pivoting of ``P``,
+    LAPACK ``geqp3``), lengths closer than ``TIE_FAVOUR`` counting as equal and the
+    balance given first taken; the greedy choice keeps ``P[:, rows]`` well
     conditioned.  Given the anchors, ``C`` is the reduced row echelon form of the
     space with those pivot columns.  A row of ``P`` that is one balance alone (a
     balance the QR left untouched) is that balance's row up to its sign.
     """
-    p, m = P.shape
-    rows = np.empty(p, dtype=int)
-    res_c, var_c = np.empty(p), np.empty(p)
-    alone = np.count_nonzero(P, axis=1) == 1
-    one, mixed = np.flatnonzero(alone), np.flatnonzero(~alone)
-    a = np.argmax(np.abs(P[one]), axis=1) if one.size else np.zeros(0, dtype=int)
-    sign = P[one, a]
-    rows[: one.size] = a
-    res_c[: one.size] = res[one] / sign
-    var_c[: one.size] = M[one, one] / sign**2
-    if mixed.size:
-        q = mixed.size
-        Pm = P[mixed] if one.size else P
-        anchor = np.sort(_lapack(dgeqp3, Pm * _favour(m))[1][:q] - 1)
-        _, _, T, info = dgesv(Pm[:, anchor], np.eye(q))  # (P[:, anchor])^-1
-        if info != 0:  # pragma: no cover - the greedy anchors keep it regular
-            raise np.linalg.LinAlgError(f"LAPACK dgesv failed (info {info})")
-        rows[one.size :] = anchor
-        res_c[one.size :] = T @ (res[mixed] if one.size else res)
-        TM = T @ (M[np.ix_(mixed, mixed)] if one.size else M)
-        var_c[one.size :] = np.einsum("ij,ij->i", TM, T)
-    order = np.argsort(rows, kind="stable")
-    return rows[order], res_c[order], var_c[order]
+
+    def __init__(self, P: np.ndarray):
+        p, m = P.shape
+        alone = np.count_nonzero(P, axis=1) == 1
+        self._one, self._mixed = np.flatnonzero(alone), np.flatnonzero(~alone)
+        one_at = np.argmax(np.abs(P[self._one]), axis=1) if self._one.size else self._one
+        self._sign = P[self._one, one_at]
+        anchor = np.zeros(0, dtype=int)
+        self._T = None
+        q = self._mixed.size
+        if q:
+            Pm = P[self._mixed] if self._one.size else P
+            anchor = np.sort(_lapack(dgeqp3, Pm * _favour(m))[1][:q] - 1)
+            _, _, T, info = dgesv(Pm[:, anchor], np.eye(q))  # (P[:, anchor])^-1
+            if info != 0:  # pragma: no cover - the greedy anchors keep it regular
+                raise np.linalg.LinAlgError(f"LAPACK dgesv failed (info {info})")
+            self._T = T
+        rows = np.concatenate([one_at, anchor])
+        self._order = np.argsort(rows, kind="stable")
+        self.rows = rows[self._order]
+
+    def __call__(self, X):
+        """``X`` (p, ...) in ``P``'s basis -> the same rows in the canonical basis."""
+        one, mixed = self._one, self._mixed
+        sparse = sp.issparse(X)
+        if sparse:
+            X = sp.csr_matrix(X)
+            parts = [sp.diags(1.0 / self._sign) @ X[one]]
+            if mixed.size:
+                parts.append(sp.csr_matrix(self._T) @ (X[mixed] if one.size else X))
+            return sp.vstack(parts, format="csr")[self._order]
+        X = np.asarray(X)
+        scale = 1.0 / self._sign
+        parts = [X[one] * (scale if X.ndim == 1 else scale[:, None])]
+        if mixed.size:
+            parts.append(self._T @ (X[mixed] if one.size else X))
+        return np.concatenate(parts)[self._order]
 
 
 @functools.lru_cache(maxsize=16)
 def _favour(m: int) -> np.ndarray:
     """Read-only weights ``1 + TIE_FAVOUR (m - j) / m`` of the balances j (see
-    :func:`canonical_rows`): ties go to the balance given first."""
+    :class:`CanonicalRows`): ties go to the balance given first."""
     out = 1.0 + TIE_FAVOUR * (m - np.arange(m)) / m
     out.flags.writeable = False
     return out

@@ -142,17 +142,18 @@ def _project(Bt: sp.csr_matrix):
     return P, G, observable, (free, blocks)
 
 
-def _canonical(layout, res0, M0, d):
-    """The nodal test's rows in the canonical basis (:func:`_dense.canonical_rows`,
+def _canonical(layout, res0, Ar0, S, s, is_diag, d):
+    """The nodal test's rows in the canonical basis (:class:`_dense.CanonicalRows`,
     block by block): ``(rows, residuals, variances)`` ordered by anchor balance."""
     free, blocks = layout
     rows, res_c, var_c = [free], [res0[: free.size]], [d[: free.size]]
     for start, stop, Pb, block_rows in blocks:
-        sub = M0[start:stop, start:stop].toarray()
-        anchor, res_b, var_b = _dense.canonical_rows(Pb, res0[start:stop], sub)
-        rows.append(block_rows[anchor])
-        res_c.append(res_b)
-        var_c.append(var_b)
+        canon = _dense.CanonicalRows(Pb)
+        CA = canon(Ar0[start:stop])
+        CAS = CA @ sp.diags(s) if is_diag else CA @ S
+        rows.append(block_rows[canon.rows])
+        res_c.append(canon(res0[start:stop]))
+        var_c.append(np.asarray(CAS.multiply(CA).sum(axis=1)).ravel())
     rows, res_c, var_c = np.concatenate(rows), np.concatenate(res_c), np.concatenate(var_c)
     order = np.argsort(rows, kind="stable")
     return rows[order], res_c[order], var_c[order]
@@ -287,7 +288,7 @@ def solve_sparse(p):
         constraint_residual, constraint_u = res0 / w, np.sqrt(np.maximum(d, 0.0)) / w
     else:
         # in the canonical basis, each row in the units of its anchor balance
-        constraint_rows, res_c, var_c = _canonical(layout, res0, M0, d)
+        constraint_rows, res_c, var_c = _canonical(layout, res0, Ar0, S, s, p.is_diag, d)
         wr = w[constraint_rows]
         constraint_residual, constraint_u = res_c / wr, np.sqrt(np.maximum(var_c, 0.0)) / wr
     if inconsistent is not None:

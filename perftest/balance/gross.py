@@ -204,7 +204,7 @@ def nodal_test(result: Reconciliation, alpha: float = 0.05) -> NodalTest:
     With unmeasured variables the reduced constraints span the left null space of
     :math:`B`, and any basis of it would do for the global test; the nodal test reads
     them row by row, so the basis must not be arbitrary.  :math:`C` is the canonical
-    basis (:func:`perftest.balance._dense.canonical_rows`): each row is one balance,
+    basis (:class:`perftest.balance._dense.CanonicalRows`): each row is one balance,
     its anchor, plus a combination of the balances that anchor no row (those that
     determine the unmeasured variables), with coefficient one on its anchor and zero
     on the other anchors, in the anchor's units.  A balance without unmeasured

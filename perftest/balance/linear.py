@@ -125,8 +125,14 @@ def solve_dense(p: Problem, *, deferred: bool = False, final: bool = False) -> C
     else:
         # The nodal test's rows in the canonical basis, each in the units of the
         # balance it is anchored to.
-        constraint_rows, res_c, var_c = _dense.canonical_rows(red.P, res0, M0)
-        constraint_residual = res_c / w[constraint_rows]
+        # (the variances from the canonical rows themselves: a row without measured
+        # variables then keeps a variance of rounding size squared, untested)
+        canon = _dense.CanonicalRows(red.P)
+        constraint_rows = canon.rows
+        CA = canon(Ar0)
+        CAS = CA * s if p.is_diag else CA @ S
+        var_c = np.einsum("ij,ij->i", CAS, CA)
+        constraint_residual = canon(res0) / w[constraint_rows]
         constraint_u = np.sqrt(np.maximum(var_c, 0.0)) / w[constraint_rows]
     if r:
         L = sel.L

@@ -4,6 +4,8 @@ seeded Monte Carlo."""
 
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 import pytest
 import scipy.stats
@@ -147,10 +149,50 @@ def test_nodal_rows_the_same_on_the_dense_and_the_sparse_path():
     np.testing.assert_allclose(dense.constraint_u, sparse.constraint_u, rtol=1e-12)
 
 
+def test_nodal_rows_of_random_networks_dense_sparse_and_rounding():
+    """Random flow networks (2-14 nodes, some coefficients of one, some not; random
+    unmeasured streams, observable or not; equal or unequal weights): the dense and
+    the sparse path give the same rows, and a change of B in the last place changes
+    none of them."""
+    import scipy.sparse as sp
+
+    rng = np.random.default_rng(7)
+    cases = 0
+    for _ in range(60):
+        m = int(rng.integers(2, 15))
+        ns = int(rng.integers(m + 1, 3 * m + 3))
+        A = np.zeros((m, ns))
+        for j in range(ns):
+            a, b = rng.choice(m, 2, replace=False)
+            A[a, j], A[b, j] = rng.choice([1.0, rng.uniform(0.5, 2.0)]), -1.0
+        k = int(rng.integers(1, min(ns - 1, m + 2)))
+        un = rng.choice(ns, k, replace=False)
+        me = np.setdiff1d(np.arange(ns), un)
+        u = np.ones(me.size) if rng.random() < 0.5 else rng.uniform(0.5, 2.0, me.size)
+        x = rng.uniform(10.0, 100.0, me.size)
+        B = A[:, un]
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            d = reconcile_linear(x, np.diag(u**2), A[:, me], B=B)
+            s = reconcile_linear(x, sp.diags(u**2), sp.csr_matrix(A[:, me]), B=sp.csr_matrix(B))
+            Bp = B * (1.0 + rng.choice([-1.0, 0.0, 1.0], size=B.shape) * 2.0**-52)
+            t = reconcile_linear(x, np.diag(u**2), A[:, me], B=Bp)
+        size = max(1.0, float(np.abs(d.constraint_residual).max(initial=0.0)))
+        for other in (s, t):
+            np.testing.assert_array_equal(other.constraint_rows, d.constraint_rows)
+            # two factorisations of systems of at most 14 rows: equal to 1e-9
+            np.testing.assert_allclose(
+                other.constraint_residual, d.constraint_residual, rtol=1e-9, atol=1e-9 * size
+            )
+            np.testing.assert_allclose(other.constraint_u, d.constraint_u, rtol=1e-9, atol=1e-12)
+        cases += 1
+    assert cases == 60
+
+
 def test_canonical_rows_depend_on_the_space_alone():
     """Any orthonormal basis of the same space (here turned by random orthogonal
-    matrices) gives the same canonical rows; they span the left null space of B
-    (against scipy.linalg.null_space, an SVD) and are the identity on their anchors."""
+    matrices) gives the same canonical rows; they are the identity on their anchors
+    and annul B (whose left null space scipy.linalg.null_space, an SVD, gives)."""
     import scipy.linalg
     import scipy.stats
 
@@ -164,27 +206,24 @@ def test_canonical_rows_depend_on_the_space_alone():
         B[a, j], B[b, j] = 1.0, -1.0
     N = scipy.linalg.null_space(B.T)  # orthonormal basis of the left null space
     p = N.shape[1]
-    res = rng.normal(size=m)
-    K = np.diag(rng.uniform(0.5, 2.0, m))
     ref = None
     for seed in range(6):
-        turn = scipy.stats.ortho_group.rvs(p, random_state=seed)
-        P = (N @ turn).T
-        rows, res_c, var_c = _dense.canonical_rows(P, P @ res, P @ K @ P.T)
+        P = (N @ scipy.stats.ortho_group.rvs(p, random_state=seed)).T
+        canon = _dense.CanonicalRows(P)
+        C = canon(P)  # the canonical rows themselves
         if ref is None:
-            ref = rows, res_c, var_c
+            ref = canon.rows, C
+            np.testing.assert_array_equal(np.diff(canon.rows) > 0, True)
+            # rounding of a 14-row problem: 1e-12
+            np.testing.assert_allclose(C[:, canon.rows], np.eye(p), atol=1e-12)
+            np.testing.assert_allclose(C @ B, 0.0, atol=1e-12)
             continue
-        np.testing.assert_array_equal(rows, ref[0])
-        # rounding of a 14-row problem: 1e-12
-        np.testing.assert_allclose(res_c, ref[1], rtol=1e-12, atol=1e-12)
-        np.testing.assert_allclose(var_c, ref[2], rtol=1e-12)
-    # the canonical C = T P from the anchors: the identity on them, zero against B
-    P = N.T
-    rows = ref[0]
-    C = np.linalg.solve(P[:, rows], P)
-    np.testing.assert_allclose(C[:, rows], np.eye(p), atol=1e-12)
-    np.testing.assert_allclose(C @ B, 0.0, atol=1e-12)
-    np.testing.assert_allclose(C @ res, ref[1], rtol=1e-12, atol=1e-12)
+        np.testing.assert_array_equal(canon.rows, ref[0])
+        np.testing.assert_allclose(C, ref[1], atol=1e-12)
+    # the same rows from a sparse array in the old basis
+    import scipy.sparse as sp
+
+    np.testing.assert_allclose(canon(sp.csr_matrix(P)).toarray(), ref[1], atol=1e-12)
 
 
 def test_vdi2048_matches_definition():
