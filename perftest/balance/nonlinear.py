@@ -798,6 +798,8 @@ def _solve_decoupled(
         iterations=it + inner.iterations,
         residual_norm=norm,
         covariance_source=lambda: covs,
+        # the nodal test's rows name rows of the reduced problem: name them in full
+        constraint_rows=rows[np.asarray(inner.constraint_rows, dtype=int)],
     )
 
 

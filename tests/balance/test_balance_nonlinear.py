@@ -7,7 +7,7 @@ import pytest
 import scipy.optimize
 import scipy.sparse as sp
 
-from perftest.balance import reconcile_linear, reconcile_nonlinear
+from perftest.balance import nodal_test, reconcile_linear, reconcile_nonlinear
 from perftest.errors import ConvergenceError, InputError
 
 # A mixer with an energy balance: streams 0, 1 in, 2 out; mass flows m and
@@ -303,6 +303,15 @@ def test_pressure_free_in_its_row_with_no_root_is_unobservable():
     assert r.chi2 == pytest.approx(2.0, rel=1e-9)
     assert r.dof == 1
     assert h == pytest.approx(X_HW[2] - X_HW[3] / m, rel=1e-10)
+    # The nodal test's one row is the mass balance (row 0 of the full problem); the
+    # energy and pump rows determine h and W, the state row p.
+    np.testing.assert_array_equal(nodal_test(r).constraint, [0])
+    # The same with the state row first: the row left is still the mass balance, now
+    # row 1 of the full problem (not row 0 of the problem without the state row).
+    order = [2, 0, 1, 3]
+    r2 = reconcile_nonlinear(lambda x, y: _hotwell(x, y)[order], X_HW, cov, y0=Y0_HW)
+    np.testing.assert_array_equal(nodal_test(r2).constraint, [1])
+    np.testing.assert_allclose(nodal_test(r2).statistic, nodal_test(r).statistic, rtol=1e-9)
 
     # Independent solution: SLSQP on the rows that remain once p is free (mass,
     # energy, pump) with the same weights and (h, W) unmeasured.  The full problem is
