@@ -208,13 +208,16 @@ def nodal_test(result: Reconciliation, alpha: float = 0.05) -> NodalTest:
     its anchor, plus a combination of the balances that anchor no row (those that
     determine the unmeasured variables), with coefficient one on its anchor and zero
     on the other anchors, in the anchor's units.  A balance without unmeasured
-    variables is a row of its own; two balances joined by one unmeasured stream give
-    one row, anchored to the first: the first plus the second times the factor that
-    cancels the stream.  The anchors are chosen greedily by
-    the longest remaining projection, ties to the balance given first.  The basis
-    depends on the space alone: the rows do not change with the rounding of
-    :math:`B` (another BLAS build, another processor), whereas the basis of the
-    pivoted QR that finds the space does wherever columns of :math:`B` tie in norm.
+    variables is a row of its own.  In a flow network this is the classic merging of
+    the nodes joined by unmeasured streams: the merged node's balance is the sum of
+    theirs, in which those streams cancel.  The anchors are chosen greedily by the
+    longest remaining projection of each balance, scaled as the solver scales the
+    rows (by their largest term, measured terms in standard deviations), on the
+    space; ties go to the balance given first.  So a merged node is anchored to its
+    node with the largest such term.  The basis depends on the space alone: the rows
+    do not change with the rounding of :math:`B` (another BLAS build, another
+    processor), whereas the basis of the pivoted QR that finds the space does
+    wherever columns of :math:`B` tie in norm.
     """
     func = "nodal_test"
     _check_result(result, func)
