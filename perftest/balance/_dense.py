@@ -64,9 +64,10 @@ REDUNDANCY_RTOL = 1e-10
 
 # The nodal test's rows are the canonical basis of the left null space of B (see
 # CanonicalRows), each row anchored to one balance, the anchors chosen greedily by
-# the longest remaining projection.  Lengths that differ by less than about this
-# relative amount count as equal and the balance given first is taken, so that
-# rounding (which moves the lengths of tied balances by ~1e-15) decides nothing.
+# the longest remaining projection.  The length of balance j (of m) is weighted by
+# 1 + TIE_FAVOUR (m - j) / m first: of lengths equal to rounding (which moves the
+# lengths of tied balances by ~1e-15) the balance given first wins, by a margin of
+# at least TIE_FAVOUR / m; lengths further apart than TIE_FAVOUR keep their order.
 TIE_FAVOUR = 1e-7
 
 
@@ -264,15 +265,15 @@ class CanonicalRows:
     unmeasured variables); a balance without unmeasured variables is a row of its
     own.  The anchors are chosen greedily, at each step the balance whose projection
     on what is left of the space is longest (a QR with column pivoting of ``P``,
-    LAPACK ``geqp3``), lengths closer than ``TIE_FAVOUR`` counting as equal and the
-    balance given first taken; the greedy choice keeps ``P[:, rows]`` well
-    conditioned.  Given the anchors, ``C`` is the reduced row echelon form of the
-    space with those pivot columns.  A row of ``P`` that is one balance alone (a
-    balance the QR left untouched) is that balance's row up to its sign.
+    LAPACK ``geqp3``), ties to the balance given first (see ``TIE_FAVOUR``); the
+    greedy choice keeps ``P[:, rows]`` well conditioned.  Given the anchors, ``C`` is
+    the reduced row echelon form of the space with those pivot columns.  A row of
+    ``P`` that is one balance alone (a balance the QR left untouched) is that
+    balance's row up to its sign.
     """
 
     def __init__(self, P: np.ndarray):
-        p, m = P.shape
+        m = P.shape[1]
         alone = np.count_nonzero(P, axis=1) == 1
         self._one, self._mixed = np.flatnonzero(alone), np.flatnonzero(~alone)
         one_at = np.argmax(np.abs(P[self._one]), axis=1) if self._one.size else self._one

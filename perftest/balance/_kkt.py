@@ -31,8 +31,8 @@ above; both are checked: a dense factor by its reciprocal condition number, a sp
 one by the residual of the solution.  The unregularised system is not factorised when
 ``J_y`` is structurally rank-deficient (maximum bipartite matching of its pattern):
 it is then singular whatever its values.  Every step is computed with the same
-floating-point operations whichever shortcut is taken, so that the iterates do not
-depend on them (see :mod:`perftest.balance._dense` on the basis of the nodal test).
+floating-point operations whichever shortcut is taken, so that the iterates, and the
+results to the last bit, do not depend on them.
 
 Layer: imports numpy and scipy only.
 
@@ -364,7 +364,6 @@ class _SparseSolve:
         self._pattern = (mr, mc, jr, jc)
         self._vals = np.concatenate([mv, jv, jv])
         self._m, self._size = m, m + k
-        self._jy = (jr, jc, k)
         self._lu = None
 
     def _layout(self, regularised: bool):
@@ -414,10 +413,10 @@ class _SparseSolve:
         alone enters the balances) makes this so at every iterate.
         """
         global _last_structure
-        jr, jc, k = self._jy
+        m, k = self._m, self._size - self._m
         if k == 0:
             return False
-        m = self._m
+        jr, jc = self._pattern[2:]
         # the iterations of one reconciliation see the same pattern again and again
         last = _last_structure  # one immutable tuple: safe to share between threads
         if last is not None and last[:2] == (m, k):

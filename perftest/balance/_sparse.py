@@ -147,10 +147,11 @@ def _canonical(layout, res0, Ar0, S, s, is_diag, d):
     block by block): ``(rows, residuals, variances)`` ordered by anchor balance."""
     free, blocks = layout
     rows, res_c, var_c = [free], [res0[: free.size]], [d[: free.size]]
+    S_ = sp.diags(s) if is_diag else S
     for start, stop, Pb, block_rows in blocks:
         canon = _dense.CanonicalRows(Pb)
         CA = canon(Ar0[start:stop])
-        CAS = CA @ sp.diags(s) if is_diag else CA @ S
+        CAS = CA @ S_
         rows.append(block_rows[canon.rows])
         res_c.append(canon(res0[start:stop]))
         var_c.append(np.asarray(CAS.multiply(CA).sum(axis=1)).ravel())

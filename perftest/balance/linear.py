@@ -124,9 +124,9 @@ def solve_dense(p: Problem, *, deferred: bool = False, final: bool = False) -> C
         constraint_u = np.sqrt(np.maximum(sel.d, 0.0)) / w
     else:
         # The nodal test's rows in the canonical basis, each in the units of the
-        # balance it is anchored to.
-        # (the variances from the canonical rows themselves: a row without measured
-        # variables then keeps a variance of rounding size squared, untested)
+        # balance it is anchored to; their variances from the canonical rows
+        # themselves, so that a row without measured variables keeps a variance of
+        # rounding size squared (untested).
         canon = _dense.CanonicalRows(red.P)
         constraint_rows = canon.rows
         CA = canon(Ar0)
