@@ -46,7 +46,13 @@ def vector(value, name: str, func: str, *, length: int | None = None) -> np.ndar
 def finite(arr, name: str, func: str) -> None:
     """Raise InputError naming the first non-finite entry of ``arr``."""
     data = arr.data if sp.issparse(arr) else np.asarray(arr)
-    if data.size and not np.all(np.isfinite(data)):
+    # a finite sum says every entry is finite (inf and nan propagate); only a sum
+    # that overflows or is not finite needs the test entry by entry
+    if not data.size:
+        return
+    with np.errstate(all="ignore"):
+        total = data.sum()
+    if not (np.isfinite(total) or np.isfinite(data).all()):
         if sp.issparse(arr):
             coo = arr.tocoo()
             bad = np.flatnonzero(~np.isfinite(coo.data))[0]

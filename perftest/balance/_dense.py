@@ -32,7 +32,17 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.linalg
 import scipy.sparse as sp
-from scipy.linalg.lapack import dgeqp3, dgesv, dorgqr, dormrz, dpstrf, dtrtrs, dtzrzf
+from scipy.linalg.lapack import (
+    dgeqp3,
+    dgeqrf,
+    dgesv,
+    dorgqr,
+    dormrz,
+    dpstrf,
+    dtrcon,
+    dtrtrs,
+    dtzrzf,
+)
 
 # Rank decisions.  All of them act on equilibrated quantities (rows scaled so
 # that one unit means roughly one standard deviation of the constraint), so the
@@ -53,6 +63,14 @@ ROW_PIVOT_TOL = 1e-11
 # A reduced row is treated as identically zero when its standard deviation is
 # below this fraction of the largest row's.
 ZERO_ROW_RTOL = 1e-9
+# ... or below this fraction of the standard deviation its balances would give
+# without cancelling (|P| times each balance's; see raw_rows): a combination of balances
+# that vanishes identically, such as the sum of all balances of a network closed on
+# itself, leaves rounding of about 1e-16 to 1e-13 of its terms, which is no
+# constraint at all (taken for one, it moved a measurement by 19 standard
+# uncertainties).  Its right-hand side must then vanish likewise, or the balances
+# contradict each other.
+CANCEL_RTOL = 1e-11
 # Two constraints that are dependent in their left-hand sides contradict each
 # other when their right-hand sides disagree by more than this many standard
 # deviations (relative to the size of the terms).
@@ -69,6 +87,12 @@ REDUNDANCY_RTOL = 1e-10
 # lengths of tied balances by ~1e-15) the balance given first wins, by a margin of
 # at least TIE_FAVOUR / m; lengths further apart than TIE_FAVOUR keep their order.
 TIE_FAVOUR = 1e-7
+# The triangular blocks of a structured reduction (see reduce_structured) are used
+# when their reciprocal condition numbers (1-norm) exceed this; otherwise the whole
+# B goes through the pivoted QR.  With B equilibrated (entries of at most about one),
+# a triangular block this well conditioned cannot hide a singular value that the
+# rank decision above (B_RANK_RTOL) would count as zero.
+TRIANGULAR_RCOND = 1e-8
 
 
 @dataclass
@@ -214,32 +238,234 @@ def reduce_constraints(
     """
     m, k = Bt.shape
     n = At.shape[1]
+    if final:
+        red = reduce_structured(Bt, At, bt)
+        if red is not None:
+            return red
     Q, R, piv = _pivoted_qr(Bt)
     r = _rank(R)
     P = Q[:, r:].T
     if not (final and 0 < r < k):
         G, observable = _pinv_formed(Q, R, piv, r)
         return Reduction(P=P, PA=P @ At, Pb=P @ bt, GA=G @ At, Gb=G @ bt, observable=observable)
-    # Complete orthogonal decomposition of the pivoted R1 = [R11 R12] = [T 0] Z: the
-    # minimum-norm solution of R1 z = h is Z^T [T^-1 h; 0], and Z^T [0; I] spans the
-    # null space of R1.  (These two wrappers take no workspace query; a block of 64
-    # columns is ample.)
-    rz, ztau, _ = dtzrzf(R[:r, :], lwork=64 * r)
-    H = Q[:, :r].T @ np.column_stack([At, bt])  # Q1^T [At | bt]
-    W, _ = dtrtrs(rz[:, :r], H, lower=0)
-    pad = np.zeros((k, n + 1), order="F")
-    pad[:r] = W
-    e = np.zeros((k, k - r), order="F")
-    e[np.arange(r, k), np.arange(k - r)] = 1.0
-    GAb = np.empty((k, n + 1))
-    GAb[piv] = dormrz(rz, ztau, pad, trans="T", lwork=64 * (n + 1), overwrite_c=1)[0]
-    null = dormrz(rz, ztau, e, trans="T", lwork=64 * (k - r), overwrite_c=1)[0]
-    observable = np.empty(k, dtype=bool)
-    observable[piv] = np.sqrt(np.einsum("ij,ij->i", null, null)) < OBS_TOL
+    GAb, null = _solve_rz(Q, R, piv, r, np.column_stack([At, bt]))
+    observable = np.sqrt(np.einsum("ij,ij->i", null, null)) < OBS_TOL
     return Reduction(
         P=P, PA=P @ At, Pb=P @ bt, GA=GAb[:, :n], Gb=GAb[:, n], observable=observable,
         exact=False,
     )  # fmt: skip
+
+
+def _solve_rz(Q, R, piv, r, H):
+    """``(G H, N)`` from ``B[:, piv] = Q R`` of rank ``r`` (``0 < r``): the minimum-norm
+    solutions of ``B y = h`` for the columns ``h`` of ``H``, and an orthonormal basis
+    ``N`` (k, k - r) of the null space of ``B``, rows in the order of ``B``'s columns.
+
+    Complete orthogonal decomposition of the pivoted R1 = [R11 R12] = [T 0] Z: the
+    minimum-norm solution of R1 z = h is Z^T [T^-1 h; 0], and Z^T [0; I] spans the
+    null space of R1 (LAPACK ``tzrzf``, ``O(r^2 (k - r))`` for a nearly square R1).
+    """
+    k = R.shape[1]
+    h = H.shape[1]
+    if r == k:
+        W, _ = dtrtrs(R[:r, :r], Q[:, :r].T @ H, lower=0)
+        out = np.empty((k, h))
+        out[piv] = W
+        return out, np.zeros((k, 0))
+    # (These two wrappers take no workspace query; a block of 64 columns is ample.)
+    rz, ztau, _ = dtzrzf(R[:r, :], lwork=64 * r)
+    W, _ = dtrtrs(rz[:, :r], Q[:, :r].T @ H, lower=0)  # T^-1 Q1^T H
+    pad = np.zeros((k, h), order="F")
+    pad[:r] = W
+    e = np.zeros((k, k - r), order="F")
+    e[np.arange(r, k), np.arange(k - r)] = 1.0
+    out = np.empty((k, h))
+    out[piv] = dormrz(rz, ztau, pad, trans="T", lwork=64 * max(h, 1), overwrite_c=1)[0]
+    null = np.empty((k, k - r))
+    null[piv] = dormrz(rz, ztau, e, trans="T", lwork=64 * (k - r), overwrite_c=1)[0]
+    return out, null
+
+
+def reduce_structured(Bt: np.ndarray, At: np.ndarray, bt: np.ndarray) -> Reduction | None:
+    """:func:`reduce_constraints` for a final solve, through the triangular structure of ``Bt``.
+
+    A plant's ``B`` is mostly triangular: a balance with one unmeasured variable
+    left determines it (a row singleton), an unmeasured variable in one balance left
+    is determined by it (a column singleton).  Peeling both off, as long as there are
+    any (:func:`triangular_structure`), permutes ``Bt`` to the block form
+
+    .. math::
+
+        \\begin{bmatrix} L & 0 & 0 \\\\ X_{mf} & B_m & 0 \\\\ X_{bf} & X_{bm} & U
+        \\end{bmatrix}
+
+    (rows: front, middle, back; columns likewise) with ``L`` lower and ``U`` upper
+    triangular.  Only the middle block ``B_m`` needs the pivoted QR, with the rank
+    decision of the whole (``B_RANK_RTOL`` of the largest column of ``Bt``).  Then
+    the left null space is ``{p: p_b = 0, p_m in null(B_m^T), p_f = -L^-T X_mf^T
+    p_m}`` (made orthonormal), the null space ``{v: v_f = 0, v_m in null(B_m), v_b =
+    -U^-1 X_bm v_m}``, and the solutions ``y_f = L^-1 h_f``, ``y_m`` the minimum-norm
+    solution of ``B_m y_m = h_m - X_mf y_f``, ``y_b = U^-1 (h_b - X_bf y_f - X_bm
+    y_m)``, with the null space projected out (minimum norm overall).  The same
+    spaces, rank and observability as the QR of the whole ``Bt``, and a ``G`` equal
+    to its minimum-norm pseudo-inverse, to rounding, on the range of ``Bt`` (where
+    the reconciled values put the right-hand side); the reduced rows ``P At``,
+    ``P bt`` come from the middle block's ``Pm Hm`` without a product with all of
+    ``P``.
+
+    Returns None (the caller factorises the whole ``Bt``) when nothing peels off or a
+    triangular block is not well conditioned (``TRIANGULAR_RCOND``).
+    """
+    m, k = Bt.shape
+    n = At.shape[1]
+    blocks = triangular_structure(Bt)
+    if blocks is None:
+        return None
+    fr, fc, mr, mc, kr, kc = blocks
+    ref = float(np.sqrt(np.einsum("ij,ij->j", Bt, Bt)).max(initial=0.0))
+    if not ref > 0:
+        return None
+    # Bt with rows and columns in block order; the blocks are views of it
+    f, g, h = fr.size, fr.size + mr.size, fc.size + mc.size
+    Bp = Bt.take(np.concatenate([fr, mr, kr]), axis=0).take(np.concatenate([fc, mc, kc]), axis=1)
+    Hp = np.column_stack([At, bt]).take(np.concatenate([fr, mr, kr]), axis=0)
+    L, U = Bp[:f, :f], Bp[g:, h:]
+    for T, uplo in ((L, "L"), (U, "U")):
+        if T.size and not dtrcon(T, norm="1", uplo=uplo)[0] > TRIANGULAR_RCOND:
+            return None
+    Yf = dtrtrs(L, Hp[:f], lower=1)[0] if f else np.zeros((0, n + 1))
+    Xmf = Bp[f:g, :f]
+    Hm = Hp[f:g] - Xmf @ Yf
+    Bm = Bp[f:g, f:h]
+    # the middle block: pivoted QR, rank against the whole Bt's largest column
+    mm, kk = Bm.shape
+    if mm and kk:
+        Q, R, piv = _pivoted_qr(Bm)
+        r = int(np.count_nonzero(np.abs(np.diag(R)) > B_RANK_RTOL * ref))
+        Pm = Q[:, r:].T
+        if r:
+            Ym, Nm = _solve_rz(Q, R, piv, r, Hm)
+        else:
+            Ym, Nm = np.zeros((kk, n + 1)), np.eye(kk)
+    else:
+        Pm, Ym, Nm = np.eye(mm), np.zeros((kk, n + 1)), np.eye(kk)
+    if kr.size:
+        Xbm = Bp[g:, f:h]
+        Yb = dtrtrs(U, Hp[g:] - Bp[g:, :f] @ Yf - Xbm @ Ym, lower=0)[0]
+        Vb = -dtrtrs(U, Xbm @ Nm, lower=0)[0] if Nm.shape[1] else np.zeros((kr.size, 0))
+    else:
+        Yb, Vb = np.zeros((0, n + 1)), np.zeros((0, Nm.shape[1]))
+    GAb = np.empty((k, n + 1))
+    GAb[fc], GAb[mc], GAb[kc] = Yf, Ym, Yb
+    # null space, made orthonormal: its rows' norms decide observability, and
+    # projecting it out of the solutions makes them of minimum norm overall
+    V = np.zeros((k, Nm.shape[1]))
+    V[mc], V[kc] = Nm, Vb
+    V = _orthonormal_columns(V)
+    if V.shape[1]:
+        GAb -= V @ (V.T @ GAb)
+    # left null space: p_f = -L^-T X_mf^T p_m, made orthonormal (any orthonormal
+    # basis serves: see CanonicalRows); P [At | bt] = R^-T Pm Hm with P^T = Pt R^-1
+    PAb = Pm @ Hm if kk else Hm
+    Pt = np.zeros((m, Pm.shape[0]))
+    Pt[mr] = Pm.T
+    if f and Pm.shape[0]:
+        Pt[fr] = -dtrtrs(L, Xmf.T @ Pm.T, lower=1, trans=1)[0]
+        qr, tau = _lapack(dgeqrf, Pt)
+        Rd = np.triu(qr[: Pm.shape[0]])
+        PAb = dtrtrs(Rd, PAb, lower=0, trans=1)[0]
+        Pt = _lapack(dorgqr, qr, tau, overwrite_a=1)[0]
+    P = Pt.T
+    observable = np.sqrt(np.einsum("ij,ij->i", V, V)) < OBS_TOL
+    return Reduction(
+        P=P, PA=PAb[:, :n], Pb=PAb[:, n], GA=GAb[:, :n], Gb=GAb[:, n], observable=observable,
+        exact=False,
+    )  # fmt: skip
+
+
+def _orthonormal_columns(X: np.ndarray) -> np.ndarray:
+    """An orthonormal basis of the columns of ``X`` (m, q), ``q <= m``, full column rank:
+    the Q of its QR factorisation (LAPACK geqrf, orgqr)."""
+    m, q = X.shape
+    if q == 0:
+        return np.zeros((m, 0))
+    qr, tau = _lapack(dgeqrf, X)
+    return _lapack(dorgqr, qr, tau, overwrite_a=1)[0]
+
+
+def triangular_structure(Bt: np.ndarray):
+    """The triangular blocks of ``Bt``'s pattern, or None when it has none.
+
+    Repeatedly peels off a row with a single nonzero left (its column goes to the
+    front, ahead of those peeled before) or a column with a single nonzero left (its
+    row goes to the back); see :func:`reduce_structured`.  Returns int arrays
+    ``(front rows, front columns, middle rows, middle columns, back rows, back
+    columns)``, the front in peeling order (``L`` lower triangular), the back in
+    peeling order (``U`` upper triangular).  The pattern of the last call is kept:
+    the iterations of one reconciliation, and the windows of a run, see the same
+    pattern again and again.
+    """
+    global _last_triangular
+    m, k = Bt.shape
+    flat = np.flatnonzero(Bt.ravel() != 0.0)
+    last = _last_triangular  # one immutable tuple: safe to share between threads
+    if last is not None and last[0] == (m, k) and np.array_equal(last[1], flat):
+        return last[2]
+    rows, cols = np.divmod(flat, k) if k else (flat, flat)
+    row_ptr = np.searchsorted(rows, np.arange(m + 1))
+    order = np.argsort(cols, kind="stable")
+    col_ptr = np.searchsorted(cols[order], np.arange(k + 1))
+    cols_of = [cols[a:b].tolist() for a, b in zip(row_ptr[:-1], row_ptr[1:], strict=True)]
+    rows_sorted = rows[order]
+    rows_of = [rows_sorted[a:b].tolist() for a, b in zip(col_ptr[:-1], col_ptr[1:], strict=True)]
+    row_left = [len(c) for c in cols_of]
+    col_left = [len(r) for r in rows_of]
+    row_on = [True] * m
+    col_on = [True] * k
+    row_queue = [i for i in range(m) if row_left[i] == 1]
+    col_queue = [j for j in range(k) if col_left[j] == 1]
+    front, back = [], []
+    while row_queue or col_queue:
+        if row_queue:
+            i = row_queue.pop()
+            if not row_on[i] or row_left[i] != 1:
+                continue
+            j = next(c for c in cols_of[i] if col_on[c])
+            front.append((i, j))
+            row_on[i] = col_on[j] = False
+            for r in rows_of[j]:
+                if row_on[r]:
+                    row_left[r] -= 1
+                    if row_left[r] == 1:
+                        row_queue.append(r)
+        else:
+            j = col_queue.pop()
+            if not col_on[j] or col_left[j] != 1:
+                continue
+            i = next(r for r in rows_of[j] if row_on[r])
+            back.append((i, j))
+            row_on[i] = col_on[j] = False
+            for c in cols_of[i]:
+                if col_on[c]:
+                    col_left[c] -= 1
+                    if col_left[c] == 1:
+                        col_queue.append(c)
+    if not front and not back:
+        out = None
+    else:
+        f = np.array(front, dtype=int).reshape(-1, 2)
+        b = np.array(back, dtype=int).reshape(-1, 2)
+        out = (
+            f[:, 0], f[:, 1],
+            np.flatnonzero(row_on), np.flatnonzero(col_on),
+            b[:, 0], b[:, 1],
+        )  # fmt: skip
+    _last_triangular = ((m, k), flat, out)
+    return out
+
+
+#: The pattern of the last triangular_structure call and its blocks.
+_last_triangular = None
 
 
 class CanonicalRows:
@@ -329,20 +555,61 @@ class RowSelection:
     inconsistent: tuple | None  # (row, misfit in standard deviations) of a contradiction
 
 
-def select_rows(M0: np.ndarray, br0: np.ndarray) -> RowSelection:
-    """Rank-revealing pivoted Cholesky of the reduced Gram matrix ``M0``."""
-    m0 = M0.shape[0]
+def raw_rows(P, At, bt, s):
+    """``(sd, b)``: per reduced row ``P At x = P bt``, the standard deviation and the
+    right-hand side of its balances added without cancelling, ``|P| sd(At)`` and
+    ``|P| |bt|`` with ``sd(At)`` the standard deviation of each balance in the
+    metric of the diagonal ``s`` (see ``CANCEL_RTOL``).  Dense or sparse."""
+    if sp.issparse(At):
+        A2 = sp.csr_matrix(At)
+        sd_rows = np.sqrt(np.asarray(A2.multiply(A2) @ s).ravel())
+    else:
+        sd_rows = np.sqrt((At * At) @ s)
+    Pa = abs(sp.csr_matrix(P)) if sp.issparse(P) else np.abs(P)
+    return np.asarray(Pa @ sd_rows).ravel(), np.asarray(Pa @ np.abs(bt)).ravel()
+
+
+def zero_rows_of(sd, br0, raw):
+    """``(live, contradiction)`` of :func:`select_rows`'s first test: which reduced rows
+    are not identically zero (``ZERO_ROW_RTOL``, ``CANCEL_RTOL``), and the first zero
+    row whose right-hand side does not vanish, as ``(row, inf)``, or None."""
+    m0 = sd.size
+    tiny = np.finfo(float).tiny
+    cancelled = None
+    if raw is not None:
+        raw_sd, raw_b = raw
+        cancelled = (raw_sd > 0) & ~(sd > CANCEL_RTOL * raw_sd)
+        if cancelled.any():
+            # 0 = b_j with b_j of rounding size, or the balances contradict each other
+            for j in np.flatnonzero(cancelled):
+                if abs(br0[j]) > CANCEL_RTOL * raw_b[j]:
+                    return None, (int(j), np.inf)
+        else:
+            cancelled = None
+    big = (sd if cancelled is None else sd[~cancelled]).max(initial=0.0)
+    live = sd > ZERO_ROW_RTOL * big if big > 0 else np.zeros(m0, bool)
+    if cancelled is not None:
+        live &= ~cancelled
+    if live.all():
+        return live, None
+    bscale = 1.0 + np.max(np.abs(br0)) / max(big, tiny) if m0 else 1.0
+    # A zero row reads 0 = b_j: a contradiction unless b_j vanishes.
+    zero = ~live if cancelled is None else ~live & ~cancelled
+    for j in np.flatnonzero(zero):
+        if abs(br0[j]) / max(big, tiny) > CONSISTENCY_RTOL * bscale:
+            return None, (int(j), np.inf)
+    return live, None
+
+
+def select_rows(M0: np.ndarray, br0: np.ndarray, raw=None) -> RowSelection:
+    """Rank-revealing pivoted Cholesky of the reduced Gram matrix ``M0``; ``raw``, the
+    rows' terms without cancelling (:func:`raw_rows`), for the zero-row test."""
     d = np.diag(M0).copy()
     sd = np.sqrt(np.maximum(d, 0.0))
-    big = sd.max() if m0 else 0.0
-    live = sd > ZERO_ROW_RTOL * big if big > 0 else np.zeros(m0, bool)
+    live, contradiction = zero_rows_of(sd, br0, raw)
+    if contradiction is not None:
+        return RowSelection(np.zeros(0, int), np.zeros((0, 0)), d, contradiction)
     nonzero = np.flatnonzero(live)
-    zero_rows = np.flatnonzero(~live)
-    bscale = 1.0 + np.max(np.abs(br0)) / max(big, np.finfo(float).tiny) if m0 else 1.0
-    # A zero row reads 0 = b_j: a contradiction unless b_j vanishes.
-    for j in zero_rows:
-        if abs(br0[j]) / max(big, np.finfo(float).tiny) > CONSISTENCY_RTOL * bscale:
-            return RowSelection(np.zeros(0, int), np.zeros((0, 0)), d, (int(j), np.inf))
     if nonzero.size == 0:
         return RowSelection(np.zeros(0, int), np.zeros((0, 0)), d, None)
     s = sd[nonzero]

@@ -160,19 +160,15 @@ def _canonical(layout, res0, Ar0, S, s, is_diag, d):
     return rows[order], res_c[order], var_c[order]
 
 
-def _select_rows(M0: sp.csr_matrix, br0: np.ndarray):
-    """Independent rows, their LU factor, scaling, and any contradiction."""
-    m0 = M0.shape[0]
+def _select_rows(M0: sp.csr_matrix, br0: np.ndarray, raw=None):
+    """Independent rows, their LU factor, scaling, and any contradiction; ``raw`` as
+    for :func:`_dense.select_rows`."""
     d = M0.diagonal().copy()
     sd = np.sqrt(np.maximum(d, 0.0))
-    big = sd.max() if m0 else 0.0
-    tiny = np.finfo(float).tiny
-    nonzero = np.flatnonzero(sd > _dense.ZERO_ROW_RTOL * big) if big > 0 else np.zeros(0, int)
-    zero_rows = np.setdiff1d(np.arange(m0), nonzero)
-    bscale = 1.0 + (np.max(np.abs(br0)) / max(big, tiny) if m0 else 0.0)
-    for j in zero_rows:
-        if abs(br0[j]) / max(big, tiny) > _dense.CONSISTENCY_RTOL * bscale:
-            return None, None, d, (int(j), np.inf)
+    live, contradiction = _dense.zero_rows_of(sd, br0, raw)
+    if contradiction is not None:
+        return None, None, d, contradiction
+    nonzero = np.flatnonzero(live)
     if nonzero.size == 0:
         return np.zeros(0, int), None, d, None
     s = sd[nonzero]
@@ -282,7 +278,8 @@ def solve_sparse(p):
         Ar0, br0 = (P @ At).tocsr(), P @ bt
     AS0 = (Ar0 @ sp.diags(s)).tocsr() if p.is_diag else (Ar0 @ S).tocsr()
     M0 = (AS0 @ Ar0.T).tocsr()
-    idx, fac, d, inconsistent = _select_rows(M0, br0)
+    raw = None if P is None else _dense.raw_rows(P, At, bt, s)
+    idx, fac, d, inconsistent = _select_rows(M0, br0, raw)
     res0 = Ar0 @ x - br0
     if P is None:
         constraint_rows = np.arange(m)

@@ -75,10 +75,19 @@ def _equilibrate_dense(A, B, u):
     """Row weights and B column scales so that one unit is about one standard deviation."""
     m, k = B.shape
     absB = np.abs(B)
-    colB = np.max(absB, axis=0) if m and k else np.ones(k)
+    colB = absB.max(axis=0) if m and k else np.ones(k)
     colB = np.where(colB > 0, colB, 1.0)
-    rowA = np.max(np.abs(A) * u, axis=1) if A.shape[1] else np.zeros(m)
-    rowB = np.max(absB / colB, axis=1) if k else np.zeros(m)
+    if A.shape[1]:
+        absA = np.abs(A)
+        absA *= u
+        rowA = absA.max(axis=1)
+    else:
+        rowA = np.zeros(m)
+    if k:
+        absB /= colB
+        rowB = absB.max(axis=1)
+    else:
+        rowB = np.zeros(m)
     scale = np.maximum(rowA, rowB)
     w = np.where(scale > 0, 1.0 / np.where(scale > 0, scale, 1.0), 1.0)
     return w, colB
@@ -113,7 +122,7 @@ def solve_dense(p: Problem, *, deferred: bool = False, final: bool = False) -> C
         Ar0, br0 = red.PA, red.Pb
     AS0 = Ar0 * s if p.is_diag else Ar0 @ S
     M0 = AS0 @ Ar0.T
-    sel = _dense.select_rows(M0, br0)
+    sel = _dense.select_rows(M0, br0, None if red is None else _dense.raw_rows(red.P, At, bt, s))
     idx = sel.idx
     r = idx.size
     res0 = Ar0 @ x - br0
@@ -682,7 +691,8 @@ def _reduced(p: Problem):
     proj = _dense.project_out_unmeasured(Bt)
     Ar0, br0 = (At, bt) if proj.P is None else (proj.P @ At, proj.P @ bt)
     AS0 = Ar0 * p.sdiag if p.is_diag else Ar0 @ p.S
-    sel = _dense.select_rows(AS0 @ Ar0.T, br0)
+    raw = None if proj.P is None else _dense.raw_rows(proj.P, At, bt, p.sdiag)
+    sel = _dense.select_rows(AS0 @ Ar0.T, br0, raw)
     return Ar0[sel.idx], br0[sel.idx], AS0[sel.idx], sel.L, proj, At, bt, colB
 
 

@@ -10,7 +10,7 @@ import scipy.sparse as sp
 from perftest.balance import _checks
 from perftest.balance._core import Problem
 from perftest.balance._fd import finite_difference_jacobian
-from perftest.balance._kkt import kkt_step
+from perftest.balance._kkt import Reuse, kkt_step
 from perftest.balance._threads import one_blas_thread_when_small
 from perftest.balance.linear import build_result, solve
 from perftest.errors import ConvergenceError, InputError, ReconciliationWarning
@@ -55,7 +55,7 @@ def _evaluate(residual, x, y, m=None):
         # A trial point outside the model's domain (e.g. a property call out of
         # range) counts as an infinitely bad point for the line search.
         return None
-    if f.ndim != 1 or (m is not None and f.size != m) or not np.all(np.isfinite(f)):
+    if f.ndim != 1 or (m is not None and f.size != m) or not np.isfinite(f).all():
         return None
     return f
 
@@ -278,6 +278,9 @@ def reconcile_nonlinear(
     converged = False
     radius = 1.0
     regular_before = True  # whether the last KKT system had every y determined
+    # the last KKT factor, for the steps after it; their accuracy a tenth of the
+    # convergence tolerance where it matters (see _kkt.Reuse)
+    reuse = Reuse(0.1 * tol)
     last_step = np.inf  # largest scaled component of the last step taken
     it = 0
     while it < max_iter:
@@ -291,8 +294,9 @@ def reconcile_nonlinear(
             floor = pos.min() if pos.size else 1.0
             sd = np.where(sd > 0, sd, floor)
             row_scale = 1.0 / sd
+            reuse.row_scale = row_scale
         ysize = np.abs(y) + y_scale
-        resid_small = bool(np.all(np.abs(fk) * row_scale <= tol))
+        resid_small = bool((np.abs(fk) * row_scale <= tol).all())
         # Linearised constraints in the variables (x, dy): Jx x + Jy dy = Jx xk - f.
         b_lin = Jx @ xk - fk
         # The step from one factorisation of the KKT system where it is regular;
@@ -307,7 +311,7 @@ def reconcile_nonlinear(
         step = (
             None
             if last_one
-            else kkt_step(Jx, Jy, S, sdiag, is_diag, xk, xm, fk, ysize, regular_before)
+            else kkt_step(Jx, Jy, S, sdiag, is_diag, xk, xm, fk, ysize, regular_before, reuse)
         )
         p = core = None
         if step is not None:
@@ -321,16 +325,8 @@ def reconcile_nonlinear(
         if step is None or (size > radius and not all_observable):
             p = _linearised_problem(xm, S, sdiag, is_diag, Jx, b_lin, Jy)
             # At the predicted last linearisation the solve for a final result (see
-            # linear.solve_dense); a step taken from it where that differs in the last
-            # bits is solved again as a step, so that the iterates do not depend on it.
+            # linear.solve_dense: the same step, to rounding, if it is not the last).
             core = solve(p, deferred=True, final=last_one)
-            if not core.exact and not (
-                core.inconsistent is None
-                and resid_small
-                and np.all(np.abs(core.xhat - xk) / u <= tol)
-                and np.all(np.abs(core.y) / ysize <= tol)
-            ):
-                core = solve(p, deferred=True)
             consistent = core.inconsistent is None
             if consistent:
                 dx, dy, lam = core.xhat - xk, core.y, core.lam  # minimum-norm step in y
@@ -341,10 +337,10 @@ def reconcile_nonlinear(
         if consistent:
             sx = np.abs(dx) / u
             sy = np.abs(dy) / ysize
-            if resid_small and np.all(sx <= tol) and np.all(sy <= tol):
+            if resid_small and (sx <= tol).all() and (sy <= tol).all():
                 if core is None:
                     p = _linearised_problem(xm, S, sdiag, is_diag, Jx, b_lin, Jy)
-                    core = solve(p, deferred=True, final=True)  # see above
+                    core = solve(p, deferred=True, final=True)
                 converged = True
                 break
             # Exact-penalty parameter above the largest scaled multiplier.
@@ -353,7 +349,7 @@ def reconcile_nonlinear(
             # Directional derivative of the merit along the step (constraints linearised).
             dphi = float(grad_obj @ dx) - mu * viol
             size = max(sx.max(initial=0.0) / _X_BOX, sy.max(initial=0.0) / _Y_BOX)
-            if np.all(sx <= _LOCAL) and np.all(sy <= _LOCAL):
+            if (sx <= _LOCAL).all() and (sy <= _LOCAL).all():
                 # Inside the region where Newton's method converges quadratically and
                 # the merit changes by rounding only: take the full step.
                 xt, yt = xk + dx, y + dy

@@ -460,3 +460,39 @@ def test_stream_forced_to_zero_is_no_closure_alarm(monkeypatch, sparse):
     np.testing.assert_allclose(r.x, expected, rtol=0.0, atol=1e-10)
     # chi2 = (100 - 99)^2 / 2 + (0.5^2 + 0.4^2) / 0.01 per group of four
     assert r.chi2 == pytest.approx(x.size // 4 * (0.5 + 41.0), rel=EXACT)
+
+
+# A ring of three nodes closed on itself: six measured streams and two unmeasured
+# ones, each stream leaving one node and entering another, so the three node
+# balances sum to zero identically.  Eliminating the two unmeasured streams leaves
+# only that sum: no constraint at all on the measured ones (a combination of
+# balances adds no redundancy; Narasimhan & Jordache, Data Reconciliation and Gross
+# Error Detection, 2000, Ch. 3).  In floating point the sum leaves rounding of about
+# 1e-17, which taken for a constraint moved a measurement by 19 of its standard
+# uncertainties, with chi2 = 343 on one degree of freedom.  Invented numbers.
+_RING_A = np.array(
+    [[0.0, -1, 1, 1, 1, -1], [-1, 1, -1, -1, -1, 0], [1, 0, 0, 0, 0, 1]]
+)  # fmt: skip
+_RING_B = np.array([[-1.0, 0.0], [1.0, -1.0], [0.0, 1.0]])
+_RING_X = np.array([36.50828773, 67.09465314, 34.59823888, 42.79164796, 55.70913163, 69.19189217])
+
+
+@pytest.mark.parametrize("form", [np.asarray, sp.csr_matrix])
+def test_balances_of_a_closed_ring_leave_no_redundancy(form):
+    u = np.full(6, 2.0)
+    with pytest.warns(ReconciliationWarning, match="no redundancy"):
+        r = reconcile_linear(
+            _RING_X, form(np.diag(u**2)), form(_RING_A), np.zeros(3), form(_RING_B)
+        )
+    assert r.dof == 0 and r.chi2 == 0.0 and r.p_value == 1.0
+    np.testing.assert_array_equal(r.x, _RING_X)
+    assert not r.redundant.any()
+
+
+@pytest.mark.parametrize("form", [np.asarray, sp.csr_matrix])
+def test_balances_of_a_closed_ring_that_do_not_sum_to_zero_contradict(form):
+    """The same ring with a source in one balance: their sum reads 0 = 1."""
+    u = np.full(6, 2.0)
+    b = np.array([0.0, 0.0, 1.0])
+    with pytest.raises(InputError, match="consistent"):
+        reconcile_linear(_RING_X, form(np.diag(u**2)), form(_RING_A), b, form(_RING_B))

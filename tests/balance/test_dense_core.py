@@ -92,10 +92,11 @@ def test_deferred_statistics_are_the_same_numbers():
     assert later.complete() is later and later.finish is None  # a second call: no-op
 
 
-def _rank_deficient(rng, m, k, deficit):
+def _rank_deficient(rng, m, k, deficit, density=0.2):
     """A sparse plant-like B (m, k) whose last ``deficit`` columns repeat earlier ones
-    (a pair of unmeasured variables that enters the balances only together)."""
-    B = rng.normal(size=(m, k)) * (rng.random((m, k)) < 0.2)
+    (a pair of unmeasured variables that enters the balances only together); dense
+    with ``density`` 1."""
+    B = rng.normal(size=(m, k)) * (rng.random((m, k)) < density)
     for j in range(k):
         B[j % m, j] = 1.0 + rng.random()
     for t in range(deficit):
@@ -104,39 +105,59 @@ def _rank_deficient(rng, m, k, deficit):
 
 
 @pytest.mark.parametrize("m, k, deficit", [(40, 36, 3), (130, 126, 6), (12, 20, 0), (30, 10, 0)])
-def test_reduction_for_a_final_solve_against_numpy_pinv(m, k, deficit):
-    """The elimination of a final solve (RZ decomposition of R1) against the step
-    solve's formed Q and G: the basis P of the left null space is the same to the
-    last bit (it decides the rows of the nodal test), and G equals the minimum-norm
-    pseudo-inverse numpy.linalg.pinv computes by SVD (Moore-Penrose; independent of
-    the decomposition, see Golub & Van Loan, Matrix Computations, 4th ed., Sec. 5.5)."""
+@pytest.mark.parametrize("density", [0.2, 1.0])
+def test_reduction_for_a_final_solve_against_numpy_pinv(m, k, deficit, density):
+    """The elimination of a final solve against the step solve's formed Q and G and
+    against numpy's SVD.  The step's basis P of the left null space is project_out's
+    to the last bit; the final solve's (the triangular structure of a sparse B, or the
+    RZ decomposition of R1 for a dense one) spans the same space, orthonormal.  Its
+    G is a generalised inverse that equals the minimum-norm pseudo-inverse
+    numpy.linalg.pinv computes (Moore-Penrose; Golub & Van Loan, Matrix Computations,
+    4th ed., Sec. 5.5) on the range of B: what the solve uses, since the reconciled
+    values put the right-hand side in that range."""
+    import scipy.linalg
+
     from perftest.balance import _dense
 
     rng = np.random.default_rng(m + k)
-    Bt = _rank_deficient(rng, m, k, deficit)
+    Bt = _rank_deficient(rng, m, k, deficit, density)
     At = rng.normal(size=(m, 7))
     bt = rng.normal(size=m)
     step = _dense.reduce_constraints(Bt, At, bt)
     final = _dense.reduce_constraints(Bt, At, bt, final=True)
     proj = _dense.project_out_unmeasured(Bt)
-    assert np.array_equal(step.P, proj.P) and np.array_equal(final.P, proj.P)
-    assert np.array_equal(final.PA, proj.P @ At)
-    rank = m - proj.P.shape[0]
-    assert step.exact and final.exact == (not 0 < rank < k)
+    assert np.array_equal(step.P, proj.P)
+    P0 = proj.P
+    assert final.P.shape == P0.shape
+    np.testing.assert_allclose(final.P @ final.P.T, np.eye(P0.shape[0]), atol=1e-12)
+    np.testing.assert_allclose(final.P.T @ final.P, P0.T @ P0, atol=1e-12)
+    # (rounding of the triangular solves, growing with the condition of B)
+    np.testing.assert_allclose(final.PA, final.P @ At, rtol=0, atol=1e-11 * np.abs(At).max())
+    np.testing.assert_allclose(final.Pb, final.P @ bt, rtol=0, atol=1e-11 * np.abs(bt).max())
+    rank = m - P0.shape[0]
+    structured = _dense.reduce_structured(Bt, At, bt) is not None
+    assert structured == (_dense.triangular_structure(Bt) is not None)
+    assert not (density == 1.0 and structured)  # a dense B has no row or column singleton
+    assert step.exact and final.exact == (not structured and not 0 < rank < k)
     # G by SVD: rcond far below the rank decision's 1e-10 and far above rounding
     G = np.linalg.pinv(Bt, rcond=1e-12)
     scale = np.abs(G).max() * max(np.abs(At).max(), np.abs(bt).max())
     # backward-stable factorisations of a matrix of condition ~1e2-1e3: ~1e-12 of the
     # largest entry covers the rounding of both routes
-    for red in (step, final):
-        np.testing.assert_allclose(red.GA, G @ At, rtol=0, atol=1e-12 * scale)
-        np.testing.assert_allclose(red.Gb, G @ bt, rtol=0, atol=1e-12 * scale)
-        np.testing.assert_array_equal(red.observable, proj.observable)
+    np.testing.assert_allclose(step.GA, G @ At, rtol=0, atol=1e-12 * scale)
+    np.testing.assert_allclose(step.Gb, G @ bt, rtol=0, atol=1e-12 * scale)
+    obs = proj.observable
+    np.testing.assert_array_equal(step.observable, obs)
+    np.testing.assert_array_equal(final.observable, obs)
+    # the final route's G itself (applied to the identity), on the range of B
+    Gf = _dense.reduce_constraints(Bt, np.eye(m), np.zeros(m), final=True).GA
+    on_range = np.eye(m) - P0.T @ P0
+    gscale = max(np.abs(G).max(), np.abs(Gf).max())
+    np.testing.assert_allclose(Gf @ on_range, G, rtol=0, atol=1e-11 * gscale)
+    np.testing.assert_allclose(Bt @ Gf @ on_range, on_range, rtol=0, atol=1e-11 * gscale)
     # observable: e_j in the row space of Bt, i.e. row j of an orthonormal null-space
     # basis (scipy.linalg.null_space, by SVD) vanishes; for a tall B exactly the
     # repeated pairs are not
-    import scipy.linalg
-
     N = scipy.linalg.null_space(Bt, rcond=1e-12)
     np.testing.assert_array_equal(final.observable, np.linalg.norm(N, axis=1) < 1e-8)
     if m >= k:

@@ -258,3 +258,78 @@ def test_kept_csc_layout_builds_the_kkt_matrix_of_each_pattern():
     np.testing.assert_array_equal(
         built(other, _kkt.DELTA).toarray(), _kkt_dense(Ms, Jy2, _kkt.DELTA)
     )
+
+
+@pytest.mark.parametrize("m, n, k", [(30, 25, 20), (130, 60, 126)])
+@pytest.mark.parametrize("singular", [None, "fixed", "turning"])
+def test_step_from_a_kept_factor_against_dense_kkt(m, n, k, singular):
+    """The factor of one iterate, kept (Reuse), gives the step of a nearby iterate's
+    system by iterative refinement, without a factorisation of its own, to the
+    accuracy asked (against numpy's dense solve of that system).  With two unmeasured
+    variables that enter one balance only, together (not observable: the
+    regularised system), it does so while their ratio stays (the free direction
+    stays); where the ratio changes, the kept factor's free direction is not the
+    system's, the refinement does not converge and a fresh factor gives the step."""
+    rng = np.random.default_rng(m + 7)
+    Jx, Jy, sdiag, xm, xk, fk, ysize = _problem(rng, m, n, k)
+    if singular:
+        Jy[:, 7:9] = 0.0
+        Jy[4, 7:9] = [1.0, 2.0]
+    S = np.diag(sdiag)
+    reuse = _kkt.Reuse(1e-12)
+    first = _kkt.kkt_step(Jx, Jy, S, sdiag, True, xk, xm, fk, ysize, reuse=reuse)
+    assert first is not None and reuse.factor is not None
+    kept = reuse.factor
+    # the next iterate: Jacobians moved by 1e-3 relative, a smaller residual
+    Jx2 = Jx * (1.0 + 1e-3 * rng.normal(size=Jx.shape))
+    Jy2 = Jy * (1.0 + 1e-3 * rng.normal(size=Jy.shape))
+    if singular == "fixed":
+        Jy2[4, 7:9] = Jy[4, 7:9] * 1.001
+    xk2, fk2 = xk + first[0], 1e-2 * fk
+    out = _kkt.kkt_step(Jx2, Jy2, S, sdiag, True, xk2, xm, fk2, ysize, reuse=reuse)
+    fresh = _kkt.kkt_step(Jx2, Jy2, S, sdiag, True, xk2, xm, fk2, ysize)
+    assert out is not None and fresh is not None and out[3] == fresh[3] == (not singular)
+    if singular == "turning":
+        assert reuse.factor is not kept  # refused: factorised anew
+        for a, b in zip(out, fresh, strict=True):
+            np.testing.assert_array_equal(a, b)
+        return
+    assert reuse.factor is kept  # no new factor
+    u = np.sqrt(sdiag)
+    # the refinement's target, 1e-12 (scaled, and standard deviations of the
+    # linearised residuals); a scaled multiplier moves x by at most its rows' count
+    assert np.abs((out[0] - fresh[0]) / u).max() <= 10 * 1e-12
+    assert np.abs((out[1] - fresh[1]) / ysize).max() <= 10 * 1e-12
+    lin = fk2 + Jx2 @ out[0] + Jy2 @ out[1]
+    assert np.abs(lin / np.sqrt((Jx2 * Jx2) @ sdiag)).max() <= 1e-10
+    if not singular:
+        dx_ref, dy_ref = _exact(Jx2, Jy2, sdiag, xm, xk2, fk2)
+        assert np.abs((out[0] - dx_ref) / u).max() <= 1e-9
+
+
+def test_kept_factor_of_a_distant_iterate_is_replaced(monkeypatch):
+    """Where the kept factor no longer contracts the refinement (a system changed by
+    half its size), the step is factorised anew, the new factor kept, and the step
+    is the fresh one to the last bit."""
+    rng = np.random.default_rng(17)
+    Jx, Jy, sdiag, xm, xk, fk, ysize = _problem(rng, 130, 60, 126)
+    S = np.diag(sdiag)
+    reuse = _kkt.Reuse(1e-12)
+    _kkt.kkt_step(Jx, Jy, S, sdiag, True, xk, xm, fk, ysize, reuse=reuse)
+    kept = reuse.factor
+    Jx2 = Jx * (1.0 + 0.5 * rng.normal(size=Jx.shape))
+    Jy2 = Jy * (1.0 + 0.5 * rng.normal(size=Jy.shape))
+    refined = []
+    refine = _kkt.Reuse.refine
+
+    def spy(self, *args):
+        out = refine(self, *args)
+        refined.append(out is not None)
+        return out
+
+    monkeypatch.setattr(_kkt.Reuse, "refine", spy)
+    out = _kkt.kkt_step(Jx2, Jy2, S, sdiag, True, xk, xm, fk, ysize, reuse=reuse)
+    assert refined == [False] and reuse.factor is not kept
+    fresh = _kkt.kkt_step(Jx2, Jy2, S, sdiag, True, xk, xm, fk, ysize)
+    for a, b in zip(out, fresh, strict=True):
+        np.testing.assert_array_equal(a, b)
