@@ -190,6 +190,8 @@ def _lapack(routine, *args, **kwargs):
     return out[:-2]
 
 
+_TINY = np.finfo(float).tiny
+
 #: Optimal LAPACK workspace by (routine, argument shapes), see _lapack.
 _workspace: dict = {}
 
@@ -372,8 +374,7 @@ def reduce_structured(Bt: np.ndarray, At: np.ndarray, bt: np.ndarray) -> Reducti
     if f and Pm.shape[0]:
         Pt[fr] = -dtrtrs(L, Xmf.T @ Pm.T, lower=1, trans=1)[0]
         qr, tau = _lapack(dgeqrf, Pt)
-        Rd = np.triu(qr[: Pm.shape[0]])
-        PAb = dtrtrs(Rd, PAb, lower=0, trans=1)[0]
+        PAb = dtrtrs(qr[: Pm.shape[0]], PAb, lower=0, trans=1)[0]  # (reads R's triangle)
         Pt = _lapack(dorgqr, qr, tau, overwrite_a=1)[0]
     P = Pt.T
     observable = np.sqrt(np.einsum("ij,ij->i", V, V)) < OBS_TOL
@@ -574,7 +575,7 @@ def zero_rows_of(sd, br0, raw):
     are not identically zero (``ZERO_ROW_RTOL``, ``CANCEL_RTOL``), and the first zero
     row whose right-hand side does not vanish, as ``(row, inf)``, or None."""
     m0 = sd.size
-    tiny = np.finfo(float).tiny
+    tiny = _TINY
     cancelled = None
     if raw is not None:
         raw_sd, raw_b = raw
@@ -613,11 +614,12 @@ def select_rows(M0: np.ndarray, br0: np.ndarray, raw=None) -> RowSelection:
     if nonzero.size == 0:
         return RowSelection(np.zeros(0, int), np.zeros((0, 0)), d, None)
     s = sd[nonzero]
-    Mc = M0[np.ix_(nonzero, nonzero)] / s[:, None] / s[None, :]
+    Mc = M0 if nonzero.size == M0.shape[0] else M0[np.ix_(nonzero, nonzero)]
+    Mc = Mc / s[:, None] / s[None, :]
     c, piv, rank, info = dpstrf(Mc, tol=ROW_PIVOT_TOL, lower=1)
     piv = piv[: Mc.shape[0]] - 1
     keep = piv[:rank]
-    Lc = np.tril(c[:rank, :rank])
+    Lc = np.where(_upper_mask(rank, rank).T, c[:rank, :rank], 0.0)  # np.tril, mask kept
     dropped = piv[rank:]
     inconsistent = None
     if dropped.size:
