@@ -15,13 +15,13 @@ matrix :math:`P A` are then removed with a pivoted Cholesky factorisation of
 
 :func:`project_out_unmeasured` forms :math:`P` and the pseudo-inverse :math:`G`;
 :func:`reduce_constraints` gives them applied to the constraints, with the same
-:math:`P` to the last bit and, for a final solve, :math:`G` from a cheaper
-decomposition (equal to rounding).  The basis :math:`P` follows the rounding of
-:math:`B` wherever its columns tie in norm or it is rank-deficient (the QR's pivots
-and reflector signs); the solution does not depend on it, and the nodal test reads
-the reduced constraints in the canonical basis of :class:`CanonicalRows`, which
-depends on the space alone.  The steps of the nonlinear engine keep the exact
-arithmetic of the formed route all the same, so that its iterates do not change.
+:math:`P` to the last bit for a step and, for a final solve, through the triangular
+structure of :math:`B` (:func:`reduce_structured`) or with :math:`G` from a cheaper
+decomposition: the same spaces and results, equal to rounding.  The basis :math:`P`
+follows the rounding of :math:`B` wherever its columns tie in norm or it is
+rank-deficient (the QR's pivots and reflector signs); the solution does not depend on
+it, and the nodal test reads the reduced constraints in the canonical basis of
+:class:`CanonicalRows`, which depends on the space alone.
 """
 
 from __future__ import annotations
@@ -167,7 +167,7 @@ class Reduction:
     Gb: np.ndarray  # (k,)
     observable: np.ndarray  # (k,) bool
     # whether every number is that of project_out_unmeasured's formed P and G to the
-    # last bit (False where G came from the RZ decomposition)
+    # last bit (False where the structured reduction or the RZ decomposition gave them)
     exact: bool = True
 
 
@@ -229,14 +229,15 @@ def reduce_constraints(
 
     The rank decision and the basis ``P`` of the left null space are those of
     :func:`project_out_unmeasured` to the last bit (the same LAPACK calls, and
-    ``P @ At`` the same product), so that everything that depends on them alone
-    (the reconciled measured values, their covariance, chi2, dof and the tests) is
-    the same.  With ``final`` (a solve whose result is not an iteration's step), the
+    ``P @ At`` the same product).  With ``final`` (a result, or the predicted last
+    linearisation of the nonlinear engine) the elimination goes through the triangular
+    structure of ``Bt`` where it has one (:func:`reduce_structured`); otherwise the
     minimum-norm pseudo-inverse ``G`` of a rank-deficient ``Bt`` comes from the RZ
     decomposition of the pivoted ``R1`` (LAPACK ``tzrzf``, ``O(r^2 (k - r))`` for the
     nearly square ``R1`` of a plant) applied to ``[At | bt]``, instead of a second full
     QR factorisation and a formed ``G``: the same ``G`` (it does not depend on the
-    orthogonal decomposition), equal to rounding but not to the last bit.
+    orthogonal decomposition).  Both equal the formed route to rounding, not to the
+    last bit (``exact`` False).
     """
     m, k = Bt.shape
     n = At.shape[1]

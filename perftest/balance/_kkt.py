@@ -30,9 +30,10 @@ Dense LU (LAPACK ``getrf``) for systems up to ``DENSE_MAX``, sparse LU (SuperLU)
 above; both are checked: a dense factor by its reciprocal condition number, a sparse
 one by the residual of the solution.  The unregularised system is not factorised when
 ``J_y`` is structurally rank-deficient (maximum bipartite matching of its pattern):
-it is then singular whatever its values.  Every step is computed with the same
-floating-point operations whichever shortcut is taken, so that the iterates, and the
-results to the last bit, do not depend on them.
+it is then singular whatever its values.  The steps after the first of one
+reconciliation are solved by iterative refinement with a kept factor where it
+converges (:class:`Reuse`): equal to a fresh factor's step to a tenth of the
+convergence tolerance, not to the last bit.
 
 Layer: imports numpy and scipy only.
 

@@ -100,12 +100,10 @@ def solve_dense(p: Problem, *, deferred: bool = False, final: bool = False) -> C
     variances and covariances) to :meth:`Core.complete`, for a solve whose step alone
     may be wanted (the same numbers when completed).
 
-    ``final``: the result is final, not a step of an iteration: the unmeasured
-    variables' pseudo-inverse may come from the cheaper decomposition of
-    :func:`_dense.reduce_constraints`, equal to rounding (``Core.exact`` says whether
-    it did).  The steps of reconcile_nonlinear keep the last bits of the formed one:
-    the pivoted QR of the last iterate's Jacobian follows its last bits where its
-    columns tie in norm or it is rank-deficient.
+    ``final``: the result is final (or the predicted last linearisation of
+    reconcile_nonlinear): the elimination of the unmeasured variables may take the
+    cheaper routes of :func:`_dense.reduce_constraints`, equal to rounding
+    (``Core.exact`` says whether it did).
     """
     x, S, s, A, b, B = p.x, p.S, p.sdiag, p.A, p.b, p.B
     n = x.size
