@@ -428,30 +428,14 @@ def triangular_structure(Bt: np.ndarray):
     col_queue = [j for j in range(k) if col_left[j] == 1]
     front, back = [], []
     while row_queue or col_queue:
-        if row_queue:
-            i = row_queue.pop()
-            if not row_on[i] or row_left[i] != 1:
-                continue
-            j = next(c for c in cols_of[i] if col_on[c])
-            front.append((i, j))
-            row_on[i] = col_on[j] = False
-            for r in rows_of[j]:
-                if row_on[r]:
-                    row_left[r] -= 1
-                    if row_left[r] == 1:
-                        row_queue.append(r)
-        else:
-            j = col_queue.pop()
-            if not col_on[j] or col_left[j] != 1:
-                continue
-            i = next(r for r in rows_of[j] if row_on[r])
-            back.append((i, j))
-            row_on[i] = col_on[j] = False
-            for c in cols_of[i]:
-                if col_on[c]:
-                    col_left[c] -= 1
-                    if col_left[c] == 1:
-                        col_queue.append(c)
+        if row_queue:  # a row with one column left: that column to the front
+            pair = _peel(row_queue, row_left, row_on, cols_of, col_on, rows_of)
+            if pair is not None:
+                front.append(pair)
+        else:  # a column with one row left: that row to the back
+            pair = _peel(col_queue, col_left, col_on, rows_of, row_on, cols_of)
+            if pair is not None:
+                back.append(pair[::-1])
     if not front and not back:
         out = None
     else:
@@ -464,6 +448,24 @@ def triangular_structure(Bt: np.ndarray):
         )  # fmt: skip
     _last_triangular = ((m, k), flat, out)
     return out
+
+
+def _peel(queue, left, on, lines, other_on, other_lines):
+    """One step of :func:`triangular_structure` from ``queue`` (rows, or columns):
+    the line popped, if it has one entry left, and that entry's crossing line, as a
+    pair, both switched off, and the counts of the lines that met the crossing line
+    lowered; None for a line already peeled or left empty."""
+    i = queue.pop()
+    if not on[i] or left[i] != 1:
+        return None
+    j = next(c for c in lines[i] if other_on[c])
+    on[i] = other_on[j] = False
+    for r in other_lines[j]:
+        if on[r]:
+            left[r] -= 1
+            if left[r] == 1:
+                queue.append(r)
+    return i, j
 
 
 #: The pattern of the last triangular_structure call and its blocks.
