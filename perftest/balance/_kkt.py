@@ -114,8 +114,9 @@ EARLY_MARGIN = 1e4
 #: A factor kept from an earlier iteration (see :class:`Reuse`) gives the step when
 #: iterative refinement on the current system converges: every correction at most
 #: REFINE_CONTRACTION times the one before, and within REFINE_SWEEPS sweeps both the
-#: last correction (max norm, scaled variables: one unit is about one standard
-#: uncertainty of x or the typical size of y) and the residual the step leaves in
+#: error left (max norm, scaled variables: one unit is about one standard
+#: uncertainty of x or the typical size of y; after a correction c of a sweep that
+#: contracted by q, at most q / (1 - q) c) and the residual the step leaves in
 #: the linearised constraints (in standard deviations of the residuals) below the
 #: caller's ``atol``, a tenth of the convergence tolerance: the iterates are then
 #: those of fresh factorisations to well within the tolerance, and a problem that is
@@ -385,11 +386,14 @@ class Reuse:
         target = self.atol
 
         def solve(rhs, d, sol, last=np.inf, check=True):
-            # sweeps until the correction (or the rounding of the solution), and with
-            # ``check`` the residual left, are below the target
+            # sweeps until the error left (or the rounding of the solution), and with
+            # ``check`` the residual left, are below the target; the error left after
+            # a correction c of a sweep contracting by q < 1 is at most q / (1 - q) c
+            left = last
+            before = np.inf
             for sweep in range(REFINE_SWEEPS + 1):
                 floor = ROUNDING * eps * float(np.abs(sol).max(initial=0.0))
-                if last <= max(target, floor):
+                if left <= max(target, floor):
                     if not check or violation(sol) <= target:
                         return sol if np.isfinite(sol).all() else None
                 if sweep == REFINE_SWEEPS:
@@ -399,7 +403,9 @@ class Reuse:
                 if not (size <= REFINE_CONTRACTION * last or size <= floor):  # (catches nan)
                     return None
                 sol = sol + step
-                last = size
+                before, last = last, size
+                q = last / before if before < np.inf else 1.0
+                left = last * q / (1.0 - q) if q < 1.0 else last
             return None  # pragma: no cover - the loop returns
 
         rhs = np.zeros(m + k)
@@ -408,7 +414,7 @@ class Reuse:
         # step, so the refinement's error is relative to the step, not to them
         start = np.zeros(m + k)
         start[:m] = self.lam
-        sol = solve(rhs, delta, start, check=not delta)
+        sol = solve(rhs, delta, start)
         if sol is None:
             return None
         if delta:
