@@ -58,6 +58,22 @@ _DERIVED_QUANTITY = {
 WEAK_RTOL = 0.5
 
 
+#: SI unit of a balance's residual by the kind of its row (PlantModel.rows[i].kind;
+#: the model divides each residual by the row's ``scale`` before reconciling).
+_ROW_UNITS = {
+    "mass": "kg/s",
+    "energy": "W",
+    "state": "J/kg",
+    "saturation": "K",
+    "quality": "J/kg",
+    "equal_h": "J/kg",
+    "equal_p": "Pa",
+    "combustion": "W",
+    "combustion_air": "kg/s",
+    "analysis": "1",
+}
+
+
 @dataclass(frozen=True, eq=False)
 class PlantReconciliation:
     """Outcome of :func:`reconcile`.
@@ -319,6 +335,44 @@ class PlantReconciliation:
             "p_value": float(r.p_value),
             "passed": bool(r.p_value >= self.alpha),
         }
+
+    def nodal_test(self, alpha: float | None = None) -> pd.DataFrame:
+        """The nodal test of the final reconciliation, one row per balance tested.
+
+        Each row is a balance of the plant model (``balance``, e.g. ``"mix:mass"``);
+        where unmeasured variables enter it, it is combined with the balances that
+        determine them (for flows, the classic merging of the units joined by
+        unmeasured streams; see :func:`perftest.balance.nodal_test`).  The residual is
+        the balance's imbalance at the measured values (linearised at the solution)
+        in SI units, ``u`` its standard deviation without gross error and
+        ``statistic`` their ratio, against the Sidak-corrected ``critical`` value at
+        ``alpha`` (default: the reconciliation's).
+
+        Returns
+        -------
+        pandas.DataFrame
+            Columns ``balance, kind, owner, residual, u, unit, statistic, critical,
+            flagged``; ``statistic`` is nan (and ``flagged`` False) for a row of
+            rounding size, which no measurement enters.
+        """
+        from perftest.balance.gross import nodal_test
+
+        test = nodal_test(self.result, self.alpha if alpha is None else alpha)
+        rows = [self.model.rows[i] for i in test.constraint]
+        scale = np.array([r.scale for r in rows])
+        return pd.DataFrame(
+            {
+                "balance": [r.name for r in rows],
+                "kind": [r.kind for r in rows],
+                "owner": [r.owner for r in rows],
+                "residual": np.asarray(self.result.constraint_residual) * scale,
+                "u": np.asarray(self.result.constraint_u) * scale,
+                "unit": [_ROW_UNITS.get(r.kind, "") for r in rows],
+                "statistic": test.statistic,
+                "critical": test.critical,
+                "flagged": test.flagged,
+            }
+        )
 
     def to_frame(self, units="logged") -> pd.DataFrame:
         """One row per measured tag (every tag of the measurements).

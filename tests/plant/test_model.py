@@ -235,6 +235,37 @@ def test_network_closure_independent(network):
     assert np.all(np.abs(closure.energy_imbalance) < 1e-9 * closure.energy_throughput)
 
 
+def test_nodal_table_names_the_balances_of_a_biased_flow_meter(network):
+    """A +6 % bias on the header flow meter FT-H: the nodal test flags the balances
+    the header stream enters (the mixer's mass and energy balances and the
+    splitter's mass balance) and none of those it does not enter (the nodal test
+    points at the nodes adjacent to a biased measurement; Narasimhan and Jordache,
+    Data Reconciliation and Gross Error Detection, 2000, Ch. 7).  The mixer's mass
+    balance has no unmeasured variable: its row is that balance alone, with the
+    closed-form residual FT-A + FT-B - FT-H at the measured values and standard
+    deviation sqrt(u_A^2 + u_B^2 + u_H^2) (independent meters)."""
+    truth, _ = water_network_truth()
+    m = measurements(truth, seed=11, bias={"FT-H": 1.06})
+    with pytest.warns(ReconciliationWarning, match="global test fails"):
+        rec = perftest.reconcile(network, m)
+    table = rec.nodal_test().set_index("balance")
+    assert set(table.index[table.flagged]) == {"mix:mass", "split:mass", "mix:energy"}
+    row = table.loc["mix:mass"]
+    value = {t: m.value[m.index(t)] for t in ("FT-A", "FT-B", "FT-H")}
+    u = {t: m.u[m.index(t)] for t in ("FT-A", "FT-B", "FT-H")}
+    assert row.unit == "kg/s" and row.kind == "mass" and row.owner == "mix"
+    assert row.residual == pytest.approx(value["FT-A"] + value["FT-B"] - value["FT-H"], rel=1e-12)
+    assert row.u == pytest.approx(np.sqrt(sum(x**2 for x in u.values())), rel=1e-12)
+    assert row.statistic == pytest.approx(abs(row.residual) / row.u, rel=1e-12)
+    # the engine's own test, row for row
+    from perftest.balance import nodal_test
+
+    test = nodal_test(rec.result, rec.alpha)
+    np.testing.assert_array_equal(table.statistic.to_numpy(), test.statistic)
+    assert list(table.index) == [rec.model.rows[i].name for i in test.constraint]
+    assert (table.critical == test.critical).all()
+
+
 # --------------------------------------------------------------------------- steam cycle
 def test_cycle_exact_data_recovers_hidden_values(cycle):
     truth, hidden = steam_cycle_truth()
