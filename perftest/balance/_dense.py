@@ -61,7 +61,9 @@ OBS_TOL = 1e-8
 # rows kept (in the metric of S).
 ROW_PIVOT_TOL = 1e-11
 # A reduced row is treated as identically zero when its standard deviation is
-# below this fraction of the largest row's.
+# below this fraction of the largest row's, reduced or as given (a flow network
+# whose reduced rows all combine balances without measured variables gave rows of
+# 1e-16 alone, taken for two constraints: dof 2, chi2 4780, where dof is 0).
 ZERO_ROW_RTOL = 1e-9
 # ... or below this fraction of the standard deviation its balances would give
 # without cancelling (|P| times each balance's; see raw_rows): a combination of balances
@@ -560,17 +562,22 @@ class RowSelection:
 
 
 def raw_rows(P, At, bt, s):
-    """``(sd, b)``: per reduced row ``P At x = P bt``, the standard deviation and the
-    right-hand side of its balances added without cancelling, ``|P| sd(At)`` and
-    ``|P| |bt|`` with ``sd(At)`` the standard deviation of each balance in the
-    metric of the diagonal ``s`` (see ``CANCEL_RTOL``).  Dense or sparse."""
+    """``(sd, b, largest)``: per reduced row ``P At x = P bt``, the standard deviation
+    and the right-hand side of its balances added without cancelling, ``|P| sd(At)``
+    and ``|P| |bt|`` with ``sd(At)`` the standard deviation of each balance in the
+    metric of the diagonal ``s`` (see ``CANCEL_RTOL``), and the largest ``sd(At)``
+    (see ``ZERO_ROW_RTOL``).  Dense or sparse."""
     if sp.issparse(At):
         A2 = sp.csr_matrix(At)
         sd_rows = np.sqrt(np.asarray(A2.multiply(A2) @ s).ravel())
     else:
         sd_rows = np.sqrt((At * At) @ s)
     Pa = abs(sp.csr_matrix(P)) if sp.issparse(P) else np.abs(P)
-    return np.asarray(Pa @ sd_rows).ravel(), np.asarray(Pa @ np.abs(bt)).ravel()
+    return (
+        np.asarray(Pa @ sd_rows).ravel(),
+        np.asarray(Pa @ np.abs(bt)).ravel(),
+        float(sd_rows.max(initial=0.0)),
+    )
 
 
 def zero_rows_of(sd, br0, raw):
@@ -580,8 +587,9 @@ def zero_rows_of(sd, br0, raw):
     m0 = sd.size
     tiny = _TINY
     cancelled = None
+    largest = 0.0
     if raw is not None:
-        raw_sd, raw_b = raw
+        raw_sd, raw_b, largest = raw
         cancelled = (raw_sd > 0) & ~(sd > CANCEL_RTOL * raw_sd)
         if cancelled.any():
             # 0 = b_j with b_j of rounding size, or the balances contradict each other
@@ -590,7 +598,9 @@ def zero_rows_of(sd, br0, raw):
                     return None, (int(j), np.inf)
         else:
             cancelled = None
-    big = (sd if cancelled is None else sd[~cancelled]).max(initial=0.0)
+    # (against the balances as given too: where every reduced row is a combination
+    # of balances without measured variables, all of them are rounding)
+    big = max((sd if cancelled is None else sd[~cancelled]).max(initial=0.0), largest)
     live = sd > ZERO_ROW_RTOL * big if big > 0 else np.zeros(m0, bool)
     if cancelled is not None:
         live &= ~cancelled
