@@ -309,15 +309,15 @@ class Reuse:
     kept factor) at a fraction of the cost of a new factorisation.  Where it does
     not (``REFINE_*``), :func:`kkt_step` factorises anew and keeps the new factor.
 
-    A refined step is accepted when its last correction and the residual of the
-    linearised constraints it leaves (in ``row_scale`` units, standard deviations of
-    the residuals, as the caller's convergence test reads them) are both below
-    ``atol``.  A regularised kept factor refines the regularised
-    current system, then takes the same step towards the unregularised one as a
-    fresh factor (the correction solved with the kept factor, refined as needed); an
-    unregularised one, the unregularised system.  Holds no state of other
-    reconciliations: one instance per call of
-    :func:`perftest.balance.reconcile_nonlinear`.
+    A refined step is accepted when the error it has left (estimated from its last
+    correction and the contraction of the sweeps) and the residual of the linearised
+    constraints it leaves (in ``row_scale`` units, standard deviations of the
+    residuals, as the caller's convergence test reads them) are both below ``atol``.
+    A regularised kept factor refines the regularised current system, then takes the
+    same step towards the unregularised one as a fresh factor (the correction solved
+    with the kept factor, refined as needed); an unregularised one, the
+    unregularised system.  Holds no state of other reconciliations: one instance per
+    call of :func:`perftest.balance.reconcile_nonlinear`.
 
     Parameters
     ----------
@@ -370,8 +370,6 @@ class Reuse:
             np.add(rhs[m:], ysize * (JyT @ rl) + d * dy, out=out[m:])
             return out
 
-        eps = _EPS
-
         def violation(sol):
             # the linearised constraints' residual after the step, beyond the
             # rounding of its terms
@@ -381,7 +379,7 @@ class Reuse:
             if out <= target:
                 return out
             terms = np.abs(fk) + np.abs(Jx) @ np.abs(dx) + np.abs(Jy) @ np.abs(dy)
-            return float((np.maximum(lin - ROUNDING * eps * terms, 0.0) * rows).max(initial=0.0))
+            return float((np.maximum(lin - ROUNDING * _EPS * terms, 0.0) * rows).max(initial=0.0))
 
         target = self.atol
 
@@ -392,7 +390,7 @@ class Reuse:
             left = last
             before = np.inf
             for sweep in range(REFINE_SWEEPS + 1):
-                floor = ROUNDING * eps * float(np.abs(sol).max(initial=0.0))
+                floor = ROUNDING * _EPS * float(np.abs(sol).max(initial=0.0))
                 if left <= max(target, floor):
                     if not check or violation(sol) <= target:
                         return sol if np.isfinite(sol).all() else None

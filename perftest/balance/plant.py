@@ -19,7 +19,7 @@ from perftest.balance.plant_elimination import eliminate as _eliminate_tags
 from perftest.defaults import RECONCILIATION_ALPHA
 from perftest.errors import ConvergenceError, InputError, ReconciliationWarning
 from perftest.plant import states as thermo
-from perftest.plant.equations import PlantModel, build_model
+from perftest.plant.equations import ROW_UNITS, PlantModel, build_model
 from perftest.plant.guess import initial_guess
 from perftest.plant.phases import check_declared_phases
 
@@ -56,22 +56,6 @@ _DERIVED_QUANTITY = {
 #: hundreds of bar).  Our own threshold: at u = |value| / 2 the 95 % interval
 #: (about +-2u) already reaches zero.
 WEAK_RTOL = 0.5
-
-
-#: SI unit of a balance's residual by the kind of its row (PlantModel.rows[i].kind;
-#: the model divides each residual by the row's ``scale`` before reconciling).
-_ROW_UNITS = {
-    "mass": "kg/s",
-    "energy": "W",
-    "state": "J/kg",
-    "saturation": "K",
-    "quality": "J/kg",
-    "equal_h": "J/kg",
-    "equal_p": "Pa",
-    "combustion": "W",
-    "combustion_air": "kg/s",
-    "analysis": "1",
-}
 
 
 @dataclass(frozen=True, eq=False)
@@ -367,7 +351,7 @@ class PlantReconciliation:
                 "owner": [r.owner for r in rows],
                 "residual": np.asarray(self.result.constraint_residual) * scale,
                 "u": np.asarray(self.result.constraint_u) * scale,
-                "unit": [_ROW_UNITS.get(r.kind, "") for r in rows],
+                "unit": [ROW_UNITS[r.kind] for r in rows],
                 "statistic": test.statistic,
                 "critical": test.critical,
                 "flagged": test.flagged,

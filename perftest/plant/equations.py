@@ -71,6 +71,20 @@ _SCALE = {
     "analysis": 1.0e-3,  # mole fraction -> 0.1 %-point (two flue-gas analysers)
 }
 
+#: SI unit of the unscaled residual of a row, by its kind (the keys of _SCALE).
+ROW_UNITS = {
+    "mass": "kg/s",
+    "energy": "W",
+    "state": "J/kg",
+    "saturation": "K",
+    "quality": "J/kg",
+    "equal_h": "J/kg",
+    "equal_p": "Pa",
+    "combustion": "W",
+    "combustion_air": "kg/s",
+    "analysis": "1",
+}
+
 _UNIT_QUANTITY = {
     "power": "power",
     "heat": "heat_flow",

@@ -9,6 +9,7 @@ import warnings
 import numpy as np
 import pytest
 import scipy.stats
+from flow_networks import random_flow_network
 
 import perftest
 from perftest.balance import (
@@ -159,17 +160,7 @@ def test_nodal_rows_of_random_networks_dense_sparse_and_rounding():
     rng = np.random.default_rng(7)
     cases = 0
     for _ in range(60):
-        m = int(rng.integers(2, 15))
-        ns = int(rng.integers(m + 1, 3 * m + 3))
-        A = np.zeros((m, ns))
-        for j in range(ns):
-            a, b = rng.choice(m, 2, replace=False)
-            A[a, j], A[b, j] = rng.choice([1.0, rng.uniform(0.5, 2.0)]), -1.0
-        k = int(rng.integers(1, min(ns - 1, m + 2)))
-        un = rng.choice(ns, k, replace=False)
-        me = np.setdiff1d(np.arange(ns), un)
-        u = np.ones(me.size) if rng.random() < 0.5 else rng.uniform(0.5, 2.0, me.size)
-        x = rng.uniform(10.0, 100.0, me.size)
+        A, un, me, u, x = random_flow_network(rng, 15, 2)
         B = A[:, un]
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")

@@ -266,6 +266,14 @@ def test_nodal_table_names_the_balances_of_a_biased_flow_meter(network):
     assert (table.critical == test.critical).all()
 
 
+def test_every_row_kind_has_an_si_unit():
+    """The nodal table names the unit of every balance: each kind of row the model
+    scales has its SI unit (a new kind without one would fail the table)."""
+    from perftest.plant.equations import _SCALE, ROW_UNITS
+
+    assert set(ROW_UNITS) == set(_SCALE)
+
+
 # --------------------------------------------------------------------------- steam cycle
 def test_cycle_exact_data_recovers_hidden_values(cycle):
     truth, hidden = steam_cycle_truth()
