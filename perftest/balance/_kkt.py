@@ -513,7 +513,8 @@ class _DenseSolve:
 _last_structure = None
 
 #: The CSC layout of the last KKT pattern factorised (see _SparseSolve._layout):
-#: ((m, m + k, regularised), (mr, mc, jr, jc), (order, indices, indptr, colidx)).
+#: ((m, m + k, regularised), (mr, mc, jr, jc), (order, indices, indptr, colidx,
+#: perm), (rows, cols) of the entries in _vals' order).
 _last_layout = None
 
 
@@ -552,12 +553,17 @@ class _SparseSolve:
         self._lu = None
 
     def _layout(self, regularised: bool):
-        """``(order, indices, indptr, colidx)``: where the entries of ``_vals`` (then the
-        ``-delta`` diagonal when ``regularised``) go in the CSC arrays of the KKT matrix,
-        its row indices and column pointers, and the column of each stored entry.
+        """``(order, indices, indptr, colidx, perm)``: where the entries of ``_vals``
+        (then the ``-delta`` diagonal when ``regularised``) go in the CSC arrays of the
+        KKT matrix, its row indices and column pointers, the column of each stored
+        entry, and the column ordering (``perm``, SuperLU's ``perm_c``) when it is
+        known for this pattern: the layout is then of the matrix with its columns
+        already in that order (column ``i`` at ``perm[i]``), None otherwise.
 
-        The iterations of one reconciliation see the same pattern again and again: the
-        layout of the last pattern is kept (the same arrays the sort would give).
+        The iterations of one reconciliation, and the windows of a run, see the same
+        pattern again and again: the layout of the last pattern is kept (the same
+        arrays the sort would give), with its ordering once a factorisation has found
+        it (:meth:`_ordered`).
         """
         global _last_layout
         m, size = self._m, self._size
@@ -576,16 +582,27 @@ class _SparseSolve:
             diag = np.arange(m, size)
             rows = np.concatenate([rows, diag])
             cols = np.concatenate([cols, diag])
-        order = np.lexsort((rows, cols))
-        cols = cols[order]
-        layout = (
-            order,
-            rows[order].astype(np.int32),
-            np.searchsorted(cols, np.arange(size + 1)).astype(np.int32),
-            cols,
-        )
-        _last_layout = ((m, size, regularised), pattern, layout)
+        layout = (*_csc_layout(rows, cols, size), None)
+        _last_layout = ((m, size, regularised), pattern, layout, (rows, cols))
         return layout
+
+    def _ordered(self, regularised: bool, perm):
+        """Keep the column ordering ``perm`` a factorisation found for the current
+        pattern (the last one laid out): its next layout comes with the columns in
+        that order, and SuperLU is spared the ordering (it depends on the pattern
+        alone)."""
+        global _last_layout
+        last = _last_layout
+        if last is None or last[0] != (self._m, self._size, regularised):
+            return  # pragma: no cover - laid out just before, by this thread
+        if last[1] is not self._pattern and not all(
+            np.array_equal(a, b) for a, b in zip(last[1], self._pattern, strict=True)
+        ):
+            return  # pragma: no cover - another thread laid out another pattern
+        rows, cols = last[3]
+        perm = np.asarray(perm, dtype=np.intp)
+        layout = (*_csc_layout(rows, perm[cols], self._size), perm)
+        _last_layout = (last[0], last[1], layout, last[3])
 
     def structurally_singular(self) -> bool:
         """Whether ``J_y`` has structural column rank below ``k`` (a maximum matching of
@@ -622,12 +639,21 @@ class _SparseSolve:
         vals = self._vals
         if delta:
             vals = np.concatenate([vals, np.full(size - m, -delta)])
-        order, indices, indptr, cols = self._layout(bool(delta))
+        order, indices, indptr, cols, perm = self._layout(bool(delta))
         A = sp.csc_matrix((vals[order], indices, indptr), shape=(size, size))
         try:
-            lu = spla.splu(A, permc_spec="COLAMD", relax=SUPERLU_RELAX, panel_size=SUPERLU_PANEL)
+            lu = spla.splu(
+                A,
+                permc_spec="COLAMD" if perm is None else "NATURAL",
+                relax=SUPERLU_RELAX,
+                panel_size=SUPERLU_PANEL,
+            )
         except RuntimeError:  # exactly singular
             return None
+        if perm is None:
+            self._ordered(bool(delta), lu.perm_c)
+        else:
+            lu = _Ordered(lu, perm)
         anorm = float(np.bincount(cols, np.abs(A.data), minlength=size).max(initial=0.0))
         if not _rcond_estimate(lu, anorm, size, rcond_min) > rcond_min:
             return None
@@ -639,6 +665,50 @@ class _SparseSolve:
 
     def last(self, rhs):
         return self._lu.solve(rhs)
+
+
+def _csc_layout(rows, cols, size):
+    """``(order, indices, indptr, colidx)`` of the entries ``(rows, cols)``: their
+    positions in CSC order (by column, then row), the row indices and column
+    pointers of that layout, and the column of each stored entry."""
+    order = np.lexsort((rows, cols))
+    cols = cols[order]
+    return (
+        order,
+        rows[order].astype(np.int32),
+        np.searchsorted(cols, np.arange(size + 1)).astype(np.int32),
+        cols,
+    )
+
+
+class _Ordered:
+    """A SuperLU factor of ``A[:, q]`` (``q`` the inverse of ``perm``: column ``i`` of
+    ``A`` at ``perm[i]``), made with the natural ordering, solving with ``A``.
+
+    SuperLU's COLAMD ordering depends on the pattern alone, and with the columns
+    given in its order (``perm_c`` of an earlier factor of the same pattern) the
+    natural ordering reproduces it: the same L and U, entry by entry, so the same
+    solutions to the last bit.  ``A x = b`` is ``A[:, q] x[q] = b``; ``A^T w = c`` is
+    ``A[:, q]^T w = c[q]``.
+    """
+
+    __slots__ = ("_lu", "_perm", "_inv")
+
+    def __init__(self, lu, perm):
+        self._lu = lu
+        self._perm = perm
+        self._inv = None
+
+    def solve(self, rhs, trans="N"):
+        lu, perm = self._lu, self._perm
+        if trans == "N":
+            z = lu.solve(rhs)
+            return z[perm]
+        if self._inv is None:
+            inv = np.empty_like(perm)
+            inv[perm] = np.arange(perm.size)
+            self._inv = inv
+        return lu.solve(rhs[self._inv], trans=trans)
 
 
 def _rcond_estimate(lu, anorm, n, accept_above=None):

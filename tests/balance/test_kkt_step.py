@@ -229,7 +229,8 @@ def test_kept_csc_layout_builds_the_kkt_matrix_of_each_pattern():
     Ms = (Jx * sdiag) @ Jx.T
 
     def built(solver, delta):
-        order, indices, indptr, cols = solver._layout(bool(delta))
+        order, indices, indptr, cols, perm = solver._layout(bool(delta))
+        assert perm is None  # no factorisation of these patterns yet: natural order
         vals = solver._vals
         if delta:
             vals = np.concatenate([vals, np.full(k, -delta)])
@@ -258,6 +259,59 @@ def test_kept_csc_layout_builds_the_kkt_matrix_of_each_pattern():
     np.testing.assert_array_equal(
         built(other, _kkt.DELTA).toarray(), _kkt_dense(Ms, Jy2, _kkt.DELTA)
     )
+
+
+def test_kept_ordering_gives_the_factor_of_a_fresh_ordering():
+    """Once a factorisation has found the column ordering of a KKT pattern (SuperLU's
+    COLAMD, which depends on the pattern alone), the next matrix of that pattern is
+    laid out in that order and factorised without ordering: its solutions, plain and
+    transposed, and its condition estimate are those of a fresh COLAMD factor of
+    the same matrix to the last bit (SuperLU itself, scipy.sparse.linalg.splu), and
+    the solutions solve the system (numpy's dense solve).  A new pattern starts
+    without an ordering."""
+    import scipy.sparse as sp
+    import scipy.sparse.linalg as spla
+
+    rng = np.random.default_rng(12)
+    m, n, k = 130, 60, 126
+    Jx, Jy, sdiag, *_ = _problem(rng, m, n, k)
+    Ms = (Jx * sdiag) @ Jx.T
+    rhs = rng.normal(size=m + k)
+    for delta in (_kkt.DELTA, 0.0):
+        first = _kkt._SparseSolve(Ms, Jy)
+        assert first._layout(bool(delta))[4] is None
+        assert first(delta, rhs, _kkt.RCOND_MIN) is not None
+        perm = first._layout(bool(delta))[4]
+        K = sp.csc_matrix(_kkt_dense(Ms, Jy, delta))
+        options = dict(relax=_kkt.SUPERLU_RELAX, panel_size=_kkt.SUPERLU_PANEL)
+        np.testing.assert_array_equal(perm, spla.splu(K, permc_spec="COLAMD", **options).perm_c)
+        # other values, the same pattern: laid out in the kept order
+        Ms2, Jy2 = Ms * rng.uniform(0.5, 2.0, Ms.shape), Jy * rng.uniform(0.5, 2.0, Jy.shape)
+        Ms2 = Ms2 + Ms2.T  # (symmetric, as M is)
+        again = _kkt._SparseSolve(Ms2, Jy2)
+        order, indices, indptr, cols, kept = again._layout(bool(delta))
+        assert kept is perm
+        K2 = _kkt_dense(Ms2, Jy2, delta)
+        vals = again._vals if not delta else np.concatenate([again._vals, np.full(k, -delta)])
+        B = sp.csc_matrix((vals[order], indices, indptr), shape=K2.shape)
+        np.testing.assert_array_equal(B.toarray()[:, perm], K2)  # column i at perm[i]
+        sol = again(delta, rhs, _kkt.RCOND_MIN)
+        fresh = spla.splu(sp.csc_matrix(K2), permc_spec="COLAMD", **options)
+        np.testing.assert_array_equal(sol, fresh.solve(rhs))
+        np.testing.assert_array_equal(again.last(rhs[::-1].copy()), fresh.solve(rhs[::-1].copy()))
+        np.testing.assert_array_equal(again._lu.solve(rhs, trans="T"), fresh.solve(rhs, trans="T"))
+        anorm = float(np.abs(K2).sum(axis=0).max())
+        assert _kkt._rcond_estimate(again._lu, anorm, m + k) == _kkt._rcond_estimate(
+            fresh, anorm, m + k
+        )
+        np.testing.assert_allclose(K2 @ sol, rhs, rtol=0, atol=1e-8 * np.abs(rhs).max())
+        np.testing.assert_allclose(
+            K2.T @ again._lu.solve(rhs, trans="T"), rhs, rtol=0, atol=1e-8 * np.abs(rhs).max()
+        )
+    # one entry more in J_y: a new pattern, no ordering yet
+    Jy3 = Jy.copy()
+    Jy3[0, np.flatnonzero(Jy[0] == 0.0)[0]] = 0.5
+    assert _kkt._SparseSolve(Ms, Jy3)._layout(False)[4] is None
 
 
 @pytest.mark.parametrize("m, n, k", [(30, 25, 20), (130, 60, 126)])
