@@ -514,7 +514,7 @@ _last_structure = None
 
 #: The CSC layout of the last KKT pattern factorised (see _SparseSolve._layout):
 #: ((m, m + k, regularised), (mr, mc, jr, jc), (order, indices, indptr, colidx,
-#: perm), (rows, cols) of the entries in _vals' order).
+#: perm, (rows, cols))).
 _last_layout = None
 
 
@@ -553,17 +553,16 @@ class _SparseSolve:
         self._lu = None
 
     def _layout(self, regularised: bool):
-        """``(order, indices, indptr, colidx, perm)``: where the entries of ``_vals``
-        (then the ``-delta`` diagonal when ``regularised``) go in the CSC arrays of the
-        KKT matrix, its row indices and column pointers, the column of each stored
-        entry, and the column ordering (``perm``, SuperLU's ``perm_c``) when it is
-        known for this pattern: the layout is then of the matrix with its columns
-        already in that order (column ``i`` at ``perm[i]``), None otherwise.
+        """``(order, indices, indptr, colidx, perm, entries)``: where the entries of
+        ``_vals`` (then the ``-delta`` diagonal when ``regularised``) go in the CSC
+        arrays of the KKT matrix, its row indices and column pointers, the column of
+        each stored entry, the column ordering (``perm``, SuperLU's ``perm_c``: column
+        ``i`` at ``perm[i]``) the layout is in, None for the natural order of a pattern
+        not yet ordered (:meth:`_order`), and the ``(rows, cols)`` of the entries.
 
         The iterations of one reconciliation, and the windows of a run, see the same
         pattern again and again: the layout of the last pattern is kept (the same
-        arrays the sort would give), with its ordering once a factorisation has found
-        it (:meth:`_ordered`).
+        arrays the sort would give), in its ordering once found.
         """
         global _last_layout
         m, size = self._m, self._size
@@ -582,27 +581,36 @@ class _SparseSolve:
             diag = np.arange(m, size)
             rows = np.concatenate([rows, diag])
             cols = np.concatenate([cols, diag])
-        layout = (*_csc_layout(rows, cols, size), None)
-        _last_layout = ((m, size, regularised), pattern, layout, (rows, cols))
+        layout = (*_csc_layout(rows, cols, size), None, (rows, cols))
+        _last_layout = ((m, size, regularised), pattern, layout)
         return layout
 
-    def _ordered(self, regularised: bool, perm):
-        """Keep the column ordering ``perm`` a factorisation found for the current
-        pattern (the last one laid out): its next layout comes with the columns in
-        that order, and SuperLU is spared the ordering (it depends on the pattern
-        alone)."""
+    def _order(self, vals, layout):
+        """The layout of the current pattern in its column ordering, from its ``layout``
+        in natural order, or None when the matrix of ``vals`` is exactly singular.
+
+        The ordering is SuperLU's COLAMD with its elimination-tree postorder, read
+        off a factorisation; it depends on the pattern alone.  Every factor is then
+        made with the natural ordering of the matrix laid out in it, whether the
+        ordering was just found or kept: the same factor, to the last bit, for the
+        same matrix (the choice among pivots of equal size, which SuperLU makes by
+        position, would otherwise depend on which of the two was taken).
+        """
         global _last_layout
+        order, indices, indptr, _, _, entries = layout
+        size = self._size
+        A = sp.csc_matrix((vals[order], indices, indptr), shape=(size, size))
+        try:
+            lu = spla.splu(A, permc_spec="COLAMD", relax=SUPERLU_RELAX, panel_size=SUPERLU_PANEL)
+        except RuntimeError:  # exactly singular
+            return None
+        perm = np.asarray(lu.perm_c, dtype=np.intp)
+        rows, cols = entries
+        ordered = (*_csc_layout(rows, perm[cols], size), perm, entries)
         last = _last_layout
-        if last is None or last[0] != (self._m, self._size, regularised):
-            return  # pragma: no cover - laid out just before, by this thread
-        if last[1] is not self._pattern and not all(
-            np.array_equal(a, b) for a, b in zip(last[1], self._pattern, strict=True)
-        ):
-            return  # pragma: no cover - another thread laid out another pattern
-        rows, cols = last[3]
-        perm = np.asarray(perm, dtype=np.intp)
-        layout = (*_csc_layout(rows, perm[cols], self._size), perm)
-        _last_layout = (last[0], last[1], layout, last[3])
+        if last is not None and last[2] is layout:  # (not replaced by another thread)
+            _last_layout = (last[0], last[1], ordered)
+        return ordered
 
     def structurally_singular(self) -> bool:
         """Whether ``J_y`` has structural column rank below ``k`` (a maximum matching of
@@ -639,21 +647,18 @@ class _SparseSolve:
         vals = self._vals
         if delta:
             vals = np.concatenate([vals, np.full(size - m, -delta)])
-        order, indices, indptr, cols, perm = self._layout(bool(delta))
+        layout = self._layout(bool(delta))
+        if layout[4] is None:  # a pattern not seen before: its ordering first
+            layout = self._order(vals, layout)
+            if layout is None:
+                return None
+        order, indices, indptr, cols, perm, _ = layout
         A = sp.csc_matrix((vals[order], indices, indptr), shape=(size, size))
         try:
-            lu = spla.splu(
-                A,
-                permc_spec="COLAMD" if perm is None else "NATURAL",
-                relax=SUPERLU_RELAX,
-                panel_size=SUPERLU_PANEL,
-            )
+            lu = spla.splu(A, permc_spec="NATURAL", relax=SUPERLU_RELAX, panel_size=SUPERLU_PANEL)
         except RuntimeError:  # exactly singular
             return None
-        if perm is None:
-            self._ordered(bool(delta), lu.perm_c)
-        else:
-            lu = _Ordered(lu, perm)
+        lu = _Ordered(lu, perm)
         anorm = float(np.bincount(cols, np.abs(A.data), minlength=size).max(initial=0.0))
         if not _rcond_estimate(lu, anorm, size, rcond_min) > rcond_min:
             return None
@@ -683,13 +688,14 @@ def _csc_layout(rows, cols, size):
 
 class _Ordered:
     """A SuperLU factor of ``A[:, q]`` (``q`` the inverse of ``perm``: column ``i`` of
-    ``A`` at ``perm[i]``), made with the natural ordering, solving with ``A``.
+    ``A`` at ``perm[i]``), made with the natural ordering, solving with ``A``:
+    ``A x = b`` is ``A[:, q] x[q] = b``; ``A^T w = c`` is ``A[:, q]^T w = c[q]``.
 
-    SuperLU's COLAMD ordering depends on the pattern alone, and with the columns
-    given in its order (``perm_c`` of an earlier factor of the same pattern) the
-    natural ordering reproduces it: the same L and U, entry by entry, so the same
-    solutions to the last bit.  ``A x = b`` is ``A[:, q] x[q] = b``; ``A^T w = c`` is
-    ``A[:, q]^T w = c[q]``.
+    With the columns in the order SuperLU's COLAMD gives (with its postorder), the
+    factor is COLAMD's: the same column order and the same partial pivoting, so the
+    same L and U wherever the largest entry of a pivot column is unique (where
+    entries tie, either factor is exact; :meth:`_SparseSolve._order` makes every
+    factor this way, so one matrix always gets one factor).
     """
 
     __slots__ = ("_lu", "_perm", "_inv")

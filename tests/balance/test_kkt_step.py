@@ -229,7 +229,7 @@ def test_kept_csc_layout_builds_the_kkt_matrix_of_each_pattern():
     Ms = (Jx * sdiag) @ Jx.T
 
     def built(solver, delta):
-        order, indices, indptr, cols, perm = solver._layout(bool(delta))
+        order, indices, indptr, cols, perm, _ = solver._layout(bool(delta))
         assert perm is None  # no factorisation of these patterns yet: natural order
         vals = solver._vals
         if delta:
@@ -262,13 +262,13 @@ def test_kept_csc_layout_builds_the_kkt_matrix_of_each_pattern():
 
 
 def test_kept_ordering_gives_the_factor_of_a_fresh_ordering():
-    """Once a factorisation has found the column ordering of a KKT pattern (SuperLU's
-    COLAMD, which depends on the pattern alone), the next matrix of that pattern is
-    laid out in that order and factorised without ordering: its solutions, plain and
-    transposed, and its condition estimate are those of a fresh COLAMD factor of
-    the same matrix to the last bit (SuperLU itself, scipy.sparse.linalg.splu), and
-    the solutions solve the system (numpy's dense solve).  A new pattern starts
-    without an ordering."""
+    """The column ordering of a KKT pattern (SuperLU's COLAMD, which depends on the
+    pattern alone) is found once and kept: every matrix of that pattern is laid out
+    in that order and factorised without ordering.  Its solutions, plain and
+    transposed, and its condition estimate are those of a fresh COLAMD factor of the
+    same matrix to the last bit (SuperLU itself, scipy.sparse.linalg.splu; random
+    values, so no two pivot candidates tie), and the solutions solve the system
+    (numpy's dense solve).  A new pattern starts without an ordering."""
     import scipy.sparse as sp
     import scipy.sparse.linalg as spla
 
@@ -289,7 +289,7 @@ def test_kept_ordering_gives_the_factor_of_a_fresh_ordering():
         Ms2, Jy2 = Ms * rng.uniform(0.5, 2.0, Ms.shape), Jy * rng.uniform(0.5, 2.0, Jy.shape)
         Ms2 = Ms2 + Ms2.T  # (symmetric, as M is)
         again = _kkt._SparseSolve(Ms2, Jy2)
-        order, indices, indptr, cols, kept = again._layout(bool(delta))
+        order, indices, indptr, cols, kept, _ = again._layout(bool(delta))
         assert kept is perm
         K2 = _kkt_dense(Ms2, Jy2, delta)
         vals = again._vals if not delta else np.concatenate([again._vals, np.full(k, -delta)])
