@@ -220,18 +220,25 @@ def kkt_step(Jx, Jy, S, sdiag, is_diag, xk, xm, fk, ysize, try_regular=True, reu
             out = reuse.refine(Jy, fk, c, xm, xk, sdiag, is_diag, Jx_, JxS)
             if out is not None:
                 return out
-        if is_diag:
-            # no (m, n) temporaries beyond the Jacobian itself: for a large one they
-            # cost more (fresh pages) than the arithmetic
-            M = _gram(Jx_, sdiag)
-            if M is None:
-                M = (Jx_ * sdiag) @ Jx_.T
-        else:
-            M = JxS @ Jx_.T
         # Larger systems are factorised sparse (the KKT matrix of a plant has a few
         # entries per row), assembled from the nonzero entries alone: the same
         # products, entry by entry, as the dense arrays of the smaller ones.
         sparse_factor = size >= SPARSE_STEP_MIN
+        # M's nonzero entries and diagonal, without M itself where it can
+        m_entries = _gram(Jx_, sdiag, entries=True) if is_diag and sparse_factor else None
+        if m_entries is not None:
+            M = None
+            m_diag = m_entries[3]
+        else:
+            if is_diag:
+                # no (m, n) temporaries beyond the Jacobian itself: for a large one they
+                # cost more (fresh pages) than the arithmetic
+                M = _gram(Jx_, sdiag)
+                if M is None:
+                    M = (Jx_ * sdiag) @ Jx_.T
+            else:
+                M = JxS @ Jx_.T
+            m_diag = np.diag(M)
         if sparse_factor:
             flat = np.flatnonzero(Jy.ravel() != 0.0)
             jr, jc = np.divmod(flat, k) if k else (flat, flat)
@@ -241,7 +248,7 @@ def kkt_step(Jx, Jy, S, sdiag, is_diag, xk, xm, fk, ysize, try_regular=True, reu
         else:
             Jy_ = Jy * ysize
             jmax = np.abs(Jy_).max(axis=1) if k else None
-        r = _row_scale(np.diag(M), jmax if k else None)
+        r = _row_scale(m_diag, jmax if k else None)
         if r is None:
             return None
         rhs = np.zeros(size)
@@ -261,8 +268,12 @@ def kkt_step(Jx, Jy, S, sdiag, is_diag, xk, xm, fk, ysize, try_regular=True, reu
         # sparse factor has the same acceptance tests as the dense one.
         if sparse_factor:
             # entries of M * r[:, None] * r and Jy_ * r[:, None]
-            mr, mc = np.divmod(np.flatnonzero(M.ravel() != 0.0), m)
-            ms = (mr, mc, M[mr, mc] * r[mr] * r[mc])
+            if M is None:
+                mr, mc, mv, _ = m_entries
+            else:
+                mr, mc = np.divmod(np.flatnonzero(M.ravel() != 0.0), m)
+                mv = M[mr, mc]
+            ms = (mr, mc, mv * r[mr] * r[mc])
             js = (jr, jc, jv * r[jr])
             solver = _SparseSolve.from_entries(m, k, ms, js)
             # a structurally singular system cannot be regular: no factorisation needed
@@ -434,7 +445,7 @@ class Reuse:
         return dx, dy, sol[:m] * r, not delta
 
 
-def _gram(J, s):
+def _gram(J, s, entries=False):
     """``(J * s) @ J.T`` from the nonzeros of a dense-stored ``J``, or None.
 
     A plant's Jacobian has a few entries per column; for a large one mostly zero
@@ -443,6 +454,10 @@ def _gram(J, s):
     fraction of the dense product (the same sums, possibly in another order).  The
     pairs of the last pattern are kept: the iterations of one reconciliation see the
     same pattern again and again.
+
+    With ``entries`` it returns ``(rows, cols, values, diagonal)`` instead: the
+    nonzero entries in row-major order and the diagonal, the numbers of the dense
+    result (the same sums in the same order) without forming it.
     """
     global _last_gram
     m, n = J.shape
@@ -453,7 +468,7 @@ def _gram(J, s):
         return None
     last = _last_gram  # one immutable tuple: safe to share between threads
     if last is not None and last[0] == (m, n) and np.array_equal(last[1], flat):
-        rows, cols, a, b, key = last[2]
+        rows, cols, a, b, key, cells = last[2]
     else:
         cols, rows = np.divmod(flat, m)
         count = np.bincount(cols, minlength=n)
@@ -463,14 +478,32 @@ def _gram(J, s):
         within = np.arange(a.size) - np.repeat(np.cumsum(k) - k, k)
         b = start[cols[a]] + within
         key = rows[a] * m + rows[b]
-        _last_gram = ((m, n), flat, (rows, cols, a, b, key))
+        cells = None  # the distinct cells, laid out on the first call with entries
+        _last_gram = ((m, n), flat, (rows, cols, a, b, key, cells))
     vals = J[rows, cols]
     w = vals[a] * vals[b] * s[cols[a]]
-    return np.bincount(key, weights=w, minlength=m * m).reshape(m, m)
+    if not entries:
+        return np.bincount(key, weights=w, minlength=m * m).reshape(m, m)
+    if cells is None:
+        # the distinct cells in increasing (row-major) order and the cell of each
+        # pair; the diagonal cells and their rows
+        cell, slot = np.unique(key, return_inverse=True)
+        crow, ccol = np.divmod(cell, m)
+        on_diag = np.flatnonzero(crow == ccol)
+        cells = (slot, crow, ccol, on_diag, crow[on_diag])
+        _last_gram = ((m, n), flat, (rows, cols, a, b, key, cells))
+    slot, crow, ccol, on_diag, diag_rows = cells
+    # bincount adds the pairs of each cell in the order given, as it does over the
+    # m * m cells above: the same sums
+    sums = np.bincount(slot, weights=w, minlength=crow.size)
+    diag = np.zeros(m)
+    diag[diag_rows] = sums[on_diag]
+    keep = sums != 0.0  # (the zeros a dense array's entries would leave out)
+    return crow[keep], ccol[keep], sums[keep], diag
 
 
 #: The pairs of the last Jacobian pattern _gram summed: ((m, n), flat positions,
-#: (rows, cols, a, b, key)).
+#: (rows, cols, a, b, key, cells)).
 _last_gram = None
 
 

@@ -111,7 +111,8 @@ def solve_dense(p: Problem, *, deferred: bool = False, final: bool = False) -> C
     w, colB = _equilibrate_dense(A, B, u)
     At = A * w[:, None]
     bt = b * w
-    Bt = B * w[:, None] / colB[None, :]
+    Bt = B * w[:, None]
+    Bt /= colB  # (in place: the same numbers, one temporary less)
     k = B.shape[1]
     red = _dense.reduce_constraints(Bt, At, bt, final=final) if k else None
     if red is None:

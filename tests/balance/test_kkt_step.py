@@ -150,6 +150,19 @@ def test_gram_from_nonzero_pairs_equals_the_dense_product(seed):
     # a handful of products per entry: agreement to a few ulps of the largest entry
     assert np.allclose(G, ref, rtol=0.0, atol=1e-14 * np.abs(ref).max())
     assert np.array_equal(G, G.T)
+    # the nonzero entries alone (row-major) and the diagonal: the same numbers, twice
+    # (the cells are laid out on the first call and kept)
+    J[:, 0] = 0.0
+    J[[3, 7], 0] = [2.0, 3.0]
+    J[[3, 7], 1] = [3.0, -2.0]  # cell (3, 7) cancels exactly: left out, as a zero is
+    G = _kkt._gram(J, np.ones(n))
+    assert G[3, 7] == 0.0
+    for _ in range(2):
+        rows, cols, vals, diag = _kkt._gram(J, np.ones(n), entries=True)
+        nz = np.flatnonzero(G.ravel() != 0.0)
+        np.testing.assert_array_equal(rows * m + cols, nz)
+        np.testing.assert_array_equal(vals, G.ravel()[nz])
+        np.testing.assert_array_equal(diag, np.diag(G))
 
 
 def test_gram_leaves_small_or_dense_matrices_to_the_dense_product():
