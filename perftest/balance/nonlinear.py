@@ -285,6 +285,9 @@ def reconcile_nonlinear(
     it = 0
     while it < max_iter:
         it += 1
+        # (the last iterate's Jacobians and problem let go first: the new ones take
+        # their memory instead of fresh pages)
+        Jx = Jy = p = core = None
         Jx, Jy = jac(xk, y)
         if row_scale is None:
             # Standard deviation of each residual under measurement noise, from the
@@ -308,6 +311,8 @@ def reconcile_nonlinear(
         # convergence: this is most likely the last linearisation, whose full solve
         # gives the statistics; go there directly.
         last_one = resid_small and last_step <= _LOCAL
+        if last_one:
+            reuse.factor = None  # not wanted by the full solve: its memory serves it
         step = (
             None
             if last_one
