@@ -225,7 +225,7 @@ def _pivoted_qr(Bt: np.ndarray):
 
 
 def reduce_constraints(
-    Bt: np.ndarray, At: np.ndarray, bt: np.ndarray, *, final: bool = False
+    Bt: np.ndarray, At: np.ndarray, bt: np.ndarray, *, final: bool = False, pattern=None
 ) -> Reduction:
     """Eliminate the unmeasured variables from ``At x + Bt y = bt`` (dense, ``k > 0``).
 
@@ -239,12 +239,13 @@ def reduce_constraints(
     nearly square ``R1`` of a plant) applied to ``[At | bt]``, instead of a second full
     QR factorisation and a formed ``G``: the same ``G`` (it does not depend on the
     orthogonal decomposition).  Both equal the formed route to rounding, not to the
-    last bit (``exact`` False).
+    last bit (``exact`` False).  ``pattern``: the flat positions of ``Bt``'s nonzero
+    entries when the caller has them (see :func:`triangular_structure`).
     """
     m, k = Bt.shape
     n = At.shape[1]
     if final:
-        red = reduce_structured(Bt, At, bt)
+        red = reduce_structured(Bt, At, bt, pattern)
         if red is not None:
             return red
     Q, R, piv = _pivoted_qr(Bt)
@@ -291,7 +292,9 @@ def _solve_rz(Q, R, piv, r, H):
     return out, null
 
 
-def reduce_structured(Bt: np.ndarray, At: np.ndarray, bt: np.ndarray) -> Reduction | None:
+def reduce_structured(
+    Bt: np.ndarray, At: np.ndarray, bt: np.ndarray, pattern=None
+) -> Reduction | None:
     """:func:`reduce_constraints` for a final solve, through the triangular structure of ``Bt``.
 
     A plant's ``B`` is mostly triangular: a balance with one unmeasured variable
@@ -323,7 +326,7 @@ def reduce_structured(Bt: np.ndarray, At: np.ndarray, bt: np.ndarray) -> Reducti
     """
     m, k = Bt.shape
     n = At.shape[1]
-    blocks = triangular_structure(Bt)
+    blocks = triangular_structure(Bt, pattern)
     if blocks is None:
         return None
     fr, fc, mr, mc, kr, kc = blocks
@@ -397,7 +400,7 @@ def _orthonormal_columns(X: np.ndarray) -> np.ndarray:
     return _lapack(dorgqr, qr, tau, overwrite_a=1)[0]
 
 
-def triangular_structure(Bt: np.ndarray):
+def triangular_structure(Bt: np.ndarray, pattern=None):
     """The triangular blocks of ``Bt``'s pattern, or None when it has none.
 
     Repeatedly peels off a row with a single nonzero left (its column goes to the
@@ -411,7 +414,8 @@ def triangular_structure(Bt: np.ndarray):
     """
     global _last_triangular
     m, k = Bt.shape
-    flat = np.flatnonzero(Bt.ravel() != 0.0)
+    # (``pattern``: Bt's nonzero flat positions, increasing, when the caller has them)
+    flat = np.flatnonzero(Bt.ravel() != 0.0) if pattern is None else pattern
     last = _last_triangular  # one immutable tuple: safe to share between threads
     if last is not None and last[0] == (m, k) and np.array_equal(last[1], flat):
         return last[2]
