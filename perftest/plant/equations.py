@@ -496,41 +496,25 @@ class PlantModel:
         return pd.DataFrame(src, columns=cols)
 
     # ------------------------------------------------------------ equations
-    def _properties(self, v: np.ndarray, derivatives: bool = True):
+    def _properties(self, v: np.ndarray):
         """Property values and derivatives of every state, saturation and quality row.
 
         Returns ``((h, dh_dT, dh_dp), (T_sat, dT_dp), (h, dh_dp, dh_dx))``, each array
         holding the rows of its groups end to end (see :meth:`_prepare_evaluation`).
-        Without ``derivatives`` (a residual alone) the derivatives of (p, T) states
-        that have a cheaper way to ``h`` alone (:func:`~perftest.plant.states.h_pT_sides_values`)
-        are left out (None, or not filled in) and made when a Jacobian at the same
-        point asks for them: a trial point that is rejected, or the last point of a
-        solve, never needs them.
 
         The residual and the Jacobian at one point need the same property calls: the
         engines evaluate the residual at a trial point and, once it is accepted, the
         Jacobian there (and scipy's optimisers call both at each iterate).  The last
         few sets are kept, keyed by the exact bytes of the property inputs
         (pressures, temperatures, qualities), so the second call repeats no property
-        call and returns the very same numbers (its derivatives added where they
-        were left out).  The entries are never modified: a set completed with its
-        derivatives is a new one.
+        call and returns the very same numbers.  The entries are never modified.
         """
         key = v[self._prop_idx].tobytes()
         cache = self._prop_cache
-        for i, (k, out, todo) in enumerate(cache):
+        for k, out in cache:
             if k == key:
-                if todo and derivatives:
-                    state = self._state_derivatives(v, out[0], todo)
-                    out = (state, *out[1:])
-                    # a new tuple, assigned at once (threads sharing the model see
-                    # either); the completed set takes the place of the other
-                    self._prop_cache = (*cache[:i], (key, out, ()), *cache[i + 1 :])
                 return out
-        if derivatives:
-            state, todo = self._state_values(v), ()
-        else:
-            state, todo = self._state_values(v, derivatives=False)
+        state = self._state_values(v)
         sat = _end_to_end(
             [thermo.saturation(fl, v[p], sids) for fl, _, _, sids, p, _, _ in self._sat_groups], 2
         )
@@ -540,10 +524,10 @@ class PlantModel:
         )
         out = (state, sat, qual)
         # a new tuple, assigned at once: threads sharing the model see either list
-        self._prop_cache = ((key, out, todo), *cache[: _PROPERTY_CACHE - 1])
+        self._prop_cache = ((key, out), *cache[: _PROPERTY_CACHE - 1])
         return out
 
-    def _state_values(self, v: np.ndarray, derivatives: bool = True):
+    def _state_values(self, v: np.ndarray):
         """``h, dh_dT, dh_dp`` of every state row, the groups end to end.
 
         The states of one fluid go to the property layer in one call
@@ -552,62 +536,27 @@ class PlantModel:
         one by one, as are groups of other phases, in the order of the groups, so that
         the first failing group raises its own message.  Either way each state gets
         the value :func:`~perftest.plant.states.h_pT` gives it in its own group.
-
-        Without ``derivatives``: ``(values, todo)``, where the batches in ``todo`` (by
-        position in ``_st_batches``) have their ``h`` alone
-        (:func:`~perftest.plant.states.h_pT_sides_values`), their derivatives left
-        for :meth:`_state_derivatives` (None for a single batch of every group, not
-        filled in otherwise).
         """
         groups, at = self._state_groups, self._st_at
-        got, pending, todo = [], list(self._st_singles), []
-        for b, (fl, members, pos, p, T, below, above) in enumerate(self._st_batches):
-            pv, Tv = v[p], v[T]
-            if not derivatives:
-                h = thermo.h_pT_sides_values(fl, pv, Tv, below, above)
-                if h is not None:
-                    got.append((pos, (h, None, None)))
-                    todo.append(b)
-                    continue
-            res = thermo.h_pT_sides(fl, pv, Tv, below, above)
+        got, pending = [], list(self._st_singles)
+        for fl, members, pos, p, T, below, above in self._st_batches:
+            res = thermo.h_pT_sides(fl, v[p], v[T], below, above)
             if res is None:
                 pending += members
             else:
                 got.append((pos, res))
         if self._st_whole and got:
-            out = got[0][1]  # one call for every group, in their order: end to end
-        else:
-            out = tuple(np.empty(at[-1]) for _ in range(3))
-            for pos, res in got:
-                for dest, val in zip(out, res, strict=True):
-                    if val is not None:
-                        dest[pos] = val
-            for i in sorted(pending):
-                fl, ph, _, sids, p, T, _ = groups[i]
-                part = thermo.h_pT(fl, ph, v[p], v[T], sids)
-                for dest, val in zip(out, part, strict=True):
-                    dest[at[i] : at[i + 1]] = val
-        return out if derivatives else (out, tuple(todo))
-
-    def _state_derivatives(self, v: np.ndarray, state, todo):
-        """``state`` of :meth:`_state_values` without derivatives, completed: the
-        derivatives of the batches in ``todo``
-        (:func:`~perftest.plant.states.h_pT_sides_derivatives`), the numbers the full
-        call gives.  Where one of them declines, the full call makes the whole set."""
-        h, dhdT, dhdp = state
-        parts = []
-        for b in todo:
-            fl, _, pos, p, T, _, _ = self._st_batches[b]
-            res = thermo.h_pT_sides_derivatives(fl, v[p], v[T])
-            if res is None:
-                return self._state_values(v)
-            parts.append((pos, res))
-        if self._st_whole:
-            return (h, *parts[0][1])
-        dhdT, dhdp = dhdT.copy(), dhdp.copy()
-        for pos, (cp, dp) in parts:
-            dhdT[pos], dhdp[pos] = cp, dp
-        return h, dhdT, dhdp
+            return got[0][1]  # one call for every group, in their order: end to end
+        out = tuple(np.empty(at[-1]) for _ in range(3))
+        for pos, res in got:
+            for dest, val in zip(out, res, strict=True):
+                dest[pos] = val
+        for i in sorted(pending):
+            fl, ph, _, sids, p, T, _ = groups[i]
+            part = thermo.h_pT(fl, ph, v[p], v[T], sids)
+            for dest, val in zip(out, part, strict=True):
+                dest[at[i] : at[i + 1]] = val
+        return out
 
     def _linear_part(self, v: np.ndarray) -> np.ndarray:
         """Unscaled residuals of the linear and bilinear (m h) terms."""
@@ -619,7 +568,7 @@ class PlantModel:
     def _evaluate(self, v: np.ndarray, jac: bool):
         """Unscaled residuals and (optionally) COO Jacobian entries over model variables."""
         r = self._linear_part(v)
-        props = self._properties(v, derivatives=jac)
+        props = self._properties(v)
         (h, _, _), (Ts, _), (hq, _, _) = props
         r[self._st_rows] -= h
         r[self._sat_rows] -= Ts

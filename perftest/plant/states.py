@@ -25,24 +25,11 @@ from perftest.thermo.saturation import saturated_arrays
 from perftest.thermo.single_phase import (
     backend_h_cp_dhdp,
     far_from_saturation_sides,
-    if97_cp_dhdp,
-    if97_h,
     if97_h_cp_dhdp,
     pT,
 )
 
-__all__ = [
-    "h_pT",
-    "h_pT_sides",
-    "h_pT_sides_values",
-    "h_pT_sides_derivatives",
-    "SIDES",
-    "saturation",
-    "h_px",
-    "state_ph",
-    "dead_state",
-    "fluid",
-]
+__all__ = ["h_pT", "h_pT_sides", "SIDES", "saturation", "h_px", "state_ph", "dead_state", "fluid"]
 
 # Relative pressure step of the one-sided difference used for dh/dp at fixed
 # quality (the only derivative the property layer does not give).  1e-6 keeps the
@@ -188,28 +175,6 @@ def h_pT_sides(name: str, p, T, below, above):
     if not far_from_saturation_sides(f, p, T, below, above):
         return None
     return if97_h_cp_dhdp(f, p, T)
-
-
-def h_pT_sides_values(name: str, p, T, below, above):
-    """The ``h`` of :func:`h_pT_sides` alone, for a residual without its Jacobian, or None.
-
-    Only IF97 water has a cheaper way to ``h`` alone (one CoolProp call instead of
-    three evaluations per state); None for other fluids and wherever
-    :func:`h_pT_sides` would decline, with nothing raised: the caller then makes the
-    full call.  The derivatives of the same states, when they are wanted later, come
-    from :func:`h_pT_sides_derivatives`: together the numbers of :func:`h_pT_sides`.
-    """
-    f = fluid(name)
-    if not f.is_if97 or not far_from_saturation_sides(f, p, T, below, above):
-        return None
-    return if97_h(f, p, T)
-
-
-def h_pT_sides_derivatives(name: str, p, T):
-    """``(dh_dT, dh_dp)`` of states whose ``h`` came from :func:`h_pT_sides_values`,
-    the numbers :func:`h_pT_sides` gives, or None when a point of the difference
-    stencil fails (the caller then makes the full call)."""
-    return if97_cp_dhdp(fluid(name), p, T)
 
 
 def saturation(name: str, p, streams=()):

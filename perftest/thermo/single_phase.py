@@ -143,33 +143,6 @@ def if97_h_cp_dhdp(fluid, p, T):
     return None if dhdp is None else (out[:, 0], out[:, 1], dhdp)
 
 
-def if97_h(fluid, p, T):
-    """``h`` of :func:`if97_h_cp_dhdp` alone (one CoolProp call), or None when any point
-    fails.  CoolProp's IF97 backend computes each output of a point on its own, so
-    this ``h`` is that function's to the last bit (checked in tests/thermo)."""
-    n = p.size
-    out = np.empty((n, 1))
-    status = np.empty(n, dtype=np.int32)
-    fluid._as.fast_evaluate(fluid._CP.PT_INPUTS, p, T, out_keys(fluid, ("h",)), out, status)
-    if np.count_nonzero(status):
-        return None
-    return out[:, 0]
-
-
-def if97_cp_dhdp(fluid, p, T):
-    """``cp, (dh/dp)_T`` of :func:`if97_h_cp_dhdp` without ``h`` (the same numbers), or
-    None when any point fails: the derivatives of states whose ``h`` came from
-    :func:`if97_h`."""
-    n = p.size
-    out = np.empty((n, 1))
-    status = np.empty(n, dtype=np.int32)
-    fluid._as.fast_evaluate(fluid._CP.PT_INPUTS, p, T, out_keys(fluid, ("cp",)), out, status)
-    if np.count_nonzero(status):
-        return None
-    dhdp = _if97_dhdp(fluid, p, T)
-    return None if dhdp is None else (out[:, 0], dhdp)
-
-
 def backend_h_cp_dhdp(fluid, p, T, below, above):
     """``h, cp, (dh/dp)_T`` of :func:`pT_rules` for a fluid other than IF97 water, or None.
 

@@ -93,37 +93,6 @@ def test_one_call_per_fluid_equals_the_group_calls(name):
         np.testing.assert_array_equal(r[model._st_rows], hslot - got[0])
 
 
-@pytest.mark.parametrize("name", SCENARIOS)
-def test_residual_leaves_derivatives_for_the_jacobian(name):
-    """A residual alone asks the property layer for h alone where it can (IF97 water),
-    and leaves the derivatives for a Jacobian at the same point: the residual and the
-    Jacobian are then those of a model that made every call in full (a fresh model,
-    Jacobian first), to the last bit, in either order and with other points between."""
-    model, x0, y0 = _model(name)
-    rng = np.random.default_rng(12)
-    points = [
-        (
-            x0 * (1 + 1e-3 * rng.standard_normal(x0.size)),
-            y0 * (1 + 1e-3 * rng.standard_normal(y0.size)),
-        )
-        for _ in range(3)
-    ]
-    for x, y in points:
-        model.residual(x, y)
-    water = any(b[0] == "water" for b in model._st_batches)
-    left = [todo for _, _, todo in model._prop_cache[:3]]  # (the three points, newest first)
-    assert all(left) if water else not any(left)  # derivatives left out where h is cheaper
-    full = build_model(perftest.load_plant(ROOT / "sample_data" / name / "plant.toml"))
-    assert full is not model
-    for x, y in points[::-1]:
-        Jx, Jy = model.jacobian(x, y)
-        Fx, Fy = full.jacobian(x, y)  # nothing kept: every property call in full
-        for a, b in ((Jx, Fx), (Jy, Fy)):
-            np.testing.assert_array_equal(a.toarray(), b.toarray())
-        np.testing.assert_array_equal(model.residual(x, y), full.residual(x, y))
-    assert not any(todo for _, _, todo in model._prop_cache)  # completed in place of the sets
-
-
 @pytest.mark.parametrize(("name", "fluid"), [("brackenfold", "water"), ("ostrenby", "R134a")])
 def test_state_inside_the_margin_takes_the_group_rules(name, fluid):
     """A declared vapour 0.03 K above saturation (inside the 0.05 K margin) is

@@ -324,35 +324,6 @@ def test_one_call_for_mixed_sides_equals_point_updates():
         np.testing.assert_array_equal(a, b)  # exact, as above
 
 
-def test_values_alone_then_derivatives_equal_the_one_call():
-    """h alone (for a residual) and the derivatives alone (for a Jacobian at the same
-    states later) are, together, the numbers of the one call and of CoolProp's
-    point-by-point updates, to the last bit (CoolProp's IF97 backend evaluates each
-    output of a point on its own).  Where the one call declines, so does h alone;
-    other fluids have no cheaper way to h alone."""
-    rng = np.random.default_rng(RNG_SEED + 2)
-    p, T_liq, T_vap = _liquid_and_steam(40, rng)
-    side = np.arange(p.size) % 3
-    T = np.where(side == 1, T_vap, T_liq)
-    below, above = side != 1, side != 0
-    h = plant_states.h_pT_sides_values("water", p, T, below, above)
-    dhdT, dhdp = plant_states.h_pT_sides_derivatives("water", p, T)
-    ref = _point_by_point(p, T)
-    for a, b in zip((h, dhdT, dhdp), ref, strict=True):
-        np.testing.assert_array_equal(a, b)
-    one_call = plant_states.h_pT_sides("water", p, T, below, above)
-    for a, b in zip((h, dhdT, dhdp), one_call, strict=True):
-        np.testing.assert_array_equal(a, b)
-    # a vapour inside the margin: the rules anchor it, h alone declines as the one call does
-    ts = WATER.saturation_T(p[:1])
-    near = np.array([ts[0] + 0.03])
-    assert plant_states.h_pT_sides("water", p[:1], near, [False], [True]) is None
-    assert plant_states.h_pT_sides_values("water", p[:1], near, [False], [True]) is None
-    q = np.array([5e5])
-    t_r = get_fluid("R134a").saturation_T(q) + 10.0
-    assert plant_states.h_pT_sides_values("R134a", q, t_r, [False], [True]) is None
-
-
 @pytest.mark.parametrize(
     ("shift", "below", "above"),
     [
