@@ -415,8 +415,8 @@ def test_final_solve_shortcut_changes_no_iterate(monkeypatch):
     seen = []
     reduce = _dense.reduce_constraints
 
-    def spy(Bt, At, bt, *, final=False):
-        red = reduce(Bt, At, bt, final=final)
+    def spy(Bt, At, bt, *, final=False, pattern=None):
+        red = reduce(Bt, At, bt, final=final, pattern=pattern)
         seen.append(red.exact)
         return red
 
@@ -424,7 +424,7 @@ def test_final_solve_shortcut_changes_no_iterate(monkeypatch):
     fast = reconcile_nonlinear(res, x, cov, y0=y0)
     assert False in seen  # the shortcut was taken
 
-    def exact(Bt, At, bt, *, final=False):
+    def exact(Bt, At, bt, *, final=False, pattern=None):
         return reduce(Bt, At, bt)
 
     monkeypatch.setattr(_dense, "reduce_constraints", exact)

@@ -229,7 +229,7 @@ def _kkt_dense(Ms, Jys, delta):
     return K
 
 
-def test_kept_csc_layout_builds_the_kkt_matrix_of_each_pattern():
+def test_kept_csc_layout_builds_the_kkt_matrix_of_each_pattern(monkeypatch):
     """The CSC layout of a KKT pattern is kept for the next step with the same pattern:
     filled with new values it gives the matrix of those values (against a dense array
     of the definition), in scipy's canonical form (rows sorted within each column), and
@@ -240,6 +240,7 @@ def test_kept_csc_layout_builds_the_kkt_matrix_of_each_pattern():
     m, n, k = 130, 60, 126
     Jx, Jy, sdiag, *_ = _problem(rng, m, n, k)
     Ms = (Jx * sdiag) @ Jx.T
+    monkeypatch.setattr(_kkt, "_last_layout", None)  # (whatever an earlier test factorised)
 
     def built(solver, delta):
         order, indices, indptr, cols, perm, _ = solver._layout(bool(delta))
@@ -274,7 +275,7 @@ def test_kept_csc_layout_builds_the_kkt_matrix_of_each_pattern():
     )
 
 
-def test_kept_ordering_gives_the_factor_of_a_fresh_ordering():
+def test_kept_ordering_gives_the_factor_of_a_fresh_ordering(monkeypatch):
     """The column ordering of a KKT pattern (SuperLU's COLAMD, which depends on the
     pattern alone) is found once and kept: every matrix of that pattern is laid out
     in that order and factorised without ordering.  Its solutions, plain and
@@ -290,6 +291,7 @@ def test_kept_ordering_gives_the_factor_of_a_fresh_ordering():
     Jx, Jy, sdiag, *_ = _problem(rng, m, n, k)
     Ms = (Jx * sdiag) @ Jx.T
     rhs = rng.normal(size=m + k)
+    monkeypatch.setattr(_kkt, "_last_layout", None)  # (whatever an earlier test factorised)
     for delta in (_kkt.DELTA, 0.0):
         first = _kkt._SparseSolve(Ms, Jy)
         assert first._layout(bool(delta))[4] is None
