@@ -97,12 +97,15 @@ SPARSE_STEP_MIN = 120
 SUPERLU_RELAX = 1
 SUPERLU_PANEL = 4
 
-#: A dense-stored Jacobian of at least GRAM_MIN entries with at most GRAM_DENSITY of
-#: them nonzero has its Gram matrix J S J^T summed from its nonzero pairs (_gram): on
-#: the 120 x 220 network of benchmarks/bench_nonlinear.py (2 % nonzero) about 40 us
-#: against 160 us for the dense product.
-GRAM_MIN = 4096
-GRAM_DENSITY = 0.1
+#: A dense-stored matrix of at least NONZERO_MIN entries with at most NONZERO_DENSITY
+#: of them nonzero is worked on through its nonzero entries (nonzero_positions): a
+#: Jacobian's Gram matrix J S J^T summed from its nonzero pairs (_gram; on the
+#: 120 x 220 network of benchmarks/bench_nonlinear.py, 2 % nonzero, about 40 us
+#: against 160 us for the dense product), and the closing solve's equilibration of
+#: the unmeasured Jacobian B (linear.solve_dense; on the 130 x 126 B of the 42-stream
+#: cycle, 2 % nonzero, the passes over all of B cost more than the rest of it).
+NONZERO_MIN = 4096
+NONZERO_DENSITY = 0.1
 
 #: A sparse factor is accepted after the first step of the condition estimate when
 #: that step puts the reciprocal condition number this many times above the bound
@@ -445,11 +448,21 @@ class Reuse:
         return dx, dy, sol[:m] * r, not delta
 
 
+def nonzero_positions(J):
+    """Flat positions (row-major) of the nonzero entries of a dense-stored ``J`` that
+    is large and mostly zero (``NONZERO_MIN``, ``NONZERO_DENSITY``), or None."""
+    m, n = J.shape
+    if m * n < NONZERO_MIN:
+        return None
+    flat = np.flatnonzero(J.ravel() != 0.0)
+    return None if flat.size > NONZERO_DENSITY * m * n else flat
+
+
 def _gram(J, s, entries=False):
     """``(J * s) @ J.T`` from the nonzeros of a dense-stored ``J``, or None.
 
     A plant's Jacobian has a few entries per column; for a large one mostly zero
-    (at least ``GRAM_MIN`` entries, at most ``GRAM_DENSITY`` of them nonzero) the
+    (at least ``NONZERO_MIN`` entries, at most ``NONZERO_DENSITY`` of them nonzero) the
     products of each column's nonzero pairs, summed with ``np.bincount``, cost a
     fraction of the dense product (the same sums, possibly in another order).  The
     pairs of the last pattern are kept: the iterations of one reconciliation see the
@@ -461,10 +474,8 @@ def _gram(J, s, entries=False):
     """
     global _last_gram
     m, n = J.shape
-    if m * n < GRAM_MIN:
-        return None
-    flat = np.flatnonzero(J.T.ravel() != 0.0)  # column by column
-    if flat.size > GRAM_DENSITY * m * n:
+    flat = nonzero_positions(J.T)  # column by column
+    if flat is None:
         return None
     last = _last_gram  # one immutable tuple: safe to share between threads
     if last is not None and last[0] == (m, n) and np.array_equal(last[1], flat):

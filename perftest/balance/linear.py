@@ -11,6 +11,7 @@ from scipy.linalg.lapack import dtrtrs
 
 from perftest.balance import _checks, _dense, _sparse
 from perftest.balance._core import Core, Problem
+from perftest.balance._kkt import nonzero_positions
 from perftest.balance._stats import chi2_p_value
 from perftest.balance._threads import one_blas_thread_when_small
 from perftest.balance.result import BatchReconciliation, Reconciliation
@@ -75,11 +76,13 @@ def _equilibrate_dense(A, B, u, nonzeros=None):
     """Row weights and B column scales so that one unit is about one standard deviation.
 
     ``nonzeros``: the flat positions of B's nonzero entries, when known (see
-    :func:`_nonzeros`); the largest entries per column and row are then read from
-    them alone (the same maxima, without passes over all of a mostly zero B).
+    :func:`~perftest.balance._kkt.nonzero_positions`); the largest entries per column
+    and row are then read from them alone (the same maxima, without passes over all
+    of a mostly zero B).
     """
     m, k = B.shape
-    if nonzeros is not None and m and k:
+    from_nonzeros = nonzeros is not None and m and k
+    if from_nonzeros:
         rows, cols = np.divmod(nonzeros, k)
         av = np.abs(B.ravel()[nonzeros])
         colB = np.zeros(k)
@@ -94,7 +97,7 @@ def _equilibrate_dense(A, B, u, nonzeros=None):
         rowA = absA.max(axis=1)
     else:
         rowA = np.zeros(m)
-    if k and nonzeros is not None and m:
+    if from_nonzeros:
         rowB = np.zeros(m)
         np.maximum.at(rowB, rows, av / colB[cols])
     elif k:
@@ -105,23 +108,6 @@ def _equilibrate_dense(A, B, u, nonzeros=None):
     scale = np.maximum(rowA, rowB)
     w = np.where(scale > 0, 1.0 / np.where(scale > 0, scale, 1.0), 1.0)
     return w, colB
-
-
-# A dense B of at least this many entries with at most this share of them nonzero is
-# equilibrated from its nonzero entries (and its pattern handed to the structured
-# reduction): on the 130 x 126 B of the 42-stream cycle (2 % nonzero) the passes over
-# all of it cost more than the rest of the equilibration.
-_NONZERO_MIN = 4096
-_NONZERO_SHARE = 0.1
-
-
-def _nonzeros(B):
-    """Flat positions of the nonzero entries of a large, mostly zero dense ``B``, or None."""
-    m, k = B.shape
-    if m * k < _NONZERO_MIN:
-        return None
-    flat = np.flatnonzero(B.ravel() != 0.0)
-    return flat if flat.size <= _NONZERO_SHARE * m * k else None
 
 
 def solve_dense(p: Problem, *, deferred: bool = False, final: bool = False) -> Core:
@@ -140,7 +126,8 @@ def solve_dense(p: Problem, *, deferred: bool = False, final: bool = False) -> C
     n = x.size
     u = np.sqrt(s)
     k = B.shape[1]
-    nonzeros = _nonzeros(B) if final and k else None
+    # a large, mostly zero B: equilibrated from its nonzeros, its pattern passed on
+    nonzeros = nonzero_positions(B) if final and k else None
     w, colB = _equilibrate_dense(A, B, u, nonzeros)
     At = A * w[:, None]
     bt = b * w

@@ -170,11 +170,11 @@ def test_reconciliation_equals_the_whole_factorisation(seed, monkeypatch):
 
 @pytest.mark.parametrize("seed", range(4))
 def test_equilibration_from_the_nonzeros_equals_the_dense_one(seed):
-    """A large, mostly zero B is equilibrated from its nonzero entries (``_nonzeros``):
+    """A large, mostly zero B is equilibrated from its nonzero entries (``nonzero_positions``):
     the same row weights and column scales to the last bit as the passes over all of
     B (maxima are exact), empty rows and columns included; and its pattern handed to
     the structured reduction gives the blocks of the scan."""
-    from perftest.balance import linear
+    from perftest.balance import _kkt, linear
 
     rng = np.random.default_rng(40 + seed)
     B = _plant_like(rng, 60, 30, 28, 6, 20, deficit=2)
@@ -184,8 +184,8 @@ def test_equilibration_from_the_nonzeros_equals_the_dense_one(seed):
     for i in range(m):
         A[i, rng.choice(40, size=2, replace=False)] = rng.normal(size=2)
     u = rng.uniform(0.1, 2.0, 40)
-    flat = linear._nonzeros(B)
-    assert flat is not None and m * k >= linear._NONZERO_MIN
+    flat = _kkt.nonzero_positions(B)
+    assert flat is not None and m * k >= _kkt.NONZERO_MIN
     for a, b in zip(
         linear._equilibrate_dense(A, B, u, flat), linear._equilibrate_dense(A, B, u), strict=True
     ):
@@ -198,5 +198,5 @@ def test_equilibration_from_the_nonzeros_equals_the_dense_one(seed):
     given = _dense.triangular_structure(Bt, flat)
     for a, b in zip(given, scanned, strict=True):
         np.testing.assert_array_equal(a, b)
-    assert linear._nonzeros(rng.normal(size=(80, 80))) is None  # dense
-    assert linear._nonzeros(np.eye(10)) is None  # small
+    assert _kkt.nonzero_positions(rng.normal(size=(80, 80))) is None  # dense
+    assert _kkt.nonzero_positions(np.eye(10)) is None  # small
