@@ -1,14 +1,16 @@
 """Monitoring on a Dask cluster of separate processes: parallel efficiency on 2 workers.
 
-Run:  python benchmarks/bench_cluster.py [--days 365] [--repeat 1]
+Run:  python benchmarks/bench_cluster.py [--days 365] [--repeat 1] [--dask-defaults]
 
 The logs are those of benchmarks/bench_year.py (the Brackenfold demo unit, one
 sample a minute, ``--days`` days, 15-minute windows).  A scheduler and two workers
 are started as separate processes on 127.0.0.1 (``dask scheduler``, ``dask worker
---nthreads 1``, the worker profiler off through
-DASK_DISTRIBUTED__WORKER__PROFILE__ENABLED=False; tests/scale/loopback.py) and
-stopped at the end, also on failure.  Measured in one run, with the load average
-beside each figure (the machine may be shared: repeat and compare the spread):
+--nthreads 1``; tests/scale/loopback.py) with the settings README.md gives for a
+cluster that computes perftest's windows: the worker profiler off and Dask's
+sampling of its own event loops and system counters every 1 s and 2 s instead of
+20 ms and 500 ms (``perftest.scale.cluster.QUIET_SETTINGS``); they are stopped at
+the end, also on failure.  Measured in one run, with the load average beside each
+figure (the machine may be shared: repeat and compare the spread):
 
 * the plain process: ``reconcile_many`` on the local engine in a child process
   (windows/s and windows per CPU-second);
@@ -17,19 +19,23 @@ beside each figure (the machine may be shared: repeat and compare the spread):
 * the cluster: ``reconcile_many(..., engine="dask", scheduler="tcp://127.0.0.1:P")``
   on warm workers (a short job first), windows/s, windows per worker CPU-second,
   and where the task time goes (Dask's task stream: compute, transfer,
-  deserialisation; worker memory limit and spilled bytes);
+  deserialisation; worker memory limit and spilled bytes); then the CPU its
+  processes use while idle for 10 s;
 * ``perftest monitor --engine dask --scheduler tcp://127.0.0.1:P`` once, timed,
-  its table compared with the local engine's.
+  its table compared with the local engine's;
+* with ``--dask-defaults``, the same job on a second cluster started with Dask's
+  default sampling intervals (the profiler still off), for comparison.
 
 Target (PASS/FAIL printed): parallel efficiency = windows/s on 2 workers /
 (2 x windows/s of the plain process) >= 0.85.  Printed beside it: the same against
 the two-plain-processes ceiling (the part of the loss Dask is responsible for).
 
-The plain process is timed twice, before and after the cluster, and the efficiency
-is taken against the mean of the two: on a shared machine the speed of one process
-drifts by several per cent over the minutes a year takes (measured here: 110.7 and
-118.6 windows/s for the same job in two sessions), and a single reference taken
-before would put all of that drift into the ratio.
+The plain process is timed twice, before and after the cluster(s), and the
+efficiency is taken against the mean of the two: on a shared machine the speed of
+one process drifts by several per cent over the minutes a year takes (measured
+here: 110.7 and 118.6 windows/s for the same job in two sessions, and 117.0 before
+and 107.0 after the cluster in one run), and a single reference taken before would
+put all of that drift into the ratio.
 """
 
 from __future__ import annotations
@@ -140,6 +146,50 @@ def _cluster_run(address, plant, files, short):
     return table, seconds, cpu, parts, tasks, mem
 
 
+IDLE_SECONDS = 10.0
+
+
+def _idle_cost(seconds: float = IDLE_SECONDS) -> str:
+    """CPU-seconds the cluster's processes (children of this one: scheduler, nannies,
+    workers) use while the cluster waits for work, over ``seconds``."""
+    import psutil
+
+    def cpu():
+        out = 0.0
+        for p in psutil.Process().children(recursive=True):
+            try:
+                t = p.cpu_times()
+            except psutil.Error:
+                continue
+            out += t.user + t.system
+        return out
+
+    time.sleep(2.0)  # the job's last messages
+    c0 = cpu()
+    time.sleep(seconds)
+    used = cpu() - c0
+    return f"{used:.2f} CPU-s ({used / seconds:.1%} of one core)"
+
+
+def _monitor_cli(plant, full, out, address) -> bool:
+    """``perftest monitor --engine dask --scheduler ADDRESS`` once, timed."""
+    cmd = [sys.executable, "-m", "perftest.cli", "monitor", str(plant), "--data",
+           str(full[0]), "--data", str(full[1]), "--every", by.EVERY, "--out",
+           str(out), "--no-figures", "-q", "--engine", "dask",
+           "--scheduler", address]  # fmt: skip
+    t = time.perf_counter()
+    proc = subprocess.run(cmd, capture_output=True, text=True, timeout=7200)
+    took = time.perf_counter() - t
+    if proc.returncode:
+        print("    perftest monitor failed: " + proc.stderr.strip()[-300:])
+        return False
+    n = len(pd.read_csv(out / "windows.csv"))
+    print(f"    perftest monitor --engine dask --scheduler {address}: "
+          f"{n} windows in {took:.1f} s (with start-up and writing) "
+          f"= {n / took:.2f} windows/s")  # fmt: skip
+    return True
+
+
 def _task_stream(client):
     from distributed import get_task_stream
 
@@ -156,6 +206,11 @@ def main() -> None:
         default=[],
         metavar="OPT",
         help="a further 'dask worker' option, e.g. --worker-arg=--memory-limit=0",
+    )
+    p.add_argument(
+        "--dask-defaults",
+        action="store_true",
+        help="also time the job on a cluster with Dask's default sampling intervals",
     )
     p.add_argument("--child", action="store_true", help=argparse.SUPPRESS)
     p.add_argument("--plant", help=argparse.SUPPRESS)
@@ -194,54 +249,51 @@ def main() -> None:
                   f"CPU-second  [{by._load()}]")  # fmt: skip
             with loopback_cluster(2, log_dir=tmp, worker_args=args.worker_arg) as address:
                 table, seconds, cpu, parts, tasks, mem = _cluster_run(address, plant, full, short)
-                rate_d = len(table) / seconds
-                after = _result(_local(plant, full))
-                rate1b = after["windows"] / after["seconds"]
-                again = (
-                    f"    plain process again, after the cluster: {rate1b:.2f} windows/s "
-                    f"(before {rate1:.2f}); reference: their mean  [{by._load()}]"
-                )
-                rate1 = 0.5 * (rate1 + rate1b)
-                eff = rate_d / (2 * rate1)
-                effs.append(eff)
-                same = by._compare(table, pd.read_parquet(tmp / "local.parquet"))
-                print(f"    loopback cluster, 2 workers: {len(table)} windows in {seconds:.1f} s"
-                      f" = {rate_d:.2f} windows/s, {len(table) / cpu:.2f} windows per worker "
-                      f"CPU-second; identical to local: {same}  [{by._load()}]")  # fmt: skip
-                busy = sum(parts.values())
-                split = ", ".join(f"{k} {v:.1f} s" for k, v in sorted(parts.items()))
-                print(f"    tasks {tasks} (one a day), task time {busy:.1f} s: {split}; "
-                      f"worker CPU {cpu:.1f} s over 2 x {seconds:.1f} s wall")  # fmt: skip
-                print("    workers (memory limit [MiB], spilled keys): " + ", ".join(
-                    f"{m / 2**20:.0f}, {s}" for m, s in mem.values()))  # fmt: skip
-                plain_cpu = (plain["windows"] + after["windows"]) / (plain["cpu"] + after["cpu"])
-                cpu_eff = (len(table) / cpu) / plain_cpu
-                print(
-                    f"    windows per CPU-second, workers / plain process: {cpu_eff:.2f} "
-                    "(Dask's own cost per window, whatever the machine's load)"
-                )
-                print(again)
-                print(f"    parallel efficiency {eff:.2f} (target >= {TARGET}) "
-                      f"{'PASS' if eff >= TARGET else 'FAIL'}; against two plain processes "
-                      f"{rate_d / rate2p:.2f}")  # fmt: skip
-                ok &= eff >= TARGET and same == "True"
+                idle = _idle_cost()
                 if rep == 0:
-                    out = tmp / "monitor"
-                    cmd = [sys.executable, "-m", "perftest.cli", "monitor", str(plant), "--data",
-                           str(full[0]), "--data", str(full[1]), "--every", by.EVERY, "--out",
-                           str(out), "--no-figures", "-q", "--engine", "dask",
-                           "--scheduler", address]  # fmt: skip
-                    t = time.perf_counter()
-                    proc = subprocess.run(cmd, capture_output=True, text=True, timeout=7200)
-                    took = time.perf_counter() - t
-                    if proc.returncode:
-                        print("    perftest monitor failed: " + proc.stderr.strip()[-300:])
-                        ok = False
-                    else:
-                        n = len(pd.read_csv(out / "windows.csv"))
-                        print(f"    perftest monitor --engine dask --scheduler {address}: "
-                              f"{n} windows in {took:.1f} s (with start-up and writing) "
-                              f"= {n / took:.2f} windows/s")  # fmt: skip
+                    ok &= _monitor_cli(plant, full, tmp / "monitor", address)
+            defaults = None
+            if args.dask_defaults:
+                with loopback_cluster(2, log_dir=tmp, worker_args=args.worker_arg,
+                                      quiet=False) as address:  # fmt: skip
+                    defaults = _cluster_run(address, plant, full, short)[:3] + (_idle_cost(),)
+            after = _result(_local(plant, full))
+            rate1b = after["windows"] / after["seconds"]
+            print(f"    plain process again, after the cluster: {rate1b:.2f} windows/s "
+                  f"(before {rate1:.2f}); reference: their mean  [{by._load()}]")  # fmt: skip
+            rate1 = 0.5 * (rate1 + rate1b)
+            plain_cpu = (plain["windows"] + after["windows"]) / (plain["cpu"] + after["cpu"])
+            rate_d = len(table) / seconds
+            eff = rate_d / (2 * rate1)
+            effs.append(eff)
+            same = by._compare(table, pd.read_parquet(tmp / "local.parquet"))
+            print(f"    loopback cluster, 2 workers: {len(table)} windows in {seconds:.1f} s"
+                  f" = {rate_d:.2f} windows/s, {len(table) / cpu:.2f} windows per worker "
+                  f"CPU-second; identical to local: {same}")  # fmt: skip
+            busy = sum(parts.values())
+            split = ", ".join(f"{k} {v:.1f} s" for k, v in sorted(parts.items()))
+            print(f"    tasks {tasks} (one a day), task time {busy:.1f} s: {split}; "
+                  f"worker CPU {cpu:.1f} s over 2 x {seconds:.1f} s wall")  # fmt: skip
+            print("    workers (memory limit [MiB], spilled keys): " + ", ".join(
+                f"{m / 2**20:.0f}, {s}" for m, s in mem.values()))  # fmt: skip
+            print(f"    the cluster's processes idle for {IDLE_SECONDS:.0f} s: {idle}")
+            cpu_eff = (len(table) / cpu) / plain_cpu
+            print(
+                f"    windows per CPU-second, workers / plain process: {cpu_eff:.2f} "
+                "(Dask's own cost per window, whatever the machine's load)"
+            )
+            print(f"    parallel efficiency {eff:.2f} (target >= {TARGET}) "
+                  f"{'PASS' if eff >= TARGET else 'FAIL'}; against two plain processes "
+                  f"{rate_d / rate2p:.2f}")  # fmt: skip
+            ok &= eff >= TARGET and same == "True"
+            if defaults is not None:
+                t_d, s_d, c_d, idle_d = defaults
+                same_d = by._compare(t_d, pd.read_parquet(tmp / "local.parquet"))
+                print(f"    for comparison, Dask's default sampling intervals (profiler off): "
+                      f"{len(t_d) / s_d:.2f} windows/s, {len(t_d) / c_d:.2f} windows per "
+                      f"worker CPU-second, efficiency {len(t_d) / s_d / (2 * rate1):.2f}; "
+                      f"identical to local: {same_d}; idle for {IDLE_SECONDS:.0f} s: "
+                      f"{idle_d}")  # fmt: skip
         if len(effs) > 1:
             print(f"parallel efficiency over {len(effs)} runs: min {min(effs):.2f}, "
                   f"max {max(effs):.2f}")  # fmt: skip

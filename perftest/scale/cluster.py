@@ -42,6 +42,35 @@ def _import_dask():
     return dask
 
 
+# Dask's sampling of its own health, made less frequent in the processes of a cluster
+# that computes perftest's windows (local_cluster sets them; README.md gives them as
+# environment variables for `dask worker` and `dask scheduler`).  Every Dask server
+# (scheduler, nanny, worker) wakes its event loop every 20 ms to time it (the "tick")
+# and every 500 ms to read the process's and the host's counters (the system
+# monitor).  Measured on a 2-core machine, a loopback scheduler and 2 workers with
+# their nannies, idle for 20 s: 1.80 CPU-seconds with Dask's defaults, 0.56 with
+# these, about 3 % of the two cores (benchmarks/bench_cluster.py).  Each wake-up of
+# a worker's event loop also takes the interpreter lock from the computing thread.
+# Both only feed diagnostics: a blocked event loop is still reported (after
+# distributed.admin.tick.limit, 3 s); the dashboard's system page updates every 2 s.
+# The memory monitor (spilling, pausing and restarting a worker) keeps its default.
+QUIET_SETTINGS = {
+    "distributed.admin.tick.interval": "1s",
+    "distributed.admin.system-monitor.interval": "2s",
+}
+# Dask's statistical worker profiler (see local_cluster)
+PROFILER_OFF = {"distributed.worker.profile.enabled": False}
+
+
+def environment(settings: dict) -> dict:
+    """Dask settings as the environment variables Dask reads at start-up
+    (``distributed.admin.tick.interval`` -> ``DASK_DISTRIBUTED__ADMIN__TICK__INTERVAL``)."""
+    return {
+        "DASK_" + "__".join(k.replace("-", "_").upper() for k in key.split(".")): str(value)
+        for key, value in settings.items()
+    }
+
+
 # _resolve_scheduler's answer when the job should start its own local_cluster
 _OWN_CLUSTER = object()
 
@@ -74,8 +103,10 @@ def local_cluster(n_workers: int | None = None, *, profiler: bool = False, **kwa
     """A ``distributed.LocalCluster`` set up for :func:`reconcile_many`.
 
     Worker processes with one thread each (the windows of one process take turns,
-    so a second thread would only wait), no dashboard, and, unless ``profiler``,
-    Dask's statistical worker profiler switched off.  That profiler samples the
+    so a second thread would only wait), no dashboard, Dask's sampling of its own
+    event loops and system counters made less frequent (every 1 s and 2 s instead of
+    20 ms and 500 ms: ``QUIET_SETTINGS``) and, unless ``profiler``, Dask's
+    statistical worker profiler switched off.  That profiler samples the
     computing thread's Python stack every 10 ms from the worker's event loop; on
     this job, which is mostly short Python calls, it cost the workers about a fifth
     of their windows per second (benchmarks/bench_year.py, 14 days of one-minute
@@ -105,8 +136,12 @@ def local_cluster(n_workers: int | None = None, *, profiler: bool = False, **kwa
 
     Notes
     -----
-    Workers started elsewhere (``dask worker``) take the same setting from the
-    environment variable ``DASK_DISTRIBUTED__WORKER__PROFILE__ENABLED=False``.
+    Workers started elsewhere (``dask worker``) take the same settings from the
+    environment variables ``DASK_DISTRIBUTED__WORKER__PROFILE__ENABLED=False``,
+    ``DASK_DISTRIBUTED__ADMIN__TICK__INTERVAL=1s`` and
+    ``DASK_DISTRIBUTED__ADMIN__SYSTEM_MONITOR__INTERVAL=2s`` (the last two for
+    ``dask scheduler`` too).  A ``config`` keyword replaces all of them for the
+    worker processes.
     """
     if n_workers is not None and (
         isinstance(n_workers, bool) or not isinstance(n_workers, int) or n_workers < 1
@@ -125,7 +160,7 @@ def local_cluster(n_workers: int | None = None, *, profiler: bool = False, **kwa
             'install "perftest[scale]".',
             parameter="engine",
         ) from None
-    settings = {} if profiler else {"distributed.worker.profile.enabled": False}
+    settings = {**QUIET_SETTINGS, **({} if profiler else PROFILER_OFF)}
     opts = dict(
         n_workers=n_workers or dask.system.CPU_COUNT,
         threads_per_worker=1,

@@ -21,16 +21,18 @@ import tempfile
 import time
 
 
-def worker_env(extra: dict | None = None) -> dict:
+def worker_env(extra: dict | None = None, *, quiet: bool = True) -> dict:
     """Environment of the cluster's processes: one BLAS thread (one task thread per
     worker on a small machine), Dask's worker profiler off (it samples every thread
-    ten times a second, a cost the plain process does not pay)."""
+    ten times a second, a cost the plain process does not pay) and, if ``quiet``,
+    Dask's sampling of its own event loops and system counters made less frequent
+    (``perftest.scale.cluster.QUIET_SETTINGS``, as README.md advises for a cluster
+    that computes perftest's windows)."""
+    from perftest.scale.cluster import PROFILER_OFF, QUIET_SETTINGS, environment
+
     env = dict(os.environ)
-    env.update(
-        OPENBLAS_NUM_THREADS="1",
-        OMP_NUM_THREADS="1",
-        DASK_DISTRIBUTED__WORKER__PROFILE__ENABLED="False",
-    )
+    env.update(OPENBLAS_NUM_THREADS="1", OMP_NUM_THREADS="1")
+    env.update(environment({**PROFILER_OFF, **(QUIET_SETTINGS if quiet else {})}))
     env.update(extra or {})
     return env
 
@@ -52,7 +54,7 @@ def _stop(procs, grace: float = 10.0) -> None:
 
 @contextlib.contextmanager
 def loopback_cluster(n_workers: int = 2, *, start_timeout: float = 60.0, log_dir=None,
-                     worker_args=(), env_extra=None):  # fmt: skip
+                     worker_args=(), env_extra=None, quiet=True):  # fmt: skip
     """Context: ``tcp://127.0.0.1:P`` of a scheduler with ``n_workers`` one-thread workers.
 
     Parameters
@@ -67,10 +69,13 @@ def loopback_cluster(n_workers: int = 2, *, start_timeout: float = 60.0, log_dir
         Further ``dask worker`` options (e.g. ``--memory-limit``).
     env_extra : dict, optional
         Further environment variables of the cluster's processes.
+    quiet : bool
+        Start the processes with perftest's settings for Dask's own sampling
+        (``worker_env``); False: Dask's defaults (the worker profiler stays off).
     """
     from distributed import Client
 
-    env = worker_env(env_extra)
+    env = worker_env(env_extra, quiet=quiet)
     procs = []
     logs = []
 

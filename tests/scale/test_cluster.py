@@ -19,6 +19,7 @@ import pytest
 pytest.importorskip("distributed")
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
+from distributed import Client  # noqa: E402
 from loopback import loopback_cluster  # noqa: E402
 
 DEMO = Path(__file__).resolve().parents[2] / "sample_data" / "brackenfold"
@@ -46,10 +47,26 @@ def _alive(pid: int) -> bool:
 
 
 def test_monitor_on_a_loopback_cluster_equals_local(tmp_path):
+    # local functions: sent by value (this module is not importable in the workers)
+    def _sampling(dask_worker):
+        calls = dask_worker.periodic_callbacks
+        return calls["tick"].callback_time, calls["monitor"].callback_time, "profile" in calls
+
+    def _sampling_of_scheduler(dask_scheduler):
+        calls = dask_scheduler.periodic_callbacks
+        return calls["tick"].callback_time, calls["monitor"].callback_time
+
     local = _monitor(tmp_path / "local")
     with loopback_cluster(2, log_dir=tmp_path) as address:
         assert address.startswith("tcp://127.0.0.1:")
         table = _monitor(tmp_path / "cluster", "--engine", "dask", "--scheduler", address)
+        with Client(address, timeout="10s") as client:
+            # `dask worker` and `dask scheduler` took README's settings from the
+            # environment: ticks every 1 s, system counters every 2 s, no profiler
+            sampling = client.run(_sampling)
+            scheduler = client.run_on_scheduler(_sampling_of_scheduler)
+    assert list(sampling.values()) == [(1000, 2000, False)] * 2
+    assert scheduler == (1000, 2000)
     # the same command on both engines: the same table, to the last printed digit
     # (both write floats with repr precision)
     pd.testing.assert_frame_equal(table, local)

@@ -371,6 +371,62 @@ def test_local_cluster_switches_the_worker_profiler_off():
         assert list(client.run(profiling).values()) == [(True, True)]
 
 
+def _sampling(server):
+    """Milliseconds between a Dask server's event-loop ticks and system-monitor reads."""
+    calls = server.periodic_callbacks
+    return calls["tick"].callback_time, calls["monitor"].callback_time
+
+
+def _worker_sampling(dask_worker):
+    return _sampling(dask_worker)
+
+
+def _scheduler_sampling(dask_scheduler):
+    return _sampling(dask_scheduler)
+
+
+def test_local_cluster_samples_dask_itself_less_often():
+    # Dask's defaults (distributed.yaml of distributed 2026.8): tick 20 ms, system monitor
+    # 500 ms; perftest's cluster: 1 s and 2 s in the worker processes (through their
+    # nannies) and in the scheduler, the memory monitor left at Dask's default.
+    distributed = pytest.importorskip("distributed")
+    import dask
+
+    from perftest.scale.cluster import QUIET_SETTINGS
+    from perftest.scale.many import local_cluster
+
+    assert QUIET_SETTINGS == {
+        "distributed.admin.tick.interval": "1s",
+        "distributed.admin.system-monitor.interval": "2s",
+    }
+    with local_cluster(1) as cluster, distributed.Client(cluster) as client:
+        assert list(client.run(_worker_sampling).values()) == [(1000, 2000)]
+        assert client.run_on_scheduler(_scheduler_sampling) == (1000, 2000)
+        key = "distributed.worker.memory.monitor-interval"
+        memory = client.run(lambda: dask.config.get(key))
+        assert list(memory.values()) == [dask.config.get(key)]
+    # this process's own configuration is left as it was
+    assert dask.config.get("distributed.admin.tick.interval") != "1s"
+
+
+def test_dask_settings_become_the_environment_variables_dask_reads():
+    # Dask's rule for environment variables (dask.config.collect_env, which reads them):
+    # DASK_ prefix, "__" between nested keys, case and "-"/"_" ignored.
+    dask = pytest.importorskip("dask")
+    from perftest.scale.cluster import QUIET_SETTINGS, environment
+
+    env = environment({**QUIET_SETTINGS, "distributed.worker.profile.enabled": False})
+    assert env == {
+        "DASK_DISTRIBUTED__ADMIN__TICK__INTERVAL": "1s",
+        "DASK_DISTRIBUTED__ADMIN__SYSTEM_MONITOR__INTERVAL": "2s",
+        "DASK_DISTRIBUTED__WORKER__PROFILE__ENABLED": "False",
+    }
+    read = dask.config.collect_env(env)
+    assert read["distributed"]["admin"]["tick"]["interval"] == "1s"
+    assert read["distributed"]["admin"]["system_monitor"]["interval"] == "2s"
+    assert read["distributed"]["worker"]["profile"]["enabled"] is False
+
+
 @pytest.mark.parametrize("n", [0, -2, 1.5, "2", True])
 def test_local_cluster_refuses_a_bad_worker_count(n):
     pytest.importorskip("distributed")
