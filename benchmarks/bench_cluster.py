@@ -171,8 +171,8 @@ def _idle_cost(seconds: float = IDLE_SECONDS) -> str:
     return f"{used:.2f} CPU-s ({used / seconds:.1%} of one core)"
 
 
-def _monitor_cli(plant, full, out, address) -> bool:
-    """``perftest monitor --engine dask --scheduler ADDRESS`` once, timed."""
+def _monitor_cli(plant, full, out, address) -> tuple[bool, str]:
+    """``perftest monitor --engine dask --scheduler ADDRESS`` once, timed: (ok, line)."""
     cmd = [sys.executable, "-m", "perftest.cli", "monitor", str(plant), "--data",
            str(full[0]), "--data", str(full[1]), "--every", by.EVERY, "--out",
            str(out), "--no-figures", "-q", "--engine", "dask",
@@ -181,13 +181,11 @@ def _monitor_cli(plant, full, out, address) -> bool:
     proc = subprocess.run(cmd, capture_output=True, text=True, timeout=7200)
     took = time.perf_counter() - t
     if proc.returncode:
-        print("    perftest monitor failed: " + proc.stderr.strip()[-300:])
-        return False
+        return False, "    perftest monitor failed: " + proc.stderr.strip()[-300:]
     n = len(pd.read_csv(out / "windows.csv"))
-    print(f"    perftest monitor --engine dask --scheduler {address}: "
-          f"{n} windows in {took:.1f} s (with start-up and writing) "
-          f"= {n / took:.2f} windows/s")  # fmt: skip
-    return True
+    return True, (f"    perftest monitor --engine dask --scheduler {address}: "
+                  f"{n} windows in {took:.1f} s (with start-up and writing) "
+                  f"= {n / took:.2f} windows/s")  # fmt: skip
 
 
 def _task_stream(client):
@@ -250,11 +248,12 @@ def main() -> None:
             with loopback_cluster(2, log_dir=tmp, worker_args=args.worker_arg) as address:
                 table, seconds, cpu, parts, tasks, mem = _cluster_run(address, plant, full, short)
                 idle = _idle_cost()
-                if rep == 0:
-                    ok &= _monitor_cli(plant, full, tmp / "monitor", address)
+                cli = _monitor_cli(plant, full, tmp / "monitor", address) if rep == 0 else None
             defaults = None
             if args.dask_defaults:
-                with loopback_cluster(2, log_dir=tmp, worker_args=args.worker_arg,
+                logs = tmp / f"dask-defaults-{rep}"  # its own logs beside the first's
+                logs.mkdir()
+                with loopback_cluster(2, log_dir=logs, worker_args=args.worker_arg,
                                       quiet=False) as address:  # fmt: skip
                     defaults = _cluster_run(address, plant, full, short)[:3] + (_idle_cost(),)
             after = _result(_local(plant, full))
@@ -286,6 +285,9 @@ def main() -> None:
                   f"{'PASS' if eff >= TARGET else 'FAIL'}; against two plain processes "
                   f"{rate_d / rate2p:.2f}")  # fmt: skip
             ok &= eff >= TARGET and same == "True"
+            if cli is not None:
+                ok &= cli[0]
+                print(cli[1])
             if defaults is not None:
                 t_d, s_d, c_d, idle_d = defaults
                 same_d = by._compare(t_d, pd.read_parquet(tmp / "local.parquet"))
